@@ -1,0 +1,83 @@
+"""The one tokeniser: runtime hypotheses and language-model training text both pass through it.
+
+Lower case, Unicode NFKC, numerals spelled out as words (recognisers emit words, NLU training
+data often holds digits), punctuation dropped except word-internal apostrophes, hyphens split.
+"""
+
+from __future__ import annotations
+
+import re
+import unicodedata
+
+__all__ = ["number_words", "tokenize"]
+
+_ONES = (
+    "zero one two three four five six seven eight nine ten eleven twelve thirteen fourteen "
+    "fifteen sixteen seventeen eighteen nineteen"
+).split()
+_TENS = "_ _ twenty thirty forty fifty sixty seventy eighty ninety".split()
+_SCALES = ((1_000_000_000, "billion"), (1_000_000, "million"), (1_000, "thousand"), (100, "hundred"))
+_ORDINAL_WORDS = {
+    "one": "first", "two": "second", "three": "third", "five": "fifth", "eight": "eighth",
+    "nine": "ninth", "twelve": "twelfth",
+}
+
+# A digit run with an optional decimal part, an optional ordinal suffix, or a clock time.
+_NUMBER = re.compile(r"(\d+):(\d\d)\b|(\d+(?:\.\d+)?)(st|nd|rd|th)?\b|(\d+)")
+_WORD = re.compile(r"[^\W_]+(?:'[^\W_]+)*")
+
+
+def number_words(value: int) -> list[str]:
+    """Spell a non-negative integer as English words: 2304 -> two thousand three hundred four."""
+    if value < 0:
+        raise ValueError(f"number_words takes a non-negative integer, got {value}")
+    if value < 20:
+        return [_ONES[value]]
+    if value < 100:
+        tens, ones = divmod(value, 10)
+        return [_TENS[tens]] + ([_ONES[ones]] if ones else [])
+    for size, name in _SCALES:
+        if value >= size:
+            high, low = divmod(value, size)
+            return number_words(high) + [name] + (number_words(low) if low else [])
+    raise AssertionError("unreachable")  # pragma: no cover
+
+
+def _ordinal(words: list[str]) -> list[str]:
+    last = words[-1]
+    if last in _ORDINAL_WORDS:
+        last = _ORDINAL_WORDS[last]
+    elif last.endswith("y"):
+        last = last[:-1] + "ieth"
+    else:
+        last += "th"
+    return words[:-1] + [last]
+
+
+def _spell_number(match: re.Match[str]) -> str:
+    hours, minutes, number, suffix, bare = match.groups()
+    if hours is not None:
+        words = number_words(int(hours))
+        mins = int(minutes)
+        if mins:
+            words += (["oh"] if mins < 10 else []) + number_words(mins)
+        return " " + " ".join(words) + " "
+    text = number if number is not None else bare
+    whole, _, fraction = text.partition(".")
+    if len(whole) > 12:  # a serial number, not a quantity: read digit by digit
+        words = [_ONES[int(d)] for d in whole]
+    else:
+        words = number_words(int(whole))
+    if fraction:
+        words += ["point"] + [_ONES[int(d)] for d in fraction]
+    elif suffix:
+        words = _ordinal(words)
+    return " " + " ".join(words) + " "
+
+
+def tokenize(text: str) -> list[str]:
+    """Split text into normalised word tokens."""
+    text = unicodedata.normalize("NFKC", text).lower()
+    text = text.replace("\u2019", "'").replace("%", " percent ").replace("&", " and ")
+    text = _NUMBER.sub(_spell_number, text)
+    return _WORD.findall(text)
