@@ -94,7 +94,11 @@ def load_yaml(path: Path, *, env: Mapping[str, str] | None = None, text: str | N
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f"{name}:{mark.line + 1}" if mark is not None else name
-        raise ConfigError(f"{where}: not valid YAML", [str(getattr(exc, "problem", exc))]) from None
+        detail = str(getattr(exc, "problem", None) or exc)
+        context, context_mark = getattr(exc, "context", None), getattr(exc, "context_mark", None)
+        if context and context_mark is not None:
+            detail += f" ({context} started at line {context_mark.line + 1})"
+        raise ConfigError(f"{where}: not valid YAML", [detail]) from None
     finally:
         loader.dispose()
     out = Located(file=name, value=None)
