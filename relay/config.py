@@ -114,11 +114,11 @@ class StageSpec(BaseModel):
 
 
 class RelayConfig(_Strict):
-    broker: BrokerSettings = Field(default_factory=BrokerSettings)
-    topics: TopicSettings = Field(default_factory=TopicSettings)
-    limits: LimitSettings = Field(default_factory=LimitSettings)
-    metrics: MetricsSettings = Field(default_factory=MetricsSettings)
-    logging: LogSettings = Field(default_factory=LogSettings)
+    broker: BrokerSettings = BrokerSettings()
+    topics: TopicSettings = TopicSettings()
+    limits: LimitSettings = LimitSettings()
+    metrics: MetricsSettings = MetricsSettings()
+    logging: LogSettings = LogSettings()
     fields: FieldMap = Field(default_factory=FieldMap)
     cache_dir: str = ".rehear-cache"
     stages: list[StageSpec] = Field(default_factory=list)

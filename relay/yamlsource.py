@@ -72,7 +72,7 @@ def _build(node: yaml.Node, loader: yaml.SafeLoader, path: Path_, out: Located, 
     value = loader.construct_object(node)
     if isinstance(value, str) and "${" in value:
         value = _interpolate(value, env, file=out.file, line=node.start_mark.line + 1)
-        if node.tag == "tag:yaml.org,2002:str" and node.style is None:
+        if node.tag == "tag:yaml.org,2002:str" and getattr(node, "style", None) is None:
             # An unquoted ${PORT} should still become a number or a boolean.
             value = yaml.safe_load(value) if value.strip() else value
     return value
