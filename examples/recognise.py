@@ -76,7 +76,9 @@ def recognise_pcm(pcm: bytes, top: int = DEFAULT_TOP) -> list[dict[str, Any]]:
         if best is None:
             items = [{"text": ""}]
         else:
-            items = [{"text": best.hypstr, "logprob": round(score_to_logprob(best.score), 3)}]
+            items = [
+                {"text": best.hypstr, "logprob": round(score_to_logprob(best.score), 3)}
+            ]
     return items
 
 

@@ -23,14 +23,27 @@ SNR_15_SHARE = 1 / 10
 
 # Which device a speaker's utterance most likely comes from, by place entry.
 PLACE_DEVICE = {
-    "place.bay_1": "bench-1", "place.bay_2": "bench-2", "place.bay_3": "bench-3",
-    "place.bay_4": "bench-4", "place.bay_5": "bench-5", "place.bay_6": "bench-6",
-    "place.mezzanine": "mezzanine-kiosk", "place.wet_room": "wet-room-panel",
-    "place.kiln_yard": "yard-panel", "place.front_desk": "front-desk",
-    "place.loading_dock": "door-panel", "place.timber_store": "handheld-2",
+    "place.bay_1": "bench-1",
+    "place.bay_2": "bench-2",
+    "place.bay_3": "bench-3",
+    "place.bay_4": "bench-4",
+    "place.bay_5": "bench-5",
+    "place.bay_6": "bench-6",
+    "place.mezzanine": "mezzanine-kiosk",
+    "place.wet_room": "wet-room-panel",
+    "place.kiln_yard": "yard-panel",
+    "place.front_desk": "front-desk",
+    "place.loading_dock": "door-panel",
+    "place.timber_store": "handheld-2",
     "place.electronics_corner": "bench-7",
 }
-ROAMING_DEVICES = ("handheld-1", "handheld-2", "door-panel", "front-desk", "mezzanine-kiosk")
+ROAMING_DEVICES = (
+    "handheld-1",
+    "handheld-2",
+    "door-panel",
+    "front-desk",
+    "mezzanine-kiosk",
+)
 
 
 @dataclass
@@ -48,7 +61,9 @@ class Plan:
     extra: dict[str, str] = field(default_factory=dict)
 
 
-def _pick_entry(rng: random.Random, pool: list[Entry], liked: dict[str, float], taken: set[str]) -> Entry:
+def _pick_entry(
+    rng: random.Random, pool: list[Entry], liked: dict[str, float], taken: set[str]
+) -> Entry:
     free = [e for e in pool if e.id not in taken]
     favourites = [e for e in free if e.id in liked]
     if favourites and rng.random() < AFFINITY_PICK:
@@ -73,7 +88,9 @@ def _literal_mentions(template: str, scenario: Scenario) -> list[tuple[Entry, st
     return found
 
 
-def _fill(rng: random.Random, template: str, scenario: Scenario, liked: dict[str, float]) -> tuple[str, str, list[dict[str, str]]]:
+def _fill(
+    rng: random.Random, template: str, scenario: Scenario, liked: dict[str, float]
+) -> tuple[str, str, list[dict[str, str]]]:
     literal = _literal_mentions(template, scenario)
     reference, speak = template, template
     for entry, form in literal:
@@ -83,7 +100,9 @@ def _fill(rng: random.Random, template: str, scenario: Scenario, liked: dict[str
     mentions = [(entry, form) for entry, form in literal]
     taken = {e.id for e, _ in literal}
     for kind in SLOT.findall(template):
-        entry = _pick_entry(rng, scenario.by_type(kind), liked, taken | {e.id for e in used})
+        entry = _pick_entry(
+            rng, scenario.by_type(kind), liked, taken | {e.id for e in used}
+        )
         used.append(entry)
         mentions.append((entry, entry.name))
         reference = reference.replace("{" + kind + "}", entry.name, 1)
@@ -94,13 +113,19 @@ def _fill(rng: random.Random, template: str, scenario: Scenario, liked: dict[str
 
 
 def _source(rng: random.Random, liked: dict[str, float]) -> str:
-    homes = [PLACE_DEVICE[i] for i in sorted(liked, key=lambda i: -liked[i]) if i in PLACE_DEVICE]
+    homes = [
+        PLACE_DEVICE[i]
+        for i in sorted(liked, key=lambda i: -liked[i])
+        if i in PLACE_DEVICE
+    ]
     if homes and rng.random() < 0.6:
         return homes[0]
     return rng.choice(ROAMING_DEVICES)
 
 
-def make_plans(scenario: Scenario, train: list[str], novel: list[str], count: int, seed: int) -> list[Plan]:
+def make_plans(
+    scenario: Scenario, train: list[str], novel: list[str], count: int, seed: int
+) -> list[Plan]:
     """`count` utterance plans; same inputs and seed give the same plans."""
     rng = random.Random(seed)
     pools = {
@@ -119,7 +144,9 @@ def make_plans(scenario: Scenario, train: list[str], novel: list[str], count: in
 
     plans: list[Plan] = []
     for i in range(count):
-        split: Literal["seen", "novel"] = "novel" if rng.random() < NOVEL_SHARE else "seen"
+        split: Literal["seen", "novel"] = (
+            "novel" if rng.random() < NOVEL_SHARE else "seen"
+        )
         with_entities = rng.random() >= NO_ENTITY_SHARE
         template = rng.choice(pools[(split, with_entities)])
         speaker = rng.choice(speakers)

@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import re
 from dataclasses import dataclass, field
+from itertools import pairwise
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
@@ -18,15 +19,63 @@ ALLOWED_TEXT = re.compile(r"^[a-z' {}_]+$")
 
 # Rough English respelling for each ARPAbet phone, used only to feed the synthesiser.
 PHONE_SPELLING = {
-    "AA": "ah", "AE": "a", "AH": "uh", "AO": "aw", "AW": "ow", "AY": "eye",
-    "EH": "eh", "ER": "er", "EY": "ay", "IH": "ih", "IY": "ee", "OW": "oh",
-    "OY": "oy", "UH": "oo", "UW": "oo",
-    "B": "b", "CH": "ch", "D": "d", "DH": "th", "F": "f", "G": "g", "HH": "h",
-    "JH": "j", "K": "k", "L": "l", "M": "m", "N": "n", "NG": "ng", "P": "p",
-    "R": "r", "S": "s", "SH": "sh", "T": "t", "TH": "th", "V": "v", "W": "w",
-    "Y": "y", "Z": "z", "ZH": "zh",
+    "AA": "ah",
+    "AE": "a",
+    "AH": "uh",
+    "AO": "aw",
+    "AW": "ow",
+    "AY": "eye",
+    "EH": "eh",
+    "ER": "er",
+    "EY": "ay",
+    "IH": "ih",
+    "IY": "ee",
+    "OW": "oh",
+    "OY": "oy",
+    "UH": "oo",
+    "UW": "oo",
+    "B": "b",
+    "CH": "ch",
+    "D": "d",
+    "DH": "th",
+    "F": "f",
+    "G": "g",
+    "HH": "h",
+    "JH": "j",
+    "K": "k",
+    "L": "l",
+    "M": "m",
+    "N": "n",
+    "NG": "ng",
+    "P": "p",
+    "R": "r",
+    "S": "s",
+    "SH": "sh",
+    "T": "t",
+    "TH": "th",
+    "V": "v",
+    "W": "w",
+    "Y": "y",
+    "Z": "z",
+    "ZH": "zh",
 }
-VOWELS = {"AA", "AE", "AH", "AO", "AW", "AY", "EH", "ER", "EY", "IH", "IY", "OW", "OY", "UH", "UW"}
+VOWELS = {
+    "AA",
+    "AE",
+    "AH",
+    "AO",
+    "AW",
+    "AY",
+    "EH",
+    "ER",
+    "EY",
+    "IH",
+    "IY",
+    "OW",
+    "OY",
+    "UH",
+    "UW",
+}
 
 
 class ScenarioError(ValueError):
@@ -75,12 +124,12 @@ def arpabet_to_text(phones: list[str]) -> str:
     if not nuclei:
         return " ".join(PHONE_SPELLING[b] for b in bases)
     cuts = [0]
-    for left, right in zip(nuclei, nuclei[1:]):
+    for left, right in pairwise(nuclei):
         between = right - left - 1
         cuts.append(left + 1 + (1 if between >= 2 else 0))
     cuts.append(len(bases))
     words = []
-    for start, stop in zip(cuts, cuts[1:]):
+    for start, stop in pairwise(cuts):
         word = ""
         for i in range(start, stop):
             if bases[i] == "AY" and word:
@@ -103,7 +152,9 @@ def say_to_text(say: str) -> str:
 def check_text(text: str, where: str) -> None:
     """Enforce the corpus text convention: lowercase words, apostrophes, slots."""
     if not ALLOWED_TEXT.match(text):
-        raise ScenarioError(f"{where}: only lowercase words, apostrophes and {{slots}} allowed: {text!r}")
+        raise ScenarioError(
+            f"{where}: only lowercase words, apostrophes and {{slots}} allowed: {text!r}"
+        )
 
 
 def load_lexicon(path: Path) -> list[Entry]:
@@ -125,7 +176,16 @@ def load_lexicon(path: Path) -> list[Entry]:
                 weight = float(row.get("weight") or 1.0)
             except ValueError as exc:
                 raise ScenarioError(f"{where}: weight is not a number") from exc
-            entries.append(Entry(row["id"], row["type"], row["name"], aliases, row.get("say") or "", weight))
+            entries.append(
+                Entry(
+                    row["id"],
+                    row["type"],
+                    row["name"],
+                    aliases,
+                    row.get("say") or "",
+                    weight,
+                )
+            )
     return entries
 
 
@@ -148,14 +208,18 @@ def load_affinity(path: Path, known: set[str]) -> dict[str, dict[str, float]]:
 
 def load_phrasings(path: Path, types: set[str]) -> list[str]:
     lines: list[str] = []
-    for line_no, raw in enumerate(path.read_text(encoding="utf-8").splitlines(), start=1):
+    for line_no, raw in enumerate(
+        path.read_text(encoding="utf-8").splitlines(), start=1
+    ):
         text = raw.strip()
         if not text:
             continue
         check_text(text, f"{path}:{line_no}")
         for slot in SLOT.findall(text):
             if slot not in types:
-                raise ScenarioError(f"{path}:{line_no}: slot {{{slot}}} is not a lexicon type")
+                raise ScenarioError(
+                    f"{path}:{line_no}: slot {{{slot}}} is not a lexicon type"
+                )
         lines.append(text)
     return lines
 
