@@ -1,0 +1,104 @@
+"""Recognise one utterance with pocketsphinx and shape it as a recogniser message.
+
+Shared by the corpus recorder and the MQTT bridge so both produce identical N-best
+lists. Uses the generic English model bundled with the pocketsphinx wheel and its
+default decoder settings.
+"""
+
+from __future__ import annotations
+
+import math
+import wave
+from itertools import islice
+from pathlib import Path
+from typing import Any
+
+SAMPLE_RATE = 16000
+DEFAULT_TOP = 10
+
+
+class AudioFormatError(ValueError):
+    """The audio is not 16 kHz mono 16-bit PCM."""
+
+
+def read_pcm(path: Path) -> bytes:
+    """Return the raw samples of a 16 kHz mono 16-bit WAV file."""
+    try:
+        with wave.open(str(path), "rb") as wav:
+            shape = (wav.getframerate(), wav.getnchannels(), wav.getsampwidth())
+            if shape != (SAMPLE_RATE, 1, 2):
+                raise AudioFormatError(
+                    f"{path}: need 16000 Hz mono 16-bit PCM, got {shape[0]} Hz, "
+                    f"{shape[1]} channel(s), {8 * shape[2]}-bit"
+                )
+            return wav.readframes(wav.getnframes())
+    except wave.Error as exc:
+        raise AudioFormatError(f"{path}: not a readable WAV file ({exc})") from exc
+
+
+def score_to_logprob(score: float) -> float:
+    """Natural-log total score of an N-best entry.
+
+    The binding reports `score` as 1.0001 ** (internal_score / 1024) while the
+    internal score is in units of log base 1.0001, so ln(total) = 1024 * ln(score).
+    Checked against the per-word acoustic and language scores of `Decoder.seg()`.
+    """
+    if score <= 0.0:
+        # exp() underflowed: the hypothesis is astronomically unlikely.
+        return -1.0e6
+    # Rounding can push a near-certain total a hair above zero; the format wants <= 0.
+    return min(0.0, 1024.0 * math.log(score))
+
+
+def recognise_pcm(pcm: bytes, top: int = DEFAULT_TOP) -> list[dict[str, Any]]:
+    """Decode 16 kHz mono 16-bit samples; return up to `top` N-best items.
+
+    A fresh Decoder per utterance: a reused one adapts its cepstral mean and so
+    changes the scores of later utterances. The N-best order and duplicates are
+    kept exactly as the decoder yields them (entry one is not always the best
+    scored). `prob` of an N-best item is always 1.0, not a posterior, so no `conf`
+    is written.
+    """
+    # Imported here so `--help` works without loading the model.
+    from pocketsphinx import Decoder
+
+    decoder = Decoder(loglevel="FATAL")
+    decoder.start_utt()
+    decoder.process_raw(pcm, full_utt=True)
+    decoder.end_utt()
+    items = [
+        {"text": hyp.hypstr, "logprob": round(score_to_logprob(hyp.score), 3)}
+        for hyp in islice(decoder.nbest(), top)
+    ]
+    if not items:
+        # No lattice (e.g. silence): fall back to the single best path, or empty text.
+        best = decoder.hyp()
+        if best is None:
+            items = [{"text": ""}]
+        else:
+            items = [
+                {"text": best.hypstr, "logprob": round(score_to_logprob(best.score), 3)}
+            ]
+    return items
+
+
+def recognise_file(path: Path, top: int = DEFAULT_TOP) -> list[dict[str, Any]]:
+    """Decode one WAV file (16 kHz mono 16-bit)."""
+    return recognise_pcm(read_pcm(path), top)
+
+
+def build_message(
+    utt_id: str,
+    nbest: list[dict[str, Any]],
+    source: str | None = None,
+    speaker: str | None = None,
+) -> dict[str, Any]:
+    """A recogniser message (FORMATS section 1) for one final result."""
+    message: dict[str, Any] = {"id": utt_id}
+    if source is not None:
+        message["source"] = source
+    if speaker is not None:
+        message["speaker"] = speaker
+    message["final"] = True
+    message["nbest"] = nbest
+    return message
