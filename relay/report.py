@@ -24,6 +24,7 @@ from relay.tuning import DEFAULT_GATE_GRID, RecordedFeatures, gate_accepts
 __all__ = ["entity_type", "tradeoff_curve", "write_report"]
 
 _TOP = 15
+_STYLE = "<style>body{font-family:sans-serif;max-width:60em;margin:2em auto}td,th{padding:2px 8px}</style>"
 
 
 def tradeoff_curve(outcomes: Sequence[Outcome]) -> list[tuple[float, float]]:
@@ -118,8 +119,7 @@ def _misses(outcomes: Sequence[Outcome]) -> Counter[str]:
 def write_report(path: Path, outcomes: Sequence[Outcome], summary: Summary, *, title: str) -> None:
     """Write a self-contained HTML report."""
     parts = [f"<!doctype html><meta charset='utf-8'><title>{html.escape(title)}</title>",
-             "<style>body{font-family:sans-serif;max-width:60em;margin:2em auto}"
-             "td,th{padding:2px 8px;text-align:left}</style>",
+             _STYLE,
              f"<h1>{html.escape(title)}</h1>", f"<pre>{html.escape(format_table(summary))}</pre>"]
     for caption, image in _plots(outcomes, summary):
         parts.append(f"<h2>{html.escape(caption)}</h2><img alt='{html.escape(caption)}' "

@@ -7,7 +7,7 @@ import random
 from pathlib import Path
 from typing import Any
 
-WORDS = "book the lathe bandsaw for bay two three at four kiln sander".split()
+WORDS = ["book", "the", "lathe", "bandsaw", "for", "bay", "two", "three", "at", "four", "kiln", "sander"]
 
 
 def corpus_line(index: int, rng: random.Random) -> dict[str, Any]:

@@ -5,15 +5,19 @@ from pathlib import Path
 
 import jiwer
 import pytest
+from corpus_fixtures import write_config, write_corpus
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from relay.commands import eval as eval_command
 from relay.corpus import parse_filter, read_corpus
-from relay.errors import InputError
+from relay.defaults import default_config
+from relay.errors import ConfigError, InputError
 from relay.evaluate import Outcome, edit_distance, summarize, word_errors
+from relay.registry import Registry
+from stages.gate import GateStage
+from stages.normalize import NormalizeStage
 from stages.tokens import tokenize
-from corpus_fixtures import write_config, write_corpus
 
 PAIRS = [
     ("start the irrigation pump in zone three", "start the irrigation pumpkin shown three"),
@@ -138,3 +142,28 @@ def test_eval_command_reports_a_bad_line_without_a_traceback(tmp_path: Path, cap
     code = eval_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")), "--no-progress"])
     assert code != 0
     assert f"{corpus}:1: message: field nbest.0.conf" in capsys.readouterr().err
+
+
+def test_report_embeds_the_plots_as_png(tmp_path: Path) -> None:
+    pytest.importorskip("matplotlib")
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 60)
+    report = tmp_path / "report.html"
+    assert eval_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")),
+                              "--report", str(report), "--no-progress"]) == 0
+    page = report.read_text()
+    assert page.count("src='data:image/png;base64,") >= 3
+    assert "Wrong accepts against clarifications" in page and "Entity recall per type" in page
+
+
+def test_default_chain_leaves_out_stages_that_are_not_installed(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    registry = Registry(builtins=False, plugins=False)
+    registry.register(NormalizeStage)  # type: ignore[arg-type]
+    registry.register(GateStage)  # type: ignore[arg-type]
+    lexicon = tmp_path / "lexicon.csv"
+    lexicon.write_text("id,type,name\nmachine.lathe,machine,lathe\n")
+    raw = default_config(lexicon=lexicon, train=None, speakers=None, cache_dir=tmp_path / "cache", registry=registry)
+    assert raw["stages"] == ["normalize", "gate"]
+    assert "lexicon is not installed" in capsys.readouterr().err
+    with pytest.raises(ConfigError, match="does not exist"):
+        default_config(lexicon=tmp_path / "missing.csv", train=None, speakers=None, registry=registry)
