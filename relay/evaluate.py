@@ -192,7 +192,7 @@ def format_table(summary: Summary, *, title: str = "") -> str:
         ("WER, first hypothesis", f"{summary.wer_first:.1%}"),
         ("WER, best in list (oracle)", f"{summary.wer_oracle:.1%}"),
         ("WER, rehear", f"{summary.wer_relay:.1%}"),
-        ("  relative to first", f"{_ratio(summary.wer_first - summary.wer_relay, summary.wer_first):+.1%} lower"),
+        ("  change against first", f"{_ratio(summary.wer_relay - summary.wer_first, summary.wer_first):+.1%}"),
         ("entity recall", f"{summary.entity_recall:.1%}"),
         ("entity precision", f"{summary.entity_precision:.1%}"),
     ]

@@ -37,6 +37,9 @@ __all__ = [
 # A parameter the installed stage does not have is left out (and reported), so the search
 # degrades instead of failing when a stage is absent or renamed its settings.
 DEFAULT_SPACE: dict[str, dict[str, list[Any]]] = {
+    # Recogniser log scores are often on a scale far from natural-log probabilities (pocketsphinx's
+    # differ by thousands); the scale decides how sharp the posterior the gate reads is.
+    "normalize": {"logprob_scale": [1.0, 0.3, 0.1, 0.03]},
     "lm_rescore": {"lm_weight": [0.3, 0.6, 1.0], "word_bonus": [0.0, 1.0]},
     "lexicon": {"min_score": [0.5, 0.65, 0.8]},
 }
