@@ -75,6 +75,10 @@ class GateSettings(BaseModel):
     reprompt_entity: float = Field(0.2, ge=0, le=1, description="weakest entity score below which to ask again")
     safety_words: list[str] = Field(default_factory=lambda: list(DEFAULT_SAFETY_WORDS))
     safety_types: list[str] = Field(default_factory=lambda: list(DEFAULT_SAFETY_TYPES))
+    safety_min_posterior: float = Field(
+        0.1, ge=0, le=1.01,
+        description="other hypotheses at least this likely are checked for safety words too (above 1: off)",
+    )
     prompts: PromptTemplates = Field(default_factory=PromptTemplates)
     prompts_by_type: dict[str, PromptTemplates] = Field(
         default_factory=dict, description="per entity type, replaces the prompts above"
@@ -152,15 +156,22 @@ class GateStage:
         pass
 
     def safety_rule(self, utterance: Utterance) -> str | None:
-        """Which safety rule the result trips, if any (by entity type first, then by words)."""
+        """Which safety rule the result trips, if any (by entity type first, then by words).
+
+        A likely runner-up counts too: "stat the lathe" on top of "start the lathe" may
+        well have been a start command, and accepting it must not be how one slips through.
+        """
         for entity in utterance.entities:
             if entity.type in self._types:
                 return f"type:{entity.type}"
-        words = tuple(tokenize(utterance.text))
-        for phrase in self._phrases:
-            size = len(phrase)
-            if any(words[i:i + size] == phrase for i in range(len(words) - size + 1)):
-                return "word:" + " ".join(phrase)
+        texts = [utterance.text]
+        texts += [h.text for h in utterance.ranked() if h.posterior >= self.settings.safety_min_posterior]
+        for text in texts:
+            words = tuple(tokenize(text))
+            for phrase in self._phrases:
+                size = len(phrase)
+                if any(words[i:i + size] == phrase for i in range(len(words) - size + 1)):
+                    return "word:" + " ".join(phrase) + ("" if text == utterance.text else " (runner-up)")
         return None
 
     def features(self, utterance: Utterance) -> GateFeatures:

@@ -99,6 +99,14 @@ def test_dangerous_commands_are_always_confirmed(text: str, rule: str) -> None:
     assert utterance.prompt == f"Please confirm: {utterance.text}?"
 
 
+def test_a_likely_runner_up_with_a_dangerous_word_is_confirmed() -> None:
+    texts = ["stat the lathe", "start the lathe"]
+    utterance = gate().process(make_utterance([0.85, 0.15], texts))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == "safety:word:start (runner-up)"
+    assert gate(safety_min_posterior=0.2).process(make_utterance([0.85, 0.15], texts)).decision == "accept"
+
+
 def test_words_match_whole_words_only() -> None:
     utterance = gate().process(make_utterance([0.99, 0.01], ["the starter kit is in bay two", "x"]))
     assert utterance.decision == "accept"
