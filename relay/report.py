@@ -38,7 +38,7 @@ def tradeoff_curve(outcomes: Sequence[Outcome]) -> list[tuple[float, float]]:
     envelope: list[tuple[float, float]] = []
     best = np.inf
     for index in np.argsort(clarify, kind="stable"):
-        if wrong[index] < best:
+        if accepted[index] and wrong[index] < best:  # with nothing accepted the rate means nothing
             best = float(wrong[index])
             envelope.append((float(clarify[index]), best))
     return envelope
