@@ -48,10 +48,20 @@ Parameters of stages the chain lacks, or that the installed stage does not have,
 """
 
 
+def _share(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = -1.0
+    if not 0.0 <= value <= 1.0:
+        raise argparse.ArgumentTypeError(f"{text!r}: give a share between 0 and 1, e.g. 0.25")
+    return value
+
+
 def _configure(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
     add_corpus_arguments(parser)
     parser.add_argument("-o", "--output", type=Path, required=True, metavar="TUNED.yaml", help="configuration to write")
-    parser.add_argument("--max-clarify", type=float, default=0.25, metavar="SHARE",
+    parser.add_argument("--max-clarify", type=_share, default=0.25, metavar="SHARE",
                         help="most utterances that may be asked back, confirm + reprompt (default %(default)s)")
     parser.add_argument("--folds", type=int, default=5, help="cross-validation folds (default %(default)s)")
     parser.add_argument("--seed", type=int, default=20261202, help="seed for folds and sampling (default %(default)s)")
