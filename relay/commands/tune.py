@@ -112,6 +112,18 @@ def _usable_space(args: argparse.Namespace, builder: VariantBuilder) -> dict[str
     return usable
 
 
+def _written_form(args: argparse.Namespace, loaded: LoadedConfig) -> dict[str, Any]:
+    """The configuration as the user wrote it: ${VARIABLES} stay unexpanded, so no secret from
+    the environment ends up in the tuned file."""
+    raw: dict[str, Any] = dict(loaded.source.value)
+    if args.config is not None:
+        raw = yaml.safe_load(args.config.read_text(encoding="utf-8"))
+    stages = list(raw.get("stages") or [])
+    if not any((item if isinstance(item, str) else next(iter(item))) == "gate" for item in stages):
+        stages.append("gate")
+    return {**raw, "stages": stages}
+
+
 def _portable(raw: dict[str, Any], base_dir: Path) -> dict[str, Any]:
     """Relative file paths made absolute, so the written file works from any folder."""
     out = dict(raw)
@@ -163,7 +175,7 @@ def run(args: argparse.Namespace) -> int:
     gate_params = {**gate_spec.params, **{k: getattr(tuned_gate, k) for k in
                    (*final.gate, "reprompt_posterior", "reprompt_entity")}}
     overrides = {**settings[final.setting], "gate": gate_params}
-    raw = _portable(with_overrides(dict(loaded.source.value), overrides), loaded.base_dir)
+    raw = _portable(with_overrides(_written_form(args, loaded), overrides), loaded.base_dir)
     header = (f"# rehear tune on {args.corpus} ({described}), {args.folds}-fold held-out: "
               f"WER {held_out.wer_relay:.1%}, wrong accepts {held_out.wrong_accept_rate:.1%}, "
               f"asked back {held_out.clarify_rate:.1%} (budget {args.max_clarify:.0%})\n")

@@ -241,3 +241,15 @@ def test_tune_prints_only_numbers_from_utterances_the_choice_was_not_fitted_on(
         assert not train & set(test)
         assert len(train) + len(test) == 80
     assert sorted(scored[4]) == list(range(80))
+
+
+def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("REHEAR_TEST_PASSWORD", "hunter2")
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 40)
+    config = tmp_path / "relay.yaml"
+    config.write_text("broker:\n  password: ${REHEAR_TEST_PASSWORD}\nstages:\n  - normalize\n  - gate\n")
+    out = tmp_path / "tuned.yaml"
+    assert tune_command.main([str(corpus), "--config", str(config), "-o", str(out), "--no-progress"]) == 0
+    written = out.read_text()
+    assert "${REHEAR_TEST_PASSWORD}" in written and "hunter2" not in written
+    assert load_config(out).config.broker.password is not None
