@@ -16,6 +16,7 @@ import orjson
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from relay.errors import InputError
+from relay.fieldmap import FieldMap
 from relay.messages import parse_message
 from relay.pipeline import Utterance
 
@@ -50,10 +51,11 @@ class CorpusItem:
     payload: bytes  # the recogniser message, re-encoded once
     tags: dict[str, Any]
     where: str
+    field_map: FieldMap | None = None  # the relay's field map, for logs in a recogniser's own shape
 
     def utterance(self) -> Utterance:
         """A fresh Utterance, parsed exactly as the relay parses a message."""
-        return parse_message(self.payload, topic=self.where, max_payload_bytes=1 << 30)
+        return parse_message(self.payload, topic=self.where, field_map=self.field_map, max_payload_bytes=1 << 30)
 
 
 def _problem(error: ValidationError) -> str:
@@ -62,7 +64,7 @@ def _problem(error: ValidationError) -> str:
     return f"field {field}: {first['msg']}"
 
 
-def read_corpus(path: str | Path) -> list[CorpusItem]:
+def read_corpus(path: str | Path, *, field_map: FieldMap | None = None) -> list[CorpusItem]:
     """All lines of a corpus file; InputError naming ``file:line`` on the first bad one."""
     path = Path(path)
     try:
@@ -95,6 +97,7 @@ def read_corpus(path: str | Path) -> list[CorpusItem]:
             payload=orjson.dumps(entry.message),
             tags=dict(entry.tags),
             where=where,
+            field_map=field_map,
         )
         try:
             item.utterance()

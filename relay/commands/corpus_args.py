@@ -45,9 +45,9 @@ def add_corpus_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
 
 
-def selected_items(args: argparse.Namespace) -> tuple[list[CorpusItem], str]:
+def selected_items(args: argparse.Namespace, loaded: LoadedConfig) -> tuple[list[CorpusItem], str]:
     """The corpus lines the filters keep, and a description of the filters."""
-    items = read_corpus(args.corpus)
+    items = read_corpus(args.corpus, field_map=loaded.config.fields)
     filters: list[TagFilter] = [*args.where, *args.exclude_tag]
     kept = [item for item in items if all(f(item) for f in filters)]
     described = " and ".join(str(f) for f in filters) or "all lines"

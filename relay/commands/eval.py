@@ -42,8 +42,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 def run(args: argparse.Namespace) -> int:
     try:
-        items, described = selected_items(args)
         loaded = chosen_config(args)
+        items, described = selected_items(args, loaded)
         chain = build_chain(loaded, progress=not args.no_progress)
         chain.load()
         outcomes = run_corpus(chain, items, progress=not args.no_progress)

@@ -144,8 +144,8 @@ def _portable(raw: dict[str, Any], base_dir: Path) -> dict[str, Any]:
 def run(args: argparse.Namespace) -> int:
     progress = not args.no_progress
     try:
-        items, described = selected_items(args)
         loaded = _with_gate(chosen_config(args))
+        items, described = selected_items(args, loaded)
         builder = VariantBuilder(loaded, progress=progress)
         space = _usable_space(args, builder)
         settings = expand_space(space, max_settings=args.max_settings, seed=args.seed)

@@ -14,6 +14,7 @@ from relay.corpus import parse_filter, read_corpus
 from relay.defaults import default_config
 from relay.errors import ConfigError, InputError
 from relay.evaluate import Outcome, edit_distance, summarize, word_errors
+from relay.fieldmap import FieldMap
 from relay.registry import Registry
 from stages.gate import GateStage
 from stages.normalize import NormalizeStage
@@ -167,3 +168,14 @@ def test_default_chain_leaves_out_stages_that_are_not_installed(
     assert "lexicon is not installed" in capsys.readouterr().err
     with pytest.raises(ConfigError, match="does not exist"):
         default_config(lexicon=tmp_path / "missing.csv", train=None, speakers=None, registry=registry)
+
+
+def test_corpus_messages_go_through_the_relays_field_map(tmp_path: Path) -> None:
+    corpus = tmp_path / "own-shape.jsonl"
+    corpus.write_text('{"id": "a", "reference": "book the lathe", "message": '
+                      '{"utt": "a", "result": {"alts": [{"transcript": "book the lathe"}]}}}\n')
+    with pytest.raises(InputError, match=f"{corpus}:1: message"):
+        read_corpus(corpus)
+    field_map = FieldMap(id="utt", nbest="result.alts", text="transcript")
+    [item] = read_corpus(corpus, field_map=field_map)
+    assert item.utterance().nbest[0].text == "book the lathe"
