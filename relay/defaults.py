@@ -1,0 +1,83 @@
+"""The default chain, normalize -> lm_rescore -> lexicon -> gate, built in memory from a lexicon,
+in-domain text and (optionally) speaker affinities, for `eval` and `tune` without a config file.
+
+The result is an ordinary configuration dict, so `tune` can write it back out as YAML that
+`run` and `eval` accept. A stage that cannot be imported is left out with a note on stderr,
+so the zero-config form keeps working while stages are missing.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import importlib
+import sys
+from pathlib import Path
+from typing import Any
+
+from relay.errors import ConfigError
+from relay.registry import Registry
+
+__all__ = ["default_config"]
+
+# Parameter names of stages owned elsewhere; the only place this module depends on them.
+_LM_MODEL_PARAM = "model"
+_LEXICON_PARAM = "lexicon"
+_SPEAKERS_PARAM = "speakers"
+# The language-model builder's entry point: module, function(train=, lexicon=, output=).
+_BUILD_LM = ("relay.commands.build_lm", "build_model")
+
+
+def _available(registry: Registry, name: str) -> bool:
+    try:
+        registry.get(name)
+    except ConfigError:
+        return False
+    return True
+
+
+def _build_language_model(train: Path, lexicon: Path, cache_dir: Path) -> Path | None:
+    """Estimate the ARPA model from ``train`` (slots expanded from ``lexicon``), cached by content."""
+    module_name, function_name = _BUILD_LM
+    try:
+        build = getattr(importlib.import_module(module_name), function_name)
+    except (ImportError, AttributeError):
+        return None
+    digest = hashlib.sha256(train.read_bytes() + b"\0" + lexicon.read_bytes()).hexdigest()[:16]
+    output = cache_dir / f"default-lm-{digest}.arpa"
+    if not output.exists():
+        cache_dir.mkdir(parents=True, exist_ok=True)
+        partial = output.with_suffix(".partial")
+        build(train=train, lexicon=lexicon, output=partial)
+        partial.replace(output)
+    return output
+
+
+def _note(message: str) -> None:
+    print(f"rehear: {message}", file=sys.stderr)
+
+
+def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
+                   cache_dir: Path = Path(".rehear-cache"), registry: Registry | None = None) -> dict[str, Any]:
+    """A relay configuration dict holding the default chain for these files (absolute paths)."""
+    registry = registry or Registry()
+    for label, path in (("lexicon", lexicon), ("in-domain text", train), ("speakers", speakers)):
+        if path is not None and not path.is_file():
+            raise ConfigError(f"Cannot build the default chain: {label} file {path} does not exist")
+    stages: list[Any] = ["normalize"]
+    if train is not None and _available(registry, "lm_rescore"):
+        model = _build_language_model(train.resolve(), lexicon.resolve(), cache_dir.resolve())
+        if model is None:
+            _note("no language-model builder available; the default chain runs without lm_rescore")
+        else:
+            stages.append({"lm_rescore": {_LM_MODEL_PARAM: str(model)}})
+    elif train is not None:
+        _note("stage lm_rescore is not installed; the default chain runs without it")
+    if _available(registry, "lexicon"):
+        params = {_LEXICON_PARAM: str(lexicon.resolve())}
+        if speakers is not None:
+            params[_SPEAKERS_PARAM] = str(speakers.resolve())
+        stages.append({"lexicon": params})
+    else:
+        _note("stage lexicon is not installed; the default chain runs without it")
+    stages.append("gate")
+    return {"cache_dir": str(cache_dir.resolve()), "stages": stages}

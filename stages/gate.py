@@ -1,0 +1,228 @@
+"""Stage `gate`: accept the result, confirm it ("did you mean ...?") or ask again ("which machine?").
+
+The decision is a pure function of a few recorded features (``GateFeatures``) and the
+thresholds, so `tune` can sweep thresholds on features recorded once instead of re-running
+the chain. A safety rule sits on top of the scores: a command that can move machinery, open
+a valve or dose a chemical is never accepted on voice alone.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import asdict, dataclass
+from typing import Any, ClassVar
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+
+from relay.pipeline import Decision, StageContext, Utterance
+from stages.tokens import tokenize
+
+__all__ = ["GateFeatures", "GateSettings", "GateStage", "decide"]
+
+_PLACEHOLDERS = frozenset({"text", "entity", "heard", "type_noun"})
+_FIELD = re.compile(r"\{([^{}]*)\}")
+_SEVERITY: dict[Decision, int] = {"accept": 0, "confirm": 1, "reprompt": 2}
+
+# Verbs that set something in motion, release energy or material. A false alarm costs one
+# "did you mean ...?"; a miss can hurt someone, so the list errs on the side of asking.
+DEFAULT_SAFETY_WORDS = [
+    "start", "restart", "run", "open", "dose", "lift", "raise", "lower", "spin up", "power up",
+    "switch on", "turn on", "fire up", "ignite", "energise", "energize", "engage", "activate",
+    "release", "unlock", "feed", "pump", "inject", "pressurise", "pressurize", "heat up", "drain",
+]
+DEFAULT_SAFETY_TYPES = ["valve", "actuator", "hoist", "chemical", "dosing", "conveyor"]
+
+
+def _check_template(template: str) -> str:
+    for name in _FIELD.findall(template):
+        if name not in _PLACEHOLDERS:
+            allowed = ", ".join("{" + p + "}" for p in sorted(_PLACEHOLDERS))
+            raise ValueError(f"unknown placeholder {{{name}}} (allowed: {allowed})")
+    return template
+
+
+class PromptTemplates(BaseModel):
+    """What to say back. ``{entity}`` is the entity the question is about, ``{heard}`` what
+    the recogniser produced for it, ``{type_noun}`` its type as a noun, ``{text}`` the result."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    confirm: str = "Did you mean {text}?"
+    confirm_entity: str = "Did you mean {entity}?"
+    confirm_safety: str = "Please confirm: {text}?"
+    reprompt: str = "Sorry, could you say that again?"
+    reprompt_entity: str = "Which {type_noun}?"
+
+    _templates = field_validator("*")(_check_template)
+
+
+class GateSettings(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    accept_posterior: float = Field(0.6, ge=0, le=1, description="top posterior needed to accept")
+    accept_margin: float = Field(0.2, ge=0, le=1, description="lead over the runner-up needed to accept")
+    accept_entity: float = Field(0.5, ge=0, le=1, description="weakest entity score needed to accept")
+    accept_correction: float = Field(
+        0.8, ge=0, le=1.01, description="a correction scored below this is confirmed (above 1: always)"
+    )
+    accept_without_entity: bool = Field(
+        True, description="accept a result in which no lexicon entity was found (most commands name one)"
+    )
+    min_lm_per_word: float | None = Field(
+        None, description="LM natural-log score per word below which the result is confirmed; off when unset"
+    )
+    reprompt_posterior: float = Field(0.2, ge=0, le=1, description="top posterior below which to ask again")
+    reprompt_entity: float = Field(0.2, ge=0, le=1, description="weakest entity score below which to ask again")
+    safety_words: list[str] = Field(default_factory=lambda: list(DEFAULT_SAFETY_WORDS))
+    safety_types: list[str] = Field(default_factory=lambda: list(DEFAULT_SAFETY_TYPES))
+    safety_min_posterior: float = Field(
+        0.1, ge=0, le=1.01,
+        description="other hypotheses at least this likely are checked for safety words too (above 1: off)",
+    )
+    prompts: PromptTemplates = Field(default_factory=PromptTemplates)
+    prompts_by_type: dict[str, PromptTemplates] = Field(
+        default_factory=dict, description="per entity type, replaces the prompts above"
+    )
+    type_nouns: dict[str, str] = Field(default_factory=dict, description="entity type -> noun used in prompts")
+
+    @model_validator(mode="after")
+    def _ordered(self) -> GateSettings:
+        if self.reprompt_posterior > self.accept_posterior:
+            raise ValueError("reprompt_posterior must not exceed accept_posterior")
+        if self.reprompt_entity > self.accept_entity:
+            raise ValueError("reprompt_entity must not exceed accept_entity")
+        return self
+
+
+@dataclass(frozen=True, slots=True)
+class GateFeatures:
+    """What the gate looks at, recorded once per utterance."""
+
+    posterior: float
+    margin: float
+    weakest_entity: float | None
+    corrected: bool
+    correction_score: float | None  # the weakest correction's score
+    lm_per_word: float | None
+    safety_rule: str | None  # e.g. "word:start" or "type:valve"
+    empty: bool
+
+
+def decide(features: GateFeatures, settings: GateSettings) -> tuple[Decision, str]:
+    """The decision and the rule that produced it, from features and thresholds alone."""
+    decision: Decision
+    if features.empty:
+        decision, rule = "reprompt", "empty"
+    elif features.posterior < settings.reprompt_posterior:
+        decision, rule = "reprompt", "low_posterior"
+    elif features.weakest_entity is not None and features.weakest_entity < settings.reprompt_entity:
+        decision, rule = "reprompt", "weak_entity"
+    elif features.posterior < settings.accept_posterior:
+        decision, rule = "confirm", "posterior"
+    elif features.margin < settings.accept_margin:
+        decision, rule = "confirm", "margin"
+    elif features.weakest_entity is not None and features.weakest_entity < settings.accept_entity:
+        decision, rule = "confirm", "entity"
+    elif features.weakest_entity is None and not settings.accept_without_entity:
+        decision, rule = "confirm", "no_entity"
+    elif features.corrected and (features.correction_score or 0.0) < settings.accept_correction:
+        decision, rule = "confirm", "correction"
+    elif (settings.min_lm_per_word is not None and features.lm_per_word is not None
+          and features.lm_per_word < settings.min_lm_per_word):
+        decision, rule = "confirm", "lm_per_word"
+    else:
+        decision, rule = "accept", "scores"
+    # The safety rule only ever makes the answer more cautious: asking again stays asking again.
+    if features.safety_rule is not None and _SEVERITY[decision] < _SEVERITY["confirm"]:
+        return "confirm", "safety:" + features.safety_rule
+    return decision, rule
+
+
+class GateStage:
+    """Decide what happens to the result and what to say back when it is not accepted."""
+
+    name: ClassVar[str] = "gate"
+    Settings: ClassVar[type[BaseModel]] = GateSettings
+    needs: ClassVar[frozenset[str]] = frozenset({"posterior"})
+    provides: ClassVar[frozenset[str]] = frozenset({"decision"})
+
+    def __init__(self, settings: GateSettings, *, context: StageContext) -> None:
+        self.settings = settings
+        phrases = [tuple(tokenize(p)) for p in settings.safety_words]
+        self._phrases = sorted({p for p in phrases if p}, key=len, reverse=True)
+        self._types = frozenset(settings.safety_types)
+
+    def load(self) -> None:
+        pass
+
+    def safety_rule(self, utterance: Utterance) -> str | None:
+        """Which safety rule the result trips, if any (by entity type first, then by words).
+
+        A likely runner-up counts too: "stat the lathe" on top of "start the lathe" may
+        well have been a start command, and accepting it must not be how one slips through.
+        """
+        for entity in utterance.entities:
+            if entity.type in self._types:
+                return f"type:{entity.type}"
+        texts = [utterance.text]
+        texts += [h.text for h in utterance.ranked() if h.posterior >= self.settings.safety_min_posterior]
+        for text in texts:
+            words = tuple(tokenize(text))
+            for phrase in self._phrases:
+                size = len(phrase)
+                if any(words[i:i + size] == phrase for i in range(len(words) - size + 1)):
+                    return "word:" + " ".join(phrase) + ("" if text == utterance.text else " (runner-up)")
+        return None
+
+    def features(self, utterance: Utterance) -> GateFeatures:
+        ranked = utterance.ranked()
+        top = ranked[0].posterior if ranked else 0.0
+        runner_up = ranked[1].posterior if len(ranked) > 1 else 0.0
+        entity_scores = [e.score for e in utterance.entities]
+        correction_scores = [c.score for c in utterance.corrections]
+        lm = ranked[0].scores.get("lm_per_word") if ranked else None
+        return GateFeatures(
+            posterior=top,
+            margin=top - runner_up,
+            weakest_entity=min(entity_scores) if entity_scores else None,
+            corrected=bool(utterance.corrections),
+            correction_score=min(correction_scores) if correction_scores else None,
+            lm_per_word=lm,
+            safety_rule=self.safety_rule(utterance),
+            empty=not utterance.text.strip(),
+        )
+
+    def _prompt(self, utterance: Utterance, decision: Decision, rule: str) -> str | None:
+        if decision == "accept":
+            return None
+        about = None
+        if rule in {"weak_entity", "entity"} and utterance.entities:
+            about = min(utterance.entities, key=lambda e: e.score)
+        elif rule == "correction" and utterance.entities:
+            corrected = {c.after for c in utterance.corrections}
+            about = next((e for e in utterance.entities if e.name in corrected), None)
+            about = about or min(utterance.entities, key=lambda e: e.score)
+        prompts = self.settings.prompts
+        if about is not None and about.type in self.settings.prompts_by_type:
+            prompts = self.settings.prompts_by_type[about.type]
+        if rule.startswith("safety:"):
+            template = prompts.confirm_safety
+        elif decision == "confirm":
+            template = prompts.confirm_entity if about is not None else prompts.confirm
+        else:
+            template = prompts.reprompt_entity if about is not None else prompts.reprompt
+        values: dict[str, Any] = {
+            "text": utterance.text,
+            "entity": about.name if about else "",
+            "heard": about.heard if about else "",
+            "type_noun": self.settings.type_nouns.get(about.type, about.type.replace("_", " ")) if about else "",
+        }
+        return template.format(**values)
+
+    def process(self, utterance: Utterance) -> Utterance:
+        features = self.features(utterance)
+        decision, rule = decide(features, self.settings)
+        utterance.decision = decision
+        utterance.prompt = self._prompt(utterance, decision, rule)
+        utterance.note(rule=rule, decision=decision, **{k: v for k, v in asdict(features).items()})
+        return utterance

@@ -1,0 +1,170 @@
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+from pydantic import ValidationError
+
+from relay.config import build_chain, load_config
+from relay.messages import parse_message
+from relay.pipeline import Correction, Entity, Hypothesis, StageContext, TraceEntry, Utterance
+from relay.registry import Registry
+from stages.gate import GateFeatures, GateSettings, GateStage, decide
+
+CONTEXT = StageContext(base_dir=Path("."), cache_dir=Path(".rehear-cache"))
+
+
+def make_utterance(posteriors: list[float], texts: list[str] | None = None, *,
+                   entities: list[Entity] | None = None, corrections: list[Correction] | None = None,
+                   lm_per_word: float | None = None) -> Utterance:
+    texts = texts or [f"hypothesis {i}" for i in range(len(posteriors))]
+    nbest = [Hypothesis(text=t, rank=i, fields={"text": t}, tokens=t.split(), posterior=p)
+             for i, (t, p) in enumerate(zip(texts, posteriors))]
+    if lm_per_word is not None:
+        nbest[0].scores["lm_per_word"] = lm_per_word
+    utterance = Utterance(id="u1", source="test", speaker=None, payload={}, nbest=nbest,
+                          entities=entities or [], corrections=corrections or [])
+    utterance.trace.append(TraceEntry("gate"))
+    return utterance
+
+
+def machine(score: float, name: str = "corvin bandsaw") -> Entity:
+    return Entity(id="machine.x", type="machine", name=name, span=(0, len(name)), heard="carving band saw", score=score)
+
+
+def gate(**settings: object) -> GateStage:
+    return GateStage(GateSettings.model_validate(settings), context=CONTEXT)
+
+
+def test_confident_result_with_strong_entity_is_accepted() -> None:
+    utterance = gate().process(make_utterance([0.9, 0.1], ["book the corvin bandsaw", "book the"],
+                                              entities=[machine(0.95)]))
+    assert utterance.decision == "accept"
+    assert utterance.prompt is None
+    assert utterance.trace[-1].scores["rule"] == "scores"
+
+
+def test_low_posterior_asks_again_naming_the_entity_type() -> None:
+    utterance = gate().process(make_utterance([0.15, 0.1, 0.1], entities=[machine(0.9)]))
+    assert utterance.decision == "reprompt"
+    assert utterance.trace[-1].scores["rule"] == "low_posterior"
+
+
+def test_weak_entity_asks_which_one() -> None:
+    utterance = gate().process(make_utterance([0.9, 0.1], entities=[machine(0.1)]))
+    assert utterance.decision == "reprompt"
+    assert utterance.prompt == "Which machine?"
+
+
+def test_type_nouns_and_per_type_prompts_apply() -> None:
+    stage = gate(type_nouns={"machine": "tool"}, prompts_by_type={"person": {"reprompt_entity": "Who do you mean?"}})
+    assert stage.process(make_utterance([0.9, 0.1], entities=[machine(0.1)])).prompt == "Which tool?"
+    person = Entity(id="p", type="person", name="ane szymanska", span=(0, 3), heard="anne", score=0.1)
+    assert stage.process(make_utterance([0.9, 0.1], entities=[person])).prompt == "Who do you mean?"
+
+
+def test_narrow_margin_confirms_the_whole_text() -> None:
+    stage = gate(accept_posterior=0.5, accept_margin=0.3)
+    utterance = stage.process(make_utterance([0.62, 0.38], ["book the lathe", "look the lathe"]))
+    assert utterance.decision == "confirm"
+    assert utterance.prompt == "Did you mean book the lathe?"
+    assert utterance.trace[-1].scores["rule"] == "margin"
+    assert utterance.trace[-1].scores["margin"] == pytest.approx(0.24)
+
+
+def test_uncertain_correction_is_confirmed_naming_the_corrected_entity() -> None:
+    fix = Correction(stage="lexicon", before="pillow table saw", after="pellow table saw", score=0.7, reason="phonetic")
+    utterance = gate().process(make_utterance(
+        [0.95, 0.05], ["book the pellow table saw", "x"], entities=[machine(0.9, "pellow table saw")], corrections=[fix]))
+    assert utterance.decision == "confirm"
+    assert utterance.prompt == "Did you mean pellow table saw?"
+    assert utterance.trace[-1].scores["corrected"] is True
+
+
+def test_confident_correction_is_accepted() -> None:
+    fix = Correction(stage="lexicon", before="pillow", after="pellow table saw", score=0.95, reason="phonetic")
+    utterance = gate().process(make_utterance([0.95, 0.05], entities=[machine(0.9)], corrections=[fix]))
+    assert utterance.decision == "accept"
+
+
+@pytest.mark.parametrize("text,rule", [
+    ("start the corvin bandsaw", "safety:word:start"),
+    ("please spin up the lathe", "safety:word:spin up"),
+    ("Open valve 3", "safety:word:open"),
+])
+def test_dangerous_commands_are_always_confirmed(text: str, rule: str) -> None:
+    utterance = gate().process(make_utterance([0.99, 0.01], [text, "x"], entities=[machine(0.99)]))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == rule
+    assert utterance.prompt == f"Please confirm: {utterance.text}?"
+
+
+def test_a_likely_runner_up_with_a_dangerous_word_is_confirmed() -> None:
+    texts = ["stat the lathe", "start the lathe"]
+    utterance = gate().process(make_utterance([0.85, 0.15], texts))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == "safety:word:start (runner-up)"
+    assert gate(safety_min_posterior=0.2).process(make_utterance([0.85, 0.15], texts)).decision == "accept"
+
+
+def test_words_match_whole_words_only() -> None:
+    utterance = gate().process(make_utterance([0.99, 0.01], ["the starter kit is in bay two", "x"]))
+    assert utterance.decision == "accept"
+
+
+def test_dangerous_entity_type_is_confirmed() -> None:
+    valve = Entity(id="v1", type="valve", name="coolant valve", span=(0, 5), heard="coolant valve", score=0.99)
+    utterance = gate(safety_words=[]).process(make_utterance([0.99, 0.01], ["check the coolant valve", "x"],
+                                                             entities=[valve]))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == "safety:type:valve"
+
+
+def test_safety_rule_never_relaxes_a_reprompt() -> None:
+    utterance = gate().process(make_utterance([0.1, 0.1], ["start it", "stop it"]))
+    assert utterance.decision == "reprompt"
+
+
+def test_low_language_model_score_confirms_when_configured() -> None:
+    assert gate().process(make_utterance([0.9, 0.1], lm_per_word=-9.0)).decision == "accept"
+    utterance = gate(min_lm_per_word=-6.0).process(make_utterance([0.9, 0.1], lm_per_word=-9.0))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["lm_per_word"] == -9.0
+
+
+def test_result_without_entity_can_be_sent_back() -> None:
+    assert gate(accept_without_entity=False).process(make_utterance([0.9, 0.1])).decision == "confirm"
+
+
+def test_empty_text_asks_again() -> None:
+    assert gate().process(make_utterance([1.0], [""])).decision == "reprompt"
+
+
+def test_decide_is_a_pure_function_of_features() -> None:
+    features = GateFeatures(posterior=0.7, margin=0.5, weakest_entity=0.55, corrected=False,
+                            correction_score=None, lm_per_word=None, safety_rule=None, empty=False)
+    assert decide(features, GateSettings()) == ("accept", "scores")
+    assert decide(features, GateSettings(accept_entity=0.6)) == ("confirm", "entity")
+
+
+@pytest.mark.parametrize("settings,message", [
+    ({"accept_posterior": 0.3, "reprompt_posterior": 0.5}, "reprompt_posterior"),
+    ({"prompts": {"confirm": "Did you mean {txt}?"}}, "unknown placeholder {txt}"),
+    ({"acept_posterior": 0.5}, "Extra inputs are not permitted"),
+])
+def test_invalid_settings_are_rejected(settings: dict[str, object], message: str) -> None:
+    with pytest.raises(ValidationError, match=message.replace("{", r"\{").replace("}", r"\}")):
+        GateSettings.model_validate(settings)
+
+
+def test_gate_runs_in_a_chain_built_from_yaml(tmp_path: Path) -> None:
+    config = tmp_path / "relay.yaml"
+    config.write_text("stages:\n  - normalize\n  - gate:\n      accept_posterior: 0.7\n")
+    chain = build_chain(load_config(config))
+    assert Registry().get("gate") is GateStage
+    chain.load()
+    message = b'{"id": "a", "nbest": [{"text": "Book the lathe", "conf": 0.9}, {"text": "look the lathe", "conf": 0.1}]}'
+    utterance = chain.process(parse_message(message, topic="asr/a/nbest"))
+    assert utterance.decision == "accept"
+    assert utterance.trace[-1].stage == "gate"
+    assert utterance.trace[-1].scores["posterior"] == pytest.approx(0.9)
