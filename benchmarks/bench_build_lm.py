@@ -51,7 +51,7 @@ def _templated_corpus(path: Path, words: int, rng: random.Random) -> None:
     verbs = [_word("v", i) for i in range(60)]
     things = [_word("t", i) for i in range(1_500)]
     places = [_word("p", i) for i in range(300)]
-    times = "now today tonight tomorrow later soon".split() + [_word("at", i) for i in range(100)]
+    times = ["now", "today", "tonight", "tomorrow", "later", "soon"] + [_word("at", i) for i in range(100)]
     patterns = [
         lambda: ["please", rng.choice(verbs), "the", rng.choice(things)],
         lambda: [rng.choice(verbs), "the", rng.choice(things), "in", "the", rng.choice(places)],

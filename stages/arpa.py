@@ -48,8 +48,7 @@ def _entries(model: KneserNeyModel, k: int) -> Iterator[str]:
 
 def _write(model: KneserNeyModel, out: TextIO) -> None:
     out.write("\n\\data\\\n")
-    for k in range(model.order):
-        out.write(f"ngram {k + 1}={len(model.counts[k])}\n")
+    out.writelines(f"ngram {k + 1}={len(model.counts[k])}\n" for k in range(model.order))
     for k in range(model.order):
         out.write(f"\n\\{k + 1}-grams:\n")
         out.writelines(_entries(model, k))

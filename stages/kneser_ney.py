@@ -79,7 +79,7 @@ def estimate_discounts(
         values = [j - (j + 1) * y * nxt / cur for j, cur, nxt in ((1, n1, n2), (2, n2, n3), (3, n3, n4))]
         bad = [f"D{j}={d:.4g}" for j, d in enumerate(values, start=1) if not 0 <= d <= j]
         if not bad:
-            return Discounts(*values)
+            return Discounts(values[0], values[1], values[2])
         reason = f"{', '.join(bad)} outside [0, j] (n1..n4 = {n1}, {n2}, {n3}, {n4})"
     d1, d2, d3 = (float(v) for v in fallback)
     warnings.warn(

@@ -1,10 +1,11 @@
 """Invented letters-only corpus: seeded random sentences over a small Zipf vocabulary."""
 import random
+
 rng = random.Random(20261202)
-nouns = "lamp kettle bench rope lantern barrow ladder anvil spool crate bucket chisel".split()
-verbs = "fetch carry mend paint lift sweep stack polish".split()
-adjs = "red old small heavy bright spare long".split()
-places = "shed yard loft porch cellar barn".split()
+nouns = ["lamp", "kettle", "bench", "rope", "lantern", "barrow", "ladder", "anvil", "spool", "crate", "bucket", "chisel"]
+verbs = ["fetch", "carry", "mend", "paint", "lift", "sweep", "stack", "polish"]
+adjs = ["red", "old", "small", "heavy", "bright", "spare", "long"]
+places = ["shed", "yard", "loft", "porch", "cellar", "barn"]
 def zipf(words):
     return rng.choices(words, weights=[1 / (i + 1) for i in range(len(words))])[0]
 lines = []

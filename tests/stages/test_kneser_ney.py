@@ -80,10 +80,10 @@ def test_kenlm_sentence_scores_equal_the_estimator(tmp_path: Path) -> None:
     model = _corpus_model(3)
     lm = _kenlm(model, tmp_path)
     sentences = [s for s in _lines("kn_corpus.txt")[:40]] + [
-        "please carry the bright anvil to the attic".split(),
-        "the ladder is by the lamp now".split(),
-        "fetch".split(),
-        "unknown words like quasar appear here".split(),
+        ["please", "carry", "the", "bright", "anvil", "to", "the", "attic"],
+        ["the", "ladder", "is", "by", "the", "lamp", "now"],
+        ["fetch"],
+        ["unknown", "words", "like", "quasar", "appear", "here"],
         [],
     ]
     for tokens in sentences:
