@@ -194,7 +194,7 @@ class KneserNeyModel:
         """
         if (word,) not in self.counts[0]:
             word = UNK
-        context = tuple(history)[len(history) - (self.order - 1):] if self.order > 1 else ()
+        context = tuple(history)[-(self.order - 1):] if self.order > 1 else ()
         return self._interpolated(word, context)
 
     def _interpolated(self, word: str, context: Ngram) -> float:

@@ -10,7 +10,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from relay.errors import RehearError
+from relay.errors import InputError, RehearError
 from stages.arpa import write_arpa
 from stages.corpus_text import CorpusOptions, read_sentences, read_slot_values
 from stages.kneser_ney import DEFAULT_FALLBACK, DiscountFallbackWarning, estimate
@@ -32,6 +32,14 @@ Errors name the file and line; the exit status is 2 for bad input, 0 on success.
 """
 
 
+def _order(value: str) -> int:
+    number = int(value)
+    if number < 2:
+        # kenlm, which loads the model at run time, reads bigram models and up
+        raise argparse.ArgumentTypeError(f"must be at least 2, got {number}")
+    return number
+
+
 def _positive(value: str) -> int:
     number = int(value)
     if number < 1:
@@ -43,7 +51,7 @@ def _configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("text", nargs="+", type=Path, metavar="TEXT", help="in-domain text files")
     parser.add_argument("-o", "--output", required=True, type=Path, metavar="MODEL.arpa",
                         help="where to write the ARPA model")
-    parser.add_argument("--order", type=_positive, default=3, metavar="N",
+    parser.add_argument("--order", type=_order, default=3, metavar="N",
                         help="n-gram order (default: 3; in-domain command text rarely gains from more)")
     parser.add_argument("--lexicon", type=Path, metavar="L",
                         help="lexicon (CSV, YAML or JSON) whose entries fill {type} slots")
@@ -93,6 +101,9 @@ def run(args: argparse.Namespace) -> int:
         for warning in caught:
             print(f"warning: {warning.message}", file=sys.stderr)
         write_arpa(model, args.output)
+    except InputError as exc:
+        print(f"error: {exc.detail}", file=sys.stderr)  # the detail names file and line
+        return 2
     except RehearError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2

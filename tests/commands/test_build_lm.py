@@ -158,3 +158,10 @@ def test_runs_as_a_module_and_fails_without_traceback(tmp_path: Path) -> None:
     assert "bad.txt:1: not UTF-8" in failed.stderr
     assert "Traceback" not in failed.stderr
     assert not (tmp_path / "lm.arpa").exists()
+
+
+def test_order_below_two_is_refused(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    with pytest.raises(SystemExit) as stopped:
+        main([str(DATA / "lm_domain.txt"), "-o", str(tmp_path / "lm.arpa"), "--order", "1"])
+    assert stopped.value.code == 2
+    assert "must be at least 2" in capsys.readouterr().err

@@ -212,10 +212,14 @@ def test_agrees_with_lmplz_without_fallback(order: int, tmp_path: Path) -> None:
     _assert_same_arpa(tmp_path / "ours.arpa", DATA / f"kn_corpus.lmplz.o{order}.arpa")
 
 
-def test_agrees_with_lmplz_with_fallback(tmp_path: Path) -> None:
-    # Reference: tests/data/kn_tiny.lmplz.o3.arpa, written by lmplz -o 3 --discount_fallback.
-    with pytest.warns(DiscountFallbackWarning):
-        model = estimate(_lines("kn_tiny.txt"), 3)
-    assert [d.fallback for d in model.discounts] == [False, False, True]
+@pytest.mark.parametrize(
+    ("corpus", "order", "fallback_order"),
+    [("kn_tiny", 3, 3), ("kn_corpus", 5, 4)],
+)
+def test_agrees_with_lmplz_with_fallback(corpus: str, order: int, fallback_order: int, tmp_path: Path) -> None:
+    # Reference: tests/data/{corpus}.lmplz.o{order}.arpa, written by lmplz --discount_fallback.
+    with pytest.warns(DiscountFallbackWarning, match=f"order {fallback_order}:"):
+        model = estimate(_lines(f"{corpus}.txt"), order)
+    assert [d.fallback for d in model.discounts] == [k == fallback_order for k in range(1, order + 1)]
     write_arpa(model, tmp_path / "ours.arpa")
-    _assert_same_arpa(tmp_path / "ours.arpa", DATA / "kn_tiny.lmplz.o3.arpa")
+    _assert_same_arpa(tmp_path / "ours.arpa", DATA / f"{corpus}.lmplz.o{order}.arpa")
