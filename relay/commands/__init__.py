@@ -1,0 +1,1 @@
+"""Command modules of the `rehear` CLI; each exposes add_parser(subparsers) and run(args)."""
