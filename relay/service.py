@@ -241,6 +241,9 @@ class Relay:
         deadline = received + config.limits.deadline_ms / 1000
         try:
             utterance = await self._run_chain(active, utterance, deadline, config.limits.chain_runner)
+            if time.monotonic() > deadline:  # the last stage overran: the result is too late
+                raise DeadlineExceeded(utterance.trace[-1].stage if utterance.trace else "chain",
+                                       (time.monotonic() - received) * 1000)
         except (asyncio.TimeoutError, DeadlineExceeded):
                 _log.warning("deadline passed; forwarding the original",
                              extra={"fields": {"id": utterance.id, "deadline_ms": config.limits.deadline_ms}})

@@ -164,6 +164,8 @@ class Session:
         # aiomqtt 2.5 has no public switch for application acknowledgements yet (its issue
         # #345); paho, underneath, has. It must be set before connecting: a persistent session
         # redelivers queued input right after CONNACK, and paho would acknowledge it at once.
+        # Many publishes wait for their PUBACK at once by design (bounded by max_in_flight).
+        self.client.pending_calls_threshold = 3 * receive_maximum + 10
         self._paho = self.client._client  # noqa: SLF001
         self._paho.manual_ack_set(True)
 
