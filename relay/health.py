@@ -56,7 +56,7 @@ class HealthServer:
         try:
             head = await asyncio.wait_for(reader.readuntil(b"\r\n\r\n"), timeout=5)
             status, content_type, body = self._respond(head[:_MAX_REQUEST_BYTES])
-        except (asyncio.IncompleteReadError, asyncio.LimitOverrunError, asyncio.TimeoutError, ConnectionError):
+        except (TimeoutError, asyncio.IncompleteReadError, asyncio.LimitOverrunError, ConnectionError):
             writer.close()
             return
         header = (

@@ -28,7 +28,7 @@ import aiomqtt
 from relay.config import LoadedConfig, build_chain, load_config
 from relay.errors import DeadlineExceeded, InputError, RehearError, TransportError
 from relay.messages import parse_message
-from relay.metrics import Metrics
+from relay.metrics import OUTCOMES, Metrics
 from relay.pipeline import Chain, Utterance
 from relay.routing import Outgoing, cleaned, dead_letter, is_final, partial, passthrough
 from relay.transport import Delivery, Session
@@ -69,7 +69,7 @@ class Relay:
         self.version = version
         if reloader is None and config_path is not None:
             path = config_path
-            reloader = lambda: load_active(path)  # noqa: E731
+            reloader = lambda: load_active(path)
         self._reloader = reloader
         limits = active.loaded.config.limits
         self._slots = asyncio.Semaphore(limits.max_in_flight)
@@ -80,6 +80,9 @@ class Relay:
         self._generation = 0
         self.connected = False
         self.metrics.chain_loaded.set(1)
+        # labels() takes a lock and a dict lookup; the per-message paths use the children directly
+        self._outcomes = {outcome: metrics.messages.labels(outcome=outcome) for outcome in OUTCOMES}
+        self._stage_latency: dict[str, Any] = {}
         self.metrics.declare_stages(active.chain.names)
 
     # ---- control -------------------------------------------------------------------------
@@ -134,7 +137,7 @@ class Relay:
                 _log.info("reconnecting", extra={"fields": {"in_s": round(wait, 2)}})
                 try:
                     await asyncio.wait_for(self._stopping.wait(), timeout=wait)
-                except asyncio.TimeoutError:
+                except TimeoutError:
                     pass
                 delay = min(delay * 2, broker.reconnect_max_s)
         finally:
@@ -208,10 +211,10 @@ class Relay:
                 await session.publish(message.topic, message.payload, qos=message.qos,
                                       properties=message.properties)
             session.ack(delivery)
-            self.metrics.messages.labels(outcome=outcome).inc()
+            self._outcomes[outcome].inc()
             self.metrics.latency.observe(time.monotonic() - received)
         except aiomqtt.MqttError as exc:
-            self.metrics.messages.labels(outcome="publish_failed").inc()
+            self._outcomes["publish_failed"].inc()
             _log.warning("publish failed", extra={"fields": {"topic": delivery.topic, "error": str(exc)}})
             self._broken.set()
         finally:
@@ -244,7 +247,7 @@ class Relay:
             if time.monotonic() > deadline:  # the last stage overran: the result is too late
                 raise DeadlineExceeded(utterance.trace[-1].stage if utterance.trace else "chain",
                                        (time.monotonic() - received) * 1000)
-        except (asyncio.TimeoutError, DeadlineExceeded):
+        except (TimeoutError, DeadlineExceeded):
                 _log.warning("deadline passed; forwarding the original",
                              extra={"fields": {"id": utterance.id, "deadline_ms": config.limits.deadline_ms}})
                 return "deadline", [passthrough(utterance, topics, relay, "deadline")]
@@ -272,7 +275,10 @@ class Relay:
 
     def _observe(self, utterance: Utterance) -> None:
         for entry in utterance.trace:
-            self.metrics.stage_latency.labels(stage=entry.stage).observe(entry.elapsed_us / 1e6)
+            child = self._stage_latency.get(entry.stage)
+            if child is None:
+                child = self._stage_latency[entry.stage] = self.metrics.stage_latency.labels(stage=entry.stage)
+            child.observe(entry.elapsed_us / 1e6)
         for correction in utterance.corrections:
             self.metrics.corrections.labels(stage=correction.stage).inc()
         self.metrics.decisions.labels(decision=utterance.decision or "none").inc()

@@ -16,7 +16,7 @@ import collections
 import logging
 import re
 import socket
-from collections.abc import AsyncIterator, Mapping
+from collections.abc import AsyncIterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -102,7 +102,7 @@ class AckQueue:
 
 
 def _connect_properties(settings: BrokerSettings, receive_maximum: int) -> Properties:
-    properties = Properties(PacketTypes.CONNECT)
+    properties = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
     properties.SessionExpiryInterval = settings.session_expiry_s
     # The broker sends at most this many unacknowledged QoS>0 messages: since input is
     # acknowledged only after its result is out, this is the relay's backpressure.
@@ -112,7 +112,7 @@ def _connect_properties(settings: BrokerSettings, receive_maximum: int) -> Prope
 
 def user_properties(pairs: Mapping[str, str]) -> Properties:
     """MQTT 5 PUBLISH properties carrying ``pairs`` as user properties."""
-    properties = Properties(PacketTypes.PUBLISH)
+    properties = Properties(PacketTypes.PUBLISH)  # type: ignore[no-untyped-call]
     properties.UserProperty = [(key, value) for key, value in pairs.items()]
     return properties
 
@@ -128,13 +128,13 @@ class Session:
         self,
         settings: BrokerSettings,
         *,
-        subscriptions: list[tuple[str, int]],
+        subscriptions: Sequence[tuple[str, int]],
         receive_maximum: int,
         generation: int,
         logger: logging.Logger | None = None,
     ) -> None:
         self.settings = settings
-        self.subscriptions = subscriptions
+        self.subscriptions = list(subscriptions)
         self.generation = generation
         self.v5 = settings.protocol == "5"
         self.acks = AckQueue()
@@ -166,7 +166,7 @@ class Session:
         # redelivers queued input right after CONNACK, and paho would acknowledge it at once.
         # Many publishes wait for their PUBACK at once by design (bounded by max_in_flight).
         self.client.pending_calls_threshold = 3 * receive_maximum + 10
-        self._paho = self.client._client  # noqa: SLF001
+        self._paho = self.client._client
         self._paho.manual_ack_set(True)
 
     async def __aenter__(self) -> Session:
@@ -191,10 +191,10 @@ class Session:
             if value >= 0x80:
                 raise TransportError(f"broker refused subscription {topic!r} (reason code {value:#x})")
 
-    async def __aexit__(self, *exc_info: Any) -> None:
+    async def __aexit__(self, *exc_info: object) -> None:
         self.acks.clear()
         try:
-            await self.client.__aexit__(*exc_info)
+            await self.client.__aexit__(None, None, None)  # aiomqtt ignores the exception details
         except aiomqtt.MqttError as exc:
             self._logger.debug("disconnect was not clean: %s", exc)
 

@@ -65,7 +65,7 @@ async def serve(
         await health.start()
         _log.info("metrics at " + health.address + "/metrics")
     loop = asyncio.get_running_loop()
-    installed: list[int] = []
+    installed: list[signal.Signals] = []
     reloads: set[asyncio.Task[bool]] = set()
 
     def _reload() -> None:
@@ -96,7 +96,7 @@ async def serve(
 def event_loop_runner() -> asyncio.Runner:
     """uvloop when installed (about 1.5x the messages per second), else asyncio's own loop."""
     try:
-        import uvloop  # type: ignore[import-not-found]
+        import uvloop
     except ImportError:
         return asyncio.Runner()
     return asyncio.Runner(loop_factory=uvloop.new_event_loop)
