@@ -92,6 +92,13 @@ class LimitSettings(_Strict):
     max_hypotheses: int = Field(50, ge=1, le=50)
     max_in_flight: int = Field(64, ge=1, le=10_000)
     deadline_ms: float = Field(250.0, gt=0)
+    drain_s: float = Field(10.0, ge=0, description="on shutdown, how long in-flight messages may take to finish")
+    chain_runner: Literal["thread", "loop"] = Field(
+        "thread",
+        description="thread: stages run on one worker thread, so a slow stage cannot stall the broker "
+        "connection and the deadline is enforced even mid-stage; loop: on the event loop, "
+        "cheaper per message, deadline checked between stages only",
+    )
 
 
 class MetricsSettings(_Strict):

@@ -1,0 +1,121 @@
+"""Shared fixtures: a real mosquitto broker on a free loopback port.
+
+Broker tests need a real broker because the guarantees under test (persistent sessions,
+redelivery of unacknowledged QoS 1 input, shared subscriptions, MQTT 5 user properties) are
+the broker's behaviour as much as ours. Under CI=true a broker test fails, never skips, when
+no broker can be started.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import socket
+import subprocess
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+
+MOSQUITTO = os.environ.get("REHEAR_TEST_MOSQUITTO", "/usr/sbin/mosquitto")
+
+
+def free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return int(sock.getsockname()[1])
+
+
+class MosquittoBroker:
+    """A mosquitto process with a generated configuration; can be stopped and restarted."""
+
+    host = "127.0.0.1"
+
+    def __init__(self, workdir: Path, binary: str) -> None:
+        self.workdir = workdir
+        self.binary = binary
+        self.port = free_port()
+        self.process: subprocess.Popen[bytes] | None = None
+        self.config_path = workdir / "mosquitto.conf"
+        self.log_path = workdir / "mosquitto.log"
+        (workdir / "data").mkdir(exist_ok=True)
+        # set_tcp_nodelay: without it every broker hop waits on Nagle's algorithm (~5 ms).
+        # persistence: sessions and queued QoS 1 messages survive a broker restart.
+        self.config_path.write_text(
+            f"listener {self.port} 127.0.0.1\n"
+            "allow_anonymous true\n"
+            "set_tcp_nodelay true\n"
+            "persistence true\n"
+            f"persistence_location {workdir / 'data'}/\n"
+            "autosave_interval 1\n"
+            "max_queued_messages 10000\n"
+            f"log_dest file {self.log_path}\n"
+            "log_type error\nlog_type warning\n"
+        )
+
+    @property
+    def address(self) -> str:
+        return f"{self.host}:{self.port}"
+
+    def start(self, timeout: float = 10.0) -> None:
+        self.process = subprocess.Popen(
+            [self.binary, "-c", str(self.config_path)], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE
+        )
+        end = time.monotonic() + timeout
+        while time.monotonic() < end:
+            if self.process.poll() is not None:
+                stderr = self.process.stderr.read().decode(errors="replace") if self.process.stderr else ""
+                raise RuntimeError(f"mosquitto exited with {self.process.returncode}: {stderr.strip()}")
+            try:
+                with socket.create_connection((self.host, self.port), timeout=0.2):
+                    return
+            except OSError:
+                time.sleep(0.05)
+        raise RuntimeError(f"mosquitto did not accept connections on {self.address} within {timeout} s")
+
+    def stop(self) -> None:
+        if self.process is None:
+            return
+        self.process.terminate()  # SIGTERM: mosquitto writes its persistence file first
+        try:
+            self.process.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            self.process.kill()
+            self.process.wait()
+        if self.process.stderr:
+            self.process.stderr.close()
+        self.process = None
+
+    def restart(self) -> None:
+        self.stop()
+        self.start()
+
+
+def _unavailable(message: str) -> None:
+    if os.environ.get("CI", "").lower() == "true":
+        pytest.fail(f"no MQTT broker for broker tests: {message}")
+    pytest.skip(f"no MQTT broker: {message}")
+
+
+@pytest.fixture(scope="session")
+def mosquitto(tmp_path_factory: pytest.TempPathFactory) -> Iterator[MosquittoBroker]:
+    binary = MOSQUITTO if os.path.exists(MOSQUITTO) else shutil.which("mosquitto")
+    if not binary:
+        _unavailable(f"{MOSQUITTO} not found")
+    broker = MosquittoBroker(tmp_path_factory.mktemp("mosquitto"), str(binary))
+    try:
+        broker.start()
+    except (OSError, RuntimeError) as exc:
+        _unavailable(str(exc))
+    yield broker
+    broker.stop()
+
+
+@pytest.fixture
+def broker(mosquitto: MosquittoBroker) -> MosquittoBroker:
+    """The session broker, started again if an earlier test left it stopped."""
+    if mosquitto.process is None or mosquitto.process.poll() is not None:
+        mosquitto.process = None
+        mosquitto.start()
+    return mosquitto

@@ -1,0 +1,102 @@
+"""The commands as a user runs them: `run` as a process (signals, JSON logs, kill -9) and `demo`."""
+
+from __future__ import annotations
+
+import asyncio
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+import orjson
+import pytest
+
+from tests.integration.support import Collector, load, make_config, message, publish_all, running_relay
+
+pytestmark = pytest.mark.broker
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def _start(path: Path, *extra: str) -> subprocess.Popen[str]:
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    return subprocess.Popen([sys.executable, "-m", "relay.commands.run", str(path), *extra], cwd=ROOT, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+
+
+def _wait_for_line(process: subprocess.Popen[str], needle: str, seen: list[str], timeout: float = 15) -> None:
+    end = time.monotonic() + timeout
+    assert process.stderr is not None
+    while time.monotonic() < end:
+        line = process.stderr.readline()
+        if not line:
+            break
+        seen.append(line)
+        if needle in line:
+            return
+    raise AssertionError(f"{needle!r} not logged; got:\n{''.join(seen)}")
+
+
+def test_run_logs_json_reloads_on_sighup_and_drains_on_sigterm(broker: Any, tmp_path: Path) -> None:
+    path, _prefix = make_config(tmp_path, broker, logging={"format": "json", "level": "info"})
+    seen: list[str] = []
+    with _start(path) as process:
+        try:
+            _wait_for_line(process, '"msg":"connected"', seen)
+            process.send_signal(signal.SIGHUP)
+            _wait_for_line(process, "configuration reloaded", seen)
+            process.send_signal(signal.SIGTERM)
+            assert process.wait(timeout=15) == 0
+        finally:
+            if process.poll() is None:
+                process.kill()
+        assert process.stderr is not None
+        seen += process.stderr.readlines()
+    events = [json.loads(line) for line in seen if line.startswith("{")]
+    assert events and all({"ts", "level", "logger", "msg"} <= set(event) for event in events)
+    assert events[-1]["msg"] == "stopped"
+
+
+def test_relay_killed_mid_stream_loses_nothing(broker: Any, tmp_path: Path) -> None:
+    path, prefix = make_config(tmp_path, broker, logging={"level": "warning"}, limits={"max_in_flight": 16})
+    wanted = {f"k-{n:03d}" for n in range(300)}
+
+    async def scenario() -> None:
+        async with Collector(broker, [f"{prefix}/nlu/#"]) as down:
+            process = _start(path, "--log-level", "info")
+            try:
+                await asyncio.to_thread(_wait_for_line, process, "connected", [])
+                await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest",
+                                  [orjson.dumps(message(ident, "mill slot")) for ident in sorted(wanted)])
+                await down.wait_for(lambda items: len(items) >= 30, timeout=20)
+                process.kill()  # SIGKILL: no drain, no DISCONNECT
+                await asyncio.to_thread(process.wait, 10)
+            finally:
+                if process.poll() is None:
+                    process.kill()
+                process.__exit__(None, None, None)  # closes the pipes
+            relayed_before = len(down.received)
+            async with running_relay(load(path)):
+                await down.wait_for(lambda items: {orjson.loads(i.payload)["id"] for i in items} >= wanted,
+                                    timeout=30)
+        assert relayed_before < len(wanted)  # the kill really happened mid-stream
+        assert {orjson.loads(item.payload)["id"] for item in down.received} == wanted
+
+    asyncio.run(scenario())
+
+
+def test_demo_runs_end_to_end_on_the_embedded_broker() -> None:
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    result = subprocess.run([sys.executable, "-m", "relay.commands.demo", "--interval", "0"], cwd=ROOT, env=env,
+                            capture_output=True, text=True, timeout=90)
+    assert result.returncode == 0, result.stdout + result.stderr
+    lines = [line for line in (ROOT / "examples/demo/messages.jsonl").read_text().splitlines() if line.strip()]
+    assert f"of {len(lines)} messages" in result.stdout
+    assert "dead letter (invalid_json)" in result.stdout
+    assert "partial result, forwarded untouched" in result.stdout
+    assert "metrics: http://127.0.0.1:" in result.stdout
+    assert "no result" not in result.stdout
