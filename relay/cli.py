@@ -13,7 +13,7 @@ from relay.errors import RehearError
 __all__ = ["main"]
 
 # Subcommand modules under relay.commands, in the order --help lists them.
-_COMMANDS = ("check", "stages")
+_COMMANDS = ("run", "check", "stages", "demo", "build_lm", "eval", "tune")
 
 _DESCRIPTION = """\
 rehear cleans a speech recogniser's N-best lists before they reach NLU: it rescores them
@@ -30,7 +30,11 @@ def build_parser() -> argparse.ArgumentParser:
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for name in _COMMANDS:
         module = importlib.import_module(f"relay.commands.{name}")
+        known = set(subparsers.choices)
         module.add_parser(subparsers)
+        for added in set(subparsers.choices) - known:
+            if subparsers.choices[added].get_default("handler") is None:
+                subparsers.choices[added].set_defaults(handler=module.run)
     return parser
 
 

@@ -81,7 +81,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         description=_DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     _configure(parser)
-    parser.set_defaults(func=run)
+    parser.set_defaults(handler=run)
     return parser
 
 

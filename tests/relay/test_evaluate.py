@@ -5,7 +5,7 @@ from pathlib import Path
 
 import jiwer
 import pytest
-from corpus_fixtures import write_config, write_corpus
+from tests.relay.corpus_fixtures import write_config, write_corpus
 from hypothesis import given, settings
 from hypothesis import strategies as st
 

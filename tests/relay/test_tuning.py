@@ -6,7 +6,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 import pytest
-from corpus_fixtures import write_config, write_corpus
+from tests.relay.corpus_fixtures import write_config, write_corpus
 from pydantic import BaseModel, ConfigDict
 
 import relay.tuning
