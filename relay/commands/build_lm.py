@@ -13,9 +13,9 @@ from typing import Any
 from relay.errors import InputError, RehearError
 from stages.arpa import write_arpa
 from stages.corpus_text import CorpusOptions, read_sentences, read_slot_values
-from stages.kneser_ney import DEFAULT_FALLBACK, DiscountFallbackWarning, estimate
+from stages.kneser_ney import DEFAULT_FALLBACK, DiscountFallbackWarning, KneserNeyModel, estimate
 
-__all__ = ["add_parser", "main", "run"]
+__all__ = ["add_parser", "build_model", "main", "run"]
 
 _DESCRIPTION = """\
 Estimate an interpolated modified Kneser-Ney language model from in-domain text and write it
@@ -85,6 +85,30 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     return parser
 
 
+def build_model(
+    *,
+    train: Path | Sequence[Path],
+    output: Path,
+    lexicon: Path | None = None,
+    order: int = 3,
+    options: CorpusOptions = CorpusOptions(),
+    fallback: Sequence[float] = DEFAULT_FALLBACK,
+) -> KneserNeyModel:
+    """Read in-domain text, estimate the model and write it as ARPA (atomically).
+
+    Discount fallbacks are reported on stderr, naming the order.
+    """
+    paths = [train] if isinstance(train, Path) else list(train)
+    slots = read_slot_values(lexicon) if lexicon is not None else None
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", DiscountFallbackWarning)
+        model = estimate(read_sentences(paths, slots=slots, options=options), order, fallback=fallback)
+    for warning in caught:
+        print(f"warning: {warning.message}", file=sys.stderr)
+    write_arpa(model, output)
+    return model
+
+
 def run(args: argparse.Namespace) -> int:
     """Build the model; print errors without a traceback and return 2 on bad input."""
     began = time.perf_counter()
@@ -93,14 +117,8 @@ def run(args: argparse.Namespace) -> int:
         max_expansions=args.max_expansions, seed=args.seed, progress=args.progress,
     )
     try:
-        slots = read_slot_values(args.lexicon) if args.lexicon is not None else None
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", DiscountFallbackWarning)
-            model = estimate(read_sentences(args.text, slots=slots, options=options), args.order,
-                             fallback=args.fallback_discounts)
-        for warning in caught:
-            print(f"warning: {warning.message}", file=sys.stderr)
-        write_arpa(model, args.output)
+        model = build_model(train=args.text, output=args.output, lexicon=args.lexicon, order=args.order,
+                            options=options, fallback=args.fallback_discounts)
     except InputError as exc:
         print(f"error: {exc.detail}", file=sys.stderr)  # the detail names file and line
         return 2
