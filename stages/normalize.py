@@ -19,8 +19,11 @@ _CONF_FLOOR = 1e-6  # a confidence of 0 must not become -inf: the entry stays po
 class NormalizeSettings(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
+    # Recognisers' total log scores are acoustic-model sums, far too peaked to read as a
+    # posterior; 0.05 is a conventional acoustic scale and suits the example recogniser
+    # (sweep in docs/evaluation.md). `rehear tune` fits it to yours.
     logprob_scale: float = Field(
-        1.0, gt=0, description="multiplies the recogniser's natural-log score before the softmax"
+        0.05, gt=0, description="multiplies the recogniser's natural-log score before the softmax"
     )
     rank_decay: float = Field(
         0.7, ge=0, description="log-probability lost per rank when the recogniser gives no score"

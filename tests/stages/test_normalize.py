@@ -17,7 +17,8 @@ def _run(payload: str, **settings: object) -> object:
 
 
 def test_logprob_becomes_softmax_posterior() -> None:
-    utt = _run('{"id": "a", "nbest": [{"text": "one", "logprob": -10.0}, {"text": "two", "logprob": -11.0}]}')
+    utt = _run('{"id": "a", "nbest": [{"text": "one", "logprob": -10.0}, {"text": "two", "logprob": -11.0}]}',
+               logprob_scale=1.0)
     first, second = utt.nbest
     # softmax of (-10, -11): 1 / (1 + e^-1)
     assert first.posterior == pytest.approx(1 / (1 + math.exp(-1)))
