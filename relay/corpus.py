@@ -52,6 +52,7 @@ class CorpusItem:
     tags: dict[str, Any]
     where: str
     field_map: FieldMap | None = None  # the relay's field map, for logs in a recogniser's own shape
+    entity_texts: tuple[tuple[str, str], ...] = ()  # (id, words in reference) where the line gives them
 
     def utterance(self) -> Utterance:
         """A fresh Utterance, parsed exactly as the relay parses a message."""
@@ -98,6 +99,7 @@ def read_corpus(path: str | Path, *, field_map: FieldMap | None = None) -> list[
             tags=dict(entry.tags),
             where=where,
             field_map=field_map,
+            entity_texts=tuple((e.id, e.text) for e in entry.entities if e.text),
         )
         try:
             item.utterance()
