@@ -1,0 +1,212 @@
+"""Stage `lexicon`: find domain terms in the N-best by how they sound, and correct misheard ones.
+
+Order of work per message: spans of every hypothesis -> candidates from the phone index ->
+pair scores -> evidence pooled over the N-best by posterior -> personal and entry priors ->
+guards (exact text kept, common words, margin, type hints) -> entities and corrections in the
+text of the best hypothesis. Every guard that stops a change is written to the trace.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, ClassVar
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+from relay.errors import StageError
+from relay.pipeline import Correction, Entity, StageContext, Utterance
+from stages.lexicon_compile import CompiledLexicon, load_compiled
+from stages.lexicon_data import read_speakers
+from stages.lexicon_match import Evidence, Weights, best_entries, find_spans, pool, score_spans
+from stages.lexicon_rewrite import map_span, rewrite
+from stages.phonetics import CostModel
+from stages.pronounce import Pronouncer, common_words
+
+__all__ = ["LexiconSettings", "LexiconStage"]
+
+
+class LexiconSettings(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    lexicon: Path = Field(description="lexicon file (.csv, .yaml, .yml or .json)")
+    speakers: Path | None = Field(None, description="speaker,id,affinity CSV for personal priors")
+    max_span_words: int | None = Field(None, ge=1, le=8, description="longest span; default longest entry + 1")
+    candidates: int = Field(6, ge=1, le=50, description="entries taken from the index per span")
+    min_retrieval: float = Field(0.3, ge=0, le=1, description="least phone n-gram Dice score to consider a pair")
+    max_df: float = Field(0.05, gt=0, le=1, description="phone n-grams in more entries than this share are skipped")
+    weight_phone: float = Field(0.6, ge=0, description="weight of phone alignment similarity")
+    weight_spelling: float = Field(0.2, ge=0, description="weight of spelling similarity (rapidfuzz)")
+    weight_keys: float = Field(0.2, ge=0, description="weight of Double Metaphone key agreement")
+    min_score: float = Field(0.6, ge=0, le=2, description="least entry score for a correction")
+    common_min_score: float = Field(0.8, ge=0, le=2, description="least score to rewrite a span of common words")
+    common_zipf: float = Field(4.0, ge=0, le=8, description="Zipf frequency from which a word is common")
+    margin: float = Field(0.05, ge=0, le=1, description="least lead over the runner-up for the same words")
+    affinity_weight: float = Field(0.15, ge=0, le=1, description="score added per unit of speaker affinity")
+    weight_prior: float = Field(0.05, ge=0, le=1, description="score added per unit of log entry weight")
+    type_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> words that announce it")
+    hint_window: int = Field(3, ge=1, le=10, description="words before a span searched for a type hint")
+    hint_penalty: float = Field(0.15, ge=0, le=1, description="score lost when a hinted type lacks its hint")
+    trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
+
+    @model_validator(mode="after")
+    def _weights_present(self) -> LexiconSettings:
+        if self.weight_phone + self.weight_spelling + self.weight_keys <= 0:
+            raise ValueError("at least one of weight_phone, weight_spelling, weight_keys must be positive")
+        return self
+
+
+@dataclass(slots=True)
+class _Choice:
+    evidence: Evidence
+    score: float
+    start: int  # word range in the best hypothesis
+    end: int
+    form: int
+    exact: bool
+    hint_missing: bool
+
+
+class LexiconStage:
+    """Phonetic lexicon matching over the whole N-best."""
+
+    name: ClassVar[str] = "lexicon"
+    Settings: ClassVar[type[BaseModel]] = LexiconSettings
+    needs: ClassVar[frozenset[str]] = frozenset({"tokens", "posterior"})
+    provides: ClassVar[frozenset[str]] = frozenset({"entities"})
+
+    def __init__(self, settings: LexiconSettings, *, context: StageContext) -> None:
+        self.settings = settings
+        self.context = context
+        self.compiled: CompiledLexicon | None = None
+        self.affinity: dict[str, dict[str, float]] = {}
+        self.loaded_from_cache = False
+
+    @property
+    def _lexicon(self) -> CompiledLexicon:
+        if self.compiled is None:
+            raise StageError(self.name, "process() called before load()")
+        return self.compiled
+
+    def _path(self, path: Path) -> Path:
+        return path if path.is_absolute() else self.context.base_dir / path
+
+    def load(self) -> None:
+        s = self.settings
+        self.pronouncer = Pronouncer()
+        self.common = {w for w, z in common_words().items() if z >= s.common_zipf}
+        self.costs = CostModel.features()
+        self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval)
+        self.compiled, self.loaded_from_cache = load_compiled(
+            self._path(s.lexicon), self.context.cache_dir, self.pronouncer,
+            progress=self.context.progress, max_df=s.max_df)
+        ids = {entry.id for entry in self.compiled.entries}
+        self.affinity = read_speakers(self._path(s.speakers), ids) if s.speakers else {}
+        self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
+
+    def process(self, utterance: Utterance) -> Utterance:
+        lexicon = self._lexicon
+        if not utterance.nbest:
+            return utterance
+        s = self.settings
+        best = utterance.nbest.index(utterance.best)
+        longest = s.max_span_words or lexicon.max_words + 1
+        spans = find_spans(utterance.nbest, longest, self.pronouncer)
+        pairs = score_spans(spans, lexicon, self.weights, self.costs)
+        posteriors = [h.posterior for h in utterance.nbest]
+        evidence = pool(spans, pairs, lexicon, posteriors)
+        choices = [self._choose(e, utterance, best) for e in best_entries(evidence, 64)]
+        choices.sort(key=lambda c: (-c.exact, -c.score, -(c.end - c.start)))
+        tokens = utterance.nbest[best].tokens
+        placed: list[_Choice] = []
+        blocked: list[dict[str, Any]] = []
+        for choice in choices:
+            reason = self._guard(choice, placed, choices, tokens)
+            if reason is None:
+                placed.append(choice)
+            elif reason != "weak":
+                blocked.append(self._describe(choice, tokens) | {"guard": reason})
+        return self._finish(utterance, best, placed, blocked, choices)
+
+    def _choose(self, evidence: Evidence, utterance: Utterance, best: int) -> _Choice:
+        lexicon = self._lexicon
+        entry = lexicon.entries[evidence.entry]
+        score = evidence.pooled + self.settings.weight_prior * math.log(entry.weight)
+        if utterance.speaker is not None:
+            score += self.settings.affinity_weight * self.affinity.get(utterance.speaker, {}).get(entry.id, 0.0)
+        held = evidence.per_hypothesis.get(best)
+        if held is not None:
+            _, start, end, form, exact = held
+        else:
+            # Only deeper hypotheses hold the entry: carry its best span over to the best one.
+            source = max(evidence.per_hypothesis, key=lambda h: utterance.nbest[h].posterior
+                         * evidence.per_hypothesis[h][0])
+            _, start, end, form, _ = evidence.per_hypothesis[source]
+            start, end = map_span(utterance.nbest[source].tokens, utterance.nbest[best].tokens, start, end)
+            exact = False
+        hints = self.hints.get(entry.type)
+        before = utterance.nbest[best].tokens[max(0, start - self.settings.hint_window):start]
+        hint_missing = bool(hints) and not hints.intersection(before)  # type: ignore[union-attr]
+        return _Choice(evidence, score, start, end, form, exact, hint_missing)
+
+    def _guard(self, choice: _Choice, placed: list[_Choice], choices: list[_Choice],
+               tokens: list[str]) -> str | None:
+        """None when the choice may stand; else the name of the guard that stops it."""
+        s = self.settings
+        lexicon = self._lexicon
+        overlaps = [c for c in placed if c.start < choice.end and choice.start < c.end]
+        if choice.exact:
+            return "overlap" if overlaps else None
+        if choice.score < s.min_score:
+            return "weak"
+        heard = " ".join(tokens[choice.start:choice.end])
+        if heard in lexicon.exact:
+            return "exact_text_kept"
+        if overlaps:
+            return "overlap"
+        words = tokens[choice.start:choice.end]
+        if words and all(w in self.common for w in words) and choice.score < s.common_min_score:
+            return "common_words"
+        rivals = [c.score for c in choices if c is not choice and c.evidence.entry != choice.evidence.entry
+                  and c.start < choice.end and choice.start < c.end]
+        if rivals and choice.score - max(rivals) < s.margin:
+            return "margin"
+        if choice.hint_missing and choice.score < s.min_score + s.hint_penalty:
+            return "type_hint"  # a hinted type without its hint word needs hint_penalty more evidence
+        return None
+
+    def _describe(self, choice: _Choice, tokens: list[str]) -> dict[str, Any]:
+        lexicon = self._lexicon
+        return {"id": lexicon.entries[choice.evidence.entry].id,
+                "heard": " ".join(tokens[choice.start:choice.end]),
+                "form": lexicon.forms[choice.form].text, "score": round(choice.score, 4),
+                "pooled": round(choice.evidence.pooled, 4), "hypotheses": len(choice.evidence.per_hypothesis)}
+
+    def _finish(self, utterance: Utterance, best: int, placed: list[_Choice],
+                blocked: list[dict[str, Any]], choices: list[_Choice]) -> Utterance:
+        lexicon = self._lexicon
+        tokens = utterance.nbest[best].tokens
+        replacements = [(c.start, c.end, lexicon.forms[c.form].text if not c.exact
+                         else " ".join(tokens[c.start:c.end])) for c in placed]
+        text, char_spans = rewrite(tokens, replacements)
+        corrections = 0
+        for choice, (start, end, after), span in sorted(zip(placed, replacements, char_spans),
+                                                        key=lambda item: item[2]):
+            entry = lexicon.entries[choice.evidence.entry]
+            heard = " ".join(tokens[start:end])
+            score = min(1.0, max(0.0, choice.score))
+            utterance.entities.append(Entity(entry.id, entry.type, entry.name, span, heard, score))
+            if not choice.exact and heard != after:
+                corrections += 1
+                utterance.corrections.append(Correction(
+                    self.name, heard, after, score,
+                    f"sounds like {entry.id} (pooled {choice.evidence.pooled:.2f} over "
+                    f"{len(choice.evidence.per_hypothesis)} hypotheses)"))
+        if corrections:
+            utterance.chosen_text = text
+        utterance.note(
+            candidates=[self._describe(c, tokens) for c in sorted(choices, key=lambda c: -c.score)
+                        [: self.settings.trace_top]],
+            blocked=blocked, entities=len(placed), corrections=corrections)
+        return utterance

@@ -1,0 +1,130 @@
+"""Spans of the N-best, their candidate entries and scores, and evidence pooled by posterior.
+
+A span is any run of 1..k words of a hypothesis, pronounced as one phone string; identical
+word runs in several hypotheses are one span with several occurrences. Candidates come from
+the phone index; each (span, form) pair is scored as a weighted mean of
+
+- phone similarity: 1 - feature-weighted alignment cost / longer length (stages.phonetics),
+- spelling similarity: rapidfuzz's normalised Indel ratio of the two texts, spaces removed,
+- key agreement: the best normalised Levenshtein similarity between the Double Metaphone keys.
+
+An exact written match scores 1.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from rapidfuzz.distance import Levenshtein
+from rapidfuzz.fuzz import ratio
+
+from relay.pipeline import Hypothesis
+from stages.lexicon_compile import CompiledLexicon, phonetic_keys
+from stages.phonetics import CostModel, batch_similarity
+from stages.pronounce import Pronouncer
+
+__all__ = ["Evidence", "Span", "Weights", "find_spans", "pool", "score_spans"]
+
+
+@dataclass(frozen=True, slots=True)
+class Weights:
+    phone: float
+    spelling: float
+    keys: float
+    candidates: int
+    min_retrieval: float
+
+
+@dataclass(slots=True)
+class Span:
+    words: tuple[str, ...]
+    phones: str
+    occurrences: list[tuple[int, int, int]] = field(default_factory=list)  # (hypothesis, start, end)
+
+    @property
+    def text(self) -> str:
+        return " ".join(self.words)
+
+
+@dataclass(slots=True)
+class Evidence:
+    """What the N-best says about one entry."""
+
+    entry: int
+    pooled: float = 0.0  # sum over hypotheses of posterior x best span score
+    per_hypothesis: dict[int, tuple[float, int, int, int, bool]] = field(default_factory=dict)
+    # hypothesis -> (score, start, end, form, exact)
+
+
+def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer) -> list[Span]:
+    spans: dict[tuple[str, ...], Span] = {}
+    for number, hypothesis in enumerate(nbest):
+        tokens = hypothesis.tokens
+        for start in range(len(tokens)):
+            for end in range(start + 1, min(len(tokens), start + longest) + 1):
+                words = tuple(tokens[start:end])
+                span = spans.get(words)
+                if span is None:
+                    span = spans[words] = Span(words, pronouncer.words(words))
+                span.occurrences.append((number, start, end))
+    return list(spans.values())
+
+
+def _key_agreement(a: tuple[str, ...], b: tuple[str, ...]) -> float:
+    return max(Levenshtein.normalized_similarity(x, y) for x in a for y in b)
+
+
+def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
+                costs: CostModel) -> list[tuple[int, int, float, bool]]:
+    """(span, form, score, exact) for every candidate pair worth keeping."""
+    pairs: list[tuple[int, int, float, bool]] = []
+    exact_pairs: set[tuple[int, int]] = set()
+    for number, span in enumerate(spans):
+        for form in lexicon.exact.get(span.text, ()):
+            pairs.append((number, form, 1.0, True))
+            exact_pairs.add((number, form))
+    hits = lexicon.index.search([s.phones for s in spans], k=weights.candidates,
+                                min_score=weights.min_retrieval)
+    chosen = [(int(q), int(f)) for q, f in zip(hits.query, hits.item) if (int(q), int(f)) not in exact_pairs]
+    if not chosen:
+        return pairs
+    forms = lexicon.forms
+    phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
+    total = weights.phone + weights.spelling + weights.keys
+    for (q, f), phone_score in zip(chosen, phone.tolist()):
+        span, form = spans[q], forms[f]
+        score = weights.phone * phone_score
+        if weights.spelling:
+            score += weights.spelling * ratio(span.text.replace(" ", ""), form.text.replace(" ", "")) / 100.0
+        if weights.keys:
+            score += weights.keys * _key_agreement(phonetic_keys(span.text), form.keys)
+        pairs.append((q, f, score / total, False))
+    return pairs
+
+
+def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: CompiledLexicon,
+         posteriors: Sequence[float]) -> dict[int, Evidence]:
+    """Per entry: best span score in each hypothesis, summed over hypotheses by posterior."""
+    evidence: dict[int, Evidence] = {}
+    for q, f, score, exact in pairs:
+        entry = lexicon.forms[f].entry
+        found = evidence.get(entry)
+        if found is None:
+            found = evidence[entry] = Evidence(entry)
+        for hypothesis, start, end in spans[q].occurrences:
+            held = found.per_hypothesis.get(hypothesis)
+            # Prefer the higher score; at equal scores the longer span (it explains more words).
+            if held is None or (score, end - start) > (held[0], held[2] - held[1]):
+                found.per_hypothesis[hypothesis] = (score, start, end, f, exact)
+    for found in evidence.values():
+        found.pooled = float(sum(posteriors[h] * held[0] for h, held in found.per_hypothesis.items()))
+    return evidence
+
+
+def best_entries(evidence: dict[int, Evidence], count: int) -> list[Evidence]:
+    scores = np.fromiter((e.pooled for e in evidence.values()), dtype=np.float64, count=len(evidence))
+    order = np.argsort(-scores)[:count]
+    values = list(evidence.values())
+    return [values[i] for i in order]
