@@ -33,9 +33,9 @@ class LexiconSettings(BaseModel):
     lexicon: Path = Field(description="lexicon file (.csv, .yaml, .yml or .json)")
     speakers: Path | None = Field(None, description="speaker,id,affinity CSV for personal priors")
     max_span_words: int | None = Field(None, ge=1, le=8, description="longest span; default longest entry + 1")
-    candidates: int = Field(6, ge=1, le=50, description="entries taken from the index per span")
-    min_retrieval: float = Field(0.3, ge=0, le=1, description="least phone n-gram Dice score to consider a pair")
-    max_df: float = Field(0.05, gt=0, le=1, description="phone n-grams in more entries than this share are skipped")
+    candidates: int = Field(5, ge=1, le=50, description="entries taken from the index per span")
+    min_retrieval: float = Field(0.35, ge=0, le=1, description="least phone n-gram Dice score to consider a pair")
+    max_postings: int = Field(150, ge=1, description="phone n-grams held by more forms than this are not indexed")
     weight_phone: float = Field(0.6, ge=0, description="weight of phone alignment similarity")
     weight_spelling: float = Field(0.2, ge=0, description="weight of spelling similarity (rapidfuzz)")
     weight_keys: float = Field(0.2, ge=0, description="weight of Double Metaphone key agreement")
@@ -48,6 +48,7 @@ class LexiconSettings(BaseModel):
     type_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> words that announce it")
     hint_window: int = Field(3, ge=1, le=10, description="words before a span searched for a type hint")
     hint_penalty: float = Field(0.15, ge=0, le=1, description="score lost when a hinted type lacks its hint")
+    pair_floor: float = Field(0.45, ge=0, le=1, description="span/entry pairs scoring less are ignored")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
 
     @model_validator(mode="after")
@@ -97,10 +98,11 @@ class LexiconStage:
         self.pronouncer = Pronouncer()
         self.common = {w for w, z in common_words().items() if z >= s.common_zipf}
         self.costs = CostModel.features()
-        self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval)
+        self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval,
+                               s.pair_floor)
         self.compiled, self.loaded_from_cache = load_compiled(
             self._path(s.lexicon), self.context.cache_dir, self.pronouncer,
-            progress=self.context.progress, max_df=s.max_df)
+            progress=self.context.progress, max_postings=s.max_postings)
         ids = {entry.id for entry in self.compiled.entries}
         self.affinity = read_speakers(self._path(s.speakers), ids) if s.speakers else {}
         self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
@@ -116,18 +118,40 @@ class LexiconStage:
         pairs = score_spans(spans, lexicon, self.weights, self.costs)
         posteriors = [h.posterior for h in utterance.nbest]
         evidence = pool(spans, pairs, lexicon, posteriors)
-        choices = [self._choose(e, utterance, best) for e in best_entries(evidence, 64)]
-        choices.sort(key=lambda c: (-c.exact, -c.score, -(c.end - c.start)))
+        # Entries too weak to be corrected or traced are not carried any further.
+        floor = min(s.min_score, s.pair_floor) * min(1.0, max(posteriors)) - s.affinity_weight - s.weight_prior
+        strong = [e for e in best_entries(evidence, 32) if e.pooled >= floor or best in e.per_hypothesis]
+        choices = [self._choose(e, utterance, best) for e in strong]
         tokens = utterance.nbest[best].tokens
+        exacts = sorted((c for c in choices if c.exact), key=lambda c: (c.start - c.end, -c.score))
+        fuzzy = sorted((c for c in choices if not c.exact), key=lambda c: (-c.score, c.start - c.end))
         placed: list[_Choice] = []
         blocked: list[dict[str, Any]] = []
-        for choice in choices:
-            reason = self._guard(choice, placed, choices, tokens)
+        # Corrections first, so one that keeps an exactly matching alias and explains more words
+        # ("tamsin okorra" -> "tamsin okara") can supersede it; any other overlap with exact text
+        # is blocked. Then the exact matches that remain free.
+        for choice in fuzzy:
+            reason = self._guard(choice, placed, choices, exacts, tokens)
             if reason is None:
                 placed.append(choice)
-            elif reason != "weak":
+            elif choice.score >= s.pair_floor:
                 blocked.append(self._describe(choice, tokens) | {"guard": reason})
+        for choice in exacts:
+            taken = [c for c in placed if c.start < choice.end and choice.start < c.end]
+            if not taken:
+                placed.append(choice)
+            elif taken[0].evidence.entry != choice.evidence.entry:
+                blocked.append(self._describe(choice, tokens) | {"guard": "superseded" if any(
+                    self._supersedes(c, choice, tokens) for c in taken) else "overlap"})
         return self._finish(utterance, best, placed, blocked, choices)
+
+    def _supersedes(self, longer: _Choice, exact: _Choice, tokens: list[str]) -> bool:
+        """Whether ``longer`` spans ``exact`` and keeps its words, so replacing is no loss."""
+        if not (longer.start <= exact.start and exact.end <= longer.end
+                and longer.end - longer.start > exact.end - exact.start):
+            return False
+        kept = " " + " ".join(tokens[exact.start:exact.end]) + " "
+        return kept in " " + self._lexicon.forms[longer.form].text + " "
 
     def _choose(self, evidence: Evidence, utterance: Utterance, best: int) -> _Choice:
         lexicon = self._lexicon
@@ -136,13 +160,14 @@ class LexiconStage:
         if utterance.speaker is not None:
             score += self.settings.affinity_weight * self.affinity.get(utterance.speaker, {}).get(entry.id, 0.0)
         held = evidence.per_hypothesis.get(best)
-        if held is not None:
+        support = evidence.per_hypothesis
+        source = max(support, key=lambda h: utterance.nbest[h].posterior * support[h][0])
+        if held is not None and held[0] >= 0.9 * support[source][0]:
             _, start, end, form, exact = held
         else:
-            # Only deeper hypotheses hold the entry: carry its best span over to the best one.
-            source = max(evidence.per_hypothesis, key=lambda h: utterance.nbest[h].posterior
-                         * evidence.per_hypothesis[h][0])
-            _, start, end, form, _ = evidence.per_hypothesis[source]
+            # The best hypothesis holds the entry weakly or not at all: carry the span that
+            # supports it most over to the best hypothesis.
+            _, start, end, form, _ = support[source]
             start, end = map_span(utterance.nbest[source].tokens, utterance.nbest[best].tokens, start, end)
             exact = False
         hints = self.hints.get(entry.type)
@@ -151,25 +176,25 @@ class LexiconStage:
         return _Choice(evidence, score, start, end, form, exact, hint_missing)
 
     def _guard(self, choice: _Choice, placed: list[_Choice], choices: list[_Choice],
-               tokens: list[str]) -> str | None:
-        """None when the choice may stand; else the name of the guard that stops it."""
+               exacts: list[_Choice], tokens: list[str]) -> str | None:
+        """None when a correction may stand; else the name of the guard that stops it."""
         s = self.settings
-        lexicon = self._lexicon
-        overlaps = [c for c in placed if c.start < choice.end and choice.start < c.end]
-        if choice.exact:
-            return "overlap" if overlaps else None
+
+        def overlapping(c: _Choice) -> bool:
+            return c.start < choice.end and choice.start < c.end
+
         if choice.score < s.min_score:
-            return "weak"
-        heard = " ".join(tokens[choice.start:choice.end])
-        if heard in lexicon.exact:
+            return "min_score"
+        if " ".join(tokens[choice.start:choice.end]) in self._lexicon.exact or any(
+                overlapping(e) and not self._supersedes(choice, e, tokens) for e in exacts):
             return "exact_text_kept"
-        if overlaps:
+        if any(overlapping(c) for c in placed):
             return "overlap"
         words = tokens[choice.start:choice.end]
         if words and all(w in self.common for w in words) and choice.score < s.common_min_score:
             return "common_words"
-        rivals = [c.score for c in choices if c is not choice and c.evidence.entry != choice.evidence.entry
-                  and c.start < choice.end and choice.start < c.end]
+        rivals = [c.score for c in choices if c.evidence.entry != choice.evidence.entry and overlapping(c)
+                  and not (c.exact and self._supersedes(choice, c, tokens))]
         if rivals and choice.score - max(rivals) < s.margin:
             return "margin"
         if choice.hint_missing and choice.score < s.min_score + s.hint_penalty:

@@ -28,17 +28,25 @@ from stages.respell import RespellError
 
 __all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys"]
 
-COMPILE_FORMAT = "lexicon-compiled-3"
+COMPILE_FORMAT = "lexicon-compiled-4"
 
 
 @lru_cache(maxsize=65536)
-def phonetic_keys(text: str) -> tuple[str, ...]:
-    """Double Metaphone primary and alternate keys of the words run together.
+def _word_keys(word: str) -> tuple[str, str]:
+    primary, alternate = doublemetaphone(word)
+    return primary, alternate or primary
 
-    Joining the words first lets "band saw" and "bandsaw" share keys.
+
+def phonetic_keys(text: str) -> tuple[str, ...]:
+    """Double Metaphone keys of a word run: the words' primary keys joined, and their alternates.
+
+    Joining per-word keys lets "band saw" and "bandsaw" share keys (up to the word-edge rules)
+    and lets each word's keys be cached.
     """
-    primary, alternate = doublemetaphone(text.replace(" ", ""))
-    return (primary, alternate) if alternate and alternate != primary else (primary,)
+    keys = [_word_keys(word) for word in text.split()]
+    primary = "".join(k[0] for k in keys)
+    alternate = "".join(k[1] for k in keys)
+    return (primary, alternate) if alternate != primary else (primary,)
 
 
 @dataclass(frozen=True, slots=True)
@@ -47,6 +55,10 @@ class Form:
     text: str  # normalised tokens joined by spaces
     phones: str  # encoded, one character per phone
     keys: tuple[str, ...]
+
+    @property
+    def words(self) -> int:
+        return self.text.count(" ") + 1
 
 
 @dataclass(slots=True)
@@ -60,7 +72,7 @@ class CompiledLexicon:
 
 
 def compile_entries(entries: list[LexiconEntry], pronouncer: Pronouncer, *, digest: str = "",
-                    progress: bool = False, max_df: float = 0.05, source: str = "lexicon") -> CompiledLexicon:
+                    progress: bool = False, max_postings: int = 150, source: str = "lexicon") -> CompiledLexicon:
     forms: list[Form] = []
     exact: dict[str, list[int]] = {}
     problems: list[str] = []
@@ -75,25 +87,25 @@ def compile_entries(entries: list[LexiconEntry], pronouncer: Pronouncer, *, dige
             forms.append(Form(number, text, phones, phonetic_keys(text)))
     if problems:
         raise ConfigError("Lexicon is invalid", problems)
-    index = PhoneIndex([form.phones for form in forms], max_df=max_df)
+    index = PhoneIndex([form.phones for form in forms], max_postings=max_postings)
     max_words = max(len(form.text.split()) for form in forms)
     return CompiledLexicon(entries, forms, index, exact, max_words, digest)
 
 
-def _digest(path: Path, max_df: float) -> str:
+def _digest(path: Path, max_postings: int) -> str:
     digest = hashlib.sha256()
     digest.update(COMPILE_FORMAT.encode())
-    digest.update(repr(max_df).encode())
+    digest.update(repr(max_postings).encode())
     digest.update(path.read_bytes())
     digest.update((Path(__file__).parent / "data" / MODEL_FILE).read_bytes())
     return digest.hexdigest()[:24]
 
 
 def load_compiled(path: Path, cache_dir: Path | None, pronouncer: Pronouncer, *,
-                  progress: bool = False, max_df: float = 0.05) -> tuple[CompiledLexicon, bool]:
+                  progress: bool = False, max_postings: int = 150) -> tuple[CompiledLexicon, bool]:
     """The compiled lexicon, from the cache when it is current; also whether the cache served it."""
     try:
-        digest = _digest(path, max_df)
+        digest = _digest(path, max_postings)
     except OSError as exc:
         raise ConfigError(f"Lexicon {path} cannot be read", [f"{path}: {exc}"]) from None
     cached = cache_dir / f"lexicon-{digest}.pickle" if cache_dir is not None else None
@@ -106,7 +118,7 @@ def load_compiled(path: Path, cache_dir: Path | None, pronouncer: Pronouncer, *,
         except (OSError, pickle.UnpicklingError, EOFError, AttributeError, ImportError):
             pass  # a damaged or stale cache file is rebuilt below
     compiled = compile_entries(read_lexicon(path), pronouncer, digest=digest, progress=progress,
-                               max_df=max_df, source=str(path))
+                               max_postings=max_postings, source=str(path))
     if cached is not None:
         cached.parent.mkdir(parents=True, exist_ok=True)
         # Write then rename, so a reader never sees half a file.

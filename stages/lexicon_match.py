@@ -35,6 +35,7 @@ class Weights:
     keys: float
     candidates: int
     min_retrieval: float
+    pair_floor: float  # pairs that cannot reach this score are dropped before the costlier signals
 
 
 @dataclass(slots=True)
@@ -93,20 +94,29 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
     forms = lexicon.forms
     phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
     total = weights.phone + weights.spelling + weights.keys
+    floor = weights.pair_floor * total
     for (q, f), phone_score in zip(chosen, phone.tolist()):
-        span, form = spans[q], forms[f]
         score = weights.phone * phone_score
+        if score + weights.spelling + weights.keys < floor:
+            continue
+        span, form = spans[q], forms[f]
         if weights.spelling:
             score += weights.spelling * ratio(span.text.replace(" ", ""), form.text.replace(" ", "")) / 100.0
-        if weights.keys:
+        if weights.keys and score + weights.keys >= floor:
             score += weights.keys * _key_agreement(phonetic_keys(span.text), form.keys)
-        pairs.append((q, f, score / total, False))
+        if score >= floor:
+            pairs.append((q, f, score / total, False))
     return pairs
 
 
 def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: CompiledLexicon,
-         posteriors: Sequence[float]) -> dict[int, Evidence]:
-    """Per entry: best span score in each hypothesis, summed over hypotheses by posterior."""
+         posteriors: Sequence[float], *, strong: float = 0.75) -> dict[int, Evidence]:
+    """Per entry: best span score in each hypothesis, summed over hypotheses by posterior.
+
+    Among spans scoring at least ``strong``, the one covering more words is preferred, so a
+    near match of a full name ("tamsin okorra") is not lost to an exact match of its alias
+    ("tamsin") alone.
+    """
     evidence: dict[int, Evidence] = {}
     for q, f, score, exact in pairs:
         entry = lexicon.forms[f].entry
@@ -115,12 +125,29 @@ def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: 
             found = evidence[entry] = Evidence(entry)
         for hypothesis, start, end in spans[q].occurrences:
             held = found.per_hypothesis.get(hypothesis)
-            # Prefer the higher score; at equal scores the longer span (it explains more words).
-            if held is None or (score, end - start) > (held[0], held[2] - held[1]):
+            if held is None or _better((score, start, end, f, exact), held, strong, lexicon):
                 found.per_hypothesis[hypothesis] = (score, start, end, f, exact)
     for found in evidence.values():
         found.pooled = float(sum(posteriors[h] * held[0] for h, held in found.per_hypothesis.items()))
     return evidence
+
+
+def _better(new: tuple[float, int, int, int, bool], held: tuple[float, int, int, int, bool],
+            strong: float, lexicon: CompiledLexicon) -> bool:
+    score, start, end, form, exact = new
+    held_score, held_start, held_end, held_form, held_exact = held
+    # A near match of a longer form (the full name) beats an exact match of a shorter one (an
+    # alias) inside it; a longer span around the same form does not.
+    longer_form = lexicon.forms[form].words > lexicon.forms[held_form].words
+    contains = start <= held_start and held_end <= end and end - start > held_end - held_start and longer_form
+    inside = held_start <= start and end <= held_end and held_end - held_start > end - start and \
+        lexicon.forms[held_form].words > lexicon.forms[form].words
+    if held_exact and not exact and score >= strong and contains:
+        return True
+    if exact and not held_exact and held_score >= strong and inside:
+        return False
+    # Otherwise the higher score; at equal scores the longer span (it explains more words).
+    return (score, end - start) > (held_score, held_end - held_start)
 
 
 def best_entries(evidence: dict[int, Evidence], count: int) -> list[Evidence]:

@@ -1,17 +1,19 @@
 """Nearest-neighbour retrieval of phone strings by shared phone n-grams.
 
-Each indexed string becomes the set of its phone trigrams, padded at both ends so the first
+Each indexed string becomes the set of its phone 3- and 4-grams, padded at both ends so the first
 and last phones count. An inverted index (CSR arrays: n-gram -> sorted string ids) answers a
 whole batch of query spans at once: the postings of every query n-gram are gathered in one
 array, shared n-grams counted with a single sort, and each pair scored by the Dice
 coefficient 2|A & B| / (|A| + |B|) of the two n-gram sets. N-grams held by more than
-``max_df`` of the strings are skipped at query time (they say little and cost most), but
-still count in the set sizes, so skipping them only lowers scores.
+``max_postings`` strings are left out of the vectors altogether, like stop words in text
+retrieval: they say little and cost most. The limit is a fixed count, not a share, so the
+work per query stays bounded as the lexicon grows.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
+from itertools import chain
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,14 +22,14 @@ import numpy.typing as npt
 __all__ = ["Hits", "PhoneIndex", "ngrams"]
 
 _START, _END = "\x01", "\x02"
-N = 3
+SIZES = (3, 4)
 
 
 def ngrams(phones: str) -> set[str]:
+    """Padded phone 3- and 4-grams; 4-grams stay rare enough to index in large lexicons."""
     padded = _START + phones + _END
-    if len(padded) <= N:
-        return {padded}
-    return {padded[i : i + N] for i in range(len(padded) - N + 1)}
+    grams = {padded[i : i + n] for n in SIZES for i in range(len(padded) - n + 1)}
+    return grams or {padded}
 
 
 @dataclass(frozen=True, slots=True)
@@ -40,7 +42,7 @@ class Hits:
 
 
 class PhoneIndex:
-    def __init__(self, strings: Sequence[str], *, max_df: float = 0.05) -> None:
+    def __init__(self, strings: Sequence[str], *, max_postings: int = 400) -> None:
         vocabulary: dict[str, int] = {}
         rows: list[int] = []
         cols: list[int] = []
@@ -55,36 +57,57 @@ class PhoneIndex:
         gram_of = np.asarray(rows, dtype=np.int32)[order]
         self.postings = np.asarray(cols, dtype=np.int32)[order]
         self.offsets = np.searchsorted(gram_of, np.arange(len(vocabulary) + 1)).astype(np.int64)
-        self.vocabulary = vocabulary
-        self.sizes = sizes
+        lengths = np.diff(self.offsets)
+        common = lengths > max_postings
+        self.vocabulary = {g: i for g, i in vocabulary.items() if not common[i]}
+        # Each string's set size counts only the n-grams kept in the vectors.
+        dropped = np.zeros(len(strings), dtype=np.float32)
+        np.add.at(dropped, self.postings[np.repeat(common, lengths)], 1.0)
+        self.sizes = sizes - dropped
         self.count = len(strings)
-        # Never skip an n-gram in a small index: there every one of them is cheap.
-        self.df_limit = max(int(max_df * len(strings)), 200)
+        self._cache: dict[str, list[int]] = {}  # query phones -> n-gram ids
+
+    def _gram_ids(self, phones: str) -> list[int]:
+        ids = self._cache.get(phones)
+        if ids is None:
+            vocabulary = self.vocabulary
+            ids = [vocabulary[g] for g in ngrams(phones) if g in vocabulary]
+            if len(self._cache) >= 100_000:  # bounded: recogniser output repeats, but not forever
+                self._cache.clear()
+            self._cache[phones] = ids
+        return ids
+
+    def __getstate__(self) -> dict[str, object]:
+        return {k: v for k, v in self.__dict__.items() if k != "_cache"}
+
+    def __setstate__(self, state: dict[str, object]) -> None:
+        self.__dict__.update(state)
+        self._cache = {}
 
     def search(self, queries: Sequence[str], *, k: int = 8, min_score: float = 0.3) -> Hits:
         """Up to ``k`` items per query with Dice score >= ``min_score``."""
-        parts: list[npt.NDArray[np.int64]] = []
-        query_sizes = np.zeros(len(queries), dtype=np.float32)
-        offsets, postings, limit = self.offsets, self.postings, self.df_limit
-        for number, phones in enumerate(queries):
-            grams = ngrams(phones)
-            query_sizes[number] = len(grams)
-            base = number * self.count
-            for gram in grams:
-                gram_id = self.vocabulary.get(gram)
-                if gram_id is None:
-                    continue
-                start, end = offsets[gram_id], offsets[gram_id + 1]
-                if end - start > limit:
-                    continue
-                parts.append(postings[start:end] + base)
         empty = Hits(np.zeros(0, np.int32), np.zeros(0, np.int32), np.zeros(0, np.float32))
-        if not parts:
+        per_query = [self._gram_ids(phones) for phones in queries]
+        counts = np.fromiter(map(len, per_query), dtype=np.int64, count=len(per_query))
+        total_grams = int(counts.sum())
+        if total_grams == 0:
             return empty
-        keys, shared = np.unique(np.concatenate(parts), return_counts=True)
+        query_sizes = counts.astype(np.float32)
+        grams = np.fromiter(chain.from_iterable(per_query), dtype=np.int64, count=total_grams)
+        owner = np.repeat(np.arange(len(per_query), dtype=np.int64), counts)
+        starts = self.offsets[grams]
+        lengths = self.offsets[grams + 1] - starts
+        total = int(lengths.sum())
+        if total == 0:
+            return empty
+        # Gather every posting list in one go: position = start of its list + rank within it.
+        first = np.cumsum(lengths) - lengths
+        positions = np.repeat(starts - first, lengths) + np.arange(total)
+        keys = self.postings[positions] + np.repeat(owner * self.count, lengths)
+        keys, shared = np.unique(keys, return_counts=True)
         query = (keys // self.count).astype(np.int32)
         item = (keys % self.count).astype(np.int32)
-        score = (2.0 * shared / (query_sizes[query] + self.sizes[item])).astype(np.float32)
+        score = (2.0 * shared / np.maximum(query_sizes[query] + self.sizes[item], 1.0)).astype(np.float32)
         keep = score >= min_score
         query, item, score = query[keep], item[keep], score[keep]
         if not len(score):
@@ -92,7 +115,7 @@ class PhoneIndex:
         order = np.lexsort((-score, query))
         query, item, score = query[order], item[order], score[order]
         # Rank within each query group, to keep the first k of each.
-        starts = np.flatnonzero(np.r_[True, query[1:] != query[:-1]])
-        group_start = np.repeat(starts, np.diff(np.r_[starts, len(query)]))
+        group_starts = np.flatnonzero(np.r_[True, query[1:] != query[:-1]])
+        group_start = np.repeat(group_starts, np.diff(np.r_[group_starts, len(query)]))
         keep = (np.arange(len(query)) - group_start) < k
         return Hits(query[keep], item[keep], score[keep])

@@ -180,10 +180,12 @@ def similarity(a: str, b: str, model: CostModel) -> float:
 
 def _codes(strings: Sequence[str]) -> tuple[npt.NDArray[np.int16], npt.NDArray[np.int64]]:
     lengths = np.fromiter((len(s) for s in strings), dtype=np.int64, count=len(strings))
-    codes = np.full((len(strings), int(lengths.max(initial=0))), len(PHONES), dtype=np.int16)
-    for row, text in enumerate(strings):
-        if text:
-            codes[row, : len(text)] = np.frombuffer(text.encode("utf-32-le"), dtype=np.uint32) - _CHAR_BASE
+    width = int(lengths.max(initial=0))
+    codes = np.full((len(strings), width), len(PHONES), dtype=np.int16)
+    flat = np.frombuffer("".join(strings).encode("utf-32-le"), dtype=np.uint32).astype(np.int64) - _CHAR_BASE
+    rows = np.repeat(np.arange(len(strings)), lengths)
+    columns = np.arange(len(flat)) - np.repeat(np.cumsum(lengths) - lengths, lengths)
+    codes[rows, columns] = flat
     return codes, lengths
 
 
