@@ -49,9 +49,9 @@ def make_lexicon(size: int, path: Path, seed: int) -> list[str]:
         writer.writerow(["id", "type", "name", "aliases", "weight"])
         while len(names) < size:
             count = rng.choice((1, 2, 2, 3))
-        # A one-word entry is an invented name; everyday words appear only inside longer names.
-        words = [invented(rng) if count == 1 or rng.random() < 0.6 else rng.choice(everyday)
-                 for _ in range(count)]
+            # A one-word entry is an invented name; everyday words appear only inside longer names.
+            words = [invented(rng) if count == 1 or rng.random() < 0.6 else rng.choice(everyday)
+                     for _ in range(count)]
             name = " ".join(words)
             if name in seen:
                 continue

@@ -35,6 +35,7 @@ class Result:
     first_wer: float = 0.0
     out_wer: float = 0.0
     misses: list[str] = field(default_factory=list)
+    stage_us: list[float] = field(default_factory=list)
 
     @property
     def recall(self) -> float:
@@ -72,6 +73,7 @@ def evaluate(folder: Path, chain: Chain) -> tuple[Result, Result]:
         truth = {e["id"] for e in row["entities"]}
         utt = chain.process(utterance(row["message"]))
         found = {e.id for e in utt.entities}
+        ours.stage_us.append(utt.trace[-1].elapsed_us)
         first = tokenize(row["message"]["nbest"][0]["text"])
         plain = {entries[forms[f].entry].id for n in range(1, 5) for i in range(len(first))
                  for f in exact_forms.get(" ".join(first[i:i + n]), ())}
@@ -105,6 +107,9 @@ def main(argv: list[str] | None = None) -> int:
         print(f"{label:20s} recall {r.recall:.3f} precision {r.precision:.3f} "
               f"(tp {r.true_pos} fp {r.false_pos} fn {r.false_neg}) WER {r.out_wer:.3f}")
     print(f"first-hypothesis WER {ours.first_wer:.3f}")
+    times = sorted(ours.stage_us)
+    print(f"lexicon stage per message: p50 {times[len(times) // 2] / 1000:.2f} ms, "
+          f"p99 {times[int(len(times) * 0.99)] / 1000:.2f} ms")
     for miss in ours.misses[: args.show_misses]:
         print(miss)
     return 0

@@ -33,9 +33,9 @@ class LexiconSettings(BaseModel):
     lexicon: Path = Field(description="lexicon file (.csv, .yaml, .yml or .json)")
     speakers: Path | None = Field(None, description="speaker,id,affinity CSV for personal priors")
     max_span_words: int | None = Field(None, ge=1, le=8, description="longest span; default longest entry + 1")
-    candidates: int = Field(5, ge=1, le=50, description="entries taken from the index per span")
-    min_retrieval: float = Field(0.35, ge=0, le=1, description="least phone n-gram Dice score to consider a pair")
-    max_postings: int = Field(150, ge=1, description="phone n-grams held by more forms than this are not indexed")
+    candidates: int = Field(3, ge=1, le=50, description="entries taken from the index per span")
+    min_retrieval: float = Field(0.2, ge=0, le=1, description="least phone n-gram Dice score to consider a pair")
+    max_postings: int = Field(60, ge=1, description="phone n-grams held by more forms than this are not indexed")
     weight_phone: float = Field(0.6, ge=0, description="weight of phone alignment similarity")
     weight_spelling: float = Field(0.2, ge=0, description="weight of spelling similarity (rapidfuzz)")
     weight_keys: float = Field(0.2, ge=0, description="weight of Double Metaphone key agreement")
@@ -48,6 +48,8 @@ class LexiconSettings(BaseModel):
     type_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> words that announce it")
     hint_window: int = Field(3, ge=1, le=10, description="words before a span searched for a type hint")
     hint_penalty: float = Field(0.15, ge=0, le=1, description="score lost when a hinted type lacks its hint")
+    min_edit: float = Field(0.4, ge=0, le=1, description="least unit-cost phone similarity to align a pair")
+    min_phone: float = Field(0.6, ge=0, le=1, description="least phone similarity for a span/entry pair")
     pair_floor: float = Field(0.45, ge=0, le=1, description="span/entry pairs scoring less are ignored")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
 
@@ -99,7 +101,7 @@ class LexiconStage:
         self.common = {w for w, z in common_words().items() if z >= s.common_zipf}
         self.costs = CostModel.features()
         self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval,
-                               s.pair_floor)
+                               s.pair_floor, s.min_phone, s.min_edit)
         self.compiled, self.loaded_from_cache = load_compiled(
             self._path(s.lexicon), self.context.cache_dir, self.pronouncer,
             progress=self.context.progress, max_postings=s.max_postings)

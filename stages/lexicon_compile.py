@@ -28,7 +28,7 @@ from stages.respell import RespellError
 
 __all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys"]
 
-COMPILE_FORMAT = "lexicon-compiled-4"
+COMPILE_FORMAT = "lexicon-compiled-5"
 
 
 @lru_cache(maxsize=65536)
@@ -72,7 +72,7 @@ class CompiledLexicon:
 
 
 def compile_entries(entries: list[LexiconEntry], pronouncer: Pronouncer, *, digest: str = "",
-                    progress: bool = False, max_postings: int = 150, source: str = "lexicon") -> CompiledLexicon:
+                    progress: bool = False, max_postings: int = 60, source: str = "lexicon") -> CompiledLexicon:
     forms: list[Form] = []
     exact: dict[str, list[int]] = {}
     problems: list[str] = []
@@ -102,7 +102,7 @@ def _digest(path: Path, max_postings: int) -> str:
 
 
 def load_compiled(path: Path, cache_dir: Path | None, pronouncer: Pronouncer, *,
-                  progress: bool = False, max_postings: int = 150) -> tuple[CompiledLexicon, bool]:
+                  progress: bool = False, max_postings: int = 60) -> tuple[CompiledLexicon, bool]:
     """The compiled lexicon, from the cache when it is current; also whether the cache served it."""
     try:
         digest = _digest(path, max_postings)

@@ -36,6 +36,8 @@ class Weights:
     candidates: int
     min_retrieval: float
     pair_floor: float  # pairs that cannot reach this score are dropped before the costlier signals
+    min_phone: float  # pairs whose phones agree less than this are dropped whatever their spelling
+    min_edit: float  # pairs below this unit-cost phone similarity are not aligned at all
 
 
 @dataclass(slots=True)
@@ -88,22 +90,33 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
             exact_pairs.add((number, form))
     hits = lexicon.index.search([s.phones for s in spans], k=weights.candidates,
                                 min_score=weights.min_retrieval)
-    chosen = [(int(q), int(f)) for q, f in zip(hits.query, hits.item) if (int(q), int(f)) not in exact_pairs]
+    forms = lexicon.forms
+    # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
+    # feature alignment; see docs/lexicon.md for how the threshold was chosen.
+    screen = weights.min_edit
+    chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
+              if (q, f) not in exact_pairs
+              and Levenshtein.normalized_similarity(spans[q].phones, forms[f].phones) >= screen]
     if not chosen:
         return pairs
-    forms = lexicon.forms
     phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
     total = weights.phone + weights.spelling + weights.keys
     floor = weights.pair_floor * total
+    joined: dict[int, str] = {}
+    keys: dict[int, tuple[str, ...]] = {}
     for (q, f), phone_score in zip(chosen, phone.tolist()):
         score = weights.phone * phone_score
-        if score + weights.spelling + weights.keys < floor:
+        if phone_score < weights.min_phone or score + weights.spelling + weights.keys < floor:
             continue
-        span, form = spans[q], forms[f]
+        form = forms[f]
         if weights.spelling:
-            score += weights.spelling * ratio(span.text.replace(" ", ""), form.text.replace(" ", "")) / 100.0
+            if q not in joined:
+                joined[q] = spans[q].text.replace(" ", "")
+            score += weights.spelling * ratio(joined[q], form.text.replace(" ", "")) / 100.0
         if weights.keys and score + weights.keys >= floor:
-            score += weights.keys * _key_agreement(phonetic_keys(span.text), form.keys)
+            if q not in keys:
+                keys[q] = phonetic_keys(spans[q].text)
+            score += weights.keys * _key_agreement(keys[q], form.keys)
         if score >= floor:
             pairs.append((q, f, score / total, False))
     return pairs

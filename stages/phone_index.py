@@ -60,22 +60,25 @@ class PhoneIndex:
         lengths = np.diff(self.offsets)
         common = lengths > max_postings
         self.vocabulary = {g: i for g, i in vocabulary.items() if not common[i]}
+        self.common = frozenset(g for g, i in vocabulary.items() if common[i])
         # Each string's set size counts only the n-grams kept in the vectors.
         dropped = np.zeros(len(strings), dtype=np.float32)
         np.add.at(dropped, self.postings[np.repeat(common, lengths)], 1.0)
         self.sizes = sizes - dropped
         self.count = len(strings)
-        self._cache: dict[str, list[int]] = {}  # query phones -> n-gram ids
+        self._cache: dict[str, tuple[list[int], int]] = {}  # query phones -> n-gram ids, set size
 
-    def _gram_ids(self, phones: str) -> list[int]:
-        ids = self._cache.get(phones)
-        if ids is None:
+    def _gram_ids(self, phones: str) -> tuple[list[int], int]:
+        """The query's indexed n-gram ids, and its set size without the dropped common n-grams."""
+        found = self._cache.get(phones)
+        if found is None:
             vocabulary = self.vocabulary
-            ids = [vocabulary[g] for g in ngrams(phones) if g in vocabulary]
+            grams = ngrams(phones) - self.common
+            found = ([vocabulary[g] for g in grams if g in vocabulary], len(grams))
             if len(self._cache) >= 100_000:  # bounded: recogniser output repeats, but not forever
                 self._cache.clear()
-            self._cache[phones] = ids
-        return ids
+            self._cache[phones] = found
+        return found
 
     def __getstate__(self) -> dict[str, object]:
         return {k: v for k, v in self.__dict__.items() if k != "_cache"}
@@ -87,12 +90,13 @@ class PhoneIndex:
     def search(self, queries: Sequence[str], *, k: int = 8, min_score: float = 0.3) -> Hits:
         """Up to ``k`` items per query with Dice score >= ``min_score``."""
         empty = Hits(np.zeros(0, np.int32), np.zeros(0, np.int32), np.zeros(0, np.float32))
-        per_query = [self._gram_ids(phones) for phones in queries]
+        looked_up = [self._gram_ids(phones) for phones in queries]
+        per_query = [ids for ids, _ in looked_up]
         counts = np.fromiter(map(len, per_query), dtype=np.int64, count=len(per_query))
         total_grams = int(counts.sum())
         if total_grams == 0:
             return empty
-        query_sizes = counts.astype(np.float32)
+        query_sizes = np.fromiter((size for _, size in looked_up), dtype=np.float32, count=len(looked_up))
         grams = np.fromiter(chain.from_iterable(per_query), dtype=np.int64, count=total_grams)
         owner = np.repeat(np.arange(len(per_query), dtype=np.int64), counts)
         starts = self.offsets[grams]
