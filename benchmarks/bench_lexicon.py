@@ -112,7 +112,7 @@ def measure(folder: Path, count: int, seed: int) -> dict[str, float]:
     from stages.normalize import NormalizeSettings, NormalizeStage
 
     context = StageContext(base_dir=folder, cache_dir=folder / "cache")
-    stage = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv"), trace_top=50), context=context)
+    stage = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context)
     began = time.perf_counter()
     stage.load()
     warm = time.perf_counter() - began
@@ -120,16 +120,23 @@ def measure(folder: Path, count: int, seed: int) -> dict[str, float]:
     messages = make_messages(names, count, seed + 1)
     normalize = NormalizeStage(NormalizeSettings(prefer="rank"), context=context)
     times = []
-    found = 0
-    for planted, texts in tqdm(messages, desc=f"{len(names)} entries", leave=False):
+    for _, texts in tqdm(messages, desc=f"{len(names)} entries", leave=False):
         nbest = [Hypothesis(t, r, {}) for r, t in enumerate(texts)]
         utt = normalize.process(Utterance("m", "bench", None, {}, nbest))
         utt.trace.append(TraceEntry("lexicon"))
         began = time.perf_counter_ns()
         stage.process(utt)
         times.append((time.perf_counter_ns() - began) / 1e6)
-        found += any(c["id"] == f"e{planted}" for c in utt.trace[-1].scores["candidates"])
     rss = psutil.Process().memory_info().rss / 2**20
+    # Untimed: the same settings with a long trace tell whether retrieval found the planted entry.
+    stage.settings = stage.settings.model_copy(update={"trace_top": 50})
+    found = 0
+    for planted, texts in messages:
+        nbest = [Hypothesis(t, r, {}) for r, t in enumerate(texts)]
+        utt = normalize.process(Utterance("m", "bench", None, {}, nbest))
+        utt.trace.append(TraceEntry("lexicon"))
+        stage.process(utt)
+        found += any(c["id"] == f"e{planted}" for c in utt.trace[-1].scores["candidates"])
     ms = np.asarray(times[min(20, len(times) // 10):])  # the first messages fill the word caches
     return {"entries": len(names), "warm_load_s": round(warm, 2),
             "p50_ms": round(float(np.percentile(ms, 50)), 3), "p99_ms": round(float(np.percentile(ms, 99)), 3),
@@ -150,7 +157,7 @@ def main(argv: list[str] | None = None) -> int:
             measure(Path(folder), args.messages, args.seed)
         print(json.dumps(result))
         return 0
-    print("| entries | cold build s | warm load s | p50 ms | p99 ms | RSS MB | planted entry in top candidates |")
+    print("| entries | cold build s | warm load s | p50 ms | p99 ms | RSS MB | planted entry among candidates |")
     print("|---:|---:|---:|---:|---:|---:|---:|")
     for size in args.sizes:
         with tempfile.TemporaryDirectory() as tmp:

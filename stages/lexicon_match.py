@@ -65,12 +65,15 @@ def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer
     spans: dict[tuple[str, ...], Span] = {}
     for number, hypothesis in enumerate(nbest):
         tokens = hypothesis.tokens
+        sounds = [pronouncer.word(token) for token in tokens]
         for start in range(len(tokens)):
+            phones = ""
             for end in range(start + 1, min(len(tokens), start + longest) + 1):
+                phones += sounds[end - 1]  # a span's phones are its words' phones run together
                 words = tuple(tokens[start:end])
                 span = spans.get(words)
                 if span is None:
-                    span = spans[words] = Span(words, pronouncer.words(words))
+                    span = spans[words] = Span(words, phones)
                 span.occurrences.append((number, start, end))
     return list(spans.values())
 
