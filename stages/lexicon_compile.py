@@ -28,7 +28,7 @@ from stages.respell import RespellError
 
 __all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys"]
 
-COMPILE_FORMAT = "lexicon-compiled-5"
+COMPILE_FORMAT = "lexicon-compiled-6"
 
 
 @lru_cache(maxsize=65536)

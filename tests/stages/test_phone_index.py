@@ -6,7 +6,7 @@ import random
 
 import pytest
 
-from stages.phone_index import PhoneIndex, ngrams
+from stages.phone_index import PhoneIndex, gram_codes, ngrams
 from stages.phonetics import PHONES, encode
 
 
@@ -19,6 +19,14 @@ def test_ngrams_of_a_short_string_worked_by_hand() -> None:
     s = encode("K ER F".split())
     # padded: ^ K ER F $ -> trigrams ^K ER, K ER F, ER F $; 4-grams ^K ER F, K ER F $
     assert len(ngrams(s)) == 5
+
+
+def test_vectorised_ngrams_match_the_reference() -> None:
+    rng = random.Random(2)
+    strings = [encode(rng.choices(PHONES, k=rng.randint(0, 9))) for _ in range(100)]
+    owner, gram = gram_codes(strings)
+    for number, text in enumerate(strings):
+        assert set(gram[owner == number].tolist()) == ngrams(text)
 
 
 def test_search_matches_a_brute_force_scan() -> None:
@@ -38,6 +46,6 @@ def test_common_ngrams_are_dropped_from_the_vectors() -> None:
     shared = encode("S T".split())
     items = [shared + encode([p]) for p in PHONES[:30]]
     index = PhoneIndex(items, max_postings=5)
-    # "^S T" and "^ S T x" grams are held by all 30 items: dropped, so only item-specific grams count.
+    # "^ S T" is held by all 30 items: dropped, so only item-specific grams count.
     hits = index.search([items[3]], k=1, min_score=0.1)
     assert list(hits.item) == [3] and hits.score[0] == pytest.approx(1.0)
