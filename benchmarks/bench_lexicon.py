@@ -23,12 +23,12 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-import numpy as np  # noqa: E402
-import psutil  # noqa: E402
-from tqdm import tqdm  # noqa: E402
+import numpy as np
+import psutil
+from tqdm import tqdm
 
-_ONSETS = "b d f g k l m n p r s t v z br dr kl pr st tr sh ch th".split()
-_NUCLEI = "a e i o u ai ee oo ou ia".split()
+_ONSETS = ["b", "d", "f", "g", "k", "l", "m", "n", "p", "r", "s", "t", "v", "z", "br", "dr", "kl", "pr", "st", "tr", "sh", "ch", "th"]
+_NUCLEI = ["a", "e", "i", "o", "u", "ai", "ee", "oo", "ou", "ia"]
 _CODAS = ["", "", "n", "r", "l", "s", "k", "m", "nd", "st"]
 
 

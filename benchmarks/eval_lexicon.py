@@ -19,12 +19,12 @@ from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-import jiwer  # noqa: E402
+import jiwer
 
-from relay.pipeline import Chain, Hypothesis, StageContext, Utterance  # noqa: E402
-from stages.lexicon import LexiconSettings, LexiconStage  # noqa: E402
-from stages.normalize import NormalizeSettings, NormalizeStage  # noqa: E402
-from stages.tokens import tokenize  # noqa: E402
+from relay.pipeline import Chain, Hypothesis, StageContext, Utterance
+from stages.lexicon import LexiconSettings, LexiconStage
+from stages.normalize import NormalizeSettings, NormalizeStage
+from stages.tokens import tokenize
 
 
 @dataclass

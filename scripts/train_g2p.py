@@ -28,7 +28,7 @@ from tqdm import tqdm
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from stages.g2p import MODEL_FILE, G2PModel, context_key  # noqa: E402
+from stages.g2p import MODEL_FILE, G2PModel, context_key
 
 _WORD = re.compile(r"^[a-z']+$")
 _FLOOR = -30.0  # log-probability of a letter/phone pairing never seen; keeps every word alignable
@@ -86,7 +86,7 @@ def align(letters: str, phones: tuple[str, ...], table: dict[str, dict[Label, fl
     for i in range(1, n + 1):
         probs = table.get(letters[i - 1], {})
         row, prev = best[i], best[i - 1]
-        for j in range(0, m + 1):
+        for j in range(m + 1):
             top, step = neg, 0
             for take in (0, 1, 2):
                 if take > j or prev[j - take] == neg:

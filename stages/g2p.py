@@ -22,7 +22,7 @@ from typing import Any
 
 from relay.errors import StageError
 
-__all__ = ["FEATURE_ORDER", "G2PModel", "PAD", "context_key", "default_model"]
+__all__ = ["FEATURE_ORDER", "PAD", "G2PModel", "context_key", "default_model"]
 
 PAD = "#"
 # Offsets of the letters a node tests, in order: the letter itself, then outwards, right first

@@ -122,8 +122,8 @@ def load_compiled(path: Path, cache_dir: Path | None, pronouncer: Pronouncer, *,
     if cached is not None:
         cached.parent.mkdir(parents=True, exist_ok=True)
         # Write then rename, so a reader never sees half a file.
-        handle, temporary = tempfile.mkstemp(dir=cached.parent, prefix=".lexicon-", suffix=".tmp")
-        with os.fdopen(handle, "wb") as out:
+        descriptor, temporary = tempfile.mkstemp(dir=cached.parent, prefix=".lexicon-", suffix=".tmp")
+        with os.fdopen(descriptor, "wb") as out:
             pickle.dump(compiled, out, protocol=pickle.HIGHEST_PROTOCOL)
         os.replace(temporary, cached)
     return compiled, False

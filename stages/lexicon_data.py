@@ -94,7 +94,8 @@ def _check_record(path: Path, line: int, record: Any, problems: list[str]) -> Le
     values = {key: record.get(key) for key in COLUMNS}
     before = len(problems)
     for key in _REQUIRED:
-        if not isinstance(values[key], str) or not values[key].strip():
+        value = values[key]
+        if not isinstance(value, str) or not value.strip():
             problems.append(f"{where}: {key} is required and must be non-empty text")
     aliases_raw = values["aliases"]
     if isinstance(aliases_raw, list):
@@ -110,7 +111,7 @@ def _check_record(path: Path, line: int, record: Any, problems: list[str]) -> Le
     weight = 1.0
     if weight_raw not in (None, ""):
         try:
-            weight = float(weight_raw)  # type: ignore[arg-type]
+            weight = float(weight_raw)
         except (TypeError, ValueError):
             problems.append(f"{where}: weight must be a number, got {weight_raw!r}")
         else:

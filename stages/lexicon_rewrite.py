@@ -26,8 +26,7 @@ def map_span(source: Sequence[str], target: Sequence[str], start: int, end: int)
         if i1 < end <= i2 or (end == i1 == 0):
             mapped_end = j1 + (end - i1) if tag == "equal" else j2
             break
-    if mapped_end < mapped_start:
-        mapped_end = mapped_start
+    mapped_end = max(mapped_end, mapped_start)
     return mapped_start, mapped_end
 
 

@@ -159,11 +159,9 @@ def alignment_cost(a: str, b: str, model: CostModel) -> float:
         for j, y in enumerate(ys):
             best = previous[j] + row_sub[y]
             up = previous[j + 1] + drop
-            if up < best:
-                best = up
+            best = min(best, up)
             side = left + indel[y]
-            if side < best:
-                best = side
+            best = min(best, side)
             current.append(best)
             left = best
         previous = current

@@ -153,3 +153,20 @@ def test_registry_finds_the_stage() -> None:
     from relay.registry import Registry
 
     assert Registry(plugins=False).get("lexicon") is LexiconStage
+
+
+def test_empty_and_unknown_input_is_harmless(tmp_path: Path) -> None:
+    chain = make_chain(tmp_path, speakers="speaker,id,affinity\nm1,term.kerf,0.5\n")
+    utt = run(chain, "", "uh", speaker="nobody-known")
+    assert utt.entities == [] and utt.corrections == []
+    assert run(chain, "zzxq vrrk").entities == []
+
+
+def test_yaml_lexicon_loads_through_the_stage(tmp_path: Path) -> None:
+    (tmp_path / "lex.yaml").write_text("- {id: term.kerf, type: term, name: kerf, say: kurf}\n")
+    context = StageContext(base_dir=tmp_path, cache_dir=tmp_path / "cache")
+    chain = Chain([NormalizeStage(NormalizeSettings(), context=context),
+                   LexiconStage(LexiconSettings(lexicon=Path("lex.yaml")), context=context)])
+    chain.load()
+    utt = run(chain, "what is the curf on this blade")
+    assert [e.id for e in utt.entities] == ["term.kerf"]

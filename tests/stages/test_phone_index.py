@@ -16,7 +16,7 @@ def dice(a: str, b: str) -> float:
 
 
 def test_ngrams_of_a_short_string_worked_by_hand() -> None:
-    s = encode("K ER F".split())
+    s = encode(["K", "ER", "F"])
     # padded: ^ K ER F $ -> trigrams ^K ER, K ER F, ER F $; 4-grams ^K ER F, K ER F $
     assert len(ngrams(s)) == 5
 
@@ -43,7 +43,7 @@ def test_search_matches_a_brute_force_scan() -> None:
 
 
 def test_common_ngrams_are_dropped_from_the_vectors() -> None:
-    shared = encode("S T".split())
+    shared = encode(["S", "T"])
     items = [shared + encode([p]) for p in PHONES[:30]]
     index = PhoneIndex(items, max_postings=5)
     # "^ S T" is held by all 30 items: dropped, so only item-specific grams count.

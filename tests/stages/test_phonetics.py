@@ -8,8 +8,17 @@ import jiwer
 import numpy as np
 import pytest
 
-from stages.phonetics import (CONSONANTS, PHONES, VOWELS, CostModel, alignment_cost, batch_alignment_cost, encode,
-                              is_phone, similarity)
+from stages.phonetics import (
+    CONSONANTS,
+    PHONES,
+    VOWELS,
+    CostModel,
+    alignment_cost,
+    batch_alignment_cost,
+    encode,
+    is_phone,
+    similarity,
+)
 
 FEATURES = CostModel.features()
 UNIT = CostModel.unit()
