@@ -105,7 +105,13 @@ def build(size: int, folder: Path, seed: int) -> dict[str, float]:
     return {"build_s": round(time.perf_counter() - began, 2)}
 
 
-def measure(folder: Path, count: int, seed: int) -> dict[str, float]:
+def corpus_messages(path: Path, count: int) -> list[tuple[int, list[str]]]:
+    """N-best texts of a recorded corpus (FORMATS section 5); no entry is planted in them."""
+    rows = [json.loads(line) for line in path.read_text().splitlines() if line.strip()]
+    return [(-1, [h["text"] for h in row["message"]["nbest"]]) for row in rows[:count]]
+
+
+def measure(folder: Path, count: int, seed: int, corpus: Path | None = None) -> dict[str, float]:
     """Warm load from the cache, then per-message latency and memory, as a restarted relay sees them."""
     from relay.pipeline import Hypothesis, StageContext, TraceEntry, Utterance
     from stages.lexicon import LexiconSettings, LexiconStage
@@ -117,7 +123,7 @@ def measure(folder: Path, count: int, seed: int) -> dict[str, float]:
     stage.load()
     warm = time.perf_counter() - began
     names = [entry.name for entry in stage._lexicon.entries]
-    messages = make_messages(names, count, seed + 1)
+    messages = corpus_messages(corpus, count) if corpus else make_messages(names, count, seed + 1)
     normalize = NormalizeStage(NormalizeSettings(prefer="rank"), context=context)
     times = []
     for _, texts in tqdm(messages, desc=f"{len(names)} entries", leave=False):
@@ -148,13 +154,15 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--sizes", type=int, nargs="+", default=[1000, 10000, 100000], help="lexicon sizes")
     parser.add_argument("--messages", type=int, default=400, help="messages per size (default 400)")
     parser.add_argument("--seed", type=int, default=7, help="random seed")
+    parser.add_argument("--corpus", type=Path, help="time the N-best lists of this corpus.jsonl instead "
+                        "of generated messages (the planted-entry column is then meaningless)")
     parser.add_argument("--child", nargs=2, metavar=("STEP", "FOLDER"), help=argparse.SUPPRESS)
     parser.add_argument("--size", type=int, default=0, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.child:
         step, folder = args.child
         result = build(args.size, Path(folder), args.seed) if step == "build" else \
-            measure(Path(folder), args.messages, args.seed)
+            measure(Path(folder), args.messages, args.seed, args.corpus)
         print(json.dumps(result))
         return 0
     print("| entries | cold build s | warm load s | p50 ms | p99 ms | RSS MB | planted entry among candidates |")
@@ -165,7 +173,8 @@ def main(argv: list[str] | None = None) -> int:
             for step in ("build", "measure"):
                 # Separate processes: the measurement sees a restarted relay, not the build's heap.
                 out = subprocess.run([sys.executable, __file__, "--child", step, tmp, "--size", str(size),
-                                      "--messages", str(args.messages), "--seed", str(args.seed)],
+                                      "--messages", str(args.messages), "--seed", str(args.seed)]
+                                     + (["--corpus", str(args.corpus.resolve())] if args.corpus else []),
                                      capture_output=True, text=True, check=True)
                 r |= json.loads(out.stdout.strip().splitlines()[-1])
         print(f"| {r['entries']} | {r['build_s']} | {r['warm_load_s']} | {r['p50_ms']} | {r['p99_ms']} "

@@ -28,7 +28,7 @@ from tqdm import tqdm
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from stages.g2p import MODEL_FILE, G2PModel, context_key
+from stages.g2p import MODEL_FILE, G2PModel, context_key, feature_order
 
 _WORD = re.compile(r"^[a-z']+$")
 _FLOOR = -30.0  # log-probability of a letter/phone pairing never seen; keeps every word alignable
@@ -123,13 +123,14 @@ def estimate(pairs: list[tuple[str, tuple[str, ...]]], iterations: int) -> list[
     return alignments
 
 
-def build_tree(pairs: list[tuple[str, tuple[str, ...]]], alignments: list[list[Label] | None]) -> dict[str, str]:
+def build_tree(pairs: list[tuple[str, tuple[str, ...]]], alignments: list[list[Label] | None],
+               order: tuple[int, ...]) -> dict[str, str]:
     counts: dict[str, Counter[str]] = defaultdict(Counter)
     for (letters, _), labels in tqdm(list(zip(pairs, alignments)), desc="count contexts", leave=False):
         if labels is None:
             continue
         for index, label in enumerate(labels):
-            key = context_key(letters, index)
+            key = context_key(letters, index, order)
             text = " ".join(label)
             for depth in range(1, len(key) + 1):
                 counts[key[:depth]][text] += 1
@@ -159,6 +160,7 @@ def main(argv: list[str] | None = None) -> int:
     default_out = Path(__file__).resolve().parent.parent / "stages" / "data" / MODEL_FILE
     parser = argparse.ArgumentParser(description="Train the G2P letter-context tree from CMUdict.")
     parser.add_argument("--iterations", type=int, default=5, help="hard-EM alignment passes (default 5)")
+    parser.add_argument("--window", type=int, default=4, help="context letters on each side (default 4)")
     parser.add_argument("--out", type=Path, default=default_out, help=f"model path (default {default_out})")
     args = parser.parse_args(argv)
     began = time.monotonic()
@@ -168,15 +170,16 @@ def main(argv: list[str] | None = None) -> int:
     pairs = [(w.replace("'", ""), prons[0]) for w, prons in sorted(train.items()) if w.replace("'", "")]
     alignments = estimate(pairs, args.iterations)
     failed = sum(a is None for a in alignments)
-    nodes = build_tree(pairs, alignments)
-    per, wer = evaluate(G2PModel(nodes), test)
+    order = feature_order(args.window)
+    nodes = build_tree(pairs, alignments, order)
+    per, wer = evaluate(G2PModel(nodes, order=order), test)
     info = {
         "source": f"CMUdict via the cmudict package {getattr(cmudict, '__version__', '')}".strip(),
         "train_words": len(pairs) - failed, "test_words": len(test), "unaligned": failed,
         "phoneme_error_rate": round(per, 4), "word_error_rate": round(wer, 4),
         "stress": "removed", "nodes": len(nodes),
     }
-    G2PModel(nodes, info=info).to_file(args.out)
+    G2PModel(nodes, info=info, order=order).to_file(args.out)
     print(f"trained on {len(pairs) - failed} words ({failed} unaligned), {len(nodes)} nodes")
     print(f"held-out {len(test)} words: PER {per:.2%}  WER {wer:.2%}")
     print(f"wrote {args.out} ({args.out.stat().st_size / 1e6:.2f} MB) in {time.monotonic() - began:.0f} s")

@@ -22,7 +22,7 @@ from typing import Any
 
 from relay.errors import StageError
 
-__all__ = ["FEATURE_ORDER", "PAD", "G2PModel", "context_key", "default_model"]
+__all__ = ["FEATURE_ORDER", "PAD", "G2PModel", "context_key", "default_model", "feature_order"]
 
 PAD = "#"
 # Offsets of the letters a node tests, in order: the letter itself, then outwards, right first
@@ -32,10 +32,15 @@ _LETTERS = re.compile(r"[a-z]")
 MODEL_FILE = "g2p_tree.json.gz"
 
 
-def context_key(letters: str, index: int) -> str:
+def feature_order(window: int) -> tuple[int, ...]:
+    """The letter, then its neighbours outwards to ``window`` letters, right before left."""
+    return (0, *[o for d in range(1, window + 1) for o in (d, -d)])
+
+
+def context_key(letters: str, index: int, order: tuple[int, ...] = FEATURE_ORDER) -> str:
     """The full feature string of the letter at ``index``; prefixes of it are tree nodes."""
     out = []
-    for offset in FEATURE_ORDER:
+    for offset in order:
         position = index + offset
         out.append(letters[position] if 0 <= position < len(letters) else PAD)
     return "".join(out)
@@ -44,9 +49,11 @@ def context_key(letters: str, index: int) -> str:
 class G2PModel:
     """Predicts an ARPAbet phone sequence (stress-free) for a spelled word."""
 
-    def __init__(self, nodes: dict[str, str], *, info: dict[str, Any] | None = None) -> None:
+    def __init__(self, nodes: dict[str, str], *, info: dict[str, Any] | None = None,
+                 order: tuple[int, ...] = FEATURE_ORDER) -> None:
         self.nodes = nodes
         self.info = info or {}
+        self.order = order
         self._cached = lru_cache(maxsize=65536)(self._predict)
 
     @classmethod
@@ -58,14 +65,15 @@ class G2PModel:
             raise StageError("lexicon", f"cannot read G2P model {path}: {exc}") from None
         labels: list[str] = data["labels"]
         nodes = {key: labels[index] for key, index in data["nodes"].items()}
-        return cls(nodes, info=data.get("info", {}))
+        order = tuple(data.get("feature_order", FEATURE_ORDER))
+        return cls(nodes, info=data.get("info", {}), order=order)
 
     def to_file(self, path: Path | str) -> None:
         labels = sorted(set(self.nodes.values()))
         index = {label: i for i, label in enumerate(labels)}
         data = {
             "format": 1,
-            "feature_order": list(FEATURE_ORDER),
+            "feature_order": list(self.order),
             "info": self.info,
             "labels": labels,
             "nodes": {key: index[label] for key, label in sorted(self.nodes.items())},
@@ -87,7 +95,7 @@ class G2PModel:
         letters = "".join(_LETTERS.findall(word.lower()))
         phones: list[str] = []
         for index in range(len(letters)):
-            label = self.label(context_key(letters, index))
+            label = self.label(context_key(letters, index, self.order))
             if label:
                 phones.extend(label.split(" "))
         return tuple(phones)
