@@ -47,7 +47,8 @@ class LexiconSettings(BaseModel):
     weight_prior: float = Field(0.05, ge=0, le=1, description="score added per unit of log entry weight")
     type_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> words that announce it")
     hint_window: int = Field(3, ge=1, le=10, description="words before a span searched for a type hint")
-    hint_penalty: float = Field(0.15, ge=0, le=1, description="score lost when a hinted type lacks its hint")
+    hint_penalty: float = Field(0.15, ge=0, le=1, description="more score needed when a hinted type lacks its hint")
+    hint_bonus: float = Field(0.1, ge=0, le=1, description="score added when a hinted type has its hint")
     min_edit: float = Field(0.4, ge=0, le=1, description="least unit-cost phone similarity to align a pair")
     min_phone: float = Field(0.6, ge=0, le=1, description="least phone similarity for a span/entry pair")
     pair_floor: float = Field(0.45, ge=0, le=1, description="span/entry pairs scoring less are ignored")
@@ -175,6 +176,8 @@ class LexiconStage:
         hints = self.hints.get(entry.type)
         before = utterance.nbest[best].tokens[max(0, start - self.settings.hint_window):start]
         hint_missing = bool(hints) and not hints.intersection(before)  # type: ignore[union-attr]
+        if hints and not hint_missing:
+            score += self.settings.hint_bonus  # the context announces this type: a prior like affinity
         return _Choice(evidence, score, start, end, form, exact, hint_missing)
 
     def _guard(self, choice: _Choice, placed: list[_Choice], choices: list[_Choice],

@@ -124,6 +124,11 @@ def test_type_hint_demands_more_evidence_without_its_word(tmp_path: Path) -> Non
     assert "person.tamsin_okoro" in {e.id for e in hinted.entities}
     assert "person.tamsin_okoro" not in {e.id for e in unhinted.entities}
     assert any(b["guard"] == "type_hint" for b in blocked(unhinted))
+    # The hint word also adds hint_bonus to the entry's score.
+    def top(utt: Utterance) -> float:
+        return float(next(c["score"] for c in utt.trace[-1].scores["candidates"] if c["id"] == "person.tamsin_okoro"))
+
+    assert top(hinted) - top(unhinted) == pytest.approx(0.1, abs=1e-3)
 
 
 def test_unrelated_text_is_left_alone(tmp_path: Path) -> None:
