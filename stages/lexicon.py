@@ -41,6 +41,7 @@ class LexiconSettings(BaseModel):
     weight_keys: float = Field(0.2, ge=0, description="weight of Double Metaphone key agreement")
     min_score: float = Field(0.6, ge=0, le=2, description="least entry score for a correction")
     common_min_score: float = Field(0.8, ge=0, le=2, description="least score to rewrite a span of common words")
+    common_relief: float = Field(0.02, ge=0, le=0.2, description="common_min_score eased per word past the first")
     common_zipf: float = Field(4.0, ge=0, le=8, description="Zipf frequency from which a word is common")
     margin: float = Field(0.05, ge=0, le=1, description="least lead over the runner-up for the same words")
     affinity_weight: float = Field(0.15, ge=0, le=1, description="score added per unit of speaker affinity")
@@ -198,7 +199,8 @@ class LexiconStage:
         words = tokens[choice.start:choice.end]
         # Priors count here too: on the workshop corpus, judging common words on acoustic
         # evidence alone lost a tenth of the recall for a small gain in precision.
-        if words and all(w in self.common for w in words) and choice.score < s.common_min_score:
+        needed = s.common_min_score - s.common_relief * max(0, len(words) - 1)
+        if words and all(w in self.common for w in words) and choice.score < needed:
             return "common_words"
         rivals = [c.score for c in choices if c.evidence.entry != choice.evidence.entry and overlapping(c)
                   and not (c.exact and self._supersedes(choice, c, tokens))]

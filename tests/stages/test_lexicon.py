@@ -74,10 +74,14 @@ def test_exact_text_is_kept_without_correction(tmp_path: Path) -> None:
 
 def test_common_words_need_stronger_evidence(tmp_path: Path) -> None:
     # "pillow" sits just under the default Zipf 4.0 line; lower it so the whole span is common.
-    chain = make_chain(tmp_path, common_min_score=0.99, common_zipf=3.5)
+    chain = make_chain(tmp_path, common_min_score=0.99, common_zipf=3.5, common_relief=0.0)
     utt = run(chain, "book the pillow table saw for me")
     assert utt.corrections == []
     assert any(b["guard"] == "common_words" for b in blocked(utt))
+    # Longer runs of common words get some relief: three words need 2 x 0.02 less.
+    eased = run(make_chain(tmp_path, common_min_score=0.99, common_zipf=3.5, common_relief=0.02),
+                "book the pillow table saw for me")
+    assert [c.after for c in eased.corrections] == ["pellow table saw"]
 
 
 def test_margin_over_the_runner_up_is_required(tmp_path: Path) -> None:
