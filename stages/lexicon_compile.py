@@ -120,10 +120,13 @@ def load_compiled(path: Path, cache_dir: Path | None, pronouncer: Pronouncer, *,
     compiled = compile_entries(read_lexicon(path), pronouncer, digest=digest, progress=progress,
                                max_postings=max_postings, source=str(path))
     if cached is not None:
-        cached.parent.mkdir(parents=True, exist_ok=True)
-        # Write then rename, so a reader never sees half a file.
-        descriptor, temporary = tempfile.mkstemp(dir=cached.parent, prefix=".lexicon-", suffix=".tmp")
-        with os.fdopen(descriptor, "wb") as out:
-            pickle.dump(compiled, out, protocol=pickle.HIGHEST_PROTOCOL)
-        os.replace(temporary, cached)
+        try:
+            cached.parent.mkdir(parents=True, exist_ok=True)
+            # Write then rename, so a reader never sees half a file.
+            descriptor, temporary = tempfile.mkstemp(dir=cached.parent, prefix=".lexicon-", suffix=".tmp")
+            with os.fdopen(descriptor, "wb") as out:
+                pickle.dump(compiled, out, protocol=pickle.HIGHEST_PROTOCOL)
+            os.replace(temporary, cached)
+        except OSError:
+            pass  # a read-only cache costs the next start a rebuild, never this one its lexicon
     return compiled, False
