@@ -1,0 +1,186 @@
+"""Benchmark the lexicon stage: per-message latency, build time and memory at several sizes.
+
+Lexicons of invented entries (one to three words: everyday words from the shipped frequency
+list mixed with made-up names from random syllables, so both CMUdict and the G2P model are
+exercised) and 10-best x 8-word messages, a third of the hypotheses holding an entry name
+with one sound changed. Each size runs in its own process so memory is measured cleanly.
+
+    python benchmarks/bench_lexicon.py                    # 1k, 10k, 100k entries
+    python benchmarks/bench_lexicon.py --sizes 10000 --messages 500
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import random
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+import numpy as np
+import psutil
+from tqdm import tqdm
+
+_ONSETS = ["b", "d", "f", "g", "k", "l", "m", "n", "p", "r", "s", "t", "v", "z", "br", "dr", "kl", "pr", "st", "tr", "sh", "ch", "th"]
+_NUCLEI = ["a", "e", "i", "o", "u", "ai", "ee", "oo", "ou", "ia"]
+_CODAS = ["", "", "n", "r", "l", "s", "k", "m", "nd", "st"]
+
+
+def invented(rng: random.Random) -> str:
+    return "".join(rng.choice(_ONSETS) + rng.choice(_NUCLEI) + rng.choice(_CODAS)
+                   for _ in range(rng.randint(2, 3)))
+
+
+def make_lexicon(size: int, path: Path, seed: int) -> list[str]:
+    from stages.pronounce import common_words
+
+    rng = random.Random(seed)
+    everyday = [w for w, z in common_words().items() if 3.0 <= z < 5.0 and len(w) > 3]
+    names: list[str] = []
+    seen: set[str] = set()
+    with path.open("w", newline="") as handle:
+        writer = csv.writer(handle)
+        writer.writerow(["id", "type", "name", "aliases", "weight"])
+        while len(names) < size:
+            count = rng.choice((1, 2, 2, 3))
+            # A one-word entry is an invented name; everyday words appear only inside longer names.
+            words = [invented(rng) if count == 1 or rng.random() < 0.6 else rng.choice(everyday)
+                     for _ in range(count)]
+            name = " ".join(words)
+            if name in seen:
+                continue
+            seen.add(name)
+            alias = words[0] if len(words) > 1 and rng.random() < 0.3 else ""
+            writer.writerow([f"e{len(names)}", rng.choice(("person", "machine", "place")), name, alias, "1.0"])
+            names.append(name)
+    return names
+
+
+def mutate(word: str, rng: random.Random) -> str:
+    if len(word) < 3:
+        return word
+    i = rng.randrange(1, len(word) - 1)
+    return word[:i] + rng.choice("aeioulnrst") + word[i + 1:]
+
+
+def make_messages(names: list[str], count: int, seed: int) -> list[tuple[int, list[str]]]:
+    from stages.pronounce import common_words
+
+    rng = random.Random(seed)
+    vocabulary = [w for w, z in common_words().items() if z >= 4.5]
+    messages = []
+    for _ in range(count):
+        base = [rng.choice(vocabulary) for _ in range(8)]
+        planted = rng.randrange(len(names))
+        name = names[planted].split()
+        hyps = []
+        for rank in range(10):
+            words = list(base)
+            for _ in range(2):
+                words[rng.randrange(8)] = rng.choice(vocabulary)
+            if rank % 3 == 0:
+                heard = [mutate(w, rng) for w in name]
+                at = rng.randrange(0, 8 - len(heard) + 1)
+                words[at:at + len(heard)] = heard
+            hyps.append(" ".join(words[:8]))
+        messages.append((planted, hyps))
+    return messages
+
+
+def build(size: int, folder: Path, seed: int) -> dict[str, float]:
+    """Write the lexicon and compile it cold into the folder's cache."""
+    from relay.pipeline import StageContext
+    from stages.lexicon import LexiconSettings, LexiconStage
+
+    make_lexicon(size, folder / "lexicon.csv", seed)
+    context = StageContext(base_dir=folder, cache_dir=folder / "cache")
+    began = time.perf_counter()
+    LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context).load()
+    return {"build_s": round(time.perf_counter() - began, 2)}
+
+
+def corpus_messages(path: Path, count: int) -> list[tuple[int, list[str]]]:
+    """N-best texts of a recorded corpus (FORMATS section 5); no entry is planted in them."""
+    rows = [json.loads(line) for line in path.read_text().splitlines() if line.strip()]
+    return [(-1, [h["text"] for h in row["message"]["nbest"]]) for row in rows[:count]]
+
+
+def measure(folder: Path, count: int, seed: int, corpus: Path | None = None) -> dict[str, float]:
+    """Warm load from the cache, then per-message latency and memory, as a restarted relay sees them."""
+    from relay.pipeline import Hypothesis, StageContext, TraceEntry, Utterance
+    from stages.lexicon import LexiconSettings, LexiconStage
+    from stages.normalize import NormalizeSettings, NormalizeStage
+
+    context = StageContext(base_dir=folder, cache_dir=folder / "cache")
+    stage = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context)
+    began = time.perf_counter()
+    stage.load()
+    warm = time.perf_counter() - began
+    names = [entry.name for entry in stage._lexicon.entries]
+    messages = corpus_messages(corpus, count) if corpus else make_messages(names, count, seed + 1)
+    normalize = NormalizeStage(NormalizeSettings(prefer="rank"), context=context)
+    times = []
+    for _, texts in tqdm(messages, desc=f"{len(names)} entries", leave=False):
+        nbest = [Hypothesis(t, r, {}) for r, t in enumerate(texts)]
+        utt = normalize.process(Utterance("m", "bench", None, {}, nbest))
+        utt.trace.append(TraceEntry("lexicon"))
+        began = time.perf_counter_ns()
+        stage.process(utt)
+        times.append((time.perf_counter_ns() - began) / 1e6)
+    rss = psutil.Process().memory_info().rss / 2**20
+    # Untimed: the same settings with a long trace tell whether retrieval found the planted entry.
+    stage.settings = stage.settings.model_copy(update={"trace_top": 50})
+    found = 0
+    for planted, texts in messages:
+        nbest = [Hypothesis(t, r, {}) for r, t in enumerate(texts)]
+        utt = normalize.process(Utterance("m", "bench", None, {}, nbest))
+        utt.trace.append(TraceEntry("lexicon"))
+        stage.process(utt)
+        found += any(c["id"] == f"e{planted}" for c in utt.trace[-1].scores["candidates"])
+    ms = np.asarray(times[min(20, len(times) // 10):])  # the first messages fill the word caches
+    return {"entries": len(names), "warm_load_s": round(warm, 2),
+            "p50_ms": round(float(np.percentile(ms, 50)), 3), "p99_ms": round(float(np.percentile(ms, 99)), 3),
+            "rss_mb": round(rss, 1), "found": round(found / len(messages), 3)}
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description="Benchmark the lexicon stage (latency, build time, memory).")
+    parser.add_argument("--sizes", type=int, nargs="+", default=[1000, 10000, 100000], help="lexicon sizes")
+    parser.add_argument("--messages", type=int, default=400, help="messages per size (default 400)")
+    parser.add_argument("--seed", type=int, default=7, help="random seed")
+    parser.add_argument("--corpus", type=Path, help="time the N-best lists of this corpus.jsonl instead "
+                        "of generated messages (the planted-entry column is then meaningless)")
+    parser.add_argument("--child", nargs=2, metavar=("STEP", "FOLDER"), help=argparse.SUPPRESS)
+    parser.add_argument("--size", type=int, default=0, help=argparse.SUPPRESS)
+    args = parser.parse_args(argv)
+    if args.child:
+        step, folder = args.child
+        result = build(args.size, Path(folder), args.seed) if step == "build" else \
+            measure(Path(folder), args.messages, args.seed, args.corpus)
+        print(json.dumps(result))
+        return 0
+    print("| entries | cold build s | warm load s | p50 ms | p99 ms | RSS MB | planted entry among candidates |")
+    print("|---:|---:|---:|---:|---:|---:|---:|")
+    for size in args.sizes:
+        with tempfile.TemporaryDirectory() as tmp:
+            r: dict[str, float] = {}
+            for step in ("build", "measure"):
+                # Separate processes: the measurement sees a restarted relay, not the build's heap.
+                out = subprocess.run([sys.executable, __file__, "--child", step, tmp, "--size", str(size),
+                                      "--messages", str(args.messages), "--seed", str(args.seed)]
+                                     + (["--corpus", str(args.corpus.resolve())] if args.corpus else []),
+                                     capture_output=True, text=True, check=True)
+                r |= json.loads(out.stdout.strip().splitlines()[-1])
+        print(f"| {r['entries']} | {r['build_s']} | {r['warm_load_s']} | {r['p50_ms']} | {r['p99_ms']} "
+              f"| {r['rss_mb']} | {r['found']} |")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,173 @@
+"""Spans of the N-best, their candidate entries and scores, and evidence pooled by posterior.
+
+A span is any run of 1..k words of a hypothesis, pronounced as one phone string; identical
+word runs in several hypotheses are one span with several occurrences. Candidates come from
+the phone index; each (span, form) pair is scored as a weighted mean of
+
+- phone similarity: 1 - feature-weighted alignment cost / longer length (stages.phonetics),
+- spelling similarity: rapidfuzz's normalised Indel ratio of the two texts, spaces removed,
+- key agreement: the best normalised Levenshtein similarity between the Double Metaphone keys.
+
+An exact written match scores 1.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from rapidfuzz.distance import Levenshtein
+from rapidfuzz.fuzz import ratio
+
+from relay.pipeline import Hypothesis
+from stages.lexicon_compile import CompiledLexicon, phonetic_keys
+from stages.phonetics import CostModel, batch_similarity
+from stages.pronounce import Pronouncer
+
+__all__ = ["Evidence", "Span", "Weights", "find_spans", "pool", "score_spans"]
+
+
+@dataclass(frozen=True, slots=True)
+class Weights:
+    phone: float
+    spelling: float
+    keys: float
+    candidates: int
+    min_retrieval: float
+    pair_floor: float  # pairs that cannot reach this score are dropped before the costlier signals
+    min_phone: float  # pairs whose phones agree less than this are dropped whatever their spelling
+    min_edit: float  # pairs below this unit-cost phone similarity are not aligned at all
+
+
+@dataclass(slots=True)
+class Span:
+    words: tuple[str, ...]
+    phones: str
+    occurrences: list[tuple[int, int, int]] = field(default_factory=list)  # (hypothesis, start, end)
+
+    @property
+    def text(self) -> str:
+        return " ".join(self.words)
+
+
+@dataclass(slots=True)
+class Evidence:
+    """What the N-best says about one entry."""
+
+    entry: int
+    pooled: float = 0.0  # sum over hypotheses of posterior x best span score
+    per_hypothesis: dict[int, tuple[float, int, int, int, bool]] = field(default_factory=dict)
+    # hypothesis -> (score, start, end, form, exact)
+
+
+def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer) -> list[Span]:
+    spans: dict[tuple[str, ...], Span] = {}
+    for number, hypothesis in enumerate(nbest):
+        tokens = hypothesis.tokens
+        sounds = [pronouncer.word(token) for token in tokens]
+        for start in range(len(tokens)):
+            phones = ""
+            for end in range(start + 1, min(len(tokens), start + longest) + 1):
+                phones += sounds[end - 1]  # a span's phones are its words' phones run together
+                words = tuple(tokens[start:end])
+                span = spans.get(words)
+                if span is None:
+                    span = spans[words] = Span(words, phones)
+                span.occurrences.append((number, start, end))
+    return list(spans.values())
+
+
+def _key_agreement(a: tuple[str, ...], b: tuple[str, ...]) -> float:
+    return max(Levenshtein.normalized_similarity(x, y) for x in a for y in b)
+
+
+def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
+                costs: CostModel) -> list[tuple[int, int, float, bool]]:
+    """(span, form, score, exact) for every candidate pair worth keeping."""
+    pairs: list[tuple[int, int, float, bool]] = []
+    exact_pairs: set[tuple[int, int]] = set()
+    for number, span in enumerate(spans):
+        for form in lexicon.exact.get(span.text, ()):
+            pairs.append((number, form, 1.0, True))
+            exact_pairs.add((number, form))
+    hits = lexicon.index.search([s.phones for s in spans], k=weights.candidates,
+                                min_score=weights.min_retrieval)
+    forms = lexicon.forms
+    # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
+    # feature alignment; see docs/lexicon.md for how the threshold was chosen.
+    screen = weights.min_edit
+    chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
+              if (q, f) not in exact_pairs
+              and Levenshtein.normalized_similarity(spans[q].phones, forms[f].phones) >= screen]
+    if not chosen:
+        return pairs
+    phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
+    total = weights.phone + weights.spelling + weights.keys
+    floor = weights.pair_floor * total
+    joined: dict[int, str] = {}
+    keys: dict[int, tuple[str, ...]] = {}
+    for (q, f), phone_score in zip(chosen, phone.tolist()):
+        score = weights.phone * phone_score
+        if phone_score < weights.min_phone or score + weights.spelling + weights.keys < floor:
+            continue
+        form = forms[f]
+        if weights.spelling:
+            if q not in joined:
+                joined[q] = spans[q].text.replace(" ", "")
+            score += weights.spelling * ratio(joined[q], form.text.replace(" ", "")) / 100.0
+        if weights.keys and score + weights.keys >= floor:
+            if q not in keys:
+                keys[q] = phonetic_keys(spans[q].text)
+            score += weights.keys * _key_agreement(keys[q], form.keys)
+        if score >= floor:
+            pairs.append((q, f, score / total, False))
+    return pairs
+
+
+def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: CompiledLexicon,
+         posteriors: Sequence[float], *, strong: float = 0.75) -> dict[int, Evidence]:
+    """Per entry: best span score in each hypothesis, summed over hypotheses by posterior.
+
+    Among spans scoring at least ``strong``, the one covering more words is preferred, so a
+    near match of a full name ("tamsin okorra") is not lost to an exact match of its alias
+    ("tamsin") alone.
+    """
+    evidence: dict[int, Evidence] = {}
+    for q, f, score, exact in pairs:
+        entry = lexicon.forms[f].entry
+        found = evidence.get(entry)
+        if found is None:
+            found = evidence[entry] = Evidence(entry)
+        for hypothesis, start, end in spans[q].occurrences:
+            held = found.per_hypothesis.get(hypothesis)
+            if held is None or _better((score, start, end, f, exact), held, strong, lexicon):
+                found.per_hypothesis[hypothesis] = (score, start, end, f, exact)
+    for found in evidence.values():
+        found.pooled = float(sum(posteriors[h] * held[0] for h, held in found.per_hypothesis.items()))
+    return evidence
+
+
+def _better(new: tuple[float, int, int, int, bool], held: tuple[float, int, int, int, bool],
+            strong: float, lexicon: CompiledLexicon) -> bool:
+    score, start, end, form, exact = new
+    held_score, held_start, held_end, held_form, held_exact = held
+    # A near match of a longer form (the full name) beats an exact match of a shorter one (an
+    # alias) inside it; a longer span around the same form does not.
+    longer_form = lexicon.forms[form].words > lexicon.forms[held_form].words
+    contains = start <= held_start and held_end <= end and end - start > held_end - held_start and longer_form
+    inside = held_start <= start and end <= held_end and held_end - held_start > end - start and \
+        lexicon.forms[held_form].words > lexicon.forms[form].words
+    if held_exact and not exact and score >= strong and contains:
+        return True
+    if exact and not held_exact and held_score >= strong and inside:
+        return False
+    # Otherwise the higher score; at equal scores the longer span (it explains more words).
+    return (score, end - start) > (held_score, held_end - held_start)
+
+
+def best_entries(evidence: dict[int, Evidence], count: int) -> list[Evidence]:
+    scores = np.fromiter((e.pooled for e in evidence.values()), dtype=np.float64, count=len(evidence))
+    order = np.argsort(-scores)[:count]
+    values = list(evidence.values())
+    return [values[i] for i in order]

