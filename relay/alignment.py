@@ -41,15 +41,22 @@ def align(reference: Sequence[str], hypothesis: Sequence[str]) -> list[Pair]:
 
 
 def aligned_span(pairs: Sequence[Pair], start: int, end: int) -> tuple[int, int] | None:
-    """The hypothesis words [a, b) aligned to reference words [start, end), with insertions
-    inside the span; None when the whole span was deleted."""
-    inside: list[int] = []
-    within = False
-    for ref, hyp in pairs:
-        if ref is not None:
-            within = start <= ref < end
-        if within and hyp is not None:
-            inside.append(hyp)
+    """The hypothesis words [a, b) standing for reference words [start, end); None when the
+    whole span was deleted.
+
+    Inserted words next to the span count as part of it: a misheard term is where the
+    recogniser splits one word into several, so the extra words belong to the term rather
+    than to its correctly heard neighbours.
+    """
+    positions = [k for k, (ref, _) in enumerate(pairs) if ref is not None and start <= ref < end]
+    if not positions:
+        return None
+    first, last = positions[0], positions[-1]
+    while first > 0 and pairs[first - 1][0] is None:
+        first -= 1
+    while last + 1 < len(pairs) and pairs[last + 1][0] is None:
+        last += 1
+    inside = [hyp for _, hyp in pairs[first:last + 1] if hyp is not None]
     if not inside:
         return None
     return min(inside), max(inside) + 1

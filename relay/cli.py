@@ -13,7 +13,7 @@ from relay.errors import RehearError
 __all__ = ["main"]
 
 # Subcommand modules under relay.commands, in the order --help lists them.
-_COMMANDS = ("run", "check", "stages", "demo", "build_lm", "eval", "tune")
+_COMMANDS = ("run", "check", "stages", "demo", "build_lm", "eval", "tune", "augment")
 
 _DESCRIPTION = """\
 rehear cleans a speech recogniser's N-best lists before they reach NLU: it rescores them
@@ -48,6 +48,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 2
     except KeyboardInterrupt:
         return 130
+    except BrokenPipeError:  # output piped into `head` and the like
+        sys.stderr.close()
+        return 0
     return code
 
 
