@@ -91,11 +91,14 @@ def test_relay_killed_mid_stream_loses_nothing(broker: Any, tmp_path: Path) -> N
 
 def test_demo_runs_end_to_end_on_the_embedded_broker() -> None:
     env = dict(os.environ, PYTHONPATH=str(ROOT))
-    result = subprocess.run([sys.executable, "-m", "relay.commands.demo", "--interval", "0"], cwd=ROOT, env=env,
-                            capture_output=True, text=True, timeout=90)
+    result = subprocess.run([sys.executable, "-m", "relay.commands.demo", "--interval", "0", "--count", "8"],
+                            cwd=ROOT, env=env, capture_output=True, text=True, timeout=90)
     assert result.returncode == 0, result.stdout + result.stderr
     lines = [line for line in (ROOT / "examples/demo/messages.jsonl").read_text().splitlines() if line.strip()]
-    assert f"of {len(lines)} messages" in result.stdout
+    assert f"summary of {len(lines) + 8} messages" in result.stdout
+    assert "recorded utterances: 8;" in result.stdout
+    assert result.stdout.count("said:") == 8  # the recorded corpus is replayed with its references
+    assert "dead letter (too_many_hypotheses)" in result.stdout
     assert "dead letter (invalid_json)" in result.stdout
     assert "partial result, forwarded untouched" in result.stdout
     assert "metrics: http://127.0.0.1:" in result.stdout

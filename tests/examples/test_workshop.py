@@ -1,0 +1,23 @@
+from pathlib import Path
+
+from relay.commands.build_lm import build_model
+from relay.config import build_chain, load_config
+from relay.corpus import read_corpus
+
+WORKSHOP = Path(__file__).resolve().parents[2] / "examples" / "workshop"
+
+
+def test_shipped_language_model_is_rebuilt_exactly(tmp_path: Path) -> None:
+    # The committed ARPA must be what `rehear build-lm` makes from the committed text.
+    rebuilt = tmp_path / "workshop.arpa"
+    build_model(train=WORKSHOP / "train.txt", lexicon=WORKSHOP / "lexicon.csv", output=rebuilt, order=3)
+    assert rebuilt.read_text() == (WORKSHOP / "workshop.arpa").read_text()
+
+
+def test_example_configuration_loads_and_runs(tmp_path: Path) -> None:
+    chain = build_chain(load_config(WORKSHOP / "relay.yaml"))
+    chain.load()
+    item = read_corpus(WORKSHOP / "corpus.jsonl")[0]
+    utterance = chain.process(item.utterance())
+    assert [entry.stage for entry in utterance.trace] == ["normalize", "lm_rescore", "lexicon", "gate"]
+    assert utterance.decision in ("accept", "confirm", "reprompt")
