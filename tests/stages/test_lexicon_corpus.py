@@ -12,12 +12,8 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-import pytest
-
 ROOT = Path(__file__).resolve().parents[2]
 FOLDER = ROOT / "examples" / "workshop"
-
-pytestmark = pytest.mark.skipif(not (FOLDER / "corpus.jsonl").exists(), reason="workshop corpus not present")
 
 
 def test_entity_recall_precision_and_wer_on_the_recorded_corpus(tmp_path: Path) -> None:
