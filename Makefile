@@ -28,7 +28,9 @@ lint: $(VENV)/.installed-test
 	$(BIN)/mypy relay stages
 
 bench: $(VENV)/.installed-test
-	$(BIN)/python benchmarks/run_all.py
+	$(BIN)/python benchmarks/bench_build_lm.py
+	$(BIN)/python benchmarks/bench_lexicon.py --corpus examples/workshop/corpus.jsonl
+	$(BIN)/python benchmarks/bench_relay.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache .mypy_cache .ruff_cache .rehear-cache
