@@ -23,6 +23,7 @@ __all__ = ["default_config"]
 _LM_MODEL_PARAM = "model"
 _LEXICON_PARAM = "lexicon"
 _SPEAKERS_PARAM = "speakers"
+_LEXICON_LM_PARAM = "lm_model"  # the lexicon stage's in-domain LM for its context term
 # The language-model builder's entry point: module, function(train=, lexicon=, output=).
 _BUILD_LM = ("relay.commands.build_lm", "build_model")
 
@@ -64,6 +65,7 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
         if path is not None and not path.is_file():
             raise ConfigError(f"Cannot build the default chain: {label} file {path} does not exist")
     stages: list[Any] = ["normalize"]
+    model: Path | None = None
     if train is not None and _available(registry, "lm_rescore"):
         model = _build_language_model(train.resolve(), lexicon.resolve(), cache_dir.resolve())
         if model is None:
@@ -76,6 +78,8 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
         params = {_LEXICON_PARAM: str(lexicon.resolve())}
         if speakers is not None:
             params[_SPEAKERS_PARAM] = str(speakers.resolve())
+        if model is not None:
+            params[_LEXICON_LM_PARAM] = str(model)
         stages.append({"lexicon": params})
     else:
         _note("stage lexicon is not installed; the default chain runs without it")

@@ -18,6 +18,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 from relay.errors import StageError
 from relay.pipeline import Correction, Entity, StageContext, Utterance
 from stages.lexicon_compile import CompiledLexicon, load_compiled
+from stages.lexicon_context import ContextScorer, shared_model
 from stages.lexicon_data import read_speakers
 from stages.lexicon_match import Evidence, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon_rewrite import map_span, rewrite
@@ -53,6 +54,12 @@ class LexiconSettings(BaseModel):
     min_edit: float = Field(0.4, ge=0, le=1, description="least unit-cost phone similarity to align a pair")
     min_phone: float = Field(0.6, ge=0, le=1, description="least phone similarity for a span/entry pair")
     pair_floor: float = Field(0.45, ge=0, le=1, description="span/entry pairs scoring less are ignored")
+    lm_model: Path | None = Field(None, description="in-domain ARPA/kenlm model for the context term")
+    lm_weight: float = Field(0.01, ge=0, le=1, description="score added per nat the LM gains by a correction")
+    lm_loss_weight: float = Field(0.06, ge=0, le=1, description="score taken per nat the LM loses by a correction")
+    lm_cap: float = Field(10.0, ge=0, le=100, description="LM gain (nats) is clipped to +-this")
+    short_phones: int = Field(6, ge=0, le=20, description="forms of at most this many phones are short")
+    short_penalty: float = Field(0.2, ge=0, le=1, description="more score needed to correct into a short form")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
 
     @model_validator(mode="after")
@@ -71,6 +78,7 @@ class _Choice:
     form: int
     exact: bool
     hint_missing: bool
+    lm_gain: float = 0.0
 
 
 class LexiconStage:
@@ -110,6 +118,7 @@ class LexiconStage:
         ids = {entry.id for entry in self.compiled.entries}
         self.affinity = read_speakers(self._path(s.speakers), ids) if s.speakers else {}
         self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
+        self.lm = shared_model(self._path(s.lm_model)) if s.lm_model is not None and (s.lm_weight or s.lm_loss_weight) else None
 
     def process(self, utterance: Utterance) -> Utterance:
         lexicon = self._lexicon
@@ -125,8 +134,9 @@ class LexiconStage:
         # Entries too weak to be corrected or traced are not carried any further.
         floor = min(s.min_score, s.pair_floor) * min(1.0, max(posteriors)) - s.affinity_weight - s.weight_prior
         strong = [e for e in best_entries(evidence, max(12, s.trace_top)) if e.pooled >= floor or best in e.per_hypothesis]
-        choices = [self._choose(e, utterance, best) for e in strong]
         tokens = utterance.nbest[best].tokens
+        context = ContextScorer(self.lm, tokens, cap=s.lm_cap) if self.lm is not None and strong else None
+        choices = [self._choose(e, utterance, best, context) for e in strong]
         exacts = sorted((c for c in choices if c.exact), key=lambda c: (c.start - c.end, -c.score))
         fuzzy = sorted((c for c in choices if not c.exact), key=lambda c: (-c.score, c.start - c.end))
         placed: list[_Choice] = []
@@ -157,7 +167,8 @@ class LexiconStage:
         kept = " " + " ".join(tokens[exact.start:exact.end]) + " "
         return kept in " " + self._lexicon.forms[longer.form].text + " "
 
-    def _choose(self, evidence: Evidence, utterance: Utterance, best: int) -> _Choice:
+    def _choose(self, evidence: Evidence, utterance: Utterance, best: int,
+                context: ContextScorer | None) -> _Choice:
         lexicon = self._lexicon
         entry = lexicon.entries[evidence.entry]
         score = evidence.pooled + self.settings.weight_prior * math.log(entry.weight)
@@ -179,7 +190,16 @@ class LexiconStage:
         hint_missing = bool(hints) and not hints.intersection(before)  # type: ignore[union-attr]
         if hints and not hint_missing:
             score += self.settings.hint_bonus  # the context announces this type: a prior like affinity
-        return _Choice(evidence, score, start, end, form, exact, hint_missing)
+        lm_gain = 0.0
+        if context is not None and not exact:
+            # Noisy channel: the sound says how well the span matches, the in-domain LM how
+            # much likelier the sentence reads once rewritten.
+            lm_gain = context.gain(start, end, lexicon.forms[form].text.split())
+            # A rewrite the domain finds less likely is strong evidence against it (an everyday
+            # word pulled into a name); a likelier one is weaker evidence for it, since
+            # replacing any out-of-vocabulary word gains, so the two sides weigh differently.
+            score += (self.settings.lm_weight if lm_gain > 0 else self.settings.lm_loss_weight) * lm_gain
+        return _Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain)
 
     def _guard(self, choice: _Choice, placed: list[_Choice], choices: list[_Choice],
                exacts: list[_Choice], tokens: list[str]) -> str | None:
@@ -206,6 +226,9 @@ class LexiconStage:
                   and not (c.exact and self._supersedes(choice, c, tokens))]
         if rivals and choice.score - max(rivals) < s.margin:
             return "margin"
+        if (s.short_penalty and len(self._lexicon.forms[choice.form].phones) <= s.short_phones
+                and choice.score < s.min_score + s.short_penalty):
+            return "short_form"  # a few phones match many everyday words by chance ("for" -> "bay four")
         if choice.hint_missing and choice.score < s.min_score + s.hint_penalty:
             return "type_hint"  # a hinted type without its hint word needs hint_penalty more evidence
         return None
@@ -215,7 +238,7 @@ class LexiconStage:
         return {"id": lexicon.entries[choice.evidence.entry].id,
                 "heard": " ".join(tokens[choice.start:choice.end]),
                 "form": lexicon.forms[choice.form].text, "score": round(choice.score, 4),
-                "pooled": round(choice.evidence.pooled, 4), "hypotheses": len(choice.evidence.per_hypothesis)}
+                "pooled": round(choice.evidence.pooled, 4), "lm_gain": round(choice.lm_gain, 3), "hypotheses": len(choice.evidence.per_hypothesis)}
 
     def _finish(self, utterance: Utterance, best: int, placed: list[_Choice],
                 blocked: list[dict[str, Any]], choices: list[_Choice]) -> Utterance:

@@ -1,0 +1,27 @@
+"""The default chain hands its language model to the lexicon stage as well as to lm_rescore."""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+from relay.config import build_chain
+from relay.defaults import default_config
+from relay.variants import config_from_dict
+from stages.kneser_ney import DiscountFallbackWarning
+
+
+def test_lexicon_stage_gets_the_models_path_and_loads_it(tmp_path: Path) -> None:
+    lexicon = tmp_path / "lexicon.csv"
+    lexicon.write_text("id,type,name\nmachine.lathe,machine,lathe\nperson.mara_lind,person,mara lind\n")
+    train = tmp_path / "train.txt"
+    train.write_text("book the {machine} for {person}\nplease page {person}\nis the {machine} free\n")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DiscountFallbackWarning)  # a toy corpus has too few counts
+        raw = default_config(lexicon=lexicon, train=train, speakers=None, cache_dir=tmp_path / "cache")
+    params = {name: p for item in raw["stages"] if isinstance(item, dict) for name, p in item.items()}
+    assert params["lexicon"]["lm_model"] == params["lm_rescore"]["model"]
+    chain = build_chain(config_from_dict(raw, base_dir=tmp_path))
+    chain.load()
+    lexicon_stage = chain.stages[chain.names.index("lexicon")]
+    assert lexicon_stage.lm is not None  # type: ignore[attr-defined]
