@@ -152,7 +152,10 @@ class Collector:
         return [item for item in self.received if item.topic.startswith(topic_prefix)]
 
 
-async def publish_all(broker: Any, topic: str, payloads: list[bytes], *, qos: int = 1) -> None:
+async def publish_all(broker: Any, topic: str, payloads: list[bytes], *, qos: int = 1, gap_s: float = 0.0) -> None:
+    """Publish in order; ``gap_s`` paces the stream so events can land in the middle of it."""
     async with aiomqtt.Client(broker.host, broker.port, identifier=f"pub-{uuid.uuid4().hex[:10]}") as client:
         for payload in payloads:
             await client.publish(topic, payload, qos=qos)
+            if gap_s:
+                await asyncio.sleep(gap_s)
