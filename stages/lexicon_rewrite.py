@@ -18,7 +18,7 @@ def map_span(source: Sequence[str], target: Sequence[str], start: int, end: int)
         return start, end
     opcodes = SequenceMatcher(None, list(source), list(target), autojunk=False).get_opcodes()
     mapped_start, mapped_end = len(target), len(target)
-    for tag, i1, i2, j1, j2 in opcodes:
+    for tag, i1, i2, j1, _j2 in opcodes:
         if i1 <= start < i2 or (start == i2 == len(source)):
             mapped_start = j1 + (start - i1) if tag == "equal" else j1
             break

@@ -61,10 +61,8 @@ def _spell_number(match: re.Match[str]) -> str:
         return " " + " ".join(words) + " "
     text = number if number is not None else bare
     whole, _, fraction = text.partition(".")
-    if len(whole) > 12:  # a serial number, not a quantity: read digit by digit
-        words = [_ONES[int(d)] for d in whole]
-    else:
-        words = number_words(int(whole))
+    # A very long digit run is a serial number, not a quantity: read it digit by digit.
+    words = [_ONES[int(d)] for d in whole] if len(whole) > 12 else number_words(int(whole))
     if fraction:
         words += ["point"] + [_ONES[int(d)] for d in fraction]
     elif suffix:

@@ -91,7 +91,7 @@ def build_model(
     output: Path,
     lexicon: Path | None = None,
     order: int = 3,
-    options: CorpusOptions = CorpusOptions(),
+    options: CorpusOptions | None = None,
     fallback: Sequence[float] = DEFAULT_FALLBACK,
 ) -> KneserNeyModel:
     """Read in-domain text, estimate the model and write it as ARPA (atomically).
@@ -102,7 +102,8 @@ def build_model(
     slots = read_slot_values(lexicon) if lexicon is not None else None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", DiscountFallbackWarning)
-        model = estimate(read_sentences(paths, slots=slots, options=options), order, fallback=fallback)
+        model = estimate(read_sentences(paths, slots=slots, options=options or CorpusOptions()), order,
+                         fallback=fallback)
     for warning in caught:
         print(f"warning: {warning.message}", file=sys.stderr)
     write_arpa(model, output)

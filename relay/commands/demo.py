@@ -131,7 +131,7 @@ async def _results(client: aiomqtt.Client, topics: Any) -> list[tuple[str, str, 
 def _print_result(item: _Item, got: list[tuple[str, str, dict[str, Any] | None, bytes]], out: Any) -> str:
     """Print what happened to one input; returns its kind for the summary."""
     kind = got[0][0]
-    for each, topic, body, payload in got:
+    for each, topic, body, _payload in got:
         if each == "dead_letter":
             detail = body.get("detail") if body else "(reason in MQTT 5 user properties)"
             reason = body.get("reason") if body else "?"

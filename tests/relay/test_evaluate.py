@@ -5,7 +5,6 @@ from pathlib import Path
 
 import jiwer
 import pytest
-from tests.relay.corpus_fixtures import write_config, write_corpus
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -19,6 +18,7 @@ from relay.registry import Registry
 from stages.gate import GateStage
 from stages.normalize import NormalizeStage
 from stages.tokens import tokenize
+from tests.relay.corpus_fixtures import write_config, write_corpus
 
 PAIRS = [
     ("start the irrigation pump in zone three", "start the irrigation pumpkin shown three"),

@@ -6,7 +6,6 @@ from typing import Any, ClassVar
 
 import numpy as np
 import pytest
-from tests.relay.corpus_fixtures import write_config, write_corpus
 from pydantic import BaseModel, ConfigDict
 
 import relay.tuning
@@ -29,6 +28,7 @@ from relay.tuning import (
 )
 from relay.variants import VariantBuilder, config_from_dict
 from stages.gate import GateFeatures, GateSettings, decide
+from tests.relay.corpus_fixtures import write_config, write_corpus
 
 
 def test_folds_are_disjoint_cover_everything_and_follow_the_seed() -> None:
