@@ -16,11 +16,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal
 
-import yaml
 from tqdm import tqdm
 
 from relay.errors import InputError
 from stages.kneser_ney import RESERVED
+from stages.lexicon_data import read_lexicon
 from stages.tokens import tokenize
 
 __all__ = ["CorpusOptions", "TextFormat", "read_sentences", "read_slot_values"]
@@ -53,55 +53,17 @@ def _format_of(path: Path, text_format: TextFormat) -> TextFormat:
 
 
 # -- lexicon slots -------------------------------------------------------------------------
-# A small reader of the lexicon columns slots need (type, name, aliases); the full lexicon
-# loader lives with the lexicon stage.
-
-def _forms(record: dict[str, Any]) -> list[str]:
-    aliases = record.get("aliases") or ""
-    if isinstance(aliases, list):
-        aliases = "|".join(str(a) for a in aliases)
-    forms = [str(record.get("name") or "").strip()] + [a.strip() for a in str(aliases).split("|")]
-    return list(dict.fromkeys(f for f in forms if f))
-
-
-def _lexicon_records(path: Path) -> Iterator[tuple[str, dict[str, Any]]]:
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise InputError("not_utf8", f"{path}: not UTF-8 text (byte {exc.start})") from None
-    except OSError as exc:
-        raise InputError("unreadable", f"{path}: {exc.strerror or exc}") from None
-    if path.suffix.lower() == ".csv":
-        reader = csv.DictReader(text.splitlines())
-        missing = {"type", "name"} - set(reader.fieldnames or [])
-        if missing:
-            raise InputError("schema", f"{path}:1: lexicon header lacks {', '.join(sorted(missing))}")
-        for row in reader:
-            yield f"{path}:{reader.line_num}", row
-        return
-    try:
-        data = json.loads(text) if path.suffix.lower() == ".json" else yaml.safe_load(text)
-    except (json.JSONDecodeError, yaml.YAMLError) as exc:
-        raise InputError("schema", f"{path}: not valid {path.suffix.lstrip('.')}: {exc}") from None
-    if isinstance(data, dict):
-        data = data.get("entries")
-    if not isinstance(data, list):
-        raise InputError("schema", f"{path}: expected a list of lexicon records")
-    for index, record in enumerate(data):
-        if not isinstance(record, dict):
-            raise InputError("schema", f"{path}: record {index} is not a mapping")
-        yield f"{path}: record {index}", record
-
 
 def read_slot_values(path: Path) -> dict[str, list[str]]:
-    """Written forms (name and aliases) of the lexicon's entries, grouped by type."""
+    """Written forms (name and aliases) of the lexicon's entries, grouped by type.
+
+    The lexicon is read by the lexicon stage's own loader, so build-lm and the relay agree on
+    what a valid lexicon is; its problems are reported with their lines.
+    """
     values: dict[str, dict[str, None]] = {}  # dicts as ordered sets
-    for where, record in _lexicon_records(Path(path)):
-        kind = str(record.get("type") or "").strip()
-        forms = _forms(record)
-        if not kind or not forms:
-            raise InputError("schema", f"{where}: a lexicon entry needs a type and a name")
-        values.setdefault(kind, {}).update(dict.fromkeys(forms))
+    for entry in read_lexicon(Path(path)):
+        forms = [entry.name, *entry.aliases]
+        values.setdefault(entry.type, {}).update(dict.fromkeys(f for f in forms if f))
     return {kind: list(forms) for kind, forms in values.items()}
 
 
