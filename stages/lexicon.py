@@ -66,6 +66,7 @@ class LexiconSettings(BaseModel):
     slot_min_gain: float = Field(8.0, ge=-100, le=100, description="least LM gain (nats) for a slot match")
     slot_margin: float = Field(0.0, ge=0, le=1, description="least phone lead of a slot match over another entry")
     slot_min_phones: int = Field(8, ge=0, le=40, description="forms with fewer phones are left out of slot matching")
+    slot_min_edit: float = Field(0.3, ge=0, le=1, description="least unit-cost phone similarity to align a slot pair")
     slot_at_start: bool = Field(False, description="a slot may also begin the sentence")
     slot_max_words: int = Field(5, ge=1, le=8, description="longest span tried for a slot")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
@@ -188,7 +189,8 @@ class LexiconStage:
         for kind, slot in self.slots.items():
             anchors = slot_anchors(tokens, self.hints.get(kind, set()), at_start=s.slot_at_start)
             for match in slot_candidates(sounds, anchors, taken, slot, lexicon, self.costs,
-                                         max_words=s.slot_max_words, min_phone=s.slot_min_phone):
+                                         max_words=s.slot_max_words, min_phone=s.slot_min_phone,
+                                         min_edit=s.slot_min_edit):
                 form = lexicon.forms[match.form]
                 if form.entry in entries or any(b < match.end and match.start < e for b, e in taken):
                     continue
