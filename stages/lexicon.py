@@ -22,6 +22,7 @@ from stages.lexicon_context import ContextScorer, shared_model
 from stages.lexicon_data import read_speakers
 from stages.lexicon_match import Evidence, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon_rewrite import map_span, rewrite
+from stages.lexicon_slots import SlotForms, slot_anchors, slot_candidates, slot_forms
 from stages.phonetics import CostModel
 from stages.pronounce import Pronouncer, common_words
 
@@ -60,6 +61,14 @@ class LexiconSettings(BaseModel):
     lm_cap: float = Field(10.0, ge=0, le=100, description="LM gain (nats) is clipped to +-this")
     short_phones: int = Field(6, ge=0, le=20, description="forms of at most this many phones are short")
     short_penalty: float = Field(0.2, ge=0, le=1, description="more score needed to correct into a short form")
+    slot_types: list[str] = Field(default_factory=list, description="types looked for with a looser phone floor where the context announces one")
+    slot_min_phone: float = Field(0.68, ge=0, le=1, description="least phone similarity for a slot match")
+    slot_min_gain: float = Field(8.0, ge=-100, le=100, description="least LM gain (nats) for a slot match")
+    slot_margin: float = Field(0.0, ge=0, le=1, description="least phone lead of a slot match over another entry")
+    slot_min_phones: int = Field(8, ge=0, le=40, description="forms with fewer phones are left out of slot matching")
+    slot_min_edit: float = Field(0.3, ge=0, le=1, description="least unit-cost phone similarity to align a slot pair")
+    slot_at_start: bool = Field(False, description="a slot may also begin the sentence")
+    slot_max_words: int = Field(5, ge=1, le=8, description="longest span tried for a slot")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
 
     @model_validator(mode="after")
@@ -118,6 +127,7 @@ class LexiconStage:
         ids = {entry.id for entry in self.compiled.entries}
         self.affinity = read_speakers(self._path(s.speakers), ids) if s.speakers else {}
         self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
+        self.slots: dict[str, SlotForms] = slot_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
         self.lm = shared_model(self._path(s.lm_model)) if s.lm_model is not None and (s.lm_weight or s.lm_loss_weight) else None
 
     def process(self, utterance: Utterance) -> Utterance:
@@ -157,7 +167,49 @@ class LexiconStage:
             elif taken[0].evidence.entry != choice.evidence.entry:
                 blocked.append(self._describe(choice, tokens) | {"guard": "superseded" if any(
                     self._supersedes(c, choice, tokens) for c in taken) else "overlap"})
+        if self.slots:
+            if context is None and self.lm is not None:
+                context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
+            placed += self._slot_recall(tokens, placed, blocked, context)
         return self._finish(utterance, best, placed, blocked, choices)
+
+    def _slot_recall(self, tokens: list[str], placed: list[_Choice], blocked: list[dict[str, Any]],
+                     context: ContextScorer | None) -> list[_Choice]:
+        """Names of the slot types, looked for where a hint word or the sentence start announces one.
+
+        A match needs the looser phone floor and, with a language model, the sentence must read
+        at least ``slot_min_gain`` nats likelier with the name in it: sound and context agree.
+        """
+        s = self.settings
+        lexicon = self._lexicon
+        sounds = [self.pronouncer.word(token) for token in tokens]
+        taken = [(c.start, c.end) for c in placed]
+        entries = {c.evidence.entry for c in placed}
+        found: list[_Choice] = []
+        for kind, slot in self.slots.items():
+            anchors = slot_anchors(tokens, self.hints.get(kind, set()), at_start=s.slot_at_start)
+            for match in slot_candidates(sounds, anchors, taken, slot, lexicon, self.costs,
+                                         max_words=s.slot_max_words, min_phone=s.slot_min_phone,
+                                         min_edit=s.slot_min_edit):
+                form = lexicon.forms[match.form]
+                if form.entry in entries or any(b < match.end and match.start < e for b, e in taken):
+                    continue
+                if " ".join(tokens[match.start:match.end]) == form.text:
+                    continue  # exact text is the general matcher's job
+                gain = context.gain(match.start, match.end, form.text.split()) if context is not None else 0.0
+                choice = _Choice(Evidence(form.entry, match.phone), match.phone, match.start, match.end,
+                                 match.form, False, False, gain)
+                if match.phone - match.runner_up < s.slot_margin:
+                    reason = "slot_margin"
+                elif context is not None and gain < min(s.slot_min_gain, s.lm_cap):  # the gain is clipped too
+                    reason = "slot_context"
+                else:
+                    found.append(choice)
+                    taken.append((match.start, match.end))
+                    entries.add(form.entry)
+                    continue
+                blocked.append(self._describe(choice, tokens) | {"guard": reason})
+        return found
 
     def _supersedes(self, longer: _Choice, exact: _Choice, tokens: list[str]) -> bool:
         """Whether ``longer`` spans ``exact`` and keeps its words, so replacing is no loss."""

@@ -25,3 +25,14 @@ def test_lexicon_stage_gets_the_models_path_and_loads_it(tmp_path: Path) -> None
     chain.load()
     lexicon_stage = chain.stages[chain.names.index("lexicon")]
     assert lexicon_stage.lm is not None  # type: ignore[attr-defined]
+
+
+def test_default_chain_carries_person_hints_and_slots(tmp_path: Path) -> None:
+    lexicon = tmp_path / "lexicon.csv"
+    lexicon.write_text("id,type,name\nperson.mara_lind,person,mara lind\n")
+    raw = default_config(lexicon=lexicon, train=None, speakers=None, cache_dir=tmp_path / "cache")
+    params = {name: p for item in raw["stages"] if isinstance(item, dict) for name, p in item.items()}
+    assert "call" in params["lexicon"]["type_hints"]["person"]
+    assert params["lexicon"]["slot_types"] == ["person"]
+    chain = build_chain(config_from_dict(raw, base_dir=tmp_path))
+    chain.load()

@@ -16,6 +16,7 @@ from relay.pipeline import StageContext, Utterance
 from relay.registry import Registry
 from relay.tuning import (
     DEFAULT_GATE_GRID,
+    DEFAULT_SPACE,
     Choice,
     RecordedFeatures,
     cross_validate,
@@ -28,6 +29,9 @@ from relay.tuning import (
 )
 from relay.variants import VariantBuilder, config_from_dict
 from stages.gate import GateFeatures, GateSettings, decide
+from stages.lexicon import LexiconSettings
+from stages.lm_rescore import LmRescoreSettings
+from stages.normalize import NormalizeSettings
 from tests.relay.corpus_fixtures import write_config, write_corpus
 
 
@@ -253,3 +257,12 @@ def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatc
     written = out.read_text()
     assert "${REHEAR_TEST_PASSWORD}" in written and "hunter2" not in written
     assert load_config(out).config.broker.password is not None
+
+
+def test_default_space_names_only_settings_the_stages_have() -> None:
+    fields = {"normalize": NormalizeSettings.model_fields, "lm_rescore": LmRescoreSettings.model_fields,
+              "lexicon": LexiconSettings.model_fields}
+    for stage, params in DEFAULT_SPACE.items():
+        for param, values in params.items():
+            assert param in fields[stage], f"{stage}.{param}"
+            assert values, f"{stage}.{param} has no values"
