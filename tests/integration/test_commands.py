@@ -70,11 +70,14 @@ def test_relay_killed_mid_stream_loses_nothing(broker: Any, tmp_path: Path) -> N
             process = _start(path, "--log-level", "info")
             try:
                 await asyncio.to_thread(_wait_for_line, process, "connected", [])
-                await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest",
-                                  [orjson.dumps(message(ident, "mill slot")) for ident in sorted(wanted)])
-                await down.wait_for(lambda items: len(items) >= 30, timeout=20)
+                # The kill lands while input is still being published, however fast the relay is.
+                publishing = asyncio.create_task(publish_all(
+                    broker, f"{prefix}/asr/kiosk-1/nbest",
+                    [orjson.dumps(message(ident, "mill slot")) for ident in sorted(wanted)]))
+                await down.wait_for(lambda items: len(items) >= 20, timeout=20)
                 process.kill()  # SIGKILL: no drain, no DISCONNECT
                 await asyncio.to_thread(process.wait, 10)
+                await publishing
             finally:
                 if process.poll() is None:
                     process.kill()
