@@ -188,7 +188,7 @@ class Relay:
             return
         timeout = self.active.loaded.config.limits.drain_s
         _log.info("draining", extra={"fields": {"in_flight": len(self._tasks)}})
-        done, pending = await asyncio.wait(set(self._tasks), timeout=timeout)
+        _done, pending = await asyncio.wait(set(self._tasks), timeout=timeout)
         for task in pending:
             task.cancel()
         if pending:
