@@ -50,7 +50,10 @@ class ChainWorker:
             timer.cancel()
 
     def shutdown(self) -> None:
-        """Let the thread end after the job it is on; queued jobs are dropped (their callers time out)."""
+        """Let the thread end once the jobs queued so far are done or expired.
+
+        The thread is a daemon: a stage stuck at exit does not keep the process alive.
+        """
         if self._started:
             self._jobs.put(_STOP)
 
