@@ -14,7 +14,6 @@ Guarantees, in order of importance:
 from __future__ import annotations
 
 import asyncio
-import concurrent.futures
 import logging
 import random
 import time
@@ -32,6 +31,7 @@ from relay.metrics import OUTCOMES, Metrics
 from relay.pipeline import Chain, Utterance
 from relay.routing import Outgoing, cleaned, dead_letter, is_final, partial, passthrough
 from relay.transport import Delivery, Session
+from relay.worker import ChainWorker
 
 __all__ = ["Active", "Relay", "load_active"]
 
@@ -76,13 +76,15 @@ class Relay:
         self._tasks: set[asyncio.Task[None]] = set()
         self._stopping = asyncio.Event()
         self._broken = asyncio.Event()
-        self._worker = concurrent.futures.ThreadPoolExecutor(max_workers=1, thread_name_prefix="rehear-chain")
+        self._worker = ChainWorker()
         self._generation = 0
         self.connected = False
         self.metrics.chain_loaded.set(1)
         # labels() takes a lock and a dict lookup; the per-message paths use the children directly
         self._outcomes = {outcome: metrics.messages.labels(outcome=outcome) for outcome in OUTCOMES}
         self._stage_latency: dict[str, Any] = {}
+        self._corrections: dict[str, Any] = {}
+        self._decisions: dict[str, Any] = {}
         self.metrics.declare_stages(active.chain.names)
 
     # ---- control -------------------------------------------------------------------------
@@ -141,7 +143,7 @@ class Relay:
                     pass
                 delay = min(delay * 2, broker.reconnect_max_s)
         finally:
-            self._worker.shutdown(wait=False, cancel_futures=True)
+            self._worker.shutdown()
 
     async def _session(self, generation: int) -> None:
         config = self.active.loaded.config
@@ -186,7 +188,7 @@ class Relay:
             return
         timeout = self.active.loaded.config.limits.drain_s
         _log.info("draining", extra={"fields": {"in_flight": len(self._tasks)}})
-        done, pending = await asyncio.wait(set(self._tasks), timeout=timeout)
+        _done, pending = await asyncio.wait(set(self._tasks), timeout=timeout)
         for task in pending:
             task.cancel()
         if pending:
@@ -260,9 +262,9 @@ class Relay:
     async def _run_chain(self, active: Active, utterance: Utterance, deadline: float, runner: str) -> Utterance:
         if runner == "loop":
             return active.chain.process(utterance, deadline=deadline)
-        loop = asyncio.get_running_loop()
-        future = loop.run_in_executor(self._worker, lambda: active.chain.process(utterance, deadline=deadline))
-        return await asyncio.wait_for(future, timeout=max(0.0, deadline - time.monotonic()))
+        chain = active.chain
+        result: Utterance = await self._worker.run(lambda: chain.process(utterance, deadline=deadline), deadline)
+        return result
 
     def _stage_failed(
         self, utterance: Utterance, exc: BaseException, topics: Any, relay: dict[str, Any]
@@ -280,5 +282,12 @@ class Relay:
                 child = self._stage_latency[entry.stage] = self.metrics.stage_latency.labels(stage=entry.stage)
             child.observe(entry.elapsed_us / 1e6)
         for correction in utterance.corrections:
-            self.metrics.corrections.labels(stage=correction.stage).inc()
-        self.metrics.decisions.labels(decision=utterance.decision or "none").inc()
+            counter = self._corrections.get(correction.stage)
+            if counter is None:
+                counter = self._corrections[correction.stage] = self.metrics.corrections.labels(stage=correction.stage)
+            counter.inc()
+        decision = utterance.decision or "none"
+        counter = self._decisions.get(decision)
+        if counter is None:
+            counter = self._decisions[decision] = self.metrics.decisions.labels(decision=decision)
+        counter.inc()

@@ -41,6 +41,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--log-level", choices=["debug", "info", "warning", "error"],
                         help="overrides logging.level")
     parser.add_argument("--metrics-port", type=int, help="overrides metrics.port (0 picks a free port)")
+    parser.add_argument("--event-loop", choices=EVENT_LOOPS, default="auto",
+                        help="auto (default): uvloop when installed (pip install 'rehear[fast]'), else "
+                        "asyncio's own; asyncio: never uvloop; uvloop: require it")
     parser.set_defaults(handler=run)
     return parser
 
@@ -93,17 +96,30 @@ async def serve(
     return relay
 
 
-def event_loop_runner() -> asyncio.Runner:
-    """uvloop when installed (about 1.5x the messages per second), else asyncio's own loop."""
+EVENT_LOOPS = ("auto", "asyncio", "uvloop")
+
+
+def event_loop_runner(kind: str = "auto") -> asyncio.Runner:
+    """uvloop when installed and not refused (fewer CPU microseconds per message; see
+    docs/operations.md for the numbers), else asyncio's own loop."""
+    if kind == "asyncio":
+        return asyncio.Runner()
     try:
         import uvloop
     except ImportError:
+        if kind == "uvloop":
+            raise RehearError("--event-loop uvloop: uvloop is not installed (pip install 'rehear[fast]')") from None
         return asyncio.Runner()
     return asyncio.Runner(loop_factory=uvloop.new_event_loop)
 
 
-def run_coroutine(coroutine: Coroutine[Any, Any, Any]) -> Any:
-    with event_loop_runner() as runner:
+def run_coroutine(coroutine: Coroutine[Any, Any, Any], *, event_loop: str = "auto") -> Any:
+    try:
+        runner = event_loop_runner(event_loop)
+    except RehearError:
+        coroutine.close()  # never awaited: close it so Python does not warn
+        raise
+    with runner:
         return runner.run(coroutine)
 
 
@@ -118,7 +134,12 @@ def run(args: argparse.Namespace) -> int:
     _log.info("starting", extra={"fields": {"version": __version__, "config": args.config,
                                             "config_hash": active.loaded.hash,
                                             "stages": ",".join(active.chain.names)}})
-    run_coroutine(serve(active, config_path=args.config, metrics_port=args.metrics_port))
+    try:
+        run_coroutine(serve(active, config_path=args.config, metrics_port=args.metrics_port),
+                      event_loop=args.event_loop)
+    except RehearError as exc:
+        print(exc, file=sys.stderr)
+        return 2
     _log.info("stopped")
     return 0
 
