@@ -14,6 +14,7 @@ Guarantees, in order of importance:
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import logging
 import random
 import time
@@ -69,7 +70,9 @@ class Relay:
         self.version = version
         if reloader is None and config_path is not None:
             path = config_path
-            reloader = lambda: load_active(path)
+
+            def reloader() -> Active:
+                return load_active(path)
         self._reloader = reloader
         limits = active.loaded.config.limits
         self._slots = asyncio.Semaphore(limits.max_in_flight)
@@ -137,10 +140,8 @@ class Relay:
                     break
                 wait = delay * random.uniform(0.8, 1.2)  # jitter: instances must not reconnect in step
                 _log.info("reconnecting", extra={"fields": {"in_s": round(wait, 2)}})
-                try:
+                with contextlib.suppress(TimeoutError):
                     await asyncio.wait_for(self._stopping.wait(), timeout=wait)
-                except TimeoutError:
-                    pass
                 delay = min(delay * 2, broker.reconnect_max_s)
         finally:
             self._worker.shutdown()
