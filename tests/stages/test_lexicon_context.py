@@ -4,19 +4,15 @@ model estimated by the project's own builder; kenlm is the reference for LM scor
 from __future__ import annotations
 
 import math
-import warnings
 from pathlib import Path
 from typing import Any
 
 import kenlm
 import pytest
 
-from relay.commands.build_lm import build_model
-from relay.pipeline import Chain, Hypothesis, StageContext, Utterance
-from stages.kneser_ney import DiscountFallbackWarning
-from stages.lexicon import LexiconSettings, LexiconStage
+from relay.pipeline import Chain, Hypothesis, Utterance
 from stages.lexicon_context import ContextScorer, shared_model
-from stages.normalize import NormalizeSettings, NormalizeStage
+from tests.stages.lexicon_fixtures import lexicon_chain, write_folder
 
 LEXICON = """id,type,name,aliases,say,weight
 person.mara_lind,person,mara lind,,,1.0
@@ -37,21 +33,11 @@ book the {machine} for me
 
 @pytest.fixture()
 def folder(tmp_path: Path) -> Path:
-    (tmp_path / "lexicon.csv").write_text(LEXICON)
-    (tmp_path / "train.txt").write_text(TRAIN)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", DiscountFallbackWarning)  # a toy corpus has too few counts
-        build_model(train=tmp_path / "train.txt", lexicon=tmp_path / "lexicon.csv", output=tmp_path / "lm.arpa")
-    return tmp_path
+    return write_folder(tmp_path, lexicon=LEXICON, train=TRAIN)
 
 
 def make_chain(folder: Path, **settings: Any) -> Chain:
-    context = StageContext(base_dir=folder, cache_dir=folder / "cache")
-    params: dict[str, Any] = {"lexicon": "lexicon.csv", "lm_model": "lm.arpa"} | settings
-    chain = Chain([NormalizeStage(NormalizeSettings(), context=context),
-                   LexiconStage(LexiconSettings(**params), context=context)])
-    chain.load()
-    return chain
+    return lexicon_chain(folder, **({"lexicon": "lexicon.csv", "lm_model": "lm.arpa"} | settings))
 
 
 def run(chain: Chain, *texts: str) -> Utterance:

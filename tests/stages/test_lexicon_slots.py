@@ -7,18 +7,14 @@ names' from their `say` respellings. kenlm scores the context, as in test_lexico
 
 from __future__ import annotations
 
-import warnings
 from pathlib import Path
 from typing import Any
 
 import pytest
 
-from relay.commands.build_lm import build_model
-from relay.pipeline import Chain, Hypothesis, StageContext, Utterance
-from stages.kneser_ney import DiscountFallbackWarning
-from stages.lexicon import LexiconSettings, LexiconStage
+from relay.pipeline import Chain, Hypothesis, Utterance
 from stages.lexicon_slots import slot_anchors
-from stages.normalize import NormalizeSettings, NormalizeStage
+from tests.stages.lexicon_fixtures import lexicon_chain, write_folder
 
 LEXICON = """id,type,name,aliases,say,weight
 person.siobhan_virtanen,person,siobhan virtanen,siobhan,shih-VAWN VEER-tah-nen,1.0
@@ -38,21 +34,11 @@ HEARD = "remind she voted comment about the pellow table saw"
 
 @pytest.fixture()
 def folder(tmp_path: Path) -> Path:
-    (tmp_path / "lexicon.csv").write_text(LEXICON)
-    (tmp_path / "train.txt").write_text(TRAIN)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", DiscountFallbackWarning)  # a toy corpus has too few counts
-        build_model(train=tmp_path / "train.txt", lexicon=tmp_path / "lexicon.csv", output=tmp_path / "lm.arpa")
-    return tmp_path
+    return write_folder(tmp_path, lexicon=LEXICON, train=TRAIN)
 
 
 def make_chain(folder: Path, **settings: Any) -> Chain:
-    context = StageContext(base_dir=folder, cache_dir=folder / "cache")
-    params: dict[str, Any] = {"lexicon": "lexicon.csv", "type_hints": HINTS} | settings
-    chain = Chain([NormalizeStage(NormalizeSettings(), context=context),
-                   LexiconStage(LexiconSettings(**params), context=context)])
-    chain.load()
-    return chain
+    return lexicon_chain(folder, **({"lexicon": "lexicon.csv", "type_hints": HINTS} | settings))
 
 
 def run(chain: Chain, *texts: str) -> Utterance:
