@@ -22,18 +22,19 @@ def add_parser(subparsers: argparse._SubParsersAction[argparse.ArgumentParser]) 
 def run(args: argparse.Namespace) -> int:
     loaded = load_config(args.config)
     chain = build_chain(loaded, progress=True)
+    lines = []
+    for index, stage in enumerate(chain.stages):
+        began = time.perf_counter()
+        if not args.no_load:
+            stage.load()  # raises with the file and line of whatever the stage cannot read
+        took = "" if args.no_load else f"  loaded in {time.perf_counter() - began:.2f} s"
+        lines.append(f"    {index + 1}. {stage.name:<11} needs {', '.join(sorted(stage.needs)) or '-'}; "
+                     f"provides {', '.join(sorted(stage.provides)) or '-'}{took}")
     config = loaded.config
     print(f"{args.config}: valid (config hash {loaded.hash})")
     print(f"  broker   {config.broker.host}:{config.broker.port} MQTT {config.broker.protocol}")
     print(f"  inputs   {', '.join(config.topics.inputs)} (QoS {config.topics.input_qos})")
     print(f"  output   {config.topics.output}   prompt {config.topics.prompt}   dead letters {config.topics.dead_letter}")
     print("  chain:")
-    for index, stage in enumerate(chain.stages):
-        began = time.perf_counter()
-        if not args.no_load:
-            stage.load()
-        took = time.perf_counter() - began
-        loaded_text = "" if args.no_load else f"  loaded in {took:.2f} s"
-        print(f"    {index + 1}. {stage.name:<11} needs {', '.join(sorted(stage.needs)) or '-'}; "
-              f"provides {', '.join(sorted(stage.provides)) or '-'}{loaded_text}")
+    print("\n".join(lines))
     return 0
