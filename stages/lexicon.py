@@ -22,7 +22,7 @@ from stages.lexicon_context import ContextScorer, shared_model
 from stages.lexicon_data import read_speakers
 from stages.lexicon_match import Evidence, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon_rewrite import map_span, rewrite
-from stages.lexicon_slots import SlotForms, slot_anchors, slot_candidates, slot_forms
+from stages.lexicon_slots import SlotForms, SlotHypothesis, pool_slots, slot_anchors, slot_forms, slot_matches
 from stages.phonetics import CostModel
 from stages.pronounce import Pronouncer, common_words
 
@@ -69,6 +69,8 @@ class LexiconSettings(BaseModel):
     slot_min_edit: float = Field(0.3, ge=0, le=1, description="least unit-cost phone similarity to align a slot pair")
     slot_at_start: bool = Field(False, description="a slot may also begin the sentence")
     slot_max_words: int = Field(5, ge=1, le=8, description="longest span tried for a slot")
+    slot_hypotheses: int = Field(10, ge=1, le=50, description="hypotheses searched for slots, likeliest first")
+    slot_min_pooled: float = Field(0.0, ge=0, le=1, description="least slot phone similarity pooled by posterior")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
 
     @model_validator(mode="after")
@@ -170,42 +172,64 @@ class LexiconStage:
         if self.slots:
             if context is None and self.lm is not None:
                 context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
-            placed += self._slot_recall(tokens, placed, blocked, context)
+            placed += self._slot_recall(utterance, best, placed, blocked, context)
         return self._finish(utterance, best, placed, blocked, choices)
 
-    def _slot_recall(self, tokens: list[str], placed: list[_Choice], blocked: list[dict[str, Any]],
+    def _slot_recall(self, utterance: Utterance, best: int, placed: list[_Choice], blocked: list[dict[str, Any]],
                      context: ContextScorer | None) -> list[_Choice]:
         """Names of the slot types, looked for where a hint word or the sentence start announces one.
 
-        A match needs the looser phone floor and, with a language model, the sentence must read
-        at least ``slot_min_gain`` nats likelier with the name in it: sound and context agree.
+        The ``slot_hypotheses`` likeliest hypotheses are searched, each after its own hint words
+        (a hint the best hypothesis misheard may survive in another), and each entry's matches
+        are pooled by posterior. The span of the hypothesis contributing most is carried over to
+        the best one. A match needs the looser phone floor, ``slot_min_pooled`` pooled evidence
+        and, with a language model, its hypothesis must read at least ``slot_min_gain`` nats
+        likelier with the name in it: sound and context agree.
         """
         s = self.settings
         lexicon = self._lexicon
-        sounds = [self.pronouncer.word(token) for token in tokens]
+        nbest = utterance.nbest
+        tokens = nbest[best].tokens
+        order = [best] + sorted((h for h in range(len(nbest)) if h != best),
+                                key=lambda h: -nbest[h].posterior)[: s.slot_hypotheses - 1]
+        sounds = [[self.pronouncer.word(token) for token in nbest[h].tokens] for h in order]
+        posteriors = [nbest[h].posterior for h in order]
         taken = [(c.start, c.end) for c in placed]
         entries = {c.evidence.entry for c in placed}
+        scorers: dict[int, ContextScorer | None] = {best: context}
         found: list[_Choice] = []
         for kind, slot in self.slots.items():
-            anchors = slot_anchors(tokens, self.hints.get(kind, set()), at_start=s.slot_at_start)
-            for match in slot_candidates(sounds, anchors, taken, slot, lexicon, self.costs,
-                                         max_words=s.slot_max_words, min_phone=s.slot_min_phone,
-                                         min_edit=s.slot_min_edit):
+            hints = self.hints.get(kind, set())
+            searched = [SlotHypothesis(sounds[i], slot_anchors(nbest[h].tokens, hints, at_start=s.slot_at_start),
+                                       taken if h == best else ()) for i, h in enumerate(order)]
+            matches = slot_matches(searched, slot, lexicon, self.costs, max_words=s.slot_max_words,
+                                   min_phone=s.slot_min_phone, min_edit=s.slot_min_edit)
+            for pooled in pool_slots(matches, posteriors, lexicon):
+                match = pooled.source
+                source = order[match.hypothesis]
                 form = lexicon.forms[match.form]
-                if form.entry in entries or any(b < match.end and match.start < e for b, e in taken):
+                start, end = map_span(nbest[source].tokens, tokens, match.start, match.end)
+                if end <= start or form.entry in entries or any(b < end and start < e for b, e in taken):
                     continue
-                if " ".join(tokens[match.start:match.end]) == form.text:
+                if " ".join(tokens[start:end]) == form.text:
                     continue  # exact text is the general matcher's job
-                gain = context.gain(match.start, match.end, form.text.split()) if context is not None else 0.0
-                choice = _Choice(Evidence(form.entry, match.phone), match.phone, match.start, match.end,
+                if source not in scorers:
+                    scorers[source] = ContextScorer(self.lm, nbest[source].tokens, cap=s.lm_cap) if self.lm else None
+                scorer = scorers[source]
+                # The context is judged where the name was heard, with the hint word that hypothesis holds.
+                gain = scorer.gain(match.start, match.end, form.text.split()) if scorer is not None else 0.0
+                support = {order[i]: (m.phone, m.start, m.end, m.form, False) for i, m in pooled.support.items()}
+                choice = _Choice(Evidence(form.entry, pooled.pooled, support), match.phone, start, end,
                                  match.form, False, False, gain)
-                if match.phone - match.runner_up < s.slot_margin:
+                if pooled.pooled < s.slot_min_pooled:
+                    reason = "slot_pooled"
+                elif match.phone - match.runner_up < s.slot_margin:
                     reason = "slot_margin"
-                elif context is not None and gain < min(s.slot_min_gain, s.lm_cap):  # the gain is clipped too
+                elif scorer is not None and gain < min(s.slot_min_gain, s.lm_cap):  # the gain is clipped too
                     reason = "slot_context"
                 else:
                     found.append(choice)
-                    taken.append((match.start, match.end))
+                    taken.append((start, end))
                     entries.add(form.entry)
                     continue
                 blocked.append(self._describe(choice, tokens) | {"guard": reason})

@@ -13,7 +13,7 @@ from typing import Any
 import pytest
 
 from relay.pipeline import Chain, Hypothesis, Utterance
-from stages.lexicon_slots import slot_anchors
+from stages.lexicon_slots import SlotHypothesis, pool_slots, slot_anchors, slot_matches
 from tests.stages.lexicon_fixtures import lexicon_chain, write_folder
 
 LEXICON = """id,type,name,aliases,say,weight
@@ -99,3 +99,50 @@ def test_context_must_agree_when_a_model_is_given(folder: Path) -> None:
     assert "person.siobhan_virtanen" not in ids(utt)
     guards = [b for b in utt.trace[-1].scores["blocked"] if b["id"] == "person.siobhan_virtanen"]
     assert guards and guards[0]["guard"] == "slot_context" and guards[0]["lm_gain"] > 0
+
+
+MISHEARD_HINT = "rewind she voted comment about the pellow table saw"  # "remind" lost in the best
+
+
+def test_a_hint_only_a_deeper_hypothesis_holds_is_found_when_it_is_searched(folder: Path) -> None:
+    best_only = run(make_chain(folder, slot_types=["person"], slot_hypotheses=1), MISHEARD_HINT, HEARD)
+    assert best_only.best.text == MISHEARD_HINT
+    assert "person.siobhan_virtanen" not in ids(best_only)
+    pooled = run(make_chain(folder, slot_types=["person"], slot_hypotheses=2), MISHEARD_HINT, HEARD)
+    assert "person.siobhan_virtanen" in ids(pooled)
+    # The span is carried into the best hypothesis, whose other words stay as heard.
+    assert pooled.text == "rewind siobhan virtanen about the pellow table saw"
+    [entity] = [e for e in pooled.entities if e.type == "person"]
+    assert entity.heard == "she voted comment"
+
+
+def test_pooled_evidence_counts_every_hypothesis_holding_the_name(folder: Path) -> None:
+    # Two hypotheses of three hold the name after their hint: pooled = sum of posterior x phone.
+    texts = (HEARD, "remind she voted common about the pellow table saw", "rewind the boat about the pellow table saw")
+    chain = make_chain(folder, slot_types=["person"], slot_hypotheses=3)
+    utt = run(chain, *texts)
+    held = [h.posterior for h in utt.nbest if h.text != texts[2]]
+    assert "person.siobhan_virtanen" in ids(utt)
+    [entity] = [e for e in utt.entities if e.type == "person"]
+    assert 0.68 <= entity.score <= 1.0
+    # A pooled floor above what the two can give blocks it, and the trace says why.
+    floor = sum(held) * 0.99 + 1e-3
+    blocked = run(make_chain(folder, slot_types=["person"], slot_hypotheses=3, slot_min_pooled=min(1.0, floor)), *texts)
+    assert "person.siobhan_virtanen" not in ids(blocked)
+    guards = [b for b in blocked.trace[-1].scores["blocked"] if b["id"] == "person.siobhan_virtanen"]
+    assert guards and guards[0]["guard"] == "slot_pooled" and guards[0]["hypotheses"] == 2
+
+
+def test_slot_matches_share_spans_between_hypotheses(folder: Path) -> None:
+    stage = make_chain(folder, slot_types=["person"]).stages[-1]
+    words = [stage.pronouncer.word(w) for w in HEARD.split()]  # type: ignore[attr-defined]
+    other = [stage.pronouncer.word(w) for w in MISHEARD_HINT.split()]  # type: ignore[attr-defined]
+    searched = [SlotHypothesis(other, slot_anchors(MISHEARD_HINT.split(), {"remind"}, at_start=False)),
+                SlotHypothesis(words, slot_anchors(HEARD.split(), {"remind"}, at_start=False)),
+                SlotHypothesis(words, [1], taken=[(2, 3)])]  # a taken word ends the span before it
+    matches = slot_matches(searched, stage.slots["person"], stage._lexicon, stage.costs,  # type: ignore[attr-defined]
+                           max_words=5, min_phone=0.68, min_edit=0.3)
+    assert [(m.hypothesis, m.start, m.end) for m in matches] == [(1, 1, 4)]
+    [pooled] = pool_slots(matches, [0.5, 0.25, 0.25], stage._lexicon)  # type: ignore[attr-defined]
+    assert pooled.pooled == pytest.approx(0.25 * matches[0].phone)
+    assert set(pooled.support) == {1}
