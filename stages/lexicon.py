@@ -69,6 +69,8 @@ class LexiconSettings(BaseModel):
     slot_min_edit: float = Field(0.3, ge=0, le=1, description="least unit-cost phone similarity to align a slot pair")
     slot_at_start: bool = Field(False, description="a slot may also begin the sentence")
     slot_max_words: int = Field(5, ge=1, le=8, description="longest span tried for a slot")
+    slot_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> more words after which a slot may begin (besides type_hints)")
+    slot_floors: dict[str, float] = Field(default_factory=dict, description="type -> its own slot_min_phone")
     slot_hypotheses: int = Field(10, ge=1, le=50, description="hypotheses searched for slots, likeliest first")
     slot_min_pooled: float = Field(0.0, ge=0, le=1, description="least slot phone similarity pooled by posterior")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
@@ -199,11 +201,11 @@ class LexiconStage:
         scorers: dict[int, ContextScorer | None] = {best: context}
         found: list[_Choice] = []
         for kind, slot in self.slots.items():
-            hints = self.hints.get(kind, set())
+            hints = self.hints.get(kind, set()) | set(s.slot_hints.get(kind, ()))
             searched = [SlotHypothesis(sounds[i], slot_anchors(nbest[h].tokens, hints, at_start=s.slot_at_start),
                                        taken if h == best else ()) for i, h in enumerate(order)]
             matches = slot_matches(searched, slot, lexicon, self.costs, max_words=s.slot_max_words,
-                                   min_phone=s.slot_min_phone, min_edit=s.slot_min_edit)
+                                   min_phone=s.slot_floors.get(kind, s.slot_min_phone), min_edit=s.slot_min_edit)
             for pooled in pool_slots(matches, posteriors, lexicon):
                 match = pooled.source
                 source = order[match.hypothesis]

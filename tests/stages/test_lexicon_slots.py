@@ -146,3 +146,19 @@ def test_slot_matches_share_spans_between_hypotheses(folder: Path) -> None:
     [pooled] = pool_slots(matches, [0.5, 0.25, 0.25], stage._lexicon)  # type: ignore[attr-defined]
     assert pooled.pooled == pytest.approx(0.25 * matches[0].phone)
     assert set(pooled.support) == {1}
+
+
+MACHINE_HEARD = "the hello stable store is broken"  # "the pellow table saw is broken"
+MACHINE_SLOTS: dict[str, Any] = {"slot_types": ["machine"], "slot_hints": {"machine": ["the"]}}
+
+
+def test_other_types_take_their_own_slot_words_and_floor(folder: Path) -> None:
+    assert "machine.pellow_saw" not in ids(run(make_chain(folder), MACHINE_HEARD))
+    found = run(make_chain(folder, **MACHINE_SLOTS, slot_floors={"machine": 0.7}), MACHINE_HEARD)
+    assert "machine.pellow_saw" in ids(found)
+    assert found.text == "the pellow table saw is broken"
+    # The type's own floor decides, not slot_min_phone; and without its slot word nothing is looked for.
+    assert "machine.pellow_saw" not in ids(run(make_chain(folder, **MACHINE_SLOTS, slot_floors={"machine": 0.95},
+                                                       slot_min_phone=0.5), MACHINE_HEARD))
+    assert "machine.pellow_saw" not in ids(run(make_chain(folder, **MACHINE_SLOTS, slot_floors={"machine": 0.7}),
+                                               "a hello stable store is broken"))
