@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from rapidfuzz.distance import Levenshtein
 from rapidfuzz.fuzz import ratio
+from rapidfuzz.process import cpdist
 
 from relay.pipeline import Hypothesis
 from stages.lexicon_compile import CompiledLexicon, phonetic_keys
@@ -97,9 +98,11 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment; see docs/lexicon.md for how the threshold was chosen.
     screen = weights.min_edit
-    chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
-              if (q, f) not in exact_pairs
-              and Levenshtein.normalized_similarity(spans[q].phones, forms[f].phones) >= screen]
+    queries, items = hits.query.tolist(), hits.item.tolist()
+    edit = cpdist([spans[q].phones for q in queries], [forms[f].phones for f in items],
+                  scorer=Levenshtein.normalized_similarity, dtype=np.float64)
+    chosen = [(q, f) for q, f, passed in zip(queries, items, (edit >= screen).tolist())
+              if passed and (q, f) not in exact_pairs]
     if not chosen:
         return pairs
     phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)

@@ -217,10 +217,9 @@ def batch_alignment_cost(a: Sequence[str], b: Sequence[str], model: CostModel) -
     for i in range(xs.shape[1]):
         n = running[i]
         r, t, drop = row[:n], through[:n], drops[:n, i, None]
-        np.add(r[:, 0], drop[:, 0], out=t[:, 0])
+        np.add(r, drop, out=t)  # delete the phone of a
         if columns:
             np.add(r[:, :-1], model.sub_array[xs[:n, i, None], ys[:n]], out=step[:n])
-            np.add(r[:, 1:], drop, out=t[:, 1:])
             np.minimum(step[:n], t[:, 1:], out=t[:, 1:])
         np.subtract(t, cum_ins[:n], out=t)
         np.minimum.accumulate(t, axis=1, out=r)
