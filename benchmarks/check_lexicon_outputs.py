@@ -10,6 +10,10 @@ guards, counts):
 
     python benchmarks/check_lexicon_outputs.py --record digests.json   # before a change
     python benchmarks/check_lexicon_outputs.py --check digests.json    # after: exit 1 on a difference
+
+benchmarks/lexicon_outputs.json holds the digests of the current results (same dev
+environment: numpy, rapidfuzz and kenlm versions can move the last digit of a score);
+record it again when a change is meant to alter results.
 """
 
 from __future__ import annotations
