@@ -137,30 +137,35 @@ def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: 
     ("tamsin") alone.
     """
     evidence: dict[int, Evidence] = {}
+    forms = lexicon.forms
+    words: dict[int, int] = {}  # form -> its word count, looked up often by _better
     for q, f, score, exact in pairs:
-        entry = lexicon.forms[f].entry
+        entry = forms[f].entry
         found = evidence.get(entry)
         if found is None:
             found = evidence[entry] = Evidence(entry)
+        if f not in words:
+            words[f] = forms[f].words
+        held_by = found.per_hypothesis
         for hypothesis, start, end in spans[q].occurrences:
-            held = found.per_hypothesis.get(hypothesis)
-            if held is None or _better((score, start, end, f, exact), held, strong, lexicon):
-                found.per_hypothesis[hypothesis] = (score, start, end, f, exact)
+            held = held_by.get(hypothesis)
+            if held is None or _better((score, start, end, f, exact), held, strong, words):
+                held_by[hypothesis] = (score, start, end, f, exact)
     for found in evidence.values():
         found.pooled = float(sum(posteriors[h] * held[0] for h, held in found.per_hypothesis.items()))
     return evidence
 
 
 def _better(new: tuple[float, int, int, int, bool], held: tuple[float, int, int, int, bool],
-            strong: float, lexicon: CompiledLexicon) -> bool:
+            strong: float, words: dict[int, int]) -> bool:
     score, start, end, form, exact = new
     held_score, held_start, held_end, held_form, held_exact = held
     # A near match of a longer form (the full name) beats an exact match of a shorter one (an
     # alias) inside it; a longer span around the same form does not.
-    longer_form = lexicon.forms[form].words > lexicon.forms[held_form].words
+    longer_form = words[form] > words[held_form]
     contains = start <= held_start and held_end <= end and end - start > held_end - held_start and longer_form
     inside = held_start <= start and end <= held_end and held_end - held_start > end - start and \
-        lexicon.forms[held_form].words > lexicon.forms[form].words
+        words[held_form] > words[form]
     if held_exact and not exact and score >= strong and contains:
         return True
     if exact and not held_exact and held_score >= strong and inside:
