@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from rapidfuzz.distance import Levenshtein
 from rapidfuzz.fuzz import ratio
+from rapidfuzz.process import cpdist
 
 from relay.pipeline import Hypothesis
 from stages.lexicon_compile import CompiledLexicon, phonetic_keys
@@ -97,9 +98,11 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment; see docs/lexicon.md for how the threshold was chosen.
     screen = weights.min_edit
-    chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
-              if (q, f) not in exact_pairs
-              and Levenshtein.normalized_similarity(spans[q].phones, forms[f].phones) >= screen]
+    queries, items = hits.query.tolist(), hits.item.tolist()
+    edit = cpdist([spans[q].phones for q in queries], [forms[f].phones for f in items],
+                  scorer=Levenshtein.normalized_similarity, dtype=np.float64)
+    chosen = [(q, f) for q, f, passed in zip(queries, items, (edit >= screen).tolist())
+              if passed and (q, f) not in exact_pairs]
     if not chosen:
         return pairs
     phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
@@ -134,30 +137,35 @@ def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: 
     ("tamsin") alone.
     """
     evidence: dict[int, Evidence] = {}
+    forms = lexicon.forms
+    words: dict[int, int] = {}  # form -> its word count, looked up often by _better
     for q, f, score, exact in pairs:
-        entry = lexicon.forms[f].entry
+        entry = forms[f].entry
         found = evidence.get(entry)
         if found is None:
             found = evidence[entry] = Evidence(entry)
+        if f not in words:
+            words[f] = forms[f].words
+        held_by = found.per_hypothesis
         for hypothesis, start, end in spans[q].occurrences:
-            held = found.per_hypothesis.get(hypothesis)
-            if held is None or _better((score, start, end, f, exact), held, strong, lexicon):
-                found.per_hypothesis[hypothesis] = (score, start, end, f, exact)
+            held = held_by.get(hypothesis)
+            if held is None or _better((score, start, end, f, exact), held, strong, words):
+                held_by[hypothesis] = (score, start, end, f, exact)
     for found in evidence.values():
         found.pooled = float(sum(posteriors[h] * held[0] for h, held in found.per_hypothesis.items()))
     return evidence
 
 
 def _better(new: tuple[float, int, int, int, bool], held: tuple[float, int, int, int, bool],
-            strong: float, lexicon: CompiledLexicon) -> bool:
+            strong: float, words: dict[int, int]) -> bool:
     score, start, end, form, exact = new
     held_score, held_start, held_end, held_form, held_exact = held
     # A near match of a longer form (the full name) beats an exact match of a shorter one (an
     # alias) inside it; a longer span around the same form does not.
-    longer_form = lexicon.forms[form].words > lexicon.forms[held_form].words
+    longer_form = words[form] > words[held_form]
     contains = start <= held_start and held_end <= end and end - start > held_end - held_start and longer_form
     inside = held_start <= start and end <= held_end and held_end - held_start > end - start and \
-        lexicon.forms[held_form].words > lexicon.forms[form].words
+        words[held_form] > words[form]
     if held_exact and not exact and score >= strong and contains:
         return True
     if exact and not held_exact and held_score >= strong and inside:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from difflib import SequenceMatcher
+from functools import lru_cache
 
 __all__ = ["map_span", "rewrite"]
 
@@ -16,7 +17,7 @@ def map_span(source: Sequence[str], target: Sequence[str], start: int, end: int)
     """
     if list(source) == list(target):
         return start, end
-    opcodes = SequenceMatcher(None, list(source), list(target), autojunk=False).get_opcodes()
+    opcodes = _opcodes(tuple(source), tuple(target))
     mapped_start, mapped_end = len(target), len(target)
     for tag, i1, i2, j1, _j2 in opcodes:
         if i1 <= start < i2 or (start == i2 == len(source)):
@@ -28,6 +29,12 @@ def map_span(source: Sequence[str], target: Sequence[str], start: int, end: int)
             break
     mapped_end = max(mapped_end, mapped_start)
     return mapped_start, mapped_end
+
+
+@lru_cache(maxsize=256)
+def _opcodes(source: tuple[str, ...], target: tuple[str, ...]) -> tuple[tuple[str, int, int, int, int], ...]:
+    # Several entries of one message are often carried over from the same hypothesis.
+    return tuple(SequenceMatcher(None, source, target, autojunk=False).get_opcodes())
 
 
 def rewrite(tokens: Sequence[str], replacements: Sequence[tuple[int, int, str]]

@@ -50,6 +50,16 @@ def ngrams(phones: str) -> set[int]:
     return out
 
 
+def _unique(values: npt.NDArray[np.int64]) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]:
+    """Sorted distinct values and their counts: ``np.unique(..., return_counts=True)`` by one sort
+    (numpy's hash-based unique is several times slower on these large numbers)."""
+    ordered = np.sort(values)
+    if not len(ordered):
+        return ordered, ordered
+    first = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])
+    return ordered[first], np.diff(np.r_[first, len(ordered)])
+
+
 def gram_codes(strings: Sequence[str]) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]:
     """(string number, n-gram number) for every distinct n-gram of every string, vectorised."""
     lengths = np.fromiter(map(len, strings), dtype=np.int64, count=len(strings)) + 2
@@ -77,7 +87,7 @@ def gram_codes(strings: Sequence[str]) -> tuple[npt.NDArray[np.int64], npt.NDArr
         grams.append(value[whole] + _OFFSETS[n])
     if not owners:
         return np.zeros(0, np.int64), np.zeros(0, np.int64)
-    pairs = np.unique(np.concatenate(owners) * _TABLE + np.concatenate(grams))
+    pairs, _ = _unique(np.concatenate(owners) * _TABLE + np.concatenate(grams))
     return pairs // _TABLE, pairs % _TABLE
 
 
@@ -110,9 +120,10 @@ class PhoneIndex:
         lookup = np.full(_TABLE, _UNKNOWN, dtype=np.int32)
         lookup[self.vocabulary] = self.column_of
         self.lookup = lookup
+        self.least_size = float(self.sizes.min(initial=0.0))  # for the search's bound on scores
 
     def __getstate__(self) -> dict[str, object]:
-        return {k: v for k, v in self.__dict__.items() if k != "lookup"}  # rebuilt on load
+        return {k: v for k, v in self.__dict__.items() if k not in ("lookup", "least_size")}  # rebuilt on load
 
     def __setstate__(self, state: dict[str, object]) -> None:
         self.__dict__.update(state)
@@ -135,12 +146,21 @@ class PhoneIndex:
         if total == 0:
             return empty
         # Gather every posting list in one go: position = start of its list + rank within it.
+        # A key is (query << shift) + item: sorting keys groups by query, then item, and the
+        # parts come back with a shift and a mask; int32 keys when they fit sort faster.
         first = np.cumsum(lengths) - lengths
         positions = np.repeat(starts - first, lengths) + np.arange(total)
-        keys = self.postings[positions] + np.repeat(owner * self.count, lengths)
-        keys, shared = np.unique(keys, return_counts=True)
-        query = (keys // self.count).astype(np.int32)
-        item = (keys % self.count).astype(np.int32)
+        shift = max(1, self.count.bit_length())
+        wide = np.int32 if len(queries) << shift < 2**31 else np.int64
+        keys = self.postings[positions].astype(wide) + np.repeat((owner << shift).astype(wide), lengths)
+        keys, shared = _unique(keys)
+        query = (keys >> shift).astype(np.int32)
+        # Dice >= min_score needs 2 shared >= min_score (|A| + |B|) >= min_score (|A| + least |B|):
+        # pairs below that bound (with a margin for rounding) cannot pass and are not scored.
+        bound = min_score * (query_sizes + self.least_size) / 2.0 - 1e-3
+        hopeful = shared >= bound[query]
+        keys, shared, query = keys[hopeful], shared[hopeful], query[hopeful]
+        item = (keys & ((1 << shift) - 1)).astype(np.int32)
         score = (2.0 * shared / np.maximum(query_sizes[query] + self.sizes[item], 1.0)).astype(np.float32)
         keep = score >= min_score
         query, item, score = query[keep], item[keep], score[keep]

@@ -195,27 +195,40 @@ def batch_alignment_cost(a: Sequence[str], b: Sequence[str], model: CostModel) -
     then insertions along the row are resolved with a running minimum, since
     D[j] = min over j' <= j of (T[j'] + ins(j'+1..j)) = C[j] + min(T[j'] - C[j']) with C the
     cumulative insertion cost. Padding phones cost nothing and sit past each string's end.
+    Pairs are sorted by the length of ``a``, so row i works on a prefix of them (those still
+    running) and writes into reused buffers: the work is per-call overhead more than arithmetic.
     """
     if not len(a):
         return np.zeros(0, dtype=np.float32)
     xs, x_len = _codes(a)
     ys, y_len = _codes(b)
+    order = np.argsort(-x_len, kind="stable")
+    xs, x_len, ys, y_len = xs[order], x_len[order], ys[order], y_len[order]
     pairs, columns = ys.shape
     ins = model.indel_array[ys]  # pairs x columns
     cum_ins = np.concatenate([np.zeros((pairs, 1), np.float32), np.cumsum(ins, axis=1)], axis=1)
     row = cum_ins.copy()
-    result = np.where(x_len == 0, row[np.arange(pairs), y_len], 0.0).astype(np.float32)
+    out = np.where(x_len == 0, row[np.arange(pairs), y_len], 0.0).astype(np.float32)
+    drops = model.indel_array[xs]
+    # running[i]: how many pairs have more than i phones in a (a prefix of the sorted pairs)
+    running = np.searchsorted(-x_len, -np.arange(1, xs.shape[1] + 2), side="right").tolist()
+    through = np.empty_like(row)
+    step = np.empty((pairs, columns), np.float32)
     for i in range(xs.shape[1]):
-        x = xs[:, i]
-        drop = model.indel_array[x][:, None]
-        through = np.empty_like(row)
-        through[:, 0] = row[:, 0] + drop[:, 0]
+        n = running[i]
+        r, t, drop = row[:n], through[:n], drops[:n, i, None]
+        np.add(r, drop, out=t)  # delete the phone of a
         if columns:
-            through[:, 1:] = np.minimum(row[:, :-1] + model.sub_array[x[:, None], ys], row[:, 1:] + drop)
-        row = np.minimum.accumulate(through - cum_ins, axis=1) + cum_ins
-        done = x_len == i + 1
-        if done.any():
-            result[done] = row[done, y_len[done]]
+            np.add(r[:, :-1], model.sub_array[xs[:n, i, None], ys[:n]], out=step[:n])
+            np.minimum(step[:n], t[:, 1:], out=t[:, 1:])
+        np.subtract(t, cum_ins[:n], out=t)
+        np.minimum.accumulate(t, axis=1, out=r)
+        r += cum_ins[:n]
+        finished = running[i + 1]  # pairs [finished, n) end at this row
+        if finished < n:
+            out[finished:n] = r[np.arange(finished, n), y_len[finished:n]]
+    result = np.empty_like(out)
+    result[order] = out
     return result
 
 

@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import random
 
+import numpy as np
 import pytest
 
-from stages.phone_index import PhoneIndex, gram_codes, ngrams
+from stages.phone_index import PhoneIndex, _unique, gram_codes, ngrams
 from stages.phonetics import PHONES, encode
 
 
@@ -49,3 +50,26 @@ def test_common_ngrams_are_dropped_from_the_vectors() -> None:
     # "^ S T" is held by all 30 items: dropped, so only item-specific grams count.
     hits = index.search([items[3]], k=1, min_score=0.1)
     assert list(hits.item) == [3] and hits.score[0] == pytest.approx(1.0)
+
+
+def test_sort_based_unique_matches_numpy() -> None:
+    rng = np.random.default_rng(3)
+    for values in (np.zeros(0, np.int64), rng.integers(0, 50, 1000), rng.integers(0, 2**40, 300)):
+        got, counts = _unique(values)
+        want, want_counts = np.unique(values, return_counts=True)
+        assert got.tolist() == want.tolist() and counts.tolist() == want_counts.tolist()
+
+
+@pytest.mark.parametrize("min_score", [0.05, 0.2, 0.5])
+def test_search_bound_keeps_every_pair_over_the_threshold(min_score: float) -> None:
+    # Short and long items together make the least set size far from most: the bound that
+    # skips scoring must still keep every pair a brute-force scan finds.
+    rng = random.Random(8)
+    items = [encode(rng.choices(PHONES[:10], k=rng.choice((1, 2, 12, 20)))) for _ in range(200)]
+    index = PhoneIndex(items, max_postings=10_000)
+    queries = [encode(rng.choices(PHONES[:10], k=rng.randint(1, 16))) for _ in range(30)]
+    hits = index.search(queries, k=1000, min_score=min_score)
+    for q, query in enumerate(queries):
+        got = sorted(int(i) for qq, i in zip(hits.query, hits.item) if qq == q)
+        brute = sorted(i for i, item in enumerate(items) if dice(query, item) >= min_score + 1e-6)
+        assert set(brute) <= set(got)
