@@ -16,6 +16,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import numpy.typing as npt
@@ -50,7 +51,7 @@ def ngrams(phones: str) -> set[int]:
     return out
 
 
-def _unique(values: npt.NDArray[np.int64]) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]:
+def _unique(values: npt.NDArray[Any]) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]:
     """Sorted distinct values and their counts: ``np.unique(..., return_counts=True)`` by one sort
     (numpy's hash-based unique is several times slower on these large numbers)."""
     ordered = np.sort(values)
