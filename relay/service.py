@@ -251,9 +251,9 @@ class Relay:
                 raise DeadlineExceeded(utterance.trace[-1].stage if utterance.trace else "chain",
                                        (time.monotonic() - received) * 1000)
         except (TimeoutError, DeadlineExceeded):
-                _log.warning("deadline passed; forwarding the original",
-                             extra={"fields": {"id": utterance.id, "deadline_ms": config.limits.deadline_ms}})
-                return "deadline", [passthrough(utterance, topics, relay, "deadline")]
+            _log.warning("deadline passed; forwarding the original",
+                         extra={"fields": {"id": utterance.id, "deadline_ms": config.limits.deadline_ms}})
+            return "deadline", [passthrough(utterance, topics, relay, "deadline")]
         except Exception as exc:  # noqa: BLE001 - a stage bug must not stop the relay
             return self._stage_failed(utterance, exc, topics, relay)
         self._observe(utterance)
