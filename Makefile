@@ -30,6 +30,7 @@ lint: $(VENV)/.installed-test
 bench: $(VENV)/.installed-test
 	$(BIN)/python benchmarks/bench_build_lm.py
 	$(BIN)/python benchmarks/bench_lexicon.py --corpus examples/workshop/corpus.jsonl
+	$(BIN)/python benchmarks/bench_footprint.py
 	$(BIN)/python benchmarks/bench_relay.py
 
 clean:
