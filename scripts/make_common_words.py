@@ -1,6 +1,6 @@
 """Write stages/data/common_words.txt.gz: everyday English words with their Zipf frequency.
 
-Source: the wordfreq package (Robyn Speer et al., word frequencies pooled from subtitles, web
+Source: the wordfreq package (word frequencies pooled from subtitles, web
 text, Wikipedia, news and books; data under CC BY-SA 4.0). Only words the CMU Pronouncing
 Dictionary also holds are kept, one ``word<TAB>zipf`` per line, most frequent first. The
 lexicon stage treats a word at or above its `common_zipf` setting as common, so a span made
