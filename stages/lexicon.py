@@ -18,11 +18,12 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 from relay.errors import StageError
 from relay.pipeline import Correction, Entity, StageContext, Utterance
 from stages.lexicon_compile import CompiledLexicon, load_compiled
-from stages.lexicon_context import ContextScorer, shared_model
+from stages.lexicon_context import ContextScorer
 from stages.lexicon_data import read_speakers
 from stages.lexicon_match import Evidence, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon_rewrite import map_span, rewrite
 from stages.lexicon_slots import SlotForms, SlotHypothesis, pool_slots, slot_anchors, slot_forms, slot_matches
+from stages.lm_rescore import shared_model
 from stages.phonetics import CostModel
 from stages.pronounce import Pronouncer, common_words
 

@@ -6,36 +6,18 @@ probability of the rewritten best hypothesis minus that of the hypothesis as hea
 [-cap, cap] so one out-of-vocabulary word cannot decide alone. The model was estimated with
 `{type}` slots expanded from the lexicon, so "page {person}" contexts favour person names.
 
-Models are opened once per (path, size, modification time) and shared by every stage that asks,
-so `lm_rescore` and `lexicon` in one process hold a single copy.
+The model comes from `stages.lm_rescore.shared_model`, so `lm_rescore` and `lexicon` in one
+process hold a single copy.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
-from pathlib import Path
 from typing import Any
 
-from stages.lm_rescore import load_model, score_tokens
+from stages.lm_rescore import score_tokens, shared_model
 
 __all__ = ["ContextScorer", "shared_model"]
-
-_MODELS: dict[tuple[str, int, int], Any] = {}
-
-
-def shared_model(path: Path) -> Any:
-    """A kenlm model for ``path``, loaded once while the file stays the same."""
-    resolved = path.resolve()
-    stat = resolved.stat() if resolved.is_file() else None
-    key = (str(resolved), stat.st_size if stat else -1, stat.st_mtime_ns if stat else -1)
-    model = _MODELS.get(key)
-    if model is None:
-        model = load_model(resolved)  # raises StageError naming the file when it cannot be read
-        for old in [k for k in _MODELS if k[0] == key[0]]:
-            del _MODELS[old]  # the file changed: drop the stale copy
-        _MODELS[key] = model
-    return model
-
 
 class ContextScorer:
     """LM gain of rewriting a word range of one token sequence, with per-sequence caching."""

@@ -17,7 +17,9 @@ from pydantic import BaseModel, ConfigDict, Field
 from relay.errors import StageError
 from relay.pipeline import Hypothesis, StageContext, Utterance, softmax
 
-__all__ = ["LmRescoreSettings", "LmRescoreStage", "LmScore", "lm_per_word", "load_model", "score_tokens"]
+__all__ = [
+    "LmRescoreSettings", "LmRescoreStage", "LmScore", "lm_per_word", "load_model", "score_tokens", "shared_model",
+]
 
 LN10 = math.log(10.0)
 _POSTERIOR_FLOOR = 1e-300  # log(0) would poison the sum; the entry stays merely very unlikely
@@ -62,6 +64,27 @@ def load_model(path: Path) -> Any:
         raise StageError("lm_rescore", f"cannot load model {path}: {exc}") from None
 
 
+_MODELS: dict[tuple[str, int, int], Any] = {}
+
+
+def shared_model(path: Path) -> Any:
+    """A kenlm model for ``path``, loaded once while the file stays the same.
+
+    Keyed by (path, size, modification time): every stage naming the same file shares one copy,
+    and a reload after the file changed opens the new one and drops the stale copy.
+    """
+    resolved = path.resolve()
+    stat = resolved.stat() if resolved.is_file() else None
+    key = (str(resolved), stat.st_size if stat else -1, stat.st_mtime_ns if stat else -1)
+    model = _MODELS.get(key)
+    if model is None:
+        model = load_model(resolved)  # raises StageError naming the file when it cannot be read
+        for old in [k for k in _MODELS if k[0] == key[0]]:
+            del _MODELS[old]
+        _MODELS[key] = model
+    return model
+
+
 def score_tokens(model: Any, tokens: Sequence[str]) -> LmScore:
     """Natural-log probability of ``<s> tokens </s>`` under a kenlm model."""
     sentence = " ".join(tokens)
@@ -97,7 +120,7 @@ class LmRescoreStage:
         self._model: Any = None
 
     def load(self) -> None:
-        self._model = load_model(self.model_path)
+        self._model = shared_model(self.model_path)
 
     def score(self, tokens: Sequence[str]) -> LmScore:
         if self._model is None:

@@ -21,3 +21,10 @@ def test_example_configuration_loads_and_runs(tmp_path: Path) -> None:
     utterance = chain.process(item.utterance())
     assert [entry.stage for entry in utterance.trace] == ["normalize", "lm_rescore", "lexicon", "gate"]
     assert utterance.decision in ("accept", "confirm", "reprompt")
+
+
+def test_rescoring_and_lexicon_share_one_loaded_model() -> None:
+    chain = build_chain(load_config(WORKSHOP / "relay.yaml"))
+    chain.load()
+    rescore, lexicon = chain.stages[1], chain.stages[2]
+    assert rescore._model is lexicon.lm  # type: ignore[attr-defined]  # one copy of the LM in memory

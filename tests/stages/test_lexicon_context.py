@@ -11,7 +11,8 @@ import kenlm
 import pytest
 
 from relay.pipeline import Chain, Hypothesis, Utterance
-from stages.lexicon_context import ContextScorer, shared_model
+from stages.lexicon_context import ContextScorer
+from stages.lm_rescore import shared_model
 from tests.stages.lexicon_fixtures import lexicon_chain, write_folder
 
 LEXICON = """id,type,name,aliases,say,weight
