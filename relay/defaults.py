@@ -9,11 +9,11 @@ so the zero-config form keeps working while stages are missing.
 from __future__ import annotations
 
 import hashlib
-import importlib
 import sys
 from pathlib import Path
 from typing import Any
 
+from relay.commands.build_lm import build_model
 from relay.errors import ConfigError
 from relay.registry import Registry
 
@@ -36,8 +36,6 @@ _PERSON_HINTS = ["call", "page", "ask", "tell", "find", "message", "for", "with"
 _LEXICON_EXTRAS: dict[str, Any] = {"type_hints": {"person": _PERSON_HINTS}, "slot_types": ["person", "machine"],
                                    "slot_hints": {"machine": ["the", "in", "on", "of"]},
                                    "slot_floors": {"machine": 0.72}}
-# The language-model builder's entry point: module, function(train=, lexicon=, output=).
-_BUILD_LM = ("relay.commands.build_lm", "build_model")
 
 
 def _available(registry: Registry, name: str) -> bool:
@@ -48,20 +46,13 @@ def _available(registry: Registry, name: str) -> bool:
     return True
 
 
-def _build_language_model(train: Path, lexicon: Path, cache_dir: Path) -> Path | None:
+def _build_language_model(train: Path, lexicon: Path, cache_dir: Path) -> Path:
     """Estimate the ARPA model from ``train`` (slots expanded from ``lexicon``), cached by content."""
-    module_name, function_name = _BUILD_LM
-    try:
-        build = getattr(importlib.import_module(module_name), function_name)
-    except (ImportError, AttributeError):
-        return None
     digest = hashlib.sha256(train.read_bytes() + b"\0" + lexicon.read_bytes()).hexdigest()[:16]
     output = cache_dir / f"default-lm-{digest}.arpa"
     if not output.exists():
         cache_dir.mkdir(parents=True, exist_ok=True)
-        partial = output.with_suffix(".partial")
-        build(train=train, lexicon=lexicon, output=partial)
-        partial.replace(output)
+        build_model(train=train, lexicon=lexicon, output=output)  # written atomically
     return output
 
 
@@ -80,10 +71,7 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
     model: Path | None = None
     if train is not None and _available(registry, "lm_rescore"):
         model = _build_language_model(train.resolve(), lexicon.resolve(), cache_dir.resolve())
-        if model is None:
-            _note("no language-model builder available; the default chain runs without lm_rescore")
-        else:
-            stages.append({"lm_rescore": {_LM_MODEL_PARAM: str(model)}})
+        stages.append({"lm_rescore": {_LM_MODEL_PARAM: str(model)}})
     elif train is not None:
         _note("stage lm_rescore is not installed; the default chain runs without it")
     if _available(registry, "lexicon"):
