@@ -23,6 +23,7 @@ __all__ = ["default_config"]
 _LM_MODEL_PARAM = "model"
 _LEXICON_PARAM = "lexicon"
 _SPEAKERS_PARAM = "speakers"
+_GATE_LM_PARAM = "lm_model"  # the gate's in-domain LM, which judges the finished text
 _LEXICON_LM_PARAM = "lm_model"  # the lexicon stage's in-domain LM for its context term
 # Words that announce a person in workshop-style requests ("call ...", "book it for ...").
 # With them, person names are also looked for with a looser phone floor where the in-domain
@@ -85,5 +86,6 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
         stages.append({"lexicon": params})
     else:
         _note("stage lexicon is not installed; the default chain runs without it")
-    stages.append("gate")
+    # The gate judges the finished text with the same model (features of its learned confidence).
+    stages.append({"gate": {_GATE_LM_PARAM: str(model)}} if model is not None else "gate")
     return {"cache_dir": str(cache_dir.resolve()), "stages": stages}

@@ -20,6 +20,7 @@ import numpy as np
 
 from relay.evaluate import Outcome, Summary, format_table
 from relay.tuning import DEFAULT_GATE_GRID, RecordedFeatures, gate_accepts
+from stages.gate_confidence import ConfidenceModel, confidence
 
 __all__ = ["entity_type", "tradeoff_curve", "write_report"]
 
@@ -27,11 +28,16 @@ _TOP = 15
 _STYLE = "<style>body{font-family:sans-serif;max-width:60em;margin:2em auto}td,th{padding:2px 8px}</style>"
 
 
-def tradeoff_curve(outcomes: Sequence[Outcome]) -> list[tuple[float, float]]:
-    """(share asked back, wrong-accept rate) on the lower envelope of the gate's threshold grid."""
+def tradeoff_curve(outcomes: Sequence[Outcome], confidence_model: ConfidenceModel | None = None) -> list[tuple[float, float]]:
+    """(share asked back, wrong-accept rate) on the lower envelope of the gate's settings: its
+    threshold grid and, when the gate has a learned confidence, that confidence's threshold."""
     features = RecordedFeatures(outcomes)
     grid = np.array(list(itertools.product(*DEFAULT_GATE_GRID.values())), dtype=float)
     accept = gate_accepts(features, grid, None)
+    if confidence_model is not None:
+        sure = np.array([confidence(v, confidence_model) for v in features.values])
+        thresholds = np.unique(np.r_[sure, 0.0])
+        accept = np.vstack([accept, (sure >= thresholds[:, None]) & ~features.blocked])
     accepted = accept.sum(axis=1)
     clarify = 1 - accepted / len(outcomes)
     wrong = (accept & ~features.ok).sum(axis=1) / np.maximum(accepted, 1)
@@ -68,7 +74,8 @@ def _png(figure: Any) -> str:
     return base64.b64encode(buffer.getvalue()).decode("ascii")
 
 
-def _plots(outcomes: Sequence[Outcome], summary: Summary) -> list[tuple[str, str]]:
+def _plots(outcomes: Sequence[Outcome], summary: Summary,
+           confidence_model: ConfidenceModel | None) -> list[tuple[str, str]]:
     import matplotlib
 
     matplotlib.use("Agg")  # no display on servers and CI
@@ -76,7 +83,7 @@ def _plots(outcomes: Sequence[Outcome], summary: Summary) -> list[tuple[str, str
 
     images = []
     if all(o.gate is not None for o in outcomes):
-        curve = tradeoff_curve(outcomes)
+        curve = tradeoff_curve(outcomes, confidence_model)
         figure, axes = plt.subplots(figsize=(6, 4))
         axes.step([c for c, _ in curve], [w for _, w in curve], where="post", label="best thresholds for each share")
         axes.scatter([summary.clarify_rate], [summary.wrong_accept_rate], color="red", zorder=3, label="this run")
@@ -116,12 +123,13 @@ def _misses(outcomes: Sequence[Outcome]) -> Counter[str]:
     return Counter(entity_id for o in outcomes for entity_id in o.reference_ids - o.found.keys())
 
 
-def write_report(path: Path, outcomes: Sequence[Outcome], summary: Summary, *, title: str) -> None:
+def write_report(path: Path, outcomes: Sequence[Outcome], summary: Summary, *, title: str,
+                 confidence_model: ConfidenceModel | None = None) -> None:
     """Write a self-contained HTML report."""
     parts = [f"<!doctype html><meta charset='utf-8'><title>{html.escape(title)}</title>",
              _STYLE,
              f"<h1>{html.escape(title)}</h1>", f"<pre>{html.escape(format_table(summary))}</pre>"]
-    for caption, image in _plots(outcomes, summary):
+    for caption, image in _plots(outcomes, summary, confidence_model):
         parts.append(f"<h2>{html.escape(caption)}</h2><img alt='{html.escape(caption)}' "
                      f"src='data:image/png;base64,{image}'>")
     wrong = [o for o in outcomes if o.decision in (None, "accept") and not o.entity_ok][:30]

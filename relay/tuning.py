@@ -1,9 +1,12 @@
 """`tune`: choose stage parameters and gate thresholds on labelled data, honestly.
 
 The objective is the fewest wrong accepts while asking back at most a given share of
-utterances, then the lowest WER. Expensive stages run once per parameter setting; the gate's
-thresholds are swept on the features recorded in that run. Every reported number comes from
-k-fold cross-validation: a fold's choice is fitted on the other folds and scored on it alone.
+utterances, then the lowest WER. Expensive stages run once per parameter setting; the gate is
+fitted on the features recorded in that run, two ways: a sweep of its hand thresholds, and a
+learned confidence (logistic regression on all the features, ``stages.gate_confidence``) with
+its threshold swept; the better of the two on the training utterances wins. Every reported
+number comes from k-fold cross-validation: a fold's choice, the learned model included, is
+fitted on the other folds and scored on it alone.
 """
 
 from __future__ import annotations
@@ -19,6 +22,7 @@ import numpy as np
 from relay.evaluate import Outcome, Summary, summarize
 from relay.variants import Overrides
 from stages.gate import GateSettings, decide
+from stages.gate_confidence import confidence, fit_model
 
 __all__ = [
     "DEFAULT_GATE_GRID",
@@ -111,6 +115,7 @@ class RecordedFeatures:
         self.correction = np.array([np.inf if not g.corrected else (g.correction_score or 0.0) for g in gates])
         self.lm = np.array([np.inf if g.lm_per_word is None else g.lm_per_word for g in gates])
         self.blocked = np.array([g.empty or g.safety_rule is not None for g in gates])
+        self.values = [g.values() for g in gates]
         self.ok = np.array([o.entity_ok for o in outcomes])
         self.errors = np.array([o.errors_relay for o in outcomes])
         self.words = np.array([o.ref_words for o in outcomes])
@@ -135,27 +140,59 @@ def _lm_grid(features: RecordedFeatures, index: np.ndarray) -> list[float | None
     return [None] + sorted({round(float(q), 3) for q in np.percentile(known, [5, 10, 20, 30])})
 
 
+_OPEN = {"accept_posterior": 0.0, "accept_margin": 0.0, "accept_entity": 0.0, "accept_correction": 0.0,
+         "accept_without_entity": 1.0}  # hand thresholds that let everything through
+_CONFIDENCE_STEPS = np.linspace(0.0, 100.0, 81)  # candidate thresholds: percentiles of training confidence
+
+
+def _best_row(accept: np.ndarray, ok: np.ndarray, max_clarify: float) -> tuple[int, tuple[float, float, float]]:
+    """The best row of a (candidates x utterances) accept matrix: (row, (over budget, wrong, clarify))."""
+    accepted = accept.sum(axis=1)
+    clarify = 1 - accepted / accept.shape[1]
+    wrong = (accept & ~ok).sum(axis=1) / np.maximum(accepted, 1)
+    # Over budget is allowed only when nothing fits; then ask back as little as possible.
+    over = np.maximum(clarify - max_clarify, 0)
+    row = int(np.lexsort((clarify, np.round(wrong / _TIE), over))[0])
+    return row, (float(over[row]), float(np.round(wrong[row] / _TIE)), float(clarify[row]))
+
+
 def fit(recorded: Sequence[RecordedFeatures], index: np.ndarray, *, max_clarify: float,
-        gate_grid: dict[str, list[float]] = DEFAULT_GATE_GRID) -> Choice:
-    """The best setting and thresholds on the utterances in ``index`` only."""
+        gate_grid: dict[str, list[float]] = DEFAULT_GATE_GRID, learn: bool = True) -> Choice:
+    """The best setting and gate on the utterances in ``index`` only.
+
+    With ``learn``, a confidence model is fitted on those utterances too and competes with the
+    hand thresholds.
+    """
     grid = np.array(list(itertools.product(*[gate_grid[k] for k in _GATE_KEYS])), dtype=float)
+    open_row = np.array([[_OPEN[k] for k in _GATE_KEYS]])
     best: tuple[tuple[float, ...], Choice] | None = None
+
+    def consider(key: tuple[float, ...], setting: int, gate: dict[str, Any]) -> None:
+        nonlocal best
+        if best is None or key < best[0]:
+            best = (key, Choice(setting=setting, gate=gate))
+
     for setting, features in enumerate(recorded):
-        errors = features.errors[index].sum() / max(1, features.words[index].sum())
+        errors = float(features.errors[index].sum() / max(1, features.words[index].sum()))
+        ok = features.ok[index]
         for min_lm in _lm_grid(features, index):
-            accept = gate_accepts(features, grid, min_lm)[:, index]
-            accepted = accept.sum(axis=1)
-            clarify = 1 - accepted / len(index)
-            wrong = (accept & ~features.ok[index]).sum(axis=1) / np.maximum(accepted, 1)
-            # Over budget is allowed only when nothing fits; then ask back as little as possible.
-            over = np.maximum(clarify - max_clarify, 0)
-            for row in np.lexsort((clarify, np.round(wrong / _TIE), over))[:1]:
-                key = (float(over[row]), float(np.round(wrong[row] / _TIE)), float(errors), float(clarify[row]))
-                if best is None or key < best[0]:
-                    gate: dict[str, Any] = {k: float(grid[row, i]) for i, k in enumerate(_GATE_KEYS)}
-                    gate["accept_without_entity"] = bool(gate["accept_without_entity"])
-                    gate["min_lm_per_word"] = min_lm
-                    best = (key, Choice(setting=setting, gate=gate))
+            row, (over, wrong, clarify) = _best_row(gate_accepts(features, grid, min_lm)[:, index], ok, max_clarify)
+            gate: dict[str, Any] = {k: float(grid[row, i]) for i, k in enumerate(_GATE_KEYS)}
+            gate["accept_without_entity"] = bool(gate["accept_without_entity"])
+            gate["min_lm_per_word"] = min_lm
+            gate["confidence"] = None
+            consider((over, wrong, errors, clarify), setting, gate)
+        if not learn:
+            continue
+        model = fit_model([features.values[i] for i in index], ok.tolist())
+        sure = np.array([confidence(features.values[i], model) for i in index])
+        thresholds = np.unique(np.r_[np.percentile(sure, _CONFIDENCE_STEPS), 0.0])
+        accept = gate_accepts(features, open_row, None)[:, index] & (sure >= thresholds[:, None])
+        row, (over, wrong, clarify) = _best_row(accept, ok, max_clarify)
+        gate = {k: (bool(v) if k == "accept_without_entity" else v) for k, v in _OPEN.items()}
+        gate |= {"min_lm_per_word": None, "confidence": model.model_dump(),
+                 "accept_confidence": float(thresholds[row])}
+        consider((over, wrong, errors, clarify), setting, gate)
     if best is None:
         raise ValueError("nothing to choose from: no parameter setting was tried")
     return best[1]
@@ -166,6 +203,8 @@ def gate_settings(base: GateSettings, gate: dict[str, Any]) -> GateSettings:
     update = dict(gate)
     update["reprompt_posterior"] = min(base.reprompt_posterior, gate["accept_posterior"])
     update["reprompt_entity"] = min(base.reprompt_entity, gate["accept_entity"])
+    if "accept_confidence" in gate:
+        update["reprompt_confidence"] = min(base.reprompt_confidence, gate["accept_confidence"])
     return GateSettings.model_validate({**base.model_dump(), **update})
 
 

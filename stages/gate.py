@@ -1,8 +1,11 @@
 """Stage `gate`: accept the result, confirm it ("did you mean ...?") or ask again ("which machine?").
 
 The decision is a pure function of a few recorded features (``GateFeatures``) and the
-thresholds, so `tune` can sweep thresholds on features recorded once instead of re-running
-the chain. A safety rule sits on top of the scores: a command that can move machinery, open
+settings, so `tune` can sweep thresholds on features recorded once instead of re-running
+the chain. Two kinds of rule read the features: thresholds on single scores, and an optional
+learned confidence (``stages.gate_confidence``: a logistic model that `tune` fits, which also
+sees how the in-domain language model judges the finished text). The more cautious answer of
+the two wins. A safety rule sits on top of the scores: a command that can move machinery, open
 a valve or dose a chemical is never accepted on voice alone.
 """
 
@@ -10,11 +13,14 @@ from __future__ import annotations
 
 import re
 from dataclasses import asdict, dataclass
+from pathlib import Path
 from typing import Any, ClassVar
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from relay.pipeline import Decision, StageContext, Utterance
+from stages.gate_confidence import ConfidenceModel, confidence
+from stages.lm_rescore import shared_model
 from stages.tokens import tokenize
 
 __all__ = ["GateFeatures", "GateSettings", "GateStage", "decide"]
@@ -22,6 +28,7 @@ __all__ = ["GateFeatures", "GateSettings", "GateStage", "decide"]
 _PLACEHOLDERS = frozenset({"text", "entity", "heard", "type_noun"})
 _FIELD = re.compile(r"\{([^{}]*)\}")
 _SEVERITY: dict[Decision, int] = {"accept": 0, "confirm": 1, "reprompt": 2}
+_LN10 = 2.302585092994046
 
 # Verbs that set something in motion, release energy or material. A false alarm costs one
 # "did you mean ...?"; a miss can hurt someone, so the list errs on the side of asking.
@@ -72,6 +79,14 @@ class GateSettings(BaseModel):
         None, description="LM natural-log score per word below which the result is confirmed; off when unset"
     )
     reprompt_posterior: float = Field(0.2, ge=0, le=1, description="top posterior below which to ask again")
+    lm_model: Path | None = Field(
+        None, description="in-domain ARPA/kenlm model that judges the finished text (features for `confidence`)"
+    )
+    confidence: ConfidenceModel | None = Field(
+        None, description="learned confidence that the entities are right (written by `rehear tune`); off when unset"
+    )
+    accept_confidence: float = Field(0.5, ge=0, le=1.01, description="confidence needed to accept")
+    reprompt_confidence: float = Field(0.15, ge=0, le=1, description="confidence below which to ask again")
     reprompt_entity: float = Field(0.2, ge=0, le=1, description="weakest entity score below which to ask again")
     safety_words: list[str] = Field(default_factory=lambda: list(DEFAULT_SAFETY_WORDS))
     safety_types: list[str] = Field(default_factory=lambda: list(DEFAULT_SAFETY_TYPES))
@@ -91,6 +106,11 @@ class GateSettings(BaseModel):
             raise ValueError("reprompt_posterior must not exceed accept_posterior")
         if self.reprompt_entity > self.accept_entity:
             raise ValueError("reprompt_entity must not exceed accept_entity")
+        if self.reprompt_confidence > self.accept_confidence:
+            raise ValueError("reprompt_confidence must not exceed accept_confidence")
+        needs_lm = sorted(n for n in (self.confidence.features if self.confidence else {}) if n.startswith("text_"))
+        if needs_lm and self.lm_model is None:
+            raise ValueError(f"confidence uses {', '.join(needs_lm)}, which need lm_model")
         return self
 
 
@@ -106,10 +126,45 @@ class GateFeatures:
     lm_per_word: float | None
     safety_rule: str | None  # e.g. "word:start" or "type:valve"
     empty: bool
+    entities: int = 0
+    corrections: int = 0
+    words: int = 0
+    text_lm_per_word: float | None = None  # natural log per word, </s> included, of the finished text
+    text_lm_weakest: float | None = None  # natural log of its least likely word
+    text_oov: int | None = None
+
+    def values(self) -> dict[str, float | None]:
+        """The numeric features by name, as ``stages.gate_confidence`` reads them."""
+        return {
+            "posterior": self.posterior,
+            "margin": self.margin,
+            "weakest_entity": 1.0 if self.weakest_entity is None else self.weakest_entity,
+            "entities": float(self.entities),
+            "corrections": float(self.corrections),
+            "words": float(self.words),
+            "lm_per_word": self.lm_per_word,
+            "text_lm_per_word": self.text_lm_per_word,
+            "text_lm_weakest": self.text_lm_weakest,
+            "text_oov": None if self.text_oov is None else float(self.text_oov),
+        }
 
 
 def decide(features: GateFeatures, settings: GateSettings) -> tuple[Decision, str]:
-    """The decision and the rule that produced it, from features and thresholds alone."""
+    """The decision and the rule that produced it, from features and settings alone."""
+    decision, rule = _by_thresholds(features, settings)
+    if settings.confidence is not None and not features.empty:
+        sure = confidence(features.values(), settings.confidence)
+        if sure < settings.reprompt_confidence and _SEVERITY[decision] < _SEVERITY["reprompt"]:
+            decision, rule = "reprompt", "low_confidence"
+        elif sure < settings.accept_confidence and _SEVERITY[decision] < _SEVERITY["confirm"]:
+            decision, rule = "confirm", "confidence"
+    # The safety rule only ever makes the answer more cautious: asking again stays asking again.
+    if features.safety_rule is not None and _SEVERITY[decision] < _SEVERITY["confirm"]:
+        return "confirm", "safety:" + features.safety_rule
+    return decision, rule
+
+
+def _by_thresholds(features: GateFeatures, settings: GateSettings) -> tuple[Decision, str]:
     decision: Decision
     if features.empty:
         decision, rule = "reprompt", "empty"
@@ -132,10 +187,17 @@ def decide(features: GateFeatures, settings: GateSettings) -> tuple[Decision, st
         decision, rule = "confirm", "lm_per_word"
     else:
         decision, rule = "accept", "scores"
-    # The safety rule only ever makes the answer more cautious: asking again stays asking again.
-    if features.safety_rule is not None and _SEVERITY[decision] < _SEVERITY["confirm"]:
-        return "confirm", "safety:" + features.safety_rule
     return decision, rule
+
+
+def _judged(model: Any, words: list[str]) -> dict[str, Any]:
+    """How the LM sees the finished text: natural log per word (``</s>`` counted), its least
+    likely word, and the words it has never seen."""
+    scores = list(model.full_scores(" ".join(words), bos=True, eos=True))
+    total = sum(log10 for log10, _, _ in scores)
+    weakest = min((log10 for log10, _, _ in scores[:-1]), default=scores[-1][0])
+    return {"text_lm_per_word": total * _LN10 / len(scores), "text_lm_weakest": weakest * _LN10,
+            "text_oov": sum(int(oov) for _, _, oov in scores[:-1])}
 
 
 class GateStage:
@@ -148,12 +210,16 @@ class GateStage:
 
     def __init__(self, settings: GateSettings, *, context: StageContext) -> None:
         self.settings = settings
+        self.context = context
+        self.lm: Any = None
         phrases = [tuple(tokenize(p)) for p in settings.safety_words]
         self._phrases = sorted({p for p in phrases if p}, key=len, reverse=True)
         self._types = frozenset(settings.safety_types)
 
     def load(self) -> None:
-        pass
+        path = self.settings.lm_model
+        if path is not None:
+            self.lm = shared_model(path if path.is_absolute() else self.context.base_dir / path)
 
     def safety_rule(self, utterance: Utterance) -> str | None:
         """Which safety rule the result trips, if any (by entity type first, then by words).
@@ -181,6 +247,10 @@ class GateStage:
         entity_scores = [e.score for e in utterance.entities]
         correction_scores = [c.score for c in utterance.corrections]
         lm = ranked[0].scores.get("lm_per_word") if ranked else None
+        words = tokenize(utterance.text)
+        text_lm: dict[str, Any] = {}
+        if self.lm is not None:
+            text_lm = _judged(self.lm, words)
         return GateFeatures(
             posterior=top,
             margin=top - runner_up,
@@ -190,6 +260,10 @@ class GateStage:
             lm_per_word=lm,
             safety_rule=self.safety_rule(utterance),
             empty=not utterance.text.strip(),
+            entities=len(utterance.entities),
+            corrections=len(utterance.corrections),
+            words=len(words),
+            **text_lm,
         )
 
     def _prompt(self, utterance: Utterance, decision: Decision, rule: str) -> str | None:

@@ -14,6 +14,7 @@ from relay.commands.corpus_args import add_corpus_arguments, chosen_config, repo
 from relay.config import build_chain
 from relay.errors import RehearError
 from relay.evaluate import format_table, run_corpus, summarize
+from stages.gate import GateStage
 
 __all__ = ["add_parser", "run"]
 
@@ -56,7 +57,9 @@ def run(args: argparse.Namespace) -> int:
     if args.report is not None:
         from relay.report import write_report  # matplotlib loads only when a report is asked for
 
-        write_report(args.report, outcomes, summary, title=f"rehear evaluation: {args.corpus.name} ({described})")
+        gate = next((stage for stage in chain.stages if isinstance(stage, GateStage)), None)
+        write_report(args.report, outcomes, summary, title=f"rehear evaluation: {args.corpus.name} ({described})",
+                     confidence_model=gate.settings.confidence if gate is not None else None)
     return 0
 
 

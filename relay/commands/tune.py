@@ -80,10 +80,12 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 
 def _with_gate(loaded: LoadedConfig) -> LoadedConfig:
+    """The chain with a gate at its end; an added gate judges the text with lm_rescore's model."""
     if any(spec.name == "gate" for spec in loaded.config.stages):
         return loaded
     raw = dict(loaded.source.value)
-    raw["stages"] = [*(raw.get("stages") or []), "gate"]
+    model = next((spec.params.get("model") for spec in loaded.config.stages if spec.name == "lm_rescore"), None)
+    raw["stages"] = [*(raw.get("stages") or []), {"gate": {"lm_model": model}} if model else "gate"]
     return config_from_dict(raw, base_dir=loaded.base_dir, label=loaded.source.file)
 
 
@@ -172,8 +174,10 @@ def run(args: argparse.Namespace) -> int:
     print(format_table(held_out, title=f"held-out folds pooled, {args.corpus} ({described}):"))
     final = fit(recorded, np.arange(len(items)), max_clarify=args.max_clarify)
     tuned_gate = gate_settings(base_gate, final.gate)
-    gate_params = {**gate_spec.params, **{k: getattr(tuned_gate, k) for k in
-                   (*final.gate, "reprompt_posterior", "reprompt_entity")}}
+    dumped = tuned_gate.model_dump(mode="json")
+    extra = ("reprompt_confidence",) if "accept_confidence" in final.gate else ()
+    gate_params = {**gate_spec.params, **{k: dumped[k] for k in
+                   (*final.gate, "reprompt_posterior", "reprompt_entity", *extra)}}
     overrides = {**settings[final.setting], "gate": gate_params}
     raw = _portable(with_overrides(_written_form(args, loaded), overrides), loaded.base_dir)
     header = (f"# rehear tune on {args.corpus} ({described}), {args.folds}-fold held-out: "

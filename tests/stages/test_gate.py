@@ -1,5 +1,6 @@
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import pytest
@@ -168,3 +169,67 @@ def test_gate_runs_in_a_chain_built_from_yaml(tmp_path: Path) -> None:
     assert utterance.decision == "accept"
     assert utterance.trace[-1].stage == "gate"
     assert utterance.trace[-1].scores["posterior"] == pytest.approx(0.9)
+
+
+# --- learned confidence -------------------------------------------------------------------
+
+DATA = Path(__file__).resolve().parent.parent / "data"
+
+
+def _oov_model(**extra: object) -> dict[str, object]:
+    """A confidence that falls with each word the LM has never seen (weights written by hand)."""
+    return {"lm_model": str(DATA / "lm_domain.o3.arpa"), "accept_confidence": 0.6, "reprompt_confidence": 0.2,
+            "confidence": {"bias": 2.0, "features": {"text_oov": {"weight": -1.5, "center": 0.0, "scale": 1.0}}},
+            "safety_words": [], **extra}
+
+
+def test_the_gate_scores_the_finished_text_with_its_language_model() -> None:
+    import kenlm
+
+    stage = gate(**_oov_model())
+    stage.load()
+    text = "book the quux"
+    features = stage.features(make_utterance([0.9, 0.1], [text, "other"]))
+    # Reference: kenlm's own per-word scores of the same sentence (log10, turned into natural log).
+    config = kenlm.Config()
+    config.show_progress = False
+    scores = list(kenlm.Model(str(DATA / "lm_domain.o3.arpa"), config).full_scores(text, bos=True, eos=True))
+    assert features.text_lm_per_word == pytest.approx(sum(s[0] for s in scores) * math.log(10) / 4)
+    assert features.text_lm_weakest == pytest.approx(min(s[0] for s in scores[:3]) * math.log(10))
+    assert features.text_oov == sum(s[2] for s in scores[:3]) == 1
+    assert features.words == 3
+
+
+def test_confidence_accepts_confirms_or_asks_again() -> None:
+    stage = gate(**_oov_model(accept_posterior=0.0, accept_entity=0.0, accept_correction=0.0,
+                              reprompt_posterior=0.0, reprompt_entity=0.0))
+    stage.load()
+    # sigmoid(2) = 0.88 with no unknown word, sigmoid(0.5) = 0.62 with one, sigmoid(-1) = 0.27, sigmoid(-2.5) = 0.08.
+    for text, decision, rule in (("book the lathe", "accept", "scores"), ("book the quux", "accept", "scores"),
+                                 ("quux the quuz", "confirm", "confidence"),
+                                 ("quux quuz quuv", "reprompt", "low_confidence")):
+        utterance = stage.process(make_utterance([0.9, 0.1], [text, "other"]))
+        assert (utterance.decision, utterance.trace[-1].scores["rule"]) == (decision, rule), text
+
+
+def test_the_more_cautious_of_thresholds_and_confidence_wins() -> None:
+    stage = gate(**_oov_model(accept_posterior=0.95))
+    stage.load()
+    # Confident by the model, but the posterior threshold asks: thresholds still apply.
+    utterance = stage.process(make_utterance([0.9, 0.1], ["book the lathe", "other"]))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == "posterior"
+    # And the safety rule is above both.
+    stage = gate(**_oov_model(accept_posterior=0.0, accept_entity=0.0, accept_correction=0.0,
+                              reprompt_posterior=0.0, reprompt_entity=0.0, safety_words=["book"]))
+    stage.load()
+    assert stage.process(make_utterance([0.9, 0.1], ["book the lathe", "other"])).decision == "confirm"
+
+
+def test_text_features_need_a_language_model() -> None:
+    settings = _oov_model()
+    del settings["lm_model"]
+    with pytest.raises(ValidationError, match="text_oov, which need lm_model"):
+        GateSettings.model_validate(settings)
+    with pytest.raises(ValidationError, match="reprompt_confidence must not exceed"):
+        GateSettings.model_validate(_oov_model(reprompt_confidence=0.7))

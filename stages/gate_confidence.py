@@ -1,0 +1,148 @@
+"""The gate's learned confidence: a logistic model over the recorded gate features.
+
+Hand thresholds on one score at a time (posterior, margin, weakest entity) cannot see the
+commonest failure on real recogniser output: an entity that was never found, so no score of
+it exists. What gives that away is the finished text itself - everyday words where the
+in-domain language model expects a name (a low per-word score, a very unlikely word, words it
+has never seen) - together with how many entities were found and how sure the N-best is.
+``ConfidenceModel`` weighs these features into the probability that the result's entities are
+exactly right; `rehear tune` fits it on labelled logs (on training folds only) and picks the
+threshold under the clarification budget.
+
+The model is plain logistic regression, fitted by Newton's method (iteratively reweighted
+least squares) with a small L2 penalty on standardised features. Each feature is centred and
+scaled by its training mean and standard deviation, and those two numbers travel with the
+weights, so the YAML stays readable ("a standard deviation more OOV words: -0.8") and a
+feature missing at run time (no language model configured) counts as its training mean.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import numpy.typing as npt
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+__all__ = ["FEATURES", "ConfidenceModel", "FeatureWeight", "confidence", "fit_logistic", "fit_model", "sigmoid"]
+
+# The features a model may use, in a fixed order. Values from the language model are natural
+# logs and floored at _LM_FLOOR so one unknown word cannot dominate.
+FEATURES: tuple[str, ...] = (
+    "posterior",          # top posterior after the whole chain
+    "margin",             # lead over the runner-up
+    "weakest_entity",     # lowest entity score; 1 when no entity was found
+    "entities",           # how many entities were found
+    "corrections",        # how many corrections the chain made
+    "words",              # words in the result
+    "lm_per_word",        # in-domain LM per word of the top hypothesis before lexicon correction
+    "text_lm_per_word",   # in-domain LM per word of the finished text
+    "text_lm_weakest",    # the finished text's least likely word under the LM
+    "text_oov",           # words of the finished text the LM has never seen
+)
+_LM_FLOOR = -30.0
+
+
+def sigmoid(value: float) -> float:
+    if value >= 0:
+        return 1.0 / (1.0 + math.exp(-value))
+    z = math.exp(value)
+    return z / (1.0 + z)
+
+
+class FeatureWeight(BaseModel):
+    """One feature's term: weight * (value - center) / scale."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    weight: float
+    center: float = 0.0
+    scale: float = Field(1.0, gt=0)
+
+
+class ConfidenceModel(BaseModel):
+    """Probability that the result's entities are right: sigmoid(bias + sum of feature terms)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    bias: float = 0.0
+    features: dict[str, FeatureWeight] = Field(default_factory=dict)
+
+    @model_validator(mode="after")
+    def _known(self) -> ConfidenceModel:
+        unknown = sorted(set(self.features) - set(FEATURES))
+        if unknown:
+            raise ValueError(f"unknown feature(s) {', '.join(unknown)} (allowed: {', '.join(FEATURES)})")
+        return self
+
+
+def _floored(name: str, value: float) -> float:
+    return max(value, _LM_FLOOR) if name.startswith(("lm_", "text_lm_")) else value
+
+
+def confidence(values: Mapping[str, float | None], model: ConfidenceModel) -> float:
+    """The model's probability for one utterance's feature values (None: unknown, counts as the mean)."""
+    total = model.bias
+    for name, term in model.features.items():
+        value = values.get(name)
+        if value is not None and math.isfinite(value):
+            total += term.weight * (_floored(name, value) - term.center) / term.scale
+    return sigmoid(total)
+
+
+def fit_logistic(x: npt.NDArray[np.float64], y: npt.NDArray[np.float64], *, l2: float = 0.0,
+                 iterations: int = 50, tolerance: float = 1e-10) -> tuple[float, npt.NDArray[np.float64]]:
+    """(intercept, weights) maximising the log-likelihood minus ``l2``/2 * |weights|^2 (intercept free).
+
+    Newton's method on the penalised log-likelihood; ``x`` is used as given (standardise first).
+    """
+    rows, columns = x.shape
+    design = np.hstack([np.ones((rows, 1)), x])
+    beta = np.zeros(columns + 1)
+    penalty = np.full(columns + 1, l2)
+    penalty[0] = 0.0
+    for _ in range(iterations):
+        p = 1.0 / (1.0 + np.exp(-np.clip(design @ beta, -35, 35)))
+        gradient = design.T @ (y - p) - penalty * beta
+        hessian = (design.T * (p * (1 - p))) @ design + np.diag(penalty) + 1e-9 * np.eye(columns + 1)
+        step = np.linalg.solve(hessian, gradient)
+        beta += step
+        if float(np.max(np.abs(step))) < tolerance:
+            break
+    return float(beta[0]), beta[1:]
+
+
+@dataclass(frozen=True, slots=True)
+class _Column:
+    name: str
+    values: npt.NDArray[np.float64]
+
+
+def fit_model(rows: Sequence[Mapping[str, float | None]], right: Sequence[bool], *, l2: float = 1.0) -> ConfidenceModel:
+    """A model fitted on feature values and whether each result's entities were right.
+
+    Features that are missing everywhere or constant are left out; a value missing in some
+    rows is filled with the mean of the others.
+    """
+    columns: list[_Column] = []
+    for name in FEATURES:
+        raw = np.array([np.nan if (v := row.get(name)) is None else _floored(name, float(v)) for row in rows])
+        known = raw[np.isfinite(raw)]
+        if known.size == 0 or float(known.std()) < 1e-9:
+            continue
+        columns.append(_Column(name, np.where(np.isfinite(raw), raw, known.mean())))
+    y = np.asarray(right, dtype=float)
+    if not columns or y.min(initial=1.0) == y.max(initial=0.0):
+        # Nothing to learn from: a constant model at the observed rate of right results.
+        rate = float(np.clip(y.mean() if y.size else 0.5, 1e-3, 1 - 1e-3))
+        return ConfidenceModel(bias=math.log(rate / (1 - rate)))
+    centers = np.array([c.values.mean() for c in columns])
+    scales = np.array([c.values.std() for c in columns])
+    x = (np.column_stack([c.values for c in columns]) - centers) / scales
+    bias, weights = fit_logistic(x, y, l2=l2)
+    return ConfidenceModel(bias=round(bias, 6), features={
+        c.name: FeatureWeight(weight=round(float(w), 6), center=round(float(m), 6), scale=round(float(s), 6))
+        for c, w, m, s in zip(columns, weights, centers, scales)
+    })
