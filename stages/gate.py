@@ -214,6 +214,10 @@ class GateStage:
         self.lm: Any = None
         phrases = [tuple(tokenize(p)) for p in settings.safety_words]
         self._phrases = sorted({p for p in phrases if p}, key=len, reverse=True)
+        # Phrases by their first word, each with its place in the longest-first order.
+        self._starting: dict[str, list[tuple[int, tuple[str, ...]]]] = {}
+        for order, phrase in enumerate(self._phrases):
+            self._starting.setdefault(phrase[0], []).append((order, phrase))
         self._types = frozenset(settings.safety_types)
 
     def load(self) -> None:
@@ -234,10 +238,11 @@ class GateStage:
         texts += [h.text for h in utterance.ranked() if h.posterior >= self.settings.safety_min_posterior]
         for text in texts:
             words = tuple(tokenize(text))
-            for phrase in self._phrases:
-                size = len(phrase)
-                if any(words[i:i + size] == phrase for i in range(len(words) - size + 1)):
-                    return "word:" + " ".join(phrase) + ("" if text == utterance.text else " (runner-up)")
+            found = [(order, phrase) for i, word in enumerate(words) for order, phrase in self._starting.get(word, ())
+                     if words[i:i + len(phrase)] == phrase]
+            if found:
+                phrase = min(found)[1]  # the longest phrase, as listed, when several occur
+                return "word:" + " ".join(phrase) + ("" if text == utterance.text else " (runner-up)")
         return None
 
     def features(self, utterance: Utterance) -> GateFeatures:
