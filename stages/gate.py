@@ -79,6 +79,7 @@ class GateSettings(BaseModel):
         None, description="LM natural-log score per word below which the result is confirmed; off when unset"
     )
     reprompt_posterior: float = Field(0.2, ge=0, le=1, description="top posterior below which to ask again")
+    reprompt_entity: float = Field(0.2, ge=0, le=1, description="weakest entity score below which to ask again")
     lm_model: Path | None = Field(
         None, description="in-domain ARPA/kenlm model that judges the finished text (features for `confidence`)"
     )
@@ -87,7 +88,6 @@ class GateSettings(BaseModel):
     )
     accept_confidence: float = Field(0.5, ge=0, le=1.01, description="confidence needed to accept")
     reprompt_confidence: float = Field(0.15, ge=0, le=1, description="confidence below which to ask again")
-    reprompt_entity: float = Field(0.2, ge=0, le=1, description="weakest entity score below which to ask again")
     safety_words: list[str] = Field(default_factory=lambda: list(DEFAULT_SAFETY_WORDS))
     safety_types: list[str] = Field(default_factory=lambda: list(DEFAULT_SAFETY_TYPES))
     safety_min_posterior: float = Field(
