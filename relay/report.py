@@ -18,7 +18,7 @@ from typing import Any
 
 import numpy as np
 
-from relay.evaluate import Outcome, Summary, format_table
+from relay.evaluate import Outcome, Summary, format_table, summarize
 from relay.tuning import DEFAULT_GATE_GRID, RecordedFeatures, gate_accepts
 from stages.gate_confidence import ConfidenceModel, confidence
 
@@ -115,6 +115,40 @@ def _plots(outcomes: Sequence[Outcome], summary: Summary,
     return images
 
 
+_MAX_GROUPS = 8  # a tag with more distinct values than this is an id, not a condition
+
+
+def by_tag(outcomes: Sequence[Outcome]) -> list[tuple[str, str, Summary]]:
+    """(tag, value, summary) for every tag of the corpus with a few distinct values: where it fails."""
+    values: dict[str, Counter[str]] = {}
+    for outcome in outcomes:
+        for tag, value in outcome.tags.items():
+            values.setdefault(tag, Counter())[str(value)] += 1
+    rows = []
+    for tag in sorted(values):
+        seen = values[tag]
+        if not 1 < len(seen) <= _MAX_GROUPS or max(seen.values()) == 1:  # one group, or one per utterance
+            continue
+        for value in sorted(seen):
+            group = [o for o in outcomes if str(o.tags.get(tag)) == value]
+            rows.append((tag, value, summarize(group)))
+    return rows
+
+
+def _tag_table(outcomes: Sequence[Outcome]) -> str:
+    rows = by_tag(outcomes)
+    if not rows:
+        return ""
+    head = ("tag", "value", "utterances", "WER first", "WER rehear", "entity recall", "asked back", "wrong accepts")
+    out = ["<h2>By corpus tag</h2><table><tr>" + "".join(f"<th>{h}</th>" for h in head) + "</tr>"]
+    for tag, value, s in rows:
+        cells = [tag, value, str(s.utterances), f"{s.wer_first:.1%}", f"{s.wer_relay:.1%}", f"{s.entity_recall:.1%}",
+                 f"{s.clarify_rate:.1%}", f"{s.wrong_accept_rate:.1%}"]
+        out.append("<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in cells) + "</tr>")
+    out.append("</table>")
+    return "".join(out)
+
+
 def _fixes(outcomes: Sequence[Outcome]) -> Counter[str]:
     return Counter(f"{before} -> {after}" for o in outcomes for before, after in o.corrections)
 
@@ -132,6 +166,7 @@ def write_report(path: Path, outcomes: Sequence[Outcome], summary: Summary, *, t
     for caption, image in _plots(outcomes, summary, confidence_model):
         parts.append(f"<h2>{html.escape(caption)}</h2><img alt='{html.escape(caption)}' "
                      f"src='data:image/png;base64,{image}'>")
+    parts.append(_tag_table(outcomes))
     wrong = [o for o in outcomes if o.decision in (None, "accept") and not o.entity_ok][:30]
     if wrong:
         parts.append("<h2>Wrong accepts (first 30)</h2><table><tr><th>id</th><th>reference</th><th>result</th>"

@@ -3,7 +3,7 @@ from __future__ import annotations
 from itertools import pairwise
 
 from relay.evaluate import Outcome
-from relay.report import entity_type, tradeoff_curve
+from relay.report import by_tag, entity_type, tradeoff_curve
 from stages.gate import GateFeatures
 from stages.gate_confidence import ConfidenceModel, FeatureWeight
 
@@ -39,3 +39,14 @@ def test_entity_type_falls_back_to_the_id_prefix() -> None:
     assert entity_type("machine.lathe", {}) == "machine"
     assert entity_type("machine.lathe", {"machine.lathe": "tool"}) == "tool"
     assert entity_type("lathe", {}) == "unknown"
+
+
+def test_by_tag_splits_the_summary_by_each_condition_and_skips_id_like_tags() -> None:
+    outcomes = []
+    for i, (snr, right) in enumerate([(None, True)] * 3 + [(15, False)] * 2):
+        outcome = _outcome(0.9, right)
+        outcome.tags = {"snr_db": snr, "recording": f"r{i}"}
+        outcomes.append(outcome)
+    rows = by_tag(outcomes)
+    assert [(tag, value, s.utterances) for tag, value, s in rows] == [("snr_db", "15", 2), ("snr_db", "None", 3)]
+    assert rows[0][2].wrong_accept_rate == 1.0 and rows[1][2].wrong_accept_rate == 0.0
