@@ -25,9 +25,16 @@ static int check_size(const Py_buffer *view, Py_ssize_t items, Py_ssize_t itemsi
     return 0;
 }
 
-static int compare_codes(const void *a, const void *b) {
-    int64_t x = *(const int64_t *)a, y = *(const int64_t *)b;
-    return (x > y) - (x < y);
+/* Adds value to an open-addressing set of `mask + 1` slots (empty slots hold -1); whether it was new. */
+static inline int add_once(int64_t *slots, Py_ssize_t mask, int64_t value) {
+    Py_ssize_t at = (Py_ssize_t)(((uint64_t)value * 0x9E3779B97F4A7C15ull) >> 32) & mask;
+    while (slots[at] != -1) {
+        if (slots[at] == value)
+            return 0;
+        at = (at + 1) & mask;
+    }
+    slots[at] = value;
+    return 1;
 }
 
 /* Phone codes of one encoded string (one character per phone), each checked to lie in [0, limit). */
@@ -94,7 +101,7 @@ static PyObject *search(PyObject *self, PyObject *args) {
                           &char_base, &phones, &base, &offset4))
         return NULL;
     PyObject *result = NULL, *fast = NULL;
-    int64_t *grams = NULL;
+    int64_t *grams = NULL, *slots = NULL;
     int32_t *codes = NULL, *columns = NULL;
     Candidate *best = NULL;
     Py_ssize_t count, longest;
@@ -120,7 +127,11 @@ static PyObject *search(PyObject *self, PyObject *args) {
     grams = malloc(sizeof(int64_t) * (size_t)(2 * (longest + 2)));
     columns = malloc(sizeof(int32_t) * (size_t)(2 * (longest + 2)));
     best = malloc(sizeof(Candidate) * (size_t)(k + 1));
-    if (!codes || !grams || !columns || !best) {
+    Py_ssize_t slot_count = 16;
+    while (slot_count < 4 * (longest + 2))
+        slot_count *= 2; /* at most a half-full set: short probes */
+    slots = malloc(sizeof(int64_t) * (size_t)slot_count);
+    if (!codes || !grams || !columns || !best || !slots) {
         PyErr_NoMemory();
         goto done;
     }
@@ -143,10 +154,13 @@ static PyObject *search(PyObject *self, PyObject *args) {
                 grams[made++] = value + (n == 4 ? offset4 : 0);
             }
         }
-        qsort(grams, (size_t)made, sizeof(int64_t), compare_codes);
+        Py_ssize_t mask = 16 - 1;
+        while (mask + 1 < 2 * made)
+            mask = 2 * mask + 1;
+        memset(slots, 0xff, sizeof(int64_t) * (size_t)(mask + 1)); /* every slot -1: empty */
         Py_ssize_t kept = 0, known = 0;
         for (Py_ssize_t i = 0; i < made; i++) {
-            if (i > 0 && grams[i] == grams[i - 1])
+            if (!add_once(slots, mask, grams[i]))
                 continue; /* a set of n-grams: each counts once */
             if (grams[i] < 0 || grams[i] >= table) {
                 PyErr_SetString(PyExc_ValueError, "search: n-gram outside the lookup table");
@@ -220,6 +234,7 @@ done:
         memset(counts_b.buf, 0, (size_t)counts_b.len); /* an error may leave counts half taken */
     free(codes);
     free(grams);
+    free(slots);
     free(columns);
     free(best);
     Py_XDECREF(fast);
