@@ -54,6 +54,8 @@ class G2PModel:
         self.nodes = nodes
         self.info = info or {}
         self.order = order
+        # _predict reads contexts from the word padded by this many PAD marks on each side.
+        self._reach = max((abs(offset) for offset in order), default=0)
         self._cached = lru_cache(maxsize=65536)(self._predict)
 
     @classmethod
@@ -93,9 +95,21 @@ class G2PModel:
 
     def _predict(self, word: str) -> tuple[str, ...]:
         letters = "".join(_LETTERS.findall(word.lower()))
+        # context_key and label inlined: the word is padded once (letters are a-z, never PAD),
+        # so each context is a plain gather of characters.
+        reach = self._reach
+        padded = PAD * reach + letters + PAD * reach
+        offsets = [offset + reach for offset in self.order]
+        nodes = self.nodes
         phones: list[str] = []
         for index in range(len(letters)):
-            label = self.label(context_key(letters, index, self.order))
+            features = "".join([padded[index + offset] for offset in offsets])
+            label = ""
+            for depth in range(1, len(features) + 1):
+                found = nodes.get(features[:depth])
+                if found is None:
+                    break
+                label = found
             if label:
                 phones.extend(label.split(" "))
         return tuple(phones)

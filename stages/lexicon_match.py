@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from rapidfuzz.distance import Levenshtein
@@ -45,11 +46,8 @@ class Weights:
 class Span:
     words: tuple[str, ...]
     phones: str
+    text: str  # the words joined by spaces
     occurrences: list[tuple[int, int, int]] = field(default_factory=list)  # (hypothesis, start, end)
-
-    @property
-    def text(self) -> str:
-        return " ".join(self.words)
 
 
 @dataclass(slots=True)
@@ -64,23 +62,35 @@ class Evidence:
 
 def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer) -> list[Span]:
     spans: dict[tuple[str, ...], Span] = {}
+    word = pronouncer.word
     for number, hypothesis in enumerate(nbest):
-        tokens = hypothesis.tokens
-        sounds = [pronouncer.word(token) for token in tokens]
-        for start in range(len(tokens)):
+        tokens = tuple(hypothesis.tokens)
+        count = len(tokens)
+        sounds = [word(token) for token in tokens]
+        for start in range(count):
             phones = ""
-            for end in range(start + 1, min(len(tokens), start + longest) + 1):
+            for end in range(start + 1, min(count, start + longest) + 1):
                 phones += sounds[end - 1]  # a span's phones are its words' phones run together
-                words = tuple(tokens[start:end])
+                words = tokens[start:end]
                 span = spans.get(words)
                 if span is None:
-                    span = spans[words] = Span(words, phones)
+                    span = spans[words] = Span(words, phones, " ".join(words))
                 span.occurrences.append((number, start, end))
     return list(spans.values())
 
 
+_span_keys = lru_cache(maxsize=32768)(phonetic_keys)  # span texts recur from message to message
+
+
 def _key_agreement(a: tuple[str, ...], b: tuple[str, ...]) -> float:
-    return max(Levenshtein.normalized_similarity(x, y) for x in a for y in b)
+    similar = Levenshtein.normalized_similarity
+    best = similar(a[0], b[0])
+    for x in a:
+        for y in b:
+            value = similar(x, y)
+            if value > best:
+                best = value
+    return best
 
 
 def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
@@ -101,28 +111,34 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
     queries, items = hits.query.tolist(), hits.item.tolist()
     edit = cpdist([spans[q].phones for q in queries], [forms[f].phones for f in items],
                   scorer=Levenshtein.normalized_similarity, dtype=np.float64)
-    chosen = [(q, f) for q, f, passed in zip(queries, items, (edit >= screen).tolist())
-              if passed and (q, f) not in exact_pairs]
+    passed = (edit >= screen).tolist()
+    if exact_pairs:
+        chosen = [(q, f) for q, f, ok in zip(queries, items, passed) if ok and (q, f) not in exact_pairs]
+    else:
+        chosen = [(q, f) for q, f, ok in zip(queries, items, passed) if ok]
     if not chosen:
         return pairs
     phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
-    total = weights.phone + weights.spelling + weights.keys
+    phone_weight, spelling, key_weight, min_phone = weights.phone, weights.spelling, weights.keys, weights.min_phone
+    total = phone_weight + spelling + key_weight
     floor = weights.pair_floor * total
     joined: dict[int, str] = {}
     keys: dict[int, tuple[str, ...]] = {}
     for (q, f), phone_score in zip(chosen, phone.tolist()):
-        score = weights.phone * phone_score
-        if phone_score < weights.min_phone or score + weights.spelling + weights.keys < floor:
+        score = phone_weight * phone_score
+        if phone_score < min_phone or score + spelling + key_weight < floor:
             continue
         form = forms[f]
-        if weights.spelling:
-            if q not in joined:
-                joined[q] = spans[q].text.replace(" ", "")
-            score += weights.spelling * ratio(joined[q], form.text.replace(" ", "")) / 100.0
-        if weights.keys and score + weights.keys >= floor:
-            if q not in keys:
-                keys[q] = phonetic_keys(spans[q].text)
-            score += weights.keys * _key_agreement(keys[q], form.keys)
+        if spelling:
+            heard = joined.get(q)
+            if heard is None:
+                heard = joined[q] = spans[q].text.replace(" ", "")
+            score += spelling * ratio(heard, form.text.replace(" ", "")) / 100.0
+        if key_weight and score + key_weight >= floor:
+            span_keys = keys.get(q)
+            if span_keys is None:
+                span_keys = keys[q] = _span_keys(spans[q].text)
+            score += key_weight * _key_agreement(span_keys, form.keys)
         if score >= floor:
             pairs.append((q, f, score / total, False))
     return pairs
@@ -140,16 +156,22 @@ def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: 
     forms = lexicon.forms
     words: dict[int, int] = {}  # form -> its word count, looked up often by _better
     for q, f, score, exact in pairs:
-        entry = forms[f].entry
-        found = evidence.get(entry)
+        form = forms[f]
+        found = evidence.get(form.entry)
         if found is None:
-            found = evidence[entry] = Evidence(entry)
+            found = evidence[form.entry] = Evidence(form.entry)
         if f not in words:
-            words[f] = forms[f].words
+            words[f] = form.words
         held_by = found.per_hypothesis
         for hypothesis, start, end in spans[q].occurrences:
             held = held_by.get(hypothesis)
-            if held is None or _better((score, start, end, f, exact), held, strong, words):
+            if held is None:
+                held_by[hypothesis] = (score, start, end, f, exact)
+            elif exact or held[4]:
+                if _better((score, start, end, f, exact), held, strong, words):
+                    held_by[hypothesis] = (score, start, end, f, exact)
+            # Neither exact: _better reduces to the higher score, then the longer span.
+            elif score > held[0] or (score == held[0] and end - start > held[2] - held[1]):
                 held_by[hypothesis] = (score, start, end, f, exact)
     for found in evidence.values():
         found.pooled = float(sum(posteriors[h] * held[0] for h, held in found.per_hypothesis.items()))

@@ -6,7 +6,10 @@ marks), so the n-grams of a whole batch of strings are computed with a few array
 and mapped to index columns through a dense lookup table. An inverted index (CSR arrays:
 n-gram -> sorted string ids) answers a whole batch of query spans at once: the postings of
 every query n-gram are gathered in one array, shared n-grams counted with a single sort, and
-each pair scored by the Dice coefficient 2|A & B| / (|A| + |B|) of the two n-gram sets.
+each pair scored by the Dice coefficient 2|A & B| / (|A| + |B|) of the two n-gram sets. Where
+the compiled kernels are built (stages/kernels.py) the same search runs in C instead: one
+query at a time, shared n-grams counted in a dense per-item counter, the best k kept by
+insertion; the results are the same to the bit.
 N-grams held by more than ``max_postings`` strings are left out of the vectors altogether,
 like stop words in text retrieval: they say little and cost most. The limit is a fixed count,
 not a share, so the work per query stays bounded as the lexicon grows.
@@ -21,6 +24,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from stages.kernels import compiled
 from stages.phonetics import PHONES
 
 __all__ = ["Hits", "PhoneIndex", "gram_codes", "ngrams"]
@@ -122,9 +126,13 @@ class PhoneIndex:
         lookup[self.vocabulary] = self.column_of
         self.lookup = lookup
         self.least_size = float(self.sizes.min(initial=0.0))  # for the search's bound on scores
+        # Scratch of the compiled search: shared n-grams per item (left zeroed) and the items touched.
+        self.counts = np.zeros(self.count, dtype=np.int32)
+        self.touched = np.zeros(self.count, dtype=np.int32)
 
     def __getstate__(self) -> dict[str, object]:
-        return {k: v for k, v in self.__dict__.items() if k not in ("lookup", "least_size")}  # rebuilt on load
+        rebuilt = ("lookup", "least_size", "counts", "touched")  # on load
+        return {k: v for k, v in self.__dict__.items() if k not in rebuilt}
 
     def __setstate__(self, state: dict[str, object]) -> None:
         self.__dict__.update(state)
@@ -132,6 +140,22 @@ class PhoneIndex:
 
     def search(self, queries: Sequence[str], *, k: int = 8, min_score: float = 0.3) -> Hits:
         """Up to ``k`` items per query with Dice score >= ``min_score``."""
+        if compiled is not None:
+            return self._search_compiled(queries, k=k, min_score=min_score)
+        return self._search_numpy(queries, k=k, min_score=min_score)
+
+    def _search_compiled(self, queries: Sequence[str], *, k: int, min_score: float) -> Hits:
+        if compiled is None:
+            raise RuntimeError("the compiled kernels are not built")
+        query = np.empty(len(queries) * k, dtype=np.int32)
+        item = np.empty(len(queries) * k, dtype=np.int32)
+        score = np.empty(len(queries) * k, dtype=np.float32)
+        found = compiled.search(queries, self.lookup, self.offsets, self.postings, self.sizes, self.counts,
+                                self.touched, self.least_size, k, min_score, query, item, score,
+                                _CHAR_BASE, _START, _BASE, _OFFSETS[4])
+        return Hits(query[:found], item[:found], score[:found])
+
+    def _search_numpy(self, queries: Sequence[str], *, k: int, min_score: float) -> Hits:
         empty = Hits(np.zeros(0, np.int32), np.zeros(0, np.int32), np.zeros(0, np.float32))
         if not queries:
             return empty

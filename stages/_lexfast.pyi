@@ -1,0 +1,13 @@
+from collections.abc import Sequence
+
+from typing_extensions import Buffer
+
+def search(
+    queries: Sequence[str], lookup: Buffer, offsets: Buffer, postings: Buffer, sizes: Buffer, counts: Buffer,
+    touched: Buffer, least_size: float, k: int, min_score: float, out_query: Buffer, out_item: Buffer,
+    out_score: Buffer, char_base: int, phones: int, base: int, offset4: int, /,
+) -> int: ...
+def alignment_costs(
+    a: Sequence[str], b: Sequence[str], substitution: Buffer, indel: Buffer, stride: int, char_base: int,
+    out: Buffer, /,
+) -> None: ...
