@@ -27,6 +27,7 @@ import aiomqtt
 
 from relay.config import LoadedConfig, build_chain, load_config
 from relay.errors import DeadlineExceeded, InputError, RehearError, TransportError
+from relay.heap import freeze_loaded, refreeze_when_gone
 from relay.messages import parse_message
 from relay.metrics import OUTCOMES, Metrics
 from relay.pipeline import Chain, Utterance
@@ -64,7 +65,10 @@ class Relay:
         config_path: str | Path | None = None,
         reloader: Callable[[], Active] | None = None,
         version: str = "0",
+        freeze_heap: bool = False,
     ) -> None:
+        """``freeze_heap``: keep the loaded chain out of the garbage collector's walks (relay.heap);
+        for a process that runs one relay, as `rehear run` does."""
         self.active = active
         self.metrics = metrics
         self.version = version
@@ -77,6 +81,8 @@ class Relay:
         limits = active.loaded.config.limits
         self._slots = asyncio.Semaphore(limits.max_in_flight)
         self._tasks: set[asyncio.Task[None]] = set()
+        self._background: set[asyncio.Task[bool]] = set()
+        self._freeze_heap = freeze_heap
         self._stopping = asyncio.Event()
         self._broken = asyncio.Event()
         self._worker = ChainWorker()
@@ -114,7 +120,13 @@ class Relay:
         if new.loaded.config.broker != old.broker or new.loaded.config.topics.inputs != old.topics.inputs:
             _log.warning("broker settings and input topics change only on restart")
         self.metrics.declare_stages(new.chain.names)
+        replaced = self.active.chain
         self.active = new  # messages already running keep the chain they started with
+        if self._freeze_heap:
+            refreeze = asyncio.create_task(refreeze_when_gone(replaced, timeout_s=new.loaded.config.limits.drain_s))
+            self._background.add(refreeze)
+            refreeze.add_done_callback(self._background.discard)
+        del replaced
         self.metrics.reloads.labels(result="ok").inc()
         _log.info("configuration reloaded", extra={"fields": {"config_hash": new.loaded.hash,
                                                               "stages": ",".join(new.chain.names)}})
@@ -126,6 +138,8 @@ class Relay:
         """Connect, relay, reconnect with backoff; return after a requested stop has drained."""
         broker = self.active.loaded.config.broker
         delay = broker.reconnect_min_s
+        if self._freeze_heap:
+            freeze_loaded()
         try:
             while not self._stopping.is_set():
                 self._generation += 1

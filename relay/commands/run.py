@@ -56,10 +56,14 @@ async def serve(
     registry: CollectorRegistry | None = None,
     on_ready: Callable[[Relay, HealthServer | None], Awaitable[None] | None] | None = None,
     signals: bool = True,
+    freeze_heap: bool = False,
 ) -> Relay:
-    """Run the relay and its HTTP endpoint until a stop is requested and the drain is over."""
+    """Run the relay and its HTTP endpoint until a stop is requested and the drain is over.
+
+    ``freeze_heap`` keeps the loaded chain out of the garbage collector's walks (relay.heap):
+    right for a process that runs nothing else, as `rehear run` is."""
     registry = registry or CollectorRegistry()
-    relay = Relay(active, Metrics(registry), config_path=config_path, version=__version__)
+    relay = Relay(active, Metrics(registry), config_path=config_path, version=__version__, freeze_heap=freeze_heap)
     settings = active.loaded.config.metrics
     health = None
     if settings.enabled:
@@ -135,7 +139,7 @@ def run(args: argparse.Namespace) -> int:
                                             "config_hash": active.loaded.hash,
                                             "stages": ",".join(active.chain.names)}})
     try:
-        run_coroutine(serve(active, config_path=args.config, metrics_port=args.metrics_port),
+        run_coroutine(serve(active, config_path=args.config, metrics_port=args.metrics_port, freeze_heap=True),
                       event_loop=args.event_loop)
     except RehearError as exc:
         print(exc, file=sys.stderr)
