@@ -370,23 +370,32 @@ static int broken_model(void) {
 typedef struct {
     const int64_t *tokens;
     Py_ssize_t count;
+    int32_t lowest, highest;
     int32_t *slot, *root, *found, *level;
     int64_t *reached;
     double *total, *sums;
     Py_ssize_t *waiting;
 } Choices;
 
-/* Index of the arc for token among arcs[start, end), sorted by token, or -1. */
-static inline int32_t find_arc(const Arc *arcs, int32_t start, int32_t end, int32_t token) {
-    int32_t low = start, high = end;
-    while (low < high) {
-        int32_t mid = low + (high - low) / 2;
-        if (arcs[mid].token < token)
-            low = mid + 1;
-        else
-            high = mid;
+/* The first of arcs[start, end) (sorted by token) whose token is not below token; end if none.
+   Without branches on the comparisons, which a search of a few hundred arcs mispredicts. */
+static inline int32_t lower_bound(const Arc *arcs, int32_t start, int32_t end, int32_t token) {
+    if (start >= end)
+        return end;
+    const Arc *at = arcs + start;
+    int32_t n = end - start;
+    while (n > 1) { /* the bound lies in [at, at + n] */
+        int32_t half = n / 2;
+        at = at[half].token < token ? at + half : at;
+        n -= half;
     }
-    return low < end && arcs[low].token == token ? low : -1;
+    return (int32_t)(at - arcs) + (at->token < token);
+}
+
+/* Index of the arc for token among arcs[start, end), or -1. */
+static inline int32_t find_arc(const Arc *arcs, int32_t start, int32_t end, int32_t token) {
+    int32_t at = lower_bound(arcs, start, end, token);
+    return at < end && arcs[at].token == token ? at : -1;
 }
 
 /* Sets up the choices of tokens[0, count): checks them, marks them in slot and finds their root arcs;
@@ -394,6 +403,8 @@ static inline int32_t find_arc(const Arc *arcs, int32_t start, int32_t end, int3
 static int open_choices(const Graphones *m, Choices *c, const int64_t *tokens, Py_ssize_t count) {
     c->tokens = tokens;
     c->count = count;
+    c->lowest = INT32_MAX;
+    c->highest = -1;
     const int32_t start = m->states[0].first, end = m->states[1].first;
     if (start < 0 || start > end || end > m->arc_count)
         return broken_model();
@@ -403,6 +414,10 @@ static int open_choices(const Graphones *m, Choices *c, const int64_t *tokens, P
             return -1;
         }
         c->slot[tokens[j]] = (int32_t)j;
+        if (tokens[j] < c->lowest)
+            c->lowest = (int32_t)tokens[j];
+        if (tokens[j] > c->highest)
+            c->highest = (int32_t)tokens[j];
         c->root[j] = find_arc(m->arcs, start, end, (int32_t)tokens[j]);
     }
     return 0;
@@ -417,10 +432,10 @@ static void close_choices(Choices *c) {
 /* ln p(token | state) and the state after it for each of the choices from each of the hypotheses'
    states, backing off to the parent state where no arc exists; written to logp and nxt at
    h * count + j. The sums are made in the order of G2PModel._score: the backoff weights from the
-   state down, then the arc's ln p. The choices share each walk down the states: a state with few
-   arcs has its arcs matched against the choices, one with many is searched for each choice still
-   without an arc, and the root's arcs are known in advance. The walks go down together, a state
-   of each at a time, so that the memory reads of different hypotheses overlap. */
+   state down, then the arc's ln p. The choices share each walk down the states: at each state one
+   search finds the arcs whose tokens lie between the lowest and highest choice, and those are
+   matched against the choices (the root's arcs are known in advance). The walks go down
+   together, a state of each at a time, so that the memory reads of different hypotheses overlap. */
 static int score_choices(const Graphones *m, const Choices *c, const int64_t *states, Py_ssize_t alive,
                          double *logp, int64_t *nxt) {
     const Py_ssize_t count = c->count;
@@ -466,22 +481,15 @@ static int score_choices(const Graphones *m, const Choices *c, const int64_t *st
                         waiting--;
                     }
                 }
-            } else if (end - start <= 4 * waiting) {
-                for (int32_t a = start; a < end; a++) {
-                    int32_t token = m->arcs[a].token;
-                    int32_t j = token >= 0 && token < m->vocab ? c->slot[token] : -1;
-                    if (j >= 0 && found[j] < 0) {
-                        found[j] = a;
-                        level[j] = (int32_t)step;
-                        waiting--;
-                    }
-                }
             } else {
-                for (Py_ssize_t j = 0; j < count; j++) {
-                    if (found[j] >= 0)
-                        continue;
-                    int32_t a = find_arc(m->arcs, start, end, (int32_t)c->tokens[j]);
-                    if (a >= 0) {
+                /* the arcs with tokens from the lowest choice to the highest: a letter's graphones
+                   are neighbours in the sorted vocabulary, so these are few */
+                for (int32_t a = lower_bound(m->arcs, start, end, c->lowest); a < end; a++) {
+                    int32_t token = m->arcs[a].token;
+                    if (token > c->highest)
+                        break;
+                    int32_t j = token >= 0 ? c->slot[token] : -1;
+                    if (j >= 0 && found[j] < 0) {
                         found[j] = a;
                         level[j] = (int32_t)step;
                         waiting--;
@@ -589,7 +597,8 @@ static PyObject *g2p_decode(PyObject *self, PyObject *args) {
     }
     for (Py_ssize_t t = 0; t < vocab; t++)
         slot[t] = -1;
-    Choices choices_of = {NULL, 0, slot, root, found, level, reached, walked, sums, waiting};
+    Choices choices_of = {.slot = slot, .root = root, .found = found, .level = level, .reached = reached,
+                          .total = walked, .sums = sums, .waiting = waiting};
     Py_ssize_t alive = 1;
     hyp_state[0] = start;
     hyp_score[0] = 0.0;

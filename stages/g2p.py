@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from collections.abc import Iterable, Sequence
 from functools import lru_cache
 from importlib import resources
@@ -50,10 +51,6 @@ _STATE = np.dtype([("first", "<i4"), ("parent", "<i4"), ("backoff", "<f8")], ali
 def graphone(letter: str, phones: Sequence[str]) -> str:
     """The token of one letter with its phones: ``x:K S``, ``e:`` for a silent letter."""
     return f"{letter}:{' '.join(phones)}"
-
-
-def _letters(word: str) -> str:
-    return "".join(c for c in word.lower() if "a" <= c <= "z")
 
 
 class G2PModel:
@@ -89,7 +86,8 @@ class G2PModel:
         parent, nxt = self._link()
         self._parent[:] = parent
         self._next[:] = nxt
-        self._states["first"] = np.searchsorted(self._keys, np.arange(len(self._states), dtype=np.int64) * vocab)
+        arcs_per_state = np.bincount(self._keys // vocab, minlength=len(backoff))
+        self._states["first"][1:] = np.cumsum(arcs_per_state)
         index = {token: i for i, token in enumerate(self.graphones)}
         self._eos = index[EOS]
         self._start = int(self._next[self._find(np.array([index[BOS]], dtype=np.int64))[0]])
@@ -101,6 +99,9 @@ class G2PModel:
             if colon and len(letter) == 1:
                 by_letter.setdefault(letter, []).append(i)
         self._by_letter = {c: np.array(ids, dtype=np.int64) for c, ids in by_letter.items()}
+        # what segment() drops from a lower-cased word: all but the letters a-z the model spells
+        spelled = "".join(sorted(c for c in self._by_letter if "a" <= c <= "z"))
+        self._unspelled = re.compile(f"[^{spelled}]" if spelled else r"[\s\S]")
         # The graphones of letter c, for the compiled decoder: _letter_ids[_letter_at[c]:_letter_at[c + 1]].
         alphabet = [chr(ord("a") + i) for i in range(26)]
         widths = [len(self._by_letter.get(c, ())) for c in alphabet]
@@ -247,7 +248,7 @@ class G2PModel:
         The compiled decoder (stages/kernels.py) runs the same beam search as ``_decode_numpy``
         with the same arithmetic and tie-breaking, so both choose the same graphones.
         """
-        letters = "".join(c for c in _letters(word) if c in self._by_letter)
+        letters = self._unspelled.sub("", word.lower())
         if not letters:
             return []
         chosen = self._decode_compiled(letters) if compiled is not None else self._decode_numpy(letters)
