@@ -538,7 +538,7 @@ static PyObject *g2p_decode(PyObject *self, PyObject *args) {
     PyObject *result = NULL;
     int64_t *hyp_state = NULL, *cand_next = NULL, *from = NULL, *chosen_token = NULL;
     double *hyp_score = NULL, *cand_total = NULL;
-    int32_t *slots = NULL, *leaders = NULL, *kept = NULL;
+    int32_t *by_state = NULL, *leaders = NULL, *kept = NULL;
     int32_t *slot = NULL, *root = NULL, *found = NULL, *level = NULL;
     int64_t *reached = NULL;
     double *walked = NULL, *sums = NULL;
@@ -554,7 +554,8 @@ static PyObject *g2p_decode(PyObject *self, PyObject *args) {
         PyErr_SetString(PyExc_ValueError, "g2p_decode: arcs or states are not whole records");
         goto done;
     }
-    if (beam < 1 || order < 0 || order > MAX_ORDER || vocab < 1 || vocab >= INT32_MAX || start < 0 || start >= m.state_count || eos < 0 || eos >= vocab) {
+    if (beam < 1 || order < 0 || order > MAX_ORDER || vocab < 1 || vocab >= INT32_MAX || start < 0 ||
+        start >= m.state_count || eos < 0 || eos >= vocab) {
         PyErr_SetString(PyExc_ValueError, "g2p_decode: beam, order, vocab, start or eos out of range");
         goto done;
     }
@@ -579,7 +580,7 @@ static PyObject *g2p_decode(PyObject *self, PyObject *args) {
     cand_next = malloc(sizeof(int64_t) * (size_t)most);
     cand_total = malloc(sizeof(double) * (size_t)most);
     leaders = malloc(sizeof(int32_t) * (size_t)most);
-    slots = malloc(sizeof(int32_t) * (size_t)(mask + 1));
+    by_state = malloc(sizeof(int32_t) * (size_t)(mask + 1));
     slot = malloc(sizeof(int32_t) * (size_t)vocab);
     root = malloc(sizeof(int32_t) * (size_t)widest);
     found = malloc(sizeof(int32_t) * (size_t)most);
@@ -590,8 +591,8 @@ static PyObject *g2p_decode(PyObject *self, PyObject *args) {
     waiting = malloc(sizeof(Py_ssize_t) * (size_t)beam);
     from = malloc(sizeof(int64_t) * (size_t)(length * beam + 1));
     chosen_token = malloc(sizeof(int64_t) * (size_t)(length * beam + 1));
-    if (!hyp_state || !hyp_score || !kept || !cand_next || !cand_total ||
-        !leaders || !slots || !slot || !root || !found || !level || !reached || !walked || !sums || !waiting || !from || !chosen_token) {
+    if (!hyp_state || !hyp_score || !kept || !cand_next || !cand_total || !leaders || !by_state || !slot ||
+        !root || !found || !level || !reached || !walked || !sums || !waiting || !from || !chosen_token) {
         PyErr_NoMemory();
         goto done;
     }
@@ -603,34 +604,34 @@ static PyObject *g2p_decode(PyObject *self, PyObject *args) {
     hyp_state[0] = start;
     hyp_score[0] = 0.0;
     for (Py_ssize_t l = 0; l < length; l++) {
-        const int64_t *choices = ids + at[PyUnicode_READ(kind, text, l) - 'a'];
-        Py_ssize_t width = (Py_ssize_t)(at[PyUnicode_READ(kind, text, l) - 'a' + 1] -
-                                        at[PyUnicode_READ(kind, text, l) - 'a']);
+        const Py_UCS4 c = PyUnicode_READ(kind, text, l) - 'a';
+        const int64_t *choices = ids + at[c];
+        const Py_ssize_t width = (Py_ssize_t)(at[c + 1] - at[c]);
         Py_ssize_t count = alive * width, distinct = 0;
         if (open_choices(&m, &choices_of, choices, width) < 0)
             goto done;
         if (score_choices(&m, &choices_of, hyp_state, alive, cand_total, cand_next) < 0)
             goto done;
         close_choices(&choices_of);
-        memset(slots, 0xff, sizeof(int32_t) * (size_t)(mask + 1)); /* every slot -1: empty */
+        memset(by_state, 0xff, sizeof(int32_t) * (size_t)(mask + 1)); /* every entry -1: empty */
         for (Py_ssize_t i = 0; i < count; i++) {
             cand_total[i] = hyp_score[i / width] + cand_total[i]; /* the hypothesis' score plus ln p */
             /* the best hypothesis per next state (the rest can never overtake it); on a tie the
                first, as the numpy path's stable sort leaves it */
-            Py_ssize_t at_slot = (Py_ssize_t)(((uint64_t)cand_next[i] * 0x9E3779B97F4A7C15ull) >> 32) & mask;
-            while (slots[at_slot] != -1 && cand_next[slots[at_slot]] != cand_next[i])
-                at_slot = (at_slot + 1) & mask;
-            if (slots[at_slot] == -1) {
-                slots[at_slot] = (int32_t)i;
-                leaders[distinct++] = (int32_t)at_slot;
-            } else if (cand_total[i] > cand_total[slots[at_slot]]) {
-                slots[at_slot] = (int32_t)i;
+            Py_ssize_t probe = (Py_ssize_t)(((uint64_t)cand_next[i] * 0x9E3779B97F4A7C15ull) >> 32) & mask;
+            while (by_state[probe] != -1 && cand_next[by_state[probe]] != cand_next[i])
+                probe = (probe + 1) & mask;
+            if (by_state[probe] == -1) {
+                by_state[probe] = (int32_t)i;
+                leaders[distinct++] = (int32_t)probe;
+            } else if (cand_total[i] > cand_total[by_state[probe]]) {
+                by_state[probe] = (int32_t)i;
             }
         }
         /* the beam: the leaders by score, ties by next state, kept in rank order by insertion */
         Py_ssize_t held = 0;
         for (Py_ssize_t d = 0; d < distinct; d++) {
-            int32_t i = slots[leaders[d]];
+            int32_t i = by_state[leaders[d]];
             double score = cand_total[i];
             int64_t state = cand_next[i];
             Py_ssize_t place = held;
@@ -689,7 +690,7 @@ done:
     free(cand_next);
     free(cand_total);
     free(leaders);
-    free(slots);
+    free(by_state);
     free(slot);
     free(root);
     free(found);
