@@ -56,8 +56,8 @@ def main(argv: list[str] | None = None) -> int:
         wrong += dist > 0
     print(f"model {path.name}: {path.stat().st_size / 1e6:.2f} MB, {model.arcs} n-grams, order {model.order}")
     print(f"load: median {statistics.median(loads) * 1000:.0f} ms over {len(loads)}")
-    print(f"predict: mean {statistics.fmean(times) * 1000:.2f} ms, "
-          f"p99 {sorted(times)[int(len(times) * 0.99)] * 1000:.2f} ms over {len(times)} words")
+    print(f"predict: mean {statistics.fmean(times) * 1000:.3f} ms, "
+          f"p99 {sorted(times)[int(len(times) * 0.99)] * 1000:.3f} ms over {len(times)} words")
     print(f"held-out PER {edits / length:.2%}  WER {wrong / len(held):.2%}")
     return 0
 

@@ -1,12 +1,13 @@
-/* Compiled kernels of the lexicon stage: phone n-gram retrieval and feature-weighted alignment.
+/* Compiled kernels of the lexicon stage: phone n-gram retrieval, feature-weighted alignment and
+   the graphone beam search of the G2P model.
 
-   Both give the same results as the numpy code they stand in for (stages/phone_index.py
-   PhoneIndex._search_numpy and stages/phonetics.py _batch_alignment_cost_numpy), bit for bit:
-   every float operation is done in the same precision and order, and the module is built with
-   -ffp-contract=off so no multiply-add is fused. Arrays come in and go out through the buffer
-   protocol (the typed wrappers in Python allocate them), so the build needs no numpy headers.
-   The GIL is held throughout: a call takes well under a millisecond, and the index's scratch
-   counters may then be shared by every caller. */
+   Each gives the same results as the numpy code it stands in for (stages/phone_index.py
+   PhoneIndex._search_numpy, stages/phonetics.py _batch_alignment_cost_numpy and stages/g2p.py
+   G2PModel._decode_numpy), bit for bit: every float operation is done in the same precision and
+   order, and the module is built with -ffp-contract=off so no multiply-add is fused. Arrays come
+   in and go out through the buffer protocol (the typed wrappers in Python allocate them), so the
+   build needs no numpy headers. The GIL is held throughout: a call takes well under a
+   millisecond, and the index's scratch counters may then be shared by every caller. */
 
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
@@ -334,9 +335,383 @@ done:
     return result;
 }
 
+#define MAX_ORDER 32 /* the longest n-gram the graphone decoder takes */
+
+/* The graphone n-gram model as stages/g2p.py G2PModel holds it: records of the arcs, sorted by
+   state and then graphone, and of the states, the arcs of state s running from states[s].first to
+   states[s + 1].first (a last record closes the last state's arcs). The layouts match the numpy
+   record types _ARC and _STATE there. */
+typedef struct {
+    int32_t token, next;
+    double logp;
+} Arc;
+
+typedef struct {
+    int32_t first, parent;
+    double backoff;
+} State;
+
+typedef struct {
+    const Arc *arcs;
+    const State *states;
+    Py_ssize_t arc_count, state_count, vocab, order;
+} Graphones;
+
+static int broken_model(void) {
+    PyErr_SetString(PyExc_ValueError, "g2p_decode: the model arrays do not fit together");
+    return -1;
+}
+
+/* The graphones one letter may take, with what the search needs of them: slot[token] is the
+   token's place among them or -1 (a table over the whole vocabulary), root[j] the root state's arc
+   for tokens[j] or -1. The rest is scratch for up to `beam` hypotheses: found and level (count
+   elements per hypothesis), the state each walk has reached, its summed backoff weights so far,
+   how many choices still lack an arc, and sums (MAX_ORDER + 2 per hypothesis). */
+typedef struct {
+    const int64_t *tokens;
+    Py_ssize_t count;
+    int32_t lowest, highest;
+    int32_t *slot, *root, *found, *level;
+    int64_t *reached;
+    double *total, *sums;
+    Py_ssize_t *waiting;
+} Choices;
+
+/* The first of arcs[start, end) (sorted by token) whose token is not below token; end if none.
+   Without branches on the comparisons, which a search of a few hundred arcs mispredicts. */
+static inline int32_t lower_bound(const Arc *arcs, int32_t start, int32_t end, int32_t token) {
+    if (start >= end)
+        return end;
+    const Arc *at = arcs + start;
+    int32_t n = end - start;
+    while (n > 1) { /* the bound lies in [at, at + n] */
+        int32_t half = n / 2;
+        at = at[half].token < token ? at + half : at;
+        n -= half;
+    }
+    return (int32_t)(at - arcs) + (at->token < token);
+}
+
+/* Index of the arc for token among arcs[start, end), or -1. */
+static inline int32_t find_arc(const Arc *arcs, int32_t start, int32_t end, int32_t token) {
+    int32_t at = lower_bound(arcs, start, end, token);
+    return at < end && arcs[at].token == token ? at : -1;
+}
+
+/* Sets up the choices of tokens[0, count): checks them, marks them in slot and finds their root arcs;
+   on an error slot is left marked. */
+static int open_choices(const Graphones *m, Choices *c, const int64_t *tokens, Py_ssize_t count) {
+    c->tokens = tokens;
+    c->count = count;
+    c->lowest = INT32_MAX;
+    c->highest = -1;
+    const int32_t start = m->states[0].first, end = m->states[1].first;
+    if (start < 0 || start > end || end > m->arc_count)
+        return broken_model();
+    for (Py_ssize_t j = 0; j < count; j++) {
+        if (tokens[j] < 0 || tokens[j] >= m->vocab || c->slot[tokens[j]] != -1) {
+            PyErr_SetString(PyExc_ValueError, "g2p_decode: a letter's graphones are out of range or repeated");
+            return -1;
+        }
+        c->slot[tokens[j]] = (int32_t)j;
+        if (tokens[j] < c->lowest)
+            c->lowest = (int32_t)tokens[j];
+        if (tokens[j] > c->highest)
+            c->highest = (int32_t)tokens[j];
+        c->root[j] = find_arc(m->arcs, start, end, (int32_t)tokens[j]);
+    }
+    return 0;
+}
+
+/* Clears the choices' marks from slot for the next letter (the table is the call's own). */
+static void close_choices(Choices *c) {
+    for (Py_ssize_t j = 0; j < c->count; j++)
+        c->slot[c->tokens[j]] = -1;
+}
+
+/* ln p(token | state) and the state after it for each of the choices from each of the hypotheses'
+   states, backing off to the parent state where no arc exists; written to logp and nxt at
+   h * count + j. The sums are made in the order of G2PModel._score: the backoff weights from the
+   state down, then the arc's ln p. The choices share each walk down the states: at each state one
+   search finds the arcs whose tokens lie between the lowest and highest choice, and those are
+   matched against the choices (the root's arcs are known in advance). The walks go down
+   together, a state of each at a time, so that the memory reads of different hypotheses overlap. */
+static int score_choices(const Graphones *m, const Choices *c, const int64_t *states, Py_ssize_t alive,
+                         double *logp, int64_t *nxt) {
+    const Py_ssize_t count = c->count;
+    for (Py_ssize_t h = 0; h < alive; h++) {
+        c->reached[h] = states[h];
+        c->total[h] = 0.0;
+        c->waiting[h] = count;
+        for (Py_ssize_t j = 0; j < count; j++)
+            c->found[h * count + j] = -1;
+    }
+    for (Py_ssize_t step = 0; step <= m->order; step++) {
+        int busy = 0;
+        for (Py_ssize_t h = 0; h < alive; h++) {
+            if (c->waiting[h] == 0)
+                continue;
+            if (c->reached[h] < 0 || c->reached[h] >= m->state_count)
+                return broken_model();
+            __builtin_prefetch(&m->states[c->reached[h]]);
+            busy = 1;
+        }
+        if (!busy)
+            break;
+        for (Py_ssize_t h = 0; h < alive; h++) {
+            if (c->waiting[h] > 0 && c->reached[h] != 0)
+                __builtin_prefetch(&m->arcs[m->states[c->reached[h]].first]);
+        }
+        for (Py_ssize_t h = 0; h < alive; h++) {
+            if (c->waiting[h] == 0)
+                continue;
+            const int64_t state = c->reached[h];
+            const State *here = &m->states[state];
+            const int32_t start = here->first, end = here[1].first;
+            if (start < 0 || start > end || end > m->arc_count)
+                return broken_model();
+            int32_t *found = c->found + h * count, *level = c->level + h * count;
+            Py_ssize_t waiting = c->waiting[h];
+            c->sums[h * (MAX_ORDER + 2) + step] = c->total[h];
+            if (state == 0) {
+                for (Py_ssize_t j = 0; j < count; j++) {
+                    if (found[j] < 0 && c->root[j] >= 0) {
+                        found[j] = c->root[j];
+                        level[j] = (int32_t)step;
+                        waiting--;
+                    }
+                }
+            } else {
+                /* the arcs with tokens from the lowest choice to the highest: a letter's graphones
+                   are neighbours in the sorted vocabulary, so these are few */
+                for (int32_t a = lower_bound(m->arcs, start, end, c->lowest); a < end; a++) {
+                    int32_t token = m->arcs[a].token;
+                    if (token > c->highest)
+                        break;
+                    int32_t j = token >= 0 ? c->slot[token] : -1;
+                    if (j >= 0 && found[j] < 0) {
+                        found[j] = a;
+                        level[j] = (int32_t)step;
+                        waiting--;
+                    }
+                }
+            }
+            c->waiting[h] = waiting;
+            c->total[h] += here->backoff;
+            c->reached[h] = here->parent;
+        }
+    }
+    for (Py_ssize_t h = 0; h < alive; h++) {
+        const double *sums = c->sums + h * (MAX_ORDER + 2);
+        for (Py_ssize_t j = 0; j < count; j++) {
+            const int32_t a = c->found[h * count + j];
+            if (a >= 0) {
+                logp[h * count + j] = sums[c->level[h * count + j]] + m->arcs[a].logp;
+                nxt[h * count + j] = m->arcs[a].next;
+            } else { /* no arc even at the root: as the numpy path leaves it */
+                logp[h * count + j] = c->total[h];
+                nxt[h * count + j] = 0;
+            }
+        }
+    }
+    return 0;
+}
+
+/* Whether leader a ranks before leader b in the beam: higher score, then lower state. */
+static inline int keeps_before(double a_score, int64_t a_state, double b_score, int64_t b_state) {
+    return a_score > b_score || (a_score == b_score && a_state < b_state);
+}
+
+PyDoc_STRVAR(g2p_doc,
+"g2p_decode(letters, arcs, states, ids, at, vocab, start, eos, order, beam) -> tuple[int, ...]\n\n"
+"The best graphone per letter of letters (a str of a-z), by the beam search of G2PModel.segment.\n"
+"arcs and states are the model's record arrays; ids (int64) lists each letter's graphones, those\n"
+"of letter c from at[c] to at[c + 1] (at: 27 int64).");
+
+static PyObject *g2p_decode(PyObject *self, PyObject *args) {
+    PyObject *letters;
+    Py_buffer arcs_b, states_b, ids_b, at_b;
+    Py_ssize_t vocab, start, eos, order, beam;
+    if (!PyArg_ParseTuple(args, "Uy*y*y*y*nnnnn", &letters, &arcs_b, &states_b, &ids_b, &at_b, &vocab, &start,
+                          &eos, &order, &beam))
+        return NULL;
+    PyObject *result = NULL;
+    int64_t *hyp_state = NULL, *cand_next = NULL, *from = NULL, *chosen_token = NULL;
+    double *hyp_score = NULL, *cand_total = NULL;
+    int32_t *by_state = NULL, *leaders = NULL, *kept = NULL;
+    int32_t *slot = NULL, *root = NULL, *found = NULL, *level = NULL;
+    int64_t *reached = NULL;
+    double *walked = NULL, *sums = NULL;
+    Py_ssize_t *waiting = NULL;
+    Graphones m = {arcs_b.buf, states_b.buf, arcs_b.len / (Py_ssize_t)sizeof(Arc),
+                   states_b.len / (Py_ssize_t)sizeof(State) - 1, vocab, order};
+    const int64_t *ids = ids_b.buf, *at = at_b.buf;
+    Py_ssize_t id_count = ids_b.len / 8;
+    if (check_size(&at_b, 27, 8, "at") < 0)
+        goto done;
+    if (arcs_b.len % (Py_ssize_t)sizeof(Arc) != 0 || states_b.len % (Py_ssize_t)sizeof(State) != 0 ||
+        m.state_count < 1 || m.arc_count >= INT32_MAX) {
+        PyErr_SetString(PyExc_ValueError, "g2p_decode: arcs or states are not whole records");
+        goto done;
+    }
+    if (beam < 1 || order < 0 || order > MAX_ORDER || vocab < 1 || vocab >= INT32_MAX || start < 0 ||
+        start >= m.state_count || eos < 0 || eos >= vocab) {
+        PyErr_SetString(PyExc_ValueError, "g2p_decode: beam, order, vocab, start or eos out of range");
+        goto done;
+    }
+    Py_ssize_t length = PyUnicode_GET_LENGTH(letters), widest = 1;
+    int kind = PyUnicode_KIND(letters);
+    const void *text = PyUnicode_DATA(letters);
+    for (Py_ssize_t i = 0; i < length; i++) {
+        Py_UCS4 c = PyUnicode_READ(kind, text, i);
+        if (c < 'a' || c > 'z' || at[c - 'a'] < 0 || at[c - 'a'] >= at[c - 'a' + 1] || at[c - 'a' + 1] > id_count) {
+            PyErr_Format(PyExc_ValueError, "g2p_decode: letter %zd is not one the model spells", i);
+            goto done;
+        }
+        if (at[c - 'a' + 1] - at[c - 'a'] > widest)
+            widest = (Py_ssize_t)(at[c - 'a' + 1] - at[c - 'a']);
+    }
+    Py_ssize_t most = beam * widest, mask = 16 - 1;
+    while (mask + 1 < 2 * most)
+        mask = 2 * mask + 1; /* at most a half-full table */
+    hyp_state = malloc(sizeof(int64_t) * (size_t)beam);
+    hyp_score = malloc(sizeof(double) * (size_t)beam);
+    kept = malloc(sizeof(int32_t) * (size_t)beam);
+    cand_next = malloc(sizeof(int64_t) * (size_t)most);
+    cand_total = malloc(sizeof(double) * (size_t)most);
+    leaders = malloc(sizeof(int32_t) * (size_t)most);
+    by_state = malloc(sizeof(int32_t) * (size_t)(mask + 1));
+    slot = malloc(sizeof(int32_t) * (size_t)vocab);
+    root = malloc(sizeof(int32_t) * (size_t)widest);
+    found = malloc(sizeof(int32_t) * (size_t)most);
+    level = malloc(sizeof(int32_t) * (size_t)most);
+    reached = malloc(sizeof(int64_t) * (size_t)beam);
+    walked = malloc(sizeof(double) * (size_t)beam);
+    sums = malloc(sizeof(double) * (size_t)(beam * (MAX_ORDER + 2)));
+    waiting = malloc(sizeof(Py_ssize_t) * (size_t)beam);
+    from = malloc(sizeof(int64_t) * (size_t)(length * beam + 1));
+    chosen_token = malloc(sizeof(int64_t) * (size_t)(length * beam + 1));
+    if (!hyp_state || !hyp_score || !kept || !cand_next || !cand_total || !leaders || !by_state || !slot ||
+        !root || !found || !level || !reached || !walked || !sums || !waiting || !from || !chosen_token) {
+        PyErr_NoMemory();
+        goto done;
+    }
+    for (Py_ssize_t t = 0; t < vocab; t++)
+        slot[t] = -1;
+    Choices choices_of = {.slot = slot, .root = root, .found = found, .level = level, .reached = reached,
+                          .total = walked, .sums = sums, .waiting = waiting};
+    Py_ssize_t alive = 1;
+    hyp_state[0] = start;
+    hyp_score[0] = 0.0;
+    for (Py_ssize_t l = 0; l < length; l++) {
+        const Py_UCS4 c = PyUnicode_READ(kind, text, l) - 'a';
+        const int64_t *choices = ids + at[c];
+        const Py_ssize_t width = (Py_ssize_t)(at[c + 1] - at[c]);
+        Py_ssize_t count = alive * width, distinct = 0;
+        if (open_choices(&m, &choices_of, choices, width) < 0)
+            goto done;
+        if (score_choices(&m, &choices_of, hyp_state, alive, cand_total, cand_next) < 0)
+            goto done;
+        close_choices(&choices_of);
+        memset(by_state, 0xff, sizeof(int32_t) * (size_t)(mask + 1)); /* every entry -1: empty */
+        for (Py_ssize_t i = 0; i < count; i++) {
+            cand_total[i] = hyp_score[i / width] + cand_total[i]; /* the hypothesis' score plus ln p */
+            /* the best hypothesis per next state (the rest can never overtake it); on a tie the
+               first, as the numpy path's stable sort leaves it */
+            Py_ssize_t probe = (Py_ssize_t)(((uint64_t)cand_next[i] * 0x9E3779B97F4A7C15ull) >> 32) & mask;
+            while (by_state[probe] != -1 && cand_next[by_state[probe]] != cand_next[i])
+                probe = (probe + 1) & mask;
+            if (by_state[probe] == -1) {
+                by_state[probe] = (int32_t)i;
+                leaders[distinct++] = (int32_t)probe;
+            } else if (cand_total[i] > cand_total[by_state[probe]]) {
+                by_state[probe] = (int32_t)i;
+            }
+        }
+        /* the beam: the leaders by score, ties by next state, kept in rank order by insertion */
+        Py_ssize_t held = 0;
+        for (Py_ssize_t d = 0; d < distinct; d++) {
+            int32_t i = by_state[leaders[d]];
+            double score = cand_total[i];
+            int64_t state = cand_next[i];
+            Py_ssize_t place = held;
+            if (held == beam) {
+                if (!keeps_before(score, state, cand_total[kept[beam - 1]], cand_next[kept[beam - 1]]))
+                    continue;
+                place = beam - 1;
+            } else {
+                held++;
+            }
+            while (place > 0 && keeps_before(score, state, cand_total[kept[place - 1]], cand_next[kept[place - 1]])) {
+                kept[place] = kept[place - 1];
+                place--;
+            }
+            kept[place] = i;
+        }
+        for (Py_ssize_t k = 0; k < held; k++) {
+            int32_t i = kept[k];
+            hyp_state[k] = cand_next[i];
+            hyp_score[k] = cand_total[i];
+            from[l * beam + k] = i / width;
+            chosen_token[l * beam + k] = choices[i % width];
+        }
+        alive = held;
+    }
+    Py_ssize_t best = 0;
+    double best_score = 0.0;
+    const int64_t end_token = eos;
+    if (open_choices(&m, &choices_of, &end_token, 1) < 0)
+        goto done;
+    if (score_choices(&m, &choices_of, hyp_state, alive, cand_total, cand_next) < 0)
+        goto done;
+    for (Py_ssize_t h = 0; h < alive; h++) {
+        double score = hyp_score[h] + cand_total[h]; /* the hypothesis' score plus ln p(</s>) */
+        if (h == 0 || score > best_score) { /* the first of equal scores, as numpy's argmax */
+            best = h;
+            best_score = score;
+        }
+    }
+    result = PyTuple_New(length);
+    if (result == NULL)
+        goto done;
+    for (Py_ssize_t l = length - 1; l >= 0; l--) {
+        PyObject *token = PyLong_FromLongLong(chosen_token[l * beam + best]);
+        if (token == NULL) {
+            Py_CLEAR(result);
+            goto done;
+        }
+        PyTuple_SET_ITEM(result, l, token);
+        best = (Py_ssize_t)from[l * beam + best];
+    }
+done:
+    free(hyp_state);
+    free(hyp_score);
+    free(kept);
+    free(cand_next);
+    free(cand_total);
+    free(leaders);
+    free(by_state);
+    free(slot);
+    free(root);
+    free(found);
+    free(level);
+    free(reached);
+    free(walked);
+    free(sums);
+    free(waiting);
+    free(from);
+    free(chosen_token);
+    PyBuffer_Release(&arcs_b);
+    PyBuffer_Release(&states_b);
+    PyBuffer_Release(&ids_b);
+    PyBuffer_Release(&at_b);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"search", search, METH_VARARGS, search_doc},
     {"alignment_costs", alignment_costs, METH_VARARGS, align_doc},
+    {"g2p_decode", g2p_decode, METH_VARARGS, g2p_doc},
     {NULL, NULL, 0, NULL},
 };
 

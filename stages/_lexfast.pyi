@@ -11,3 +11,7 @@ def alignment_costs(
     a: Sequence[str], b: Sequence[str], substitution: Buffer, indel: Buffer, stride: int, char_base: int,
     out: Buffer, /,
 ) -> None: ...
+def g2p_decode(
+    letters: str, arcs: Buffer, states: Buffer, ids: Buffer, at: Buffer, vocab: int, start: int, eos: int,
+    order: int, beam: int, /,
+) -> tuple[int, ...]: ...

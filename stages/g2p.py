@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from collections.abc import Iterable, Sequence
 from functools import lru_cache
 from importlib import resources
@@ -27,6 +28,7 @@ from typing import Any
 import numpy as np
 
 from relay.errors import StageError
+from stages.kernels import compiled
 from stages.kneser_ney import BOS, EOS, estimate
 
 __all__ = ["DEFAULT_BEAM", "MODEL_FILE", "G2PModel", "default_model", "graphone"]
@@ -39,14 +41,16 @@ _NEVER = -99.0  # ln p of what cannot happen; finite so sums stay finite
 
 Label = tuple[str, ...]
 
+# Records of the arcs (sorted by state, then graphone) and of the states, laid out as the
+# compiled decoder's C structs (stages/_lexfast.c): the arcs of state s run from its ``first``
+# to the next state's.
+_ARC = np.dtype([("token", "<i4"), ("next", "<i4"), ("logp", "<f8")], align=True)
+_STATE = np.dtype([("first", "<i4"), ("parent", "<i4"), ("backoff", "<f8")], align=True)
+
 
 def graphone(letter: str, phones: Sequence[str]) -> str:
     """The token of one letter with its phones: ``x:K S``, ``e:`` for a silent letter."""
     return f"{letter}:{' '.join(phones)}"
-
-
-def _letters(word: str) -> str:
-    return "".join(c for c in word.lower() if "a" <= c <= "z")
 
 
 class G2PModel:
@@ -62,12 +66,28 @@ class G2PModel:
         self.beam = beam
         vocab = len(self.graphones)
         self._vocab = vocab
-        self._keys = np.asarray(keys, dtype=np.int64)
-        self._probe = np.append(self._keys, np.iinfo(np.int64).max)
-        self._logp = np.asarray(logp, dtype=np.float64)
+        self._probe = np.append(np.asarray(keys, dtype=np.int64), np.iinfo(np.int64).max)
+        self._keys = self._probe[:-1]  # the sentinel at the end keeps searches in range
         self._is_state = np.asarray(is_state, dtype=bool)
-        self._backoff = np.asarray(backoff, dtype=np.float64)
-        self._parent, self._next = self._link()
+        backoff = np.asarray(backoff, dtype=np.float64)
+        if len(self._keys) >= 2**31 or len(backoff) >= 2**31:
+            raise ValueError(f"{len(self._keys)} n-grams, {len(backoff)} states: too many to number in 32 bits")
+        # One record per arc and per state, so the compiled decoder reads each with one memory
+        # access; the numpy code works on views of the same fields.
+        self._arcs = np.zeros(len(self._keys), dtype=_ARC)
+        self._arcs["token"] = self._keys % vocab
+        self._arcs["logp"] = logp
+        self._states = np.zeros(len(backoff) + 1, dtype=_STATE)  # a last row ends the last state's arcs
+        self._states["backoff"][:-1] = backoff
+        self._logp = self._arcs["logp"]
+        self._next = self._arcs["next"]
+        self._backoff = self._states["backoff"][:-1]
+        self._parent = self._states["parent"][:-1]
+        parent, nxt = self._link()
+        self._parent[:] = parent
+        self._next[:] = nxt
+        arcs_per_state = np.bincount(self._keys // vocab, minlength=len(backoff))
+        self._states["first"][1:] = np.cumsum(arcs_per_state)
         index = {token: i for i, token in enumerate(self.graphones)}
         self._eos = index[EOS]
         self._start = int(self._next[self._find(np.array([index[BOS]], dtype=np.int64))[0]])
@@ -79,6 +99,14 @@ class G2PModel:
             if colon and len(letter) == 1:
                 by_letter.setdefault(letter, []).append(i)
         self._by_letter = {c: np.array(ids, dtype=np.int64) for c, ids in by_letter.items()}
+        # what segment() drops from a lower-cased word: all but the letters a-z the model spells
+        spelled = "".join(sorted(c for c in self._by_letter if "a" <= c <= "z"))
+        self._unspelled = re.compile(f"[^{spelled}]" if spelled else r"[\s\S]")
+        # The graphones of letter c, for the compiled decoder: _letter_ids[_letter_at[c]:_letter_at[c + 1]].
+        alphabet = [chr(ord("a") + i) for i in range(26)]
+        widths = [len(self._by_letter.get(c, ())) for c in alphabet]
+        self._letter_at = np.concatenate([[0], np.cumsum(widths)]).astype(np.int64)
+        self._letter_ids = np.concatenate([self._by_letter.get(c, np.zeros(0, dtype=np.int64)) for c in alphabet])
         self._cached = lru_cache(maxsize=65536)(self._predict)
 
     @property
@@ -215,10 +243,28 @@ class G2PModel:
         return logp, nxt
 
     def segment(self, word: str) -> list[tuple[str, Label]]:
-        """The best graphone sequence for ``word``: each letter a-z with its phones."""
-        letters = [c for c in _letters(word) if c in self._by_letter]
+        """The best graphone sequence for ``word``: each letter a-z with its phones.
+
+        The compiled decoder (stages/kernels.py) runs the same beam search as ``_decode_numpy``
+        with the same arithmetic and tie-breaking, so both choose the same graphones.
+        """
+        letters = self._unspelled.sub("", word.lower())
         if not letters:
             return []
+        chosen = self._decode_compiled(letters) if compiled is not None else self._decode_numpy(letters)
+        return [(letter, self._phones[token]) for letter, token in zip(letters, chosen)]
+
+    def _decode_compiled(self, letters: str) -> Sequence[int]:
+        """The chosen graphone per letter; ``letters`` holds only letters the model spells."""
+        if compiled is None:
+            raise RuntimeError("the compiled kernels are not built")
+        chosen: tuple[int, ...] = compiled.g2p_decode(letters, self._arcs, self._states, self._letter_ids,
+                                                      self._letter_at, self._vocab, self._start, self._eos,
+                                                      self.order, self.beam)
+        return chosen
+
+    def _decode_numpy(self, letters: str) -> Sequence[int]:
+        """The chosen graphone per letter; ``letters`` holds only letters the model spells."""
         states = np.array([self._start], dtype=np.int64)
         scores = np.zeros(1)
         history: list[tuple[np.ndarray, np.ndarray]] = []  # per letter: (source hypothesis, graphone)
@@ -244,7 +290,7 @@ class G2PModel:
         for source, tokens in reversed(history):
             chosen.append(int(tokens[best]))
             best = int(source[best])
-        return [(letter, self._phones[token]) for letter, token in zip(letters, reversed(chosen))]
+        return chosen[::-1]
 
     def _predict(self, word: str) -> tuple[str, ...]:
         return tuple(p for _, phones in self.segment(word) for p in phones)

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import itertools
 import math
+import sys
+import types
 import warnings
 import zlib
 from functools import lru_cache
@@ -13,7 +15,9 @@ import numpy as np
 import pytest
 from rapidfuzz.distance import Levenshtein
 
+import stages
 from relay.errors import StageError
+from stages import kernels
 from stages.g2p import G2PModel, default_model, graphone
 from stages.kneser_ney import DiscountFallbackWarning, estimate
 from stages.phonetics import decode
@@ -176,3 +180,15 @@ def test_unreadable_model_file_names_the_file(tmp_path) -> None:  # type: ignore
     path.write_bytes(b"not a model")
     with pytest.raises(StageError, match="broken.npz"):
         G2PModel.from_file(path)
+
+
+def test_a_compiled_module_built_from_older_source_is_not_used(monkeypatch: pytest.MonkeyPatch) -> None:
+    # A build that predates the G2P kernel has the other kernels only; numpy then does all the work.
+    monkeypatch.delenv("REHEAR_NO_COMPILED", raising=False)
+    older = types.ModuleType("stages._lexfast")
+    older.search = older.alignment_costs = lambda *args: None  # type: ignore[attr-defined]
+    monkeypatch.setitem(sys.modules, "stages._lexfast", older)
+    monkeypatch.setattr(stages, "_lexfast", older, raising=False)
+    assert kernels._load() is None
+    older.g2p_decode = lambda *args: ()  # type: ignore[attr-defined]
+    assert kernels._load() is older
