@@ -34,7 +34,7 @@ from stages.kneser_ney import BOS, EOS, estimate
 __all__ = ["DEFAULT_BEAM", "MODEL_FILE", "G2PModel", "default_model", "graphone"]
 
 MODEL_FILE = "g2p_graphones.npz"
-FORMAT = 1
+FORMAT = 2  # 2: the automaton's links (parent state, next state) are stored, not rebuilt at load
 DEFAULT_BEAM = 16  # hypotheses kept per letter; 8 lost ~0.5 points of word error, 32 gained ~0.1
 
 _NEVER = -99.0  # ln p of what cannot happen; finite so sums stay finite
@@ -58,8 +58,12 @@ class G2PModel:
 
     def __init__(self, *, order: int, graphones: Sequence[str], keys: np.ndarray, logp: np.ndarray,
                  is_state: np.ndarray, backoff: np.ndarray, info: dict[str, Any] | None = None,
-                 beam: int = DEFAULT_BEAM) -> None:
-        """Arcs sorted by key = state * len(graphones) + graphone; see ``from_alignments``."""
+                 beam: int = DEFAULT_BEAM, links: tuple[np.ndarray, np.ndarray] | None = None) -> None:
+        """Arcs sorted by key = state * len(graphones) + graphone; see ``from_alignments``.
+
+        ``links``: each state's parent and each arc's next state, as ``to_file`` stores them;
+        rebuilt from the keys when not given (which costs time and about 40 MB at load).
+        """
         self.order = order
         self.graphones = list(graphones)
         self.info = info or {}
@@ -83,7 +87,9 @@ class G2PModel:
         self._next = self._arcs["next"]
         self._backoff = self._states["backoff"][:-1]
         self._parent = self._states["parent"][:-1]
-        parent, nxt = self._link()
+        parent, nxt = links if links is not None else self._link()
+        if len(parent) != len(self._parent) or len(nxt) != len(self._next):
+            raise ValueError("stored links do not fit the model's states and arcs")
         self._parent[:] = parent
         self._next[:] = nxt
         arcs_per_state = np.bincount(self._keys // vocab, minlength=len(backoff))
@@ -206,6 +212,7 @@ class G2PModel:
                     keys=np.cumsum(data["key_gaps"], dtype=np.int64),
                     logp=data["logp"], is_state=data["is_state"], backoff=data["backoff"],
                     info=json.loads(str(data["info"])),
+                    links=(data["parent"], data["next"]),
                 )
         except (OSError, ValueError, KeyError) as exc:
             raise StageError("lexicon", f"cannot read G2P model {path}: {exc}") from None
@@ -219,6 +226,7 @@ class G2PModel:
                 graphones=np.array(self.graphones), key_gaps=gaps.astype(np.uint32),
                 logp=self._logp.astype(np.float16), is_state=self._is_state,
                 backoff=self._backoff.astype(np.float16), info=np.array(json.dumps(self.info)),
+                parent=self._parent.astype(np.int32), next=self._next.astype(np.int32),
             )
 
     # -- prediction -------------------------------------------------------------------------

@@ -122,6 +122,9 @@ class LexiconStage:
     def load(self) -> None:
         s = self.settings
         self.pronouncer = Pronouncer()
+        # Loaded now, not at the first heard word CMUdict lacks: that load (0.1-0.2 s) would
+        # otherwise stall a live message, maybe past its deadline.
+        self.pronouncer.g2p  # noqa: B018 - the property loads the model
         self.common = {w for w, z in common_words().items() if z >= s.common_zipf}
         self.costs = CostModel.features()
         self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval,

@@ -192,3 +192,12 @@ def test_a_compiled_module_built_from_older_source_is_not_used(monkeypatch: pyte
     assert kernels._load() is None
     older.g2p_decode = lambda *args: ()  # type: ignore[attr-defined]
     assert kernels._load() is older
+
+
+def test_the_shipped_links_are_the_ones_the_keys_define() -> None:
+    # The file stores each state's parent and each arc's next state so loading skips rebuilding
+    # them; rebuilt from the n-gram keys alone they must come out the same.
+    model = default_model()
+    parent, nxt = model._link()
+    assert np.array_equal(parent, model._parent)
+    assert np.array_equal(nxt, model._next)

@@ -146,6 +146,8 @@ def test_compiled_lexicon_is_cached_and_rebuilt_on_change(tmp_path: Path) -> Non
     again = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context)
     again.load()
     assert again.loaded_from_cache
+    # Even from the cache the G2P model is loaded with the stage, not in the middle of a message.
+    assert again.pronouncer._g2p is not None
     (tmp_path / "lexicon.csv").write_text(LEXICON + "term.tenon,term,tenon,,TEN-un,1.0\n")
     changed = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context)
     changed.load()
