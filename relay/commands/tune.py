@@ -34,12 +34,15 @@ from stages.gate import GateSettings
 __all__ = ["add_parser", "run"]
 
 DESCRIPTION = """\
-Tune the chain on a labelled corpus: language-model weights, lexicon thresholds and gate
-thresholds are chosen to make the fewest wrong accepts while asking back at most
---max-clarify of the utterances (then the lowest WER). Expensive stages run once per
-parameter setting; gate thresholds are swept on the recorded scores. Numbers printed are
-held-out only: each fold is scored with the choice fitted on the other folds. The written
-configuration is fitted on the whole (filtered) corpus.
+Tune the chain on a labelled corpus: language-model weights, lexicon thresholds and the gate
+are chosen to make the fewest wrong accepts while asking back at most --max-clarify of the
+utterances (then the lowest WER). Expensive stages run once per parameter setting; the gate
+is fitted on the recorded scores two ways - its hand thresholds swept, and a learned
+confidence (logistic regression on all the gate's features, including how the in-domain LM
+judges the finished text) with its threshold swept - and the better one on the training
+utterances is kept. Numbers printed are held-out only: each fold is scored with the choice,
+model included, fitted on the other folds. The written configuration is fitted on the whole
+(filtered) corpus.
 
 The search space names stage parameters through the configuration, e.g. a YAML file
     lm_rescore: {lm_weight: [0.3, 0.6, 1.0]}
