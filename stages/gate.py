@@ -277,7 +277,8 @@ class GateStage:
         about = None
         if rule in {"weak_entity", "entity"} and utterance.entities:
             about = min(utterance.entities, key=lambda e: e.score)
-        elif rule == "correction" and utterance.entities:
+        elif rule in {"correction", "confidence"} and utterance.entities and utterance.corrections:
+            # Unsure after a correction: the question is about what was corrected.
             corrected = {c.after for c in utterance.corrections}
             about = next((e for e in utterance.entities if e.name in corrected), None)
             about = about or min(utterance.entities, key=lambda e: e.score)

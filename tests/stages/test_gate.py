@@ -233,3 +233,15 @@ def test_text_features_need_a_language_model() -> None:
         GateSettings.model_validate(settings)
     with pytest.raises(ValidationError, match="reprompt_confidence must not exceed"):
         GateSettings.model_validate(_oov_model(reprompt_confidence=0.7))
+
+
+def test_an_unsure_correction_is_confirmed_by_naming_the_corrected_entity() -> None:
+    stage = gate(**_oov_model(accept_posterior=0.0, accept_entity=0.0, accept_correction=0.0,
+                              reprompt_posterior=0.0, reprompt_entity=0.0))
+    stage.load()
+    fix = Correction(stage="lexicon", before="lay the", after="lathe", score=0.9, reason="phonetic")
+    # Two unknown words: sigmoid(2 - 3) = 0.27, between the reprompt and accept thresholds.
+    utterance = stage.process(make_utterance([0.9, 0.1], ["quux quuz lathe", "other"],
+                                             entities=[machine(0.9, name="lathe")], corrections=[fix]))
+    assert (utterance.decision, utterance.trace[-1].scores["rule"]) == ("confirm", "confidence")
+    assert utterance.prompt == "Did you mean lathe?"
