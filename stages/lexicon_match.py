@@ -18,12 +18,13 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
+import numpy.typing as npt
 from rapidfuzz.distance import Levenshtein
 from rapidfuzz.fuzz import ratio
 from rapidfuzz.process import cpdist
 
 from relay.pipeline import Hypothesis
-from stages.lexicon_compile import CompiledLexicon, phonetic_keys
+from stages.lexicon_compile import CompiledLexicon, Form, phonetic_keys
 from stages.phonetics import CostModel, batch_similarity
 from stages.pronounce import Pronouncer
 
@@ -74,23 +75,13 @@ def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer
                 words = tokens[start:end]
                 span = spans.get(words)
                 if span is None:
-                    span = spans[words] = Span(words, phones, " ".join(words))
-                span.occurrences.append((number, start, end))
+                    spans[words] = Span(words, phones, " ".join(words), [(number, start, end)])
+                else:
+                    span.occurrences.append((number, start, end))
     return list(spans.values())
 
 
 _span_keys = lru_cache(maxsize=32768)(phonetic_keys)  # span texts recur from message to message
-
-
-def _key_agreement(a: tuple[str, ...], b: tuple[str, ...]) -> float:
-    similar = Levenshtein.normalized_similarity
-    best = similar(a[0], b[0])
-    for x in a:
-        for y in b:
-            value = similar(x, y)
-            if value > best:
-                best = value
-    return best
 
 
 def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
@@ -98,10 +89,12 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
     """(span, form, score, exact) for every candidate pair worth keeping."""
     pairs: list[tuple[int, int, float, bool]] = []
     exact_pairs: set[tuple[int, int]] = set()
-    for number, span in enumerate(spans):
-        for form in lexicon.exact.get(span.text, ()):
-            pairs.append((number, form, 1.0, True))
-            exact_pairs.add((number, form))
+    exact = lexicon.exact
+    for number, text in enumerate([span.text for span in spans]):
+        if text in exact:
+            for form in exact[text]:
+                pairs.append((number, form, 1.0, True))
+                exact_pairs.add((number, form))
     hits = lexicon.index.search([s.phones for s in spans], k=weights.candidates,
                                 min_score=weights.min_retrieval)
     forms = lexicon.forms
@@ -122,26 +115,46 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
     phone_weight, spelling, key_weight, min_phone = weights.phone, weights.spelling, weights.keys, weights.min_phone
     total = phone_weight + spelling + key_weight
     floor = weights.pair_floor * total
-    joined: dict[int, str] = {}
-    keys: dict[int, tuple[str, ...]] = {}
-    for (q, f), phone_score in zip(chosen, phone.tolist()):
-        score = phone_weight * phone_score
-        if phone_score < min_phone or score + spelling + key_weight < floor:
-            continue
-        form = forms[f]
-        if spelling:
-            heard = joined.get(q)
-            if heard is None:
-                heard = joined[q] = spans[q].text.replace(" ", "")
-            score += spelling * ratio(heard, form.text.replace(" ", "")) / 100.0
-        if key_weight and score + key_weight >= floor:
-            span_keys = keys.get(q)
-            if span_keys is None:
-                span_keys = keys[q] = _span_keys(spans[q].text)
-            score += key_weight * _key_agreement(span_keys, form.keys)
-        if score >= floor:
-            pairs.append((q, f, score / total, False))
+    # The same sums as pair by pair, in the same order, one array operation per term.
+    phone_score = phone.astype(np.float64, copy=False)
+    score = phone_weight * phone_score
+    kept = np.flatnonzero(~((phone_score < min_phone) | (score + spelling + key_weight < floor))).tolist()
+    if not kept:
+        return pairs
+    chosen = [chosen[i] for i in kept]
+    score = score[kept]
+    if spelling:
+        joined = [span.text.replace(" ", "") for span in spans]
+        score = score + spelling * cpdist([joined[q] for q, _ in chosen],
+                                          [forms[f].text.replace(" ", "") for _, f in chosen],
+                                          scorer=ratio, dtype=np.float64) / 100.0
+    if key_weight:
+        # Pairs with no chance to reach the floor are dropped below whatever their keys say.
+        score = score + key_weight * _key_agreements(chosen, spans, forms)
+    for (q, f), value in zip(chosen, score.tolist()):
+        if value >= floor:
+            pairs.append((q, f, value / total, False))
     return pairs
+
+
+def _key_agreements(chosen: list[tuple[int, int]], spans: list[Span], forms: Sequence[Form]) -> npt.NDArray[np.float64]:
+    """Per pair, the best normalised Levenshtein similarity between any span key and any form key."""
+    span_keys: dict[int, tuple[str, ...]] = {}
+    heard: list[str] = []
+    known: list[str] = []
+    starts: list[int] = []
+    for q, f in chosen:
+        mine = span_keys.get(q)
+        if mine is None:
+            mine = span_keys[q] = _span_keys(spans[q].text)
+        theirs = forms[f].keys
+        starts.append(len(heard))
+        for x in mine:
+            for y in theirs:
+                heard.append(x)
+                known.append(y)
+    similar = cpdist(heard, known, scorer=Levenshtein.normalized_similarity, dtype=np.float64)
+    return np.maximum.reduceat(similar, starts)
 
 
 def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: CompiledLexicon,
