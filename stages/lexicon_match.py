@@ -24,7 +24,7 @@ from rapidfuzz.fuzz import ratio
 from rapidfuzz.process import cpdist
 
 from relay.pipeline import Hypothesis
-from stages.lexicon_compile import CompiledLexicon, Form, phonetic_keys
+from stages.lexicon_compile import CompiledLexicon, Form, word_run_keys
 from stages.phonetics import CostModel, batch_similarity
 from stages.pronounce import Pronouncer
 
@@ -81,7 +81,7 @@ def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer
     return list(spans.values())
 
 
-_span_keys = lru_cache(maxsize=32768)(phonetic_keys)  # span texts recur from message to message
+_span_keys = lru_cache(maxsize=32768)(word_run_keys)  # span words recur from message to message
 
 
 def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
@@ -146,7 +146,7 @@ def _key_agreements(chosen: list[tuple[int, int]], spans: list[Span], forms: Seq
     for q, f in chosen:
         mine = span_keys.get(q)
         if mine is None:
-            mine = span_keys[q] = _span_keys(spans[q].text)
+            mine = span_keys[q] = _span_keys(spans[q].words)
         theirs = forms[f].keys
         starts.append(len(heard))
         for x in mine:
