@@ -24,11 +24,12 @@ from rapidfuzz.fuzz import ratio
 from rapidfuzz.process import cpdist
 
 from relay.pipeline import Hypothesis
+from stages.kernels import compiled
 from stages.lexicon_compile import CompiledLexicon, Form, word_run_keys
 from stages.phonetics import CostModel, batch_similarity
 from stages.pronounce import Pronouncer
 
-__all__ = ["Evidence", "Span", "Weights", "find_spans", "pool", "score_spans"]
+__all__ = ["Evidence", "Spans", "Weights", "find_spans", "pool", "score_spans"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -44,11 +45,16 @@ class Weights:
 
 
 @dataclass(slots=True)
-class Span:
-    words: tuple[str, ...]
-    phones: str
-    text: str  # the words joined by spaces
-    occurrences: list[tuple[int, int, int]] = field(default_factory=list)  # (hypothesis, start, end)
+class Spans:
+    """The distinct word runs of an N-best, one column per attribute; a span is an index into them."""
+
+    words: list[tuple[str, ...]]
+    phones: list[str]  # the words' phones run together
+    texts: list[str]  # the words joined by spaces
+    occurrences: list[list[tuple[int, int, int]]]  # (hypothesis, start, end)
+
+    def __len__(self) -> int:
+        return len(self.words)
 
 
 @dataclass(slots=True)
@@ -61,48 +67,62 @@ class Evidence:
     # hypothesis -> (score, start, end, form, exact)
 
 
-def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer) -> list[Span]:
-    spans: dict[tuple[str, ...], Span] = {}
+def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer) -> Spans:
     word = pronouncer.word
-    for number, hypothesis in enumerate(nbest):
-        tokens = tuple(hypothesis.tokens)
+    token_lists = [hypothesis.tokens for hypothesis in nbest]
+    sound_lists = [[word(token) for token in tokens] for tokens in token_lists]
+    if compiled is not None:
+        return Spans(*compiled.word_spans(token_lists, sound_lists, longest))
+    return _word_spans_python(token_lists, sound_lists, longest)
+
+
+def _word_spans_python(token_lists: Sequence[Sequence[str]], sound_lists: Sequence[Sequence[str]],
+                       longest: int) -> Spans:
+    index: dict[tuple[str, ...], int] = {}
+    spans = Spans([], [], [], [])
+    for number, (hypothesis, sounds) in enumerate(zip(token_lists, sound_lists)):
+        tokens = tuple(hypothesis)
         count = len(tokens)
-        sounds = [word(token) for token in tokens]
         for start in range(count):
             phones = ""
             for end in range(start + 1, min(count, start + longest) + 1):
                 phones += sounds[end - 1]  # a span's phones are its words' phones run together
                 words = tokens[start:end]
-                span = spans.get(words)
-                if span is None:
-                    spans[words] = Span(words, phones, " ".join(words), [(number, start, end)])
+                at = index.get(words)
+                if at is None:
+                    index[words] = len(spans.words)
+                    spans.words.append(words)
+                    spans.phones.append(phones)
+                    spans.texts.append(" ".join(words))
+                    spans.occurrences.append([(number, start, end)])
                 else:
-                    span.occurrences.append((number, start, end))
-    return list(spans.values())
+                    spans.occurrences[at].append((number, start, end))
+    return spans
 
 
 _span_keys = lru_cache(maxsize=32768)(word_run_keys)  # span words recur from message to message
 
 
-def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
+def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
                 costs: CostModel) -> list[tuple[int, int, float, bool]]:
     """(span, form, score, exact) for every candidate pair worth keeping."""
     pairs: list[tuple[int, int, float, bool]] = []
     exact_pairs: set[tuple[int, int]] = set()
     exact = lexicon.exact
-    for number, text in enumerate([span.text for span in spans]):
+    for number, text in enumerate(spans.texts):
         if text in exact:
             for form in exact[text]:
                 pairs.append((number, form, 1.0, True))
                 exact_pairs.add((number, form))
-    hits = lexicon.index.search([s.phones for s in spans], k=weights.candidates,
+    hits = lexicon.index.search(spans.phones, k=weights.candidates,
                                 min_score=weights.min_retrieval)
     forms = lexicon.forms
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment; see docs/lexicon.md for how the threshold was chosen.
     screen = weights.min_edit
     queries, items = hits.query.tolist(), hits.item.tolist()
-    edit = cpdist([spans[q].phones for q in queries], [forms[f].phones for f in items],
+    phones = spans.phones
+    edit = cpdist([phones[q] for q in queries], [forms[f].phones for f in items],
                   scorer=Levenshtein.normalized_similarity, dtype=np.float64)
     passed = (edit >= screen).tolist()
     if exact_pairs:
@@ -111,7 +131,7 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
         chosen = [(q, f) for q, f, ok in zip(queries, items, passed) if ok]
     if not chosen:
         return pairs
-    phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
+    phone = batch_similarity([phones[q] for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
     phone_weight, spelling, key_weight, min_phone = weights.phone, weights.spelling, weights.keys, weights.min_phone
     total = phone_weight + spelling + key_weight
     floor = weights.pair_floor * total
@@ -124,7 +144,8 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
     chosen = [chosen[i] for i in kept]
     score = score[kept]
     if spelling:
-        joined = [span.text.replace(" ", "") for span in spans]
+        texts = spans.texts
+        joined = {q: texts[q].replace(" ", "") for q, _ in chosen}
         score = score + spelling * cpdist([joined[q] for q, _ in chosen],
                                           [forms[f].text.replace(" ", "") for _, f in chosen],
                                           scorer=ratio, dtype=np.float64) / 100.0
@@ -137,27 +158,28 @@ def score_spans(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
     return pairs
 
 
-def _key_agreements(chosen: list[tuple[int, int]], spans: list[Span], forms: Sequence[Form]) -> npt.NDArray[np.float64]:
-    """Per pair, the best normalised Levenshtein similarity between any span key and any form key."""
-    span_keys: dict[int, tuple[str, ...]] = {}
-    heard: list[str] = []
-    known: list[str] = []
-    starts: list[int] = []
-    for q, f in chosen:
-        mine = span_keys.get(q)
-        if mine is None:
-            mine = span_keys[q] = _span_keys(spans[q].words)
-        theirs = forms[f].keys
-        starts.append(len(heard))
-        for x in mine:
-            for y in theirs:
-                heard.append(x)
-                known.append(y)
-    similar = cpdist(heard, known, scorer=Levenshtein.normalized_similarity, dtype=np.float64)
-    return np.maximum.reduceat(similar, starts)
+def _key_agreements(chosen: list[tuple[int, int]], spans: Spans, forms: Sequence[Form]) -> npt.NDArray[np.float64]:
+    """Per pair, the best normalised Levenshtein similarity between any span key and any form key.
+
+    A run has one or two keys; taking its first and last covers both, so four similarities per
+    pair hold every combination (a repeated one cannot change the maximum).
+    """
+    queries = [q for q, _ in chosen]
+    words = spans.words
+    keys = {q: _span_keys(words[q]) for q in dict.fromkeys(queries)}
+    heard = [keys[q] for q in queries]
+    known = [forms[f].keys for _, f in chosen]
+    first = [k[0] for k in heard]
+    last = [k[-1] for k in heard]
+    their_first = [k[0] for k in known]
+    their_last = [k[-1] for k in known]
+    similar = cpdist(first + first + last + last, their_first + their_last + their_first + their_last,
+                     scorer=Levenshtein.normalized_similarity, dtype=np.float64)
+    best: npt.NDArray[np.float64] = similar.reshape(4, len(chosen)).max(axis=0)
+    return best
 
 
-def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: CompiledLexicon,
+def pool(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexicon: CompiledLexicon,
          posteriors: Sequence[float], *, strong: float = 0.75) -> dict[int, Evidence]:
     """Per entry: best span score in each hypothesis, summed over hypotheses by posterior.
 
@@ -168,6 +190,7 @@ def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: 
     evidence: dict[int, Evidence] = {}
     forms = lexicon.forms
     words: dict[int, int] = {}  # form -> its word count, looked up often by _better
+    occurrences = spans.occurrences
     for q, f, score, exact in pairs:
         form = forms[f]
         found = evidence.get(form.entry)
@@ -176,7 +199,7 @@ def pool(spans: list[Span], pairs: list[tuple[int, int, float, bool]], lexicon: 
         if f not in words:
             words[f] = form.words
         held_by = found.per_hypothesis
-        for hypothesis, start, end in spans[q].occurrences:
+        for hypothesis, start, end in occurrences[q]:
             held = held_by.get(hypothesis)
             if held is None:
                 held_by[hypothesis] = (score, start, end, f, exact)

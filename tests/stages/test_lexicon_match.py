@@ -16,7 +16,7 @@ from rapidfuzz.fuzz import ratio
 from relay.pipeline import Hypothesis
 from stages.lexicon_compile import CompiledLexicon, compile_entries, phonetic_keys
 from stages.lexicon_data import LexiconEntry
-from stages.lexicon_match import Span, Weights, _key_agreements, find_spans, pool, score_spans
+from stages.lexicon_match import Spans, Weights, _key_agreements, find_spans, pool, score_spans
 from stages.phonetics import CostModel, batch_similarity
 from stages.pronounce import Pronouncer
 
@@ -62,45 +62,45 @@ def _nbest(lexicon: CompiledLexicon, rng: random.Random) -> list[Hypothesis]:
     return hypotheses
 
 
-def _pairwise(spans: list[Span], lexicon: CompiledLexicon, weights: Weights,
+def _pairwise(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
               costs: CostModel) -> list[tuple[int, int, float, bool]]:
     """The definition: each candidate pair scored on its own (rapidfuzz scorers called one by one)."""
     pairs: list[tuple[int, int, float, bool]] = []
     exact: set[tuple[int, int]] = set()
-    for number, span in enumerate(spans):
-        for form in lexicon.exact.get(span.text, ()):
+    for number, text in enumerate(spans.texts):
+        for form in lexicon.exact.get(text, ()):
             pairs.append((number, form, 1.0, True))
             exact.add((number, form))
-    hits = lexicon.index.search([s.phones for s in spans], k=weights.candidates, min_score=weights.min_retrieval)
+    hits = lexicon.index.search(spans.phones, k=weights.candidates, min_score=weights.min_retrieval)
     forms = lexicon.forms
     chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
-              if Levenshtein.normalized_similarity(spans[q].phones, forms[f].phones) >= weights.min_edit
+              if Levenshtein.normalized_similarity(spans.phones[q], forms[f].phones) >= weights.min_edit
               and (q, f) not in exact]
     if not chosen:
         return pairs
-    phone = batch_similarity([spans[q].phones for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
+    phone = batch_similarity([spans.phones[q] for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
     total = weights.phone + weights.spelling + weights.keys
     floor = weights.pair_floor * total
     for (q, f), phone_score in zip(chosen, phone.tolist()):
         score = weights.phone * phone_score
         if phone_score < weights.min_phone or score + weights.spelling + weights.keys < floor:
             continue
-        score += weights.spelling * ratio(spans[q].text.replace(" ", ""), forms[f].text.replace(" ", "")) / 100.0
+        score += weights.spelling * ratio(spans.texts[q].replace(" ", ""), forms[f].text.replace(" ", "")) / 100.0
         if score + weights.keys >= floor:
             score += weights.keys * max(Levenshtein.normalized_similarity(x, y)
-                                        for x in phonetic_keys(spans[q].text) for y in forms[f].keys)
+                                        for x in phonetic_keys(spans.texts[q]) for y in forms[f].keys)
         if score >= floor:
             pairs.append((q, f, score / total, False))
     return pairs
 
 
 def test_key_agreements_are_the_best_levenshtein_similarity_of_any_key_pair(lexicon: CompiledLexicon) -> None:
-    spans = [Span(("tamzin", "okara"), "", "tamzin okara", []), Span(("x",), "", "x", []),
-             Span(("schmidt",), "", "schmidt", [])]  # "schmidt" has two keys (XMT, SMT)
+    runs = [("tamzin", "okara"), ("x",), ("schmidt",)]  # "schmidt" has two keys (XMT, SMT)
+    spans = Spans(runs, ["", "", ""], [" ".join(words) for words in runs], [[], [], []])
     assert len(phonetic_keys("schmidt")) == 2
     chosen = [(q, f) for q in range(len(spans)) for f in range(0, len(lexicon.forms), 7)]
     got = _key_agreements(chosen, spans, lexicon.forms).tolist()
-    expected = [max(Levenshtein.normalized_similarity(x, y) for x in phonetic_keys(spans[q].text)
+    expected = [max(Levenshtein.normalized_similarity(x, y) for x in phonetic_keys(spans.texts[q])
                     for y in lexicon.forms[f].keys) for q, f in chosen]
     assert got == expected
 
@@ -126,11 +126,11 @@ def test_spans_and_pooling_keep_every_occurrence(lexicon: CompiledLexicon, prono
     nbest = [Hypothesis("a b a b", 0, {}, tokens=["a", "b", "a", "b"], posterior=0.75),
              Hypothesis("b a", 1, {}, tokens=["b", "a"], posterior=0.25)]
     spans = find_spans(nbest, 2, pronouncer)
-    by_words = {span.words: span for span in spans}
-    assert [s.words for s in spans] == [("a",), ("a", "b"), ("b",), ("b", "a")]
-    assert by_words[("a", "b")].occurrences == [(0, 0, 2), (0, 2, 4)]
-    assert by_words[("b", "a")].occurrences == [(0, 1, 3), (1, 0, 2)]
-    assert by_words[("a", "b")].phones == pronouncer.word("a") + pronouncer.word("b")
+    assert spans.words == [("a",), ("a", "b"), ("b",), ("b", "a")]
+    assert spans.texts == ["a", "a b", "b", "b a"]
+    assert spans.occurrences[1] == [(0, 0, 2), (0, 2, 4)]
+    assert spans.occurrences[3] == [(0, 1, 3), (1, 0, 2)]
+    assert spans.phones[1] == pronouncer.word("a") + pronouncer.word("b")
     form = 0
     evidence = pool(spans, [(3, form, 0.5, False), (1, form, 0.5, False)], lexicon, [0.75, 0.25])
     found = evidence[lexicon.forms[form].entry]
