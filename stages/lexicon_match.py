@@ -189,28 +189,29 @@ def pool(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexicon: Compi
     """
     evidence: dict[int, Evidence] = {}
     forms = lexicon.forms
-    words: dict[int, int] = {}  # form -> its word count, looked up often by _better
+    words: dict[int, int] = {}  # form -> its word count, for the pairs _better weighs
     occurrences = spans.occurrences
     for q, f, score, exact in pairs:
-        form = forms[f]
-        found = evidence.get(form.entry)
+        entry = forms[f].entry
+        found = evidence.get(entry)
         if found is None:
-            found = evidence[form.entry] = Evidence(form.entry)
-        if f not in words:
-            words[f] = form.words
+            found = evidence[entry] = Evidence(entry, 0.0, {})
         held_by = found.per_hypothesis
         for hypothesis, start, end in occurrences[q]:
             held = held_by.get(hypothesis)
             if held is None:
                 held_by[hypothesis] = (score, start, end, f, exact)
             elif exact or held[4]:
+                for form in (f, held[3]):
+                    if form not in words:
+                        words[form] = forms[form].words
                 if _better((score, start, end, f, exact), held, strong, words):
                     held_by[hypothesis] = (score, start, end, f, exact)
             # Neither exact: _better reduces to the higher score, then the longer span.
             elif score > held[0] or (score == held[0] and end - start > held[2] - held[1]):
                 held_by[hypothesis] = (score, start, end, f, exact)
     for found in evidence.values():
-        found.pooled = float(sum(posteriors[h] * held[0] for h, held in found.per_hypothesis.items()))
+        found.pooled = float(sum([posteriors[h] * held[0] for h, held in found.per_hypothesis.items()]))
     return evidence
 
 
