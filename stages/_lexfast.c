@@ -1,10 +1,10 @@
-/* Compiled kernels of the lexicon stage: phone n-gram retrieval, feature-weighted alignment and
-   the graphone beam search of the G2P model.
+/* Compiled kernels of the lexicon stage: phone n-gram retrieval, feature-weighted alignment, the
+   graphone beam search of the G2P model, and the word spans of an N-best.
 
-   Each gives the same results as the numpy code it stands in for (stages/phone_index.py
-   PhoneIndex._search_numpy, stages/phonetics.py _batch_alignment_cost_numpy and stages/g2p.py
-   G2PModel._decode_numpy), bit for bit: every float operation is done in the same precision and
-   order, and the module is built with -ffp-contract=off so no multiply-add is fused. Arrays come
+   Each gives the same results as the numpy or Python code it stands in for (stages/phone_index.py
+   PhoneIndex._search_numpy, stages/phonetics.py _batch_alignment_cost_numpy, stages/g2p.py
+   G2PModel._decode_numpy, stages/lexicon_match.py _word_spans_python), bit for bit: every float
+   operation is done in the same precision and order, and the module is built with -ffp-contract=off so no multiply-add is fused. Arrays come
    in and go out through the buffer protocol (the typed wrappers in Python allocate them), so the
    build needs no numpy headers. The GIL is held throughout: a call takes well under a
    millisecond, and the index's scratch counters may then be shared by every caller. */
@@ -708,10 +708,147 @@ done:
     return result;
 }
 
+PyDoc_STRVAR(spans_doc,
+"word_spans(token_lists, sound_lists, longest) -> (words, phones, texts, occurrences)\n\n"
+"Every run of 1..longest words of every hypothesis, each distinct run once, in order of first\n"
+"occurrence: its words (a tuple), its phones (the words' phone strings run together), its text\n"
+"(the words joined by spaces) and its occurrences [(hypothesis, start, end), ...]. The same as\n"
+"stages/lexicon_match.py _word_spans_python.");
+
+/* The item of list `items` at the index the dict value `number` holds (borrowed). */
+static PyObject *column_item(PyObject *items, PyObject *number) {
+    Py_ssize_t at = PyLong_AsSsize_t(number);
+    if (at == -1 && PyErr_Occurred())
+        return NULL;
+    return PyList_GET_ITEM(items, at);
+}
+
+static PyObject *word_spans(PyObject *self, PyObject *args) {
+    PyObject *token_lists, *sound_lists;
+    Py_ssize_t longest;
+    if (!PyArg_ParseTuple(args, "OOn", &token_lists, &sound_lists, &longest))
+        return NULL;
+    if (longest < 1) {
+        PyErr_SetString(PyExc_ValueError, "longest must be at least 1");
+        return NULL;
+    }
+    PyObject *hyps = PySequence_Fast(token_lists, "token_lists must be a sequence");
+    if (hyps == NULL)
+        return NULL;
+    PyObject *all_sounds = PySequence_Fast(sound_lists, "sound_lists must be a sequence");
+    if (all_sounds == NULL) {
+        Py_DECREF(hyps);
+        return NULL;
+    }
+    PyObject *index = PyDict_New(), *words = PyList_New(0), *phones = PyList_New(0), *texts = PyList_New(0);
+    PyObject *occurrences = PyList_New(0), *space = PyUnicode_FromString(" "), *nothing = PyUnicode_FromString("");
+    PyObject *result = NULL, *tokens = NULL, *sounds = NULL, *key = NULL, *occurrence = NULL;
+    if (!index || !words || !phones || !texts || !occurrences || !space || !nothing)
+        goto done;
+    if (PySequence_Fast_GET_SIZE(hyps) != PySequence_Fast_GET_SIZE(all_sounds)) {
+        PyErr_SetString(PyExc_ValueError, "token_lists and sound_lists differ in length");
+        goto done;
+    }
+    for (Py_ssize_t number = 0; number < PySequence_Fast_GET_SIZE(hyps); number++) {
+        tokens = PySequence_Fast(PySequence_Fast_GET_ITEM(hyps, number), "each token list must be a sequence");
+        if (tokens == NULL)
+            goto done;
+        sounds = PySequence_Fast(PySequence_Fast_GET_ITEM(all_sounds, number), "each sound list must be a sequence");
+        if (sounds == NULL)
+            goto done;
+        Py_ssize_t count = PySequence_Fast_GET_SIZE(tokens);
+        if (PySequence_Fast_GET_SIZE(sounds) != count) {
+            PyErr_SetString(PyExc_ValueError, "a token list and its sound list differ in length");
+            goto done;
+        }
+        for (Py_ssize_t i = 0; i < count; i++) {
+            if (!PyUnicode_Check(PySequence_Fast_GET_ITEM(tokens, i)) ||
+                !PyUnicode_Check(PySequence_Fast_GET_ITEM(sounds, i))) {
+                PyErr_SetString(PyExc_TypeError, "tokens and sounds must be str");
+                goto done;
+            }
+        }
+        for (Py_ssize_t start = 0; start < count; start++) {
+            Py_ssize_t stop = count < start + longest ? count : start + longest;
+            for (Py_ssize_t end = start + 1; end <= stop; end++) {
+                key = PyTuple_New(end - start);
+                if (key == NULL)
+                    goto done;
+                for (Py_ssize_t i = start; i < end; i++) {
+                    PyObject *token = PySequence_Fast_GET_ITEM(tokens, i);
+                    Py_INCREF(token);
+                    PyTuple_SET_ITEM(key, i - start, token);
+                }
+                occurrence = Py_BuildValue("(nnn)", number, start, end);
+                if (occurrence == NULL)
+                    goto done;
+                PyObject *found = PyDict_GetItemWithError(index, key);  /* borrowed */
+                if (found != NULL) {
+                    PyObject *held = column_item(occurrences, found);
+                    if (held == NULL || PyList_Append(held, occurrence) < 0)
+                        goto done;
+                } else {
+                    if (PyErr_Occurred())
+                        goto done;
+                    PyObject *at = PyLong_FromSsize_t(PyList_GET_SIZE(words));
+                    if (at == NULL)
+                        goto done;
+                    int failed = PyDict_SetItem(index, key, at);
+                    Py_DECREF(at);
+                    if (failed < 0 || PyList_Append(words, key) < 0)
+                        goto done;
+                    PyObject *run = PySequence_GetSlice(sounds, start, end);
+                    PyObject *joined = run ? PyUnicode_Join(nothing, run) : NULL;
+                    Py_XDECREF(run);
+                    failed = joined == NULL || PyList_Append(phones, joined) < 0;
+                    Py_XDECREF(joined);
+                    if (failed)
+                        goto done;
+                    joined = PyUnicode_Join(space, key);
+                    failed = joined == NULL || PyList_Append(texts, joined) < 0;
+                    Py_XDECREF(joined);
+                    if (failed)
+                        goto done;
+                    PyObject *held = PyList_New(1);
+                    if (held == NULL)
+                        goto done;
+                    Py_INCREF(occurrence);
+                    PyList_SET_ITEM(held, 0, occurrence);
+                    failed = PyList_Append(occurrences, held) < 0;
+                    Py_DECREF(held);
+                    if (failed)
+                        goto done;
+                }
+                Py_CLEAR(occurrence);
+                Py_CLEAR(key);
+            }
+        }
+        Py_CLEAR(tokens);
+        Py_CLEAR(sounds);
+    }
+    result = PyTuple_Pack(4, words, phones, texts, occurrences);
+done:
+    Py_XDECREF(occurrence);
+    Py_XDECREF(key);
+    Py_XDECREF(tokens);
+    Py_XDECREF(sounds);
+    Py_XDECREF(index);
+    Py_XDECREF(words);
+    Py_XDECREF(phones);
+    Py_XDECREF(texts);
+    Py_XDECREF(occurrences);
+    Py_XDECREF(space);
+    Py_XDECREF(nothing);
+    Py_DECREF(hyps);
+    Py_DECREF(all_sounds);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"search", search, METH_VARARGS, search_doc},
     {"alignment_costs", alignment_costs, METH_VARARGS, align_doc},
     {"g2p_decode", g2p_decode, METH_VARARGS, g2p_doc},
+    {"word_spans", word_spans, METH_VARARGS, spans_doc},
     {NULL, NULL, 0, NULL},
 };
 

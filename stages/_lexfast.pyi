@@ -15,3 +15,6 @@ def g2p_decode(
     letters: str, arcs: Buffer, states: Buffer, ids: Buffer, at: Buffer, vocab: int, start: int, eos: int,
     order: int, beam: int, /,
 ) -> tuple[int, ...]: ...
+def word_spans(
+    token_lists: Sequence[Sequence[str]], sound_lists: Sequence[Sequence[str]], longest: int, /,
+) -> tuple[list[tuple[str, ...]], list[str], list[str], list[list[tuple[int, int, int]]]]: ...

@@ -13,7 +13,7 @@ from types import ModuleType
 
 __all__ = ["compiled"]
 
-FUNCTIONS = ("search", "alignment_costs", "g2p_decode")
+FUNCTIONS = ("search", "alignment_costs", "g2p_decode", "word_spans")
 
 
 def _load() -> ModuleType | None:

@@ -12,6 +12,7 @@ import hashlib
 import os
 import pickle
 import tempfile
+from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
@@ -26,7 +27,7 @@ from stages.phone_index import PhoneIndex
 from stages.pronounce import Pronouncer
 from stages.respell import RespellError
 
-__all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys"]
+__all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys", "word_run_keys"]
 
 COMPILE_FORMAT = "lexicon-compiled-6"
 
@@ -43,9 +44,17 @@ def phonetic_keys(text: str) -> tuple[str, ...]:
     Joining per-word keys lets "band saw" and "bandsaw" share keys (up to the word-edge rules)
     and lets each word's keys be cached.
     """
-    keys = [_word_keys(word) for word in text.split()]
-    primary = "".join(k[0] for k in keys)
-    alternate = "".join(k[1] for k in keys)
+    return word_run_keys(text.split())
+
+
+def word_run_keys(words: Sequence[str]) -> tuple[str, ...]:
+    """``phonetic_keys`` of the words joined by spaces, for words already split."""
+    if len(words) == 1:
+        primary, alternate = _word_keys(words[0])
+    else:
+        keys = [_word_keys(word) for word in words]
+        primary = "".join([k[0] for k in keys])
+        alternate = "".join([k[1] for k in keys])
     return (primary, alternate) if alternate != primary else (primary,)
 
 

@@ -191,6 +191,8 @@ def test_a_compiled_module_built_from_older_source_is_not_used(monkeypatch: pyte
     monkeypatch.setattr(stages, "_lexfast", older, raising=False)
     assert kernels._load() is None
     older.g2p_decode = lambda *args: ()  # type: ignore[attr-defined]
+    assert kernels._load() is None  # nor one that predates the word-span kernel
+    older.word_spans = lambda *args: ([], [], [], [])  # type: ignore[attr-defined]
     assert kernels._load() is older
 
 

@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 
 from stages.kernels import compiled
+from stages.lexicon_match import Spans, _word_spans_python
 from stages.phone_index import Hits, PhoneIndex
 from stages.phonetics import (
     PHONES,
@@ -125,3 +126,30 @@ def test_search_refuses_what_is_not_a_phone_string(index_and_queries: tuple[Phon
     with pytest.raises(ValueError, match="not an encoded phone"):
         index._search_compiled([queries[0], "plain text"], k=3, min_score=0.2)
     assert not index.counts.any()  # counts taken for the first query are cleared on the error
+
+
+@pytest.mark.parametrize("longest", [1, 3, 8])
+def test_word_spans_are_the_same(longest: int) -> None:
+    rng = random.Random(longest)
+    vocabulary = ["bay", "three", "tamsin", "okara", "pump", "the", "a", "it's"]
+    for _ in range(50):
+        token_lists = [rng.choices(vocabulary, k=rng.randint(0, 9)) for _ in range(rng.randint(0, 10))]
+        sound_lists = [[random_phones(rng, 1, 5) for _ in tokens] for tokens in token_lists]
+        got = Spans(*compiled.word_spans(token_lists, sound_lists, longest))
+        expected = _word_spans_python(token_lists, sound_lists, longest)
+        assert got == expected
+        for words, phones, text, occurrences in zip(got.words, got.phones, got.texts, got.occurrences):
+            number, start, end = occurrences[0]
+            assert words == tuple(token_lists[number][start:end]) and text == " ".join(words)
+            assert phones == "".join(sound_lists[number][start:end]) and 1 <= end - start <= longest
+
+
+def test_word_spans_refuse_mismatched_input() -> None:
+    with pytest.raises(ValueError, match="differ in length"):
+        compiled.word_spans([["a", "b"]], [["x"]], 2)
+    with pytest.raises(ValueError, match="differ in length"):
+        compiled.word_spans([["a"]], [], 2)
+    with pytest.raises(TypeError, match="must be str"):
+        compiled.word_spans([["a", 3]], [["x", "y"]], 2)
+    with pytest.raises(ValueError, match="at least 1"):
+        compiled.word_spans([["a"]], [["x"]], 0)

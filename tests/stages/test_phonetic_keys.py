@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 from metaphone import doublemetaphone
 
-from stages.lexicon_compile import phonetic_keys
+from stages.lexicon_compile import phonetic_keys, word_run_keys
 
 # Source: L. Philips, "The Double Metaphone Search Algorithm", C/C++ Users Journal, June 2000,
 # and the examples in the comments of the reference C++ implementation published with it.
@@ -30,3 +30,11 @@ def test_published_double_metaphone_examples(word: str, primary: str, alternate:
 def test_keys_of_split_and_merged_words_agree() -> None:
     assert phonetic_keys("band saw") == phonetic_keys("bandsaw")
     assert phonetic_keys("smith") == ("SM0", "XMT")
+
+
+@pytest.mark.parametrize("words", [("smith",), ("schmidt", "caesar"), ("band", "saw", "michael"), ()])
+def test_keys_of_split_words_are_the_keys_of_their_text(words: tuple[str, ...]) -> None:
+    # Per word (Philips 2000, as above): Smith SM0/XMT, Schmidt XMT/SMT; a run joins them.
+    assert word_run_keys(words) == phonetic_keys(" ".join(words))
+    if words == ("schmidt", "caesar"):
+        assert word_run_keys(words) == ("XMTSSR", "SMTSSR")
