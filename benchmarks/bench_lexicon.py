@@ -113,6 +113,7 @@ def corpus_messages(path: Path, count: int) -> list[tuple[int, list[str]]]:
 
 def measure(folder: Path, count: int, seed: int, corpus: Path | None = None) -> dict[str, float]:
     """Warm load from the cache, then per-message latency and memory, as a restarted relay sees them."""
+    from relay.heap import freeze_loaded
     from relay.pipeline import Hypothesis, StageContext, TraceEntry, Utterance
     from stages.lexicon import LexiconSettings, LexiconStage
     from stages.normalize import NormalizeSettings, NormalizeStage
@@ -125,6 +126,7 @@ def measure(folder: Path, count: int, seed: int, corpus: Path | None = None) -> 
     names = [entry.name for entry in stage._lexicon.entries]
     messages = corpus_messages(corpus, count) if corpus else make_messages(names, count, seed + 1)
     normalize = NormalizeStage(NormalizeSettings(prefer="rank"), context=context)
+    freeze_loaded()  # as `rehear run` does once the chain is loaded (relay/heap.py)
     times = []
     for _, texts in tqdm(messages, desc=f"{len(names)} entries", leave=False):
         nbest = [Hypothesis(t, r, {}) for r, t in enumerate(texts)]
