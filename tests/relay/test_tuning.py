@@ -163,7 +163,8 @@ def test_the_learned_sweep_agrees_with_the_gate_decision() -> None:
     settings = gate_settings(GateSettings(lm_model=Path("domain.arpa"), safety_words=[]), choice.gate)
     accepted = [decide(o.gate, settings)[0] == "accept" for o in outcomes if o.gate is not None]
     # Under the budget on the utterances it was fitted on, as the sweep promised.
-    assert 1 - sum(accepted) / len(accepted) <= 0.3 + 1e-9
+    asked_back = 1 - sum(accepted) / len(accepted)
+    assert asked_back <= 0.3 + 1e-9
 
 
 def _result(choice: Choice, index: np.ndarray) -> Any:
