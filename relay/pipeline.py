@@ -135,6 +135,11 @@ class StageContext:
     cache_dir: Path  # where compiled resources may be cached
     progress: bool = False  # whether slow loads may draw a progress bar
 
+    def resolve(self, path: Path) -> Path:
+        """A path from stage settings: ``~`` expanded, relative ones taken from ``base_dir``."""
+        path = path.expanduser()
+        return path if path.is_absolute() else self.base_dir / path
+
 
 @runtime_checkable
 class Stage(Protocol):

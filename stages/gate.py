@@ -20,7 +20,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 
 from relay.pipeline import Decision, StageContext, Utterance
 from stages.gate_confidence import ConfidenceModel, confidence
-from stages.lm_rescore import shared_model
+from stages.lm_rescore import LN10, shared_model
 from stages.tokens import tokenize
 
 __all__ = ["GateFeatures", "GateSettings", "GateStage", "decide"]
@@ -28,7 +28,6 @@ __all__ = ["GateFeatures", "GateSettings", "GateStage", "decide"]
 _PLACEHOLDERS = frozenset({"text", "entity", "heard", "type_noun"})
 _FIELD = re.compile(r"\{([^{}]*)\}")
 _SEVERITY: dict[Decision, int] = {"accept": 0, "confirm": 1, "reprompt": 2}
-_LN10 = 2.302585092994046
 
 # Verbs that set something in motion, release energy or material. A false alarm costs one
 # "did you mean ...?"; a miss can hurt someone, so the list errs on the side of asking.
@@ -196,7 +195,7 @@ def _judged(model: Any, words: list[str]) -> dict[str, Any]:
     scores = list(model.full_scores(" ".join(words), bos=True, eos=True))
     total = sum(log10 for log10, _, _ in scores)
     weakest = min((log10 for log10, _, _ in scores[:-1]), default=scores[-1][0])
-    return {"text_lm_per_word": total * _LN10 / len(scores), "text_lm_weakest": weakest * _LN10,
+    return {"text_lm_per_word": total * LN10 / len(scores), "text_lm_weakest": weakest * LN10,
             "text_oov": sum(int(oov) for _, _, oov in scores[:-1])}
 
 
@@ -223,7 +222,7 @@ class GateStage:
     def load(self) -> None:
         path = self.settings.lm_model
         if path is not None:
-            self.lm = shared_model(path if path.is_absolute() else self.context.base_dir / path)
+            self.lm = shared_model(self.context.resolve(path))
 
     def safety_rule(self, utterance: Utterance) -> str | None:
         """Which safety rule the result trips, if any (by entity type first, then by words).

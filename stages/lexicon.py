@@ -116,27 +116,21 @@ class LexiconStage:
             raise StageError(self.name, "process() called before load()")
         return self.compiled
 
-    def _path(self, path: Path) -> Path:
-        return path if path.is_absolute() else self.context.base_dir / path
-
     def load(self) -> None:
         s = self.settings
         self.pronouncer = Pronouncer()
-        # Loaded now, not at the first heard word CMUdict lacks: that load (0.1-0.2 s) would
-        # otherwise stall a live message, maybe past its deadline.
-        self.pronouncer.g2p  # noqa: B018 - the property loads the model
         self.common = {w for w, z in common_words().items() if z >= s.common_zipf}
         self.costs = CostModel.features()
         self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval,
                                s.pair_floor, s.min_phone, s.min_edit)
         self.compiled, self.loaded_from_cache = load_compiled(
-            self._path(s.lexicon), self.context.cache_dir, self.pronouncer,
+            self.context.resolve(s.lexicon), self.context.cache_dir, self.pronouncer,
             progress=self.context.progress, max_postings=s.max_postings)
         ids = {entry.id for entry in self.compiled.entries}
-        self.affinity = read_speakers(self._path(s.speakers), ids) if s.speakers else {}
+        self.affinity = read_speakers(self.context.resolve(s.speakers), ids) if s.speakers else {}
         self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
         self.slots: dict[str, SlotForms] = slot_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
-        self.lm = shared_model(self._path(s.lm_model)) if s.lm_model is not None and (s.lm_weight or s.lm_loss_weight) else None
+        self.lm = shared_model(self.context.resolve(s.lm_model)) if s.lm_model is not None and (s.lm_weight or s.lm_loss_weight) else None
 
     def process(self, utterance: Utterance) -> Utterance:
         lexicon = self._lexicon

@@ -22,8 +22,8 @@ from rapidfuzz.process import cdist
 from stages.lexicon_compile import CompiledLexicon
 from stages.phonetics import CostModel, batch_similarity
 
-__all__ = ["PooledSlot", "SlotForms", "SlotHypothesis", "SlotMatch", "pool_slots", "slot_anchors", "slot_candidates",
-           "slot_forms", "slot_matches"]
+__all__ = ["PooledSlot", "SlotForms", "SlotHypothesis", "SlotMatch", "pool_slots", "slot_anchors", "slot_forms",
+           "slot_matches"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -81,18 +81,6 @@ def slot_anchors(tokens: Sequence[str], hints: set[str], *, at_start: bool) -> l
     if at_start and tokens:
         positions.add(0)
     return sorted(positions)
-
-
-def slot_candidates(sounds: Sequence[str], anchors: Sequence[int], taken: Sequence[tuple[int, int]],
-                    slot: SlotForms, lexicon: CompiledLexicon, costs: CostModel, *, max_words: int,
-                    min_phone: float, min_edit: float = 0.4) -> list[SlotMatch]:
-    """Spans starting at an anchor, free of ``taken`` words, whose best form reaches ``min_phone``.
-
-    One match per (anchor, form entry) at most, best first. ``sounds`` are the phones of each
-    word of the hypothesis.
-    """
-    return slot_matches([SlotHypothesis(sounds, anchors, taken)], slot, lexicon, costs, max_words=max_words,
-                        min_phone=min_phone, min_edit=min_edit)
 
 
 def slot_matches(hypotheses: Sequence[SlotHypothesis], slot: SlotForms, lexicon: CompiledLexicon,

