@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 
 from relay.evaluate import Outcome, Summary, format_table, summarize
-from relay.tuning import DEFAULT_GATE_GRID, RecordedFeatures, gate_accepts
+from relay.tuning import DEFAULT_GATE_GRID, RecordedFeatures, confidence_accepts, gate_accepts, rates
 from stages.gate_confidence import ConfidenceModel, confidence
 
 __all__ = ["entity_type", "tradeoff_curve", "write_report"]
@@ -36,11 +36,8 @@ def tradeoff_curve(outcomes: Sequence[Outcome], confidence_model: ConfidenceMode
     accept = gate_accepts(features, grid, None)
     if confidence_model is not None:
         sure = np.array([confidence(v, confidence_model) for v in features.values])
-        thresholds = np.unique(np.r_[sure, 0.0])
-        accept = np.vstack([accept, (sure >= thresholds[:, None]) & ~features.blocked])
-    accepted = accept.sum(axis=1)
-    clarify = 1 - accepted / len(outcomes)
-    wrong = (accept & ~features.ok).sum(axis=1) / np.maximum(accepted, 1)
+        accept = np.vstack([accept, confidence_accepts(features, sure, np.unique(np.r_[sure, 0.0]))])
+    accepted, clarify, wrong = rates(accept, features.ok)
     envelope: list[tuple[float, float]] = []
     best = np.inf
     for index in np.argsort(clarify, kind="stable"):

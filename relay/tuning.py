@@ -32,9 +32,11 @@ __all__ = [
     "RecordedFeatures",
     "cross_validate",
     "expand_space",
+    "confidence_accepts",
     "fit",
     "gate_accepts",
     "make_folds",
+    "rates",
 ]
 
 # Candidate parameters of stages owned elsewhere, addressed by stage and parameter name.
@@ -140,16 +142,40 @@ def _lm_grid(features: RecordedFeatures, index: np.ndarray) -> list[float | None
     return [None] + sorted({round(float(q), 3) for q in np.percentile(known, [5, 10, 20, 30])})
 
 
-_OPEN = {"accept_posterior": 0.0, "accept_margin": 0.0, "accept_entity": 0.0, "accept_correction": 0.0,
-         "accept_without_entity": 1.0}  # hand thresholds that let everything through
+# Hand thresholds that let everything through, as a row of the grid (the learned confidence decides).
+_OPEN_ROW = np.array([{"accept_posterior": 0.0, "accept_margin": 0.0, "accept_entity": 0.0, "accept_correction": 0.0,
+                       "accept_without_entity": 1.0}[k] for k in _GATE_KEYS])
 _CONFIDENCE_STEPS = np.linspace(0.0, 100.0, 81)  # candidate thresholds: percentiles of training confidence
+
+
+def confidence_accepts(features: RecordedFeatures, sure: np.ndarray, thresholds: np.ndarray,
+                       index: np.ndarray | None = None) -> np.ndarray:
+    """Boolean (thresholds x utterances): where ``decide`` would accept with the hand thresholds
+    open and the learned confidence ``sure`` of each utterance (of ``index``, if given) held to
+    each threshold."""
+    accept = gate_accepts(features, _OPEN_ROW[None, :], None)
+    return (accept if index is None else accept[:, index]) & (sure >= thresholds[:, None])
+
+
+def rates(accept: np.ndarray, ok: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per row of a (candidates x utterances) accept matrix: accepted count, share asked back,
+    wrong-accept rate (0 where nothing is accepted)."""
+    accepted = accept.sum(axis=1)
+    clarify = 1 - accepted / accept.shape[1]
+    wrong = (accept & ~ok).sum(axis=1) / np.maximum(accepted, 1)
+    return accepted, clarify, wrong
+
+
+def _thresholds(row: np.ndarray) -> dict[str, Any]:
+    """A row of the threshold grid as gate settings (in _GATE_KEYS order)."""
+    gate: dict[str, Any] = {k: float(row[i]) for i, k in enumerate(_GATE_KEYS)}
+    gate["accept_without_entity"] = bool(gate["accept_without_entity"])
+    return gate
 
 
 def _best_row(accept: np.ndarray, ok: np.ndarray, max_clarify: float) -> tuple[int, tuple[float, float, float]]:
     """The best row of a (candidates x utterances) accept matrix: (row, (over budget, wrong, clarify))."""
-    accepted = accept.sum(axis=1)
-    clarify = 1 - accepted / accept.shape[1]
-    wrong = (accept & ~ok).sum(axis=1) / np.maximum(accepted, 1)
+    _, clarify, wrong = rates(accept, ok)
     # Over budget is allowed only when nothing fits; then ask back as little as possible.
     over = np.maximum(clarify - max_clarify, 0)
     row = int(np.lexsort((clarify, np.round(wrong / _TIE), over))[0])
@@ -164,7 +190,6 @@ def fit(recorded: Sequence[RecordedFeatures], index: np.ndarray, *, max_clarify:
     hand thresholds.
     """
     grid = np.array(list(itertools.product(*[gate_grid[k] for k in _GATE_KEYS])), dtype=float)
-    open_row = np.array([[_OPEN[k] for k in _GATE_KEYS]])
     best: tuple[tuple[float, ...], Choice] | None = None
 
     def consider(key: tuple[float, ...], setting: int, gate: dict[str, Any]) -> None:
@@ -177,21 +202,17 @@ def fit(recorded: Sequence[RecordedFeatures], index: np.ndarray, *, max_clarify:
         ok = features.ok[index]
         for min_lm in _lm_grid(features, index):
             row, (over, wrong, clarify) = _best_row(gate_accepts(features, grid, min_lm)[:, index], ok, max_clarify)
-            gate: dict[str, Any] = {k: float(grid[row, i]) for i, k in enumerate(_GATE_KEYS)}
-            gate["accept_without_entity"] = bool(gate["accept_without_entity"])
-            gate["min_lm_per_word"] = min_lm
-            gate["confidence"] = None
+            gate = _thresholds(grid[row]) | {"min_lm_per_word": min_lm, "confidence": None}
             consider((over, wrong, errors, clarify), setting, gate)
         if not learn:
             continue
         model = fit_model([features.values[i] for i in index], ok.tolist())
         sure = np.array([confidence(features.values[i], model) for i in index])
         thresholds = np.unique(np.r_[np.percentile(sure, _CONFIDENCE_STEPS), 0.0])
-        accept = gate_accepts(features, open_row, None)[:, index] & (sure >= thresholds[:, None])
+        accept = confidence_accepts(features, sure, thresholds, index)
         row, (over, wrong, clarify) = _best_row(accept, ok, max_clarify)
-        gate = {k: (bool(v) if k == "accept_without_entity" else v) for k, v in _OPEN.items()}
-        gate |= {"min_lm_per_word": None, "confidence": model.model_dump(),
-                 "accept_confidence": float(thresholds[row])}
+        gate = _thresholds(_OPEN_ROW) | {
+            "min_lm_per_word": None, "confidence": model.model_dump(), "accept_confidence": float(thresholds[row])}
         consider((over, wrong, errors, clarify), setting, gate)
     if best is None:
         raise ValueError("nothing to choose from: no parameter setting was tried")
