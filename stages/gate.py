@@ -20,7 +20,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 
 from relay.pipeline import Decision, StageContext, Utterance
 from stages.gate_confidence import ConfidenceModel, confidence
-from stages.lm_rescore import LN10, shared_model
+from stages.lm_rescore import score_tokens, shared_model
 from stages.tokens import tokenize
 
 __all__ = ["GateFeatures", "GateSettings", "GateStage", "decide"]
@@ -192,11 +192,8 @@ def _by_thresholds(features: GateFeatures, settings: GateSettings) -> tuple[Deci
 def _judged(model: Any, words: list[str]) -> dict[str, Any]:
     """How the LM sees the finished text: natural log per word (``</s>`` counted), its least
     likely word, and the words it has never seen."""
-    scores = list(model.full_scores(" ".join(words), bos=True, eos=True))
-    total = sum(log10 for log10, _, _ in scores)
-    weakest = min((log10 for log10, _, _ in scores[:-1]), default=scores[-1][0])
-    return {"text_lm_per_word": total * LN10 / len(scores), "text_lm_weakest": weakest * LN10,
-            "text_oov": sum(int(oov) for _, _, oov in scores[:-1])}
+    score = score_tokens(model, words)
+    return {"text_lm_per_word": score.per_word, "text_lm_weakest": score.weakest, "text_oov": score.oov}
 
 
 class GateStage:

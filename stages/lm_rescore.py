@@ -44,6 +44,7 @@ class LmScore:
     total: float
     words: int  # tokens scored, not counting </s>
     oov: int
+    weakest: float  # natural log of the least likely word (of </s> when there is no word)
 
     @property
     def per_word(self) -> float:
@@ -90,10 +91,14 @@ def score_tokens(model: Any, tokens: Sequence[str]) -> LmScore:
     sentence = " ".join(tokens)
     total = 0.0
     oov = 0
-    for log10_prob, _length, is_oov in model.full_scores(sentence, bos=True, eos=True):
+    count = len(tokens)
+    weakest = math.inf
+    for position, (log10_prob, _length, is_oov) in enumerate(model.full_scores(sentence, bos=True, eos=True)):
         total += log10_prob
         oov += int(is_oov)
-    return LmScore(total * LN10, len(tokens), oov)
+        if (position < count or count == 0) and log10_prob < weakest:
+            weakest = log10_prob
+    return LmScore(total * LN10, count, oov, weakest * LN10)
 
 
 def lm_per_word(hypothesis: Hypothesis) -> float | None:
