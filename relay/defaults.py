@@ -86,6 +86,12 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
         stages.append({"lexicon": params})
     else:
         _note("stage lexicon is not installed; the default chain runs without it")
-    # The gate judges the finished text with the same model (features of its learned confidence).
-    stages.append({"gate": {_GATE_LM_PARAM: str(model)}} if model is not None else "gate")
+    # The gate judges the finished text with the same model, and reads the in-domain lines as
+    # carrier phrases to notice a slot that no entity fills (features of its learned confidence).
+    gate: dict[str, Any] = {}
+    if model is not None:
+        gate[_GATE_LM_PARAM] = str(model)
+    if train is not None:
+        gate |= {"carrier_text": str(train.resolve()), "carrier_lexicon": str(lexicon.resolve())}
+    stages.append({"gate": gate} if gate else "gate")
     return {"cache_dir": str(cache_dir.resolve()), "stages": stages}

@@ -23,7 +23,7 @@ from stages.kneser_ney import RESERVED
 from stages.lexicon_data import read_lexicon
 from stages.tokens import tokenize
 
-__all__ = ["CorpusOptions", "TextFormat", "read_sentences", "read_slot_values"]
+__all__ = ["CorpusOptions", "TextFormat", "read_sentences", "read_slot_values", "read_templates"]
 
 TextFormat = Literal["auto", "plain", "csv", "jsonl"]
 
@@ -207,3 +207,26 @@ def read_sentences(
             bar.close()
     if sentences == 0:
         raise InputError("empty", f"{', '.join(map(str, paths))}: no words to build a model from")
+
+
+def read_templates(path: Path, *, options: CorpusOptions = CorpusOptions()) -> Iterator[tuple[str, list[str]]]:
+    """(location, tokens) for every non-blank line, slots kept unexpanded as ``{type}`` tokens.
+
+    "book the {machine} for {person}" gives ["book", "the", "{machine}", "for", "{person}"].
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise InputError("unreadable", f"{path}: no such file")
+    for where, text in _texts(path, options, None):
+        if len(text) > options.max_line_chars:
+            raise InputError("oversize", f"{where}: line of {len(text)} characters, limit {options.max_line_chars}")
+        tokens: list[str] = []
+        for i, piece in enumerate(_SLOT.split(text)):  # text, name, text, name, ..., text
+            if i % 2:
+                if not piece:
+                    raise InputError("unknown_slot", f"{where}: empty slot {{}}")
+                tokens.append("{" + piece + "}")
+            else:
+                tokens += _tokens(piece, where, options)
+        if tokens:
+            yield where, tokens

@@ -19,6 +19,7 @@ from typing import Any, ClassVar
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from relay.pipeline import Decision, StageContext, Utterance
+from stages.carrier_phrases import CarrierPhrases
 from stages.gate_confidence import ConfidenceModel, confidence
 from stages.lm_rescore import score_tokens, shared_model
 from stages.tokens import tokenize
@@ -82,6 +83,13 @@ class GateSettings(BaseModel):
     lm_model: Path | None = Field(
         None, description="in-domain ARPA/kenlm model that judges the finished text (features for `confidence`)"
     )
+    carrier_text: Path | None = Field(
+        None, description="in-domain text with {type} slots (FORMATS 4): a template whose slot holds everyday "
+        "words marks an entity that was missed (feature unfilled_slots for `confidence`; 'Which ...?' prompts)",
+    )
+    carrier_lexicon: Path | None = Field(
+        None, description="lexicon whose names and aliases in carrier_text's literal lines count as slots",
+    )
     confidence: ConfidenceModel | None = Field(
         None, description="learned confidence that the entities are right (written by `rehear tune`); off when unset"
     )
@@ -110,6 +118,10 @@ class GateSettings(BaseModel):
         needs_lm = sorted(n for n in (self.confidence.features if self.confidence else {}) if n.startswith("text_"))
         if needs_lm and self.lm_model is None:
             raise ValueError(f"confidence uses {', '.join(needs_lm)}, which need lm_model")
+        if self.confidence and "unfilled_slots" in self.confidence.features and self.carrier_text is None:
+            raise ValueError("confidence uses unfilled_slots, which needs carrier_text")
+        if self.carrier_lexicon is not None and self.carrier_text is None:
+            raise ValueError("carrier_lexicon is set without carrier_text")
         return self
 
 
@@ -131,6 +143,8 @@ class GateFeatures:
     text_lm_per_word: float | None = None  # natural log per word, </s> included, of the finished text
     text_lm_weakest: float | None = None  # natural log of its least likely word
     text_oov: int | None = None
+    unfilled_slots: int | None = None  # 1 when a carrier phrase has a slot no entity fills; None: no carrier_text
+    unfilled_type: str | None = None  # that slot's entity type
 
     def values(self) -> dict[str, float | None]:
         """The numeric features by name, as ``stages.gate_confidence`` reads them."""
@@ -145,6 +159,7 @@ class GateFeatures:
             "text_lm_per_word": self.text_lm_per_word,
             "text_lm_weakest": self.text_lm_weakest,
             "text_oov": None if self.text_oov is None else float(self.text_oov),
+            "unfilled_slots": None if self.unfilled_slots is None else float(self.unfilled_slots),
         }
 
 
@@ -208,6 +223,7 @@ class GateStage:
         self.settings = settings
         self.context = context
         self.lm: Any = None
+        self.carriers: CarrierPhrases | None = None
         phrases = [tuple(tokenize(p)) for p in settings.safety_words]
         self._phrases = sorted({p for p in phrases if p}, key=len, reverse=True)
         # Phrases by their first word, each with its place in the longest-first order.
@@ -220,6 +236,12 @@ class GateStage:
         path = self.settings.lm_model
         if path is not None:
             self.lm = shared_model(self.context.resolve(path))
+        if self.settings.carrier_text is not None:
+            lexicon = self.settings.carrier_lexicon
+            self.carriers = CarrierPhrases.from_files(
+                self.context.resolve(self.settings.carrier_text),
+                None if lexicon is None else self.context.resolve(lexicon),
+            )
 
     def safety_rule(self, utterance: Utterance) -> str | None:
         """Which safety rule the result trips, if any (by entity type first, then by words).
@@ -252,6 +274,11 @@ class GateStage:
         text_lm: dict[str, Any] = {}
         if self.lm is not None:
             text_lm = _judged(self.lm, words)
+        unfilled: dict[str, Any] = {}
+        if self.carriers is not None:
+            spans = [(e.span[0], e.span[1], e.type) for e in utterance.entities]
+            empty = self.carriers.unfilled(CarrierPhrases.marked(utterance.text, spans))
+            unfilled = {"unfilled_slots": int(empty is not None), "unfilled_type": empty and empty.type}
         return GateFeatures(
             posterior=top,
             margin=top - runner_up,
@@ -265,9 +292,10 @@ class GateStage:
             corrections=len(utterance.corrections),
             words=len(words),
             **text_lm,
+            **unfilled,
         )
 
-    def _prompt(self, utterance: Utterance, decision: Decision, rule: str) -> str | None:
+    def _prompt(self, utterance: Utterance, decision: Decision, rule: str, features: GateFeatures) -> str | None:
         if decision == "accept":
             return None
         about = None
@@ -278,20 +306,23 @@ class GateStage:
             corrected = {c.after for c in utterance.corrections}
             about = next((e for e in utterance.entities if e.name in corrected), None)
             about = about or min(utterance.entities, key=lambda e: e.score)
+        # Asking again with a slot that only everyday words filled: ask for that slot ("Which room?").
+        missing = features.unfilled_type if decision == "reprompt" and about is None else None
+        kind = about.type if about is not None else missing
         prompts = self.settings.prompts
-        if about is not None and about.type in self.settings.prompts_by_type:
-            prompts = self.settings.prompts_by_type[about.type]
+        if kind is not None and kind in self.settings.prompts_by_type:
+            prompts = self.settings.prompts_by_type[kind]
         if rule.startswith("safety:"):
             template = prompts.confirm_safety
         elif decision == "confirm":
             template = prompts.confirm_entity if about is not None else prompts.confirm
         else:
-            template = prompts.reprompt_entity if about is not None else prompts.reprompt
+            template = prompts.reprompt_entity if kind is not None else prompts.reprompt
         values: dict[str, Any] = {
             "text": utterance.text,
             "entity": about.name if about else "",
             "heard": about.heard if about else "",
-            "type_noun": self.settings.type_nouns.get(about.type, about.type.replace("_", " ")) if about else "",
+            "type_noun": self.settings.type_nouns.get(kind, kind.replace("_", " ")) if kind else "",
         }
         return template.format(**values)
 
@@ -299,6 +330,6 @@ class GateStage:
         features = self.features(utterance)
         decision, rule = decide(features, self.settings)
         utterance.decision = decision
-        utterance.prompt = self._prompt(utterance, decision, rule)
+        utterance.prompt = self._prompt(utterance, decision, rule, features)
         utterance.note(rule=rule, decision=decision, **{k: v for k, v in asdict(features).items()})
         return utterance

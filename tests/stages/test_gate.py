@@ -245,3 +245,39 @@ def test_an_unsure_correction_is_confirmed_by_naming_the_corrected_entity() -> N
                                              entities=[machine(0.9, name="lathe")], corrections=[fix]))
     assert (utterance.decision, utterance.trace[-1].scores["rule"]) == ("confirm", "confidence")
     assert utterance.prompt == "Did you mean lathe?"
+
+
+def _carrier_gate(tmp_path: Path) -> GateStage:
+    (tmp_path / "train.txt").write_text("meet me in {place}\nbook the {machine} for {person}\n")
+    stage = gate(carrier_text=str(tmp_path / "train.txt"), accept_confidence=0.6, reprompt_confidence=0.2,
+                 confidence={"bias": 2.0, "features": {"unfilled_slots": {"weight": -4.0, "center": 0.0, "scale": 1.0}}},
+                 type_nouns={"place": "room"}, safety_words=[])
+    stage.load()
+    return stage
+
+
+def test_a_slot_no_entity_fills_is_a_feature_and_asks_for_that_type(tmp_path: Path) -> None:
+    stage = _carrier_gate(tmp_path)
+    missed = stage.process(make_utterance([0.9, 0.1], ["meet me in they won", "meet me in day one"]))
+    assert missed.trace[-1].scores["unfilled_slots"] == 1
+    assert missed.trace[-1].scores["unfilled_type"] == "place"
+    # sigmoid(2 - 4) = 0.12, below reprompt_confidence: ask for the room, not for the whole sentence.
+    assert (missed.decision, missed.prompt) == ("reprompt", "Which room?")
+    bay = Entity(id="place.bay_1", type="place", name="bay one", span=(11, 18), heard="they won", score=0.9)
+    found = stage.process(make_utterance([0.9, 0.1], ["meet me in bay one", "other"], entities=[bay]))
+    assert found.trace[-1].scores["unfilled_slots"] == 0
+    assert found.decision == "accept"
+    other = stage.process(make_utterance([0.9, 0.1], ["what time is it", "other"]))
+    assert (other.trace[-1].scores["unfilled_slots"], other.decision) == (0, "accept")
+
+
+def test_without_carrier_text_the_feature_is_unknown() -> None:
+    features = gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"]))
+    assert features.unfilled_slots is None and features.values()["unfilled_slots"] is None
+
+
+def test_unfilled_slots_needs_carrier_text() -> None:
+    with pytest.raises(ValidationError, match="unfilled_slots, which needs carrier_text"):
+        GateSettings.model_validate({"confidence": {"features": {"unfilled_slots": {"weight": -1.0}}}})
+    with pytest.raises(ValidationError, match="carrier_lexicon is set without carrier_text"):
+        GateSettings.model_validate({"carrier_lexicon": "lexicon.csv"})

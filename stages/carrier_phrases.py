@@ -1,0 +1,172 @@
+"""Carrier phrases: the in-domain sentences around their slots, to notice a slot left empty.
+
+The commonest wrong result on real recogniser output is an entity that was never found:
+"let tomatoes hello know the tamsin lathe is ready", where the NLU training data says
+"let {person} know the {machine} is ready". Every word around the first slot is right and
+the slot holds everyday words, so no entity score can be low - there is no entity. The
+carrier words give it away. ``CarrierPhrases`` keeps the in-domain lines as templates (the
+lexicon's names and aliases in literal lines become slots too) and tells, for a finished text
+with its entities marked, which slot a template expects that no entity fills.
+
+Carrier words must match exactly. Allowing edits was tried on the workshop corpus: the best
+approximate template then "explains" most texts with a slot full of everyday words, right
+results included, and the signal drowns. A text that an all-filled template matches
+("is the {machine} on" with the kiln found) is explained and reports nothing.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+from stages.corpus_text import read_slot_values, read_templates
+from stages.tokens import tokenize
+
+__all__ = ["CarrierPhrases", "Unfilled"]
+
+_SLOT = re.compile(r"\{([^{}\s]+)\}")
+
+
+@dataclass(frozen=True, slots=True)
+class Unfilled:
+    """A template that matches the text with a slot held by plain words."""
+
+    type: str  # the first empty slot's entity type
+    words: str  # what the text has in its place
+    template: str  # the template as written, slots included
+    where: str  # file:line it came from
+
+
+@dataclass(frozen=True, slots=True)
+class _Template:
+    text: str
+    where: str
+    carrier: frozenset[str]
+    slots: tuple[str, ...]
+    pattern: re.Pattern[str]
+
+
+def _marker(kind: str) -> str:
+    return "{" + kind + "}"
+
+
+class CarrierPhrases:
+    """Templates from in-domain text; ``unfilled`` finds a slot that plain words hold."""
+
+    def __init__(self, templates: Iterable[tuple[str, Sequence[str]]], *,
+                 slot_values: dict[str, list[str]] | None = None,
+                 max_slot_words: int = 5, min_carrier_words: int = 2) -> None:
+        forms: dict[str, list[tuple[tuple[str, ...], str]]] = {}  # first word -> (form, type), longest first
+        for kind, values in (slot_values or {}).items():
+            for value in values:
+                form = tuple(tokenize(value))
+                if form:
+                    forms.setdefault(form[0], []).append((form, kind))
+        for listed in forms.values():
+            listed.sort(key=lambda pair: -len(pair[0]))
+        seen: set[tuple[str, ...]] = set()
+        self._templates: list[_Template] = []
+        for where, tokens in templates:
+            marked = tuple(self._slotted(list(tokens), forms))
+            if marked in seen:
+                continue
+            seen.add(marked)
+            carrier = [t for t in marked if not _SLOT.fullmatch(t)]
+            if len(carrier) < min_carrier_words:
+                continue
+            self._templates.append(_Template(
+                text=" ".join(marked), where=where, carrier=frozenset(carrier),
+                slots=tuple(m.group(1) for t in marked if (m := _SLOT.fullmatch(t))),
+                pattern=self._compile(marked, max_slot_words),
+            ))
+        # Each template is filed under its rarest carrier word: a text can only match templates
+        # filed under one of its own words, so few patterns are ever tried.
+        counts: dict[str, int] = {}
+        for template in self._templates:
+            for word in template.carrier:
+                counts[word] = counts.get(word, 0) + 1
+        self._by_word: dict[str, list[_Template]] = {}
+        for template in self._templates:
+            key = min(template.carrier, key=lambda w: (counts[w], w))
+            self._by_word.setdefault(key, []).append(template)
+
+    @classmethod
+    def from_files(cls, text: Path, lexicon: Path | None = None, **options: int) -> CarrierPhrases:
+        """Templates from an in-domain text file (FORMATS section 4), literal names turned into
+        slots with the lexicon's names and aliases when a lexicon is given."""
+        values = read_slot_values(lexicon) if lexicon is not None else None
+        return cls(read_templates(text), slot_values=values, **options)
+
+    def __len__(self) -> int:
+        return len(self._templates)
+
+    @staticmethod
+    def _slotted(tokens: list[str], forms: dict[str, list[tuple[tuple[str, ...], str]]]) -> list[str]:
+        out: list[str] = []
+        i = 0
+        while i < len(tokens):
+            for form, kind in forms.get(tokens[i], ()):
+                if tuple(tokens[i:i + len(form)]) == form:
+                    out.append(_marker(kind))
+                    i += len(form)
+                    break
+            else:
+                out.append(tokens[i])
+                i += 1
+        return out
+
+    @staticmethod
+    def _compile(marked: Sequence[str], max_slot_words: int) -> re.Pattern[str]:
+        parts = []
+        for index, token in enumerate(marked):
+            slot = _SLOT.fullmatch(token)
+            if slot is None:
+                parts.append(re.escape(token))
+            else:
+                # Either the entity marker of that type, or 1..max_slot_words plain words (group s<i>).
+                words = rf"(?:[^{{}} ]+ ){{0,{max_slot_words - 1}}}[^{{}} ]+"
+                parts.append(rf"(?:{re.escape(token)}|(?P<s{index}>{words}))")
+        return re.compile(" ".join(parts))
+
+    def unfilled(self, tokens: Sequence[str]) -> Unfilled | None:
+        """The best template match with an empty slot, for tokens in which entities are already
+        replaced by ``{type}`` markers; None when no template matches, or one matches with every
+        slot filled by an entity (the text is explained)."""
+        present = set(tokens)
+        line = " ".join(tokens)
+        best: tuple[int, Unfilled] | None = None
+        for word in present:
+            for template in self._by_word.get(word, ()):
+                if not template.carrier <= present:
+                    continue
+                match = template.pattern.fullmatch(line)
+                if match is None:
+                    continue
+                empty = [(name, words) for name, words in match.groupdict().items() if words is not None]
+                if not empty:
+                    return None
+                # Fewest plain words in slots: the template that explains most of the text.
+                spread = sum(len(words.split()) for _, words in empty)
+                name, words = empty[0]
+                kind = _SLOT.fullmatch(template.text.split(" ")[int(name[1:])])
+                assert kind is not None
+                found = Unfilled(type=kind.group(1), words=words, template=template.text, where=template.where)
+                if best is None or (spread, found.template) < (best[0], best[1].template):
+                    best = (spread, found)
+        return None if best is None else best[1]
+
+    @staticmethod
+    def marked(text: str, spans: Iterable[tuple[int, int, str]]) -> list[str]:
+        """Tokens of ``text`` with each (start, end, type) entity span replaced by its marker."""
+        tokens: list[str] = []
+        at = 0
+        for start, end, kind in sorted(spans):
+            if start < at:
+                continue  # overlapping spans: the first one stands
+            tokens += tokenize(text[at:start])
+            tokens.append(_marker(kind))
+            at = end
+        tokens += tokenize(text[at:])
+        return tokens
