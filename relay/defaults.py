@@ -25,6 +25,7 @@ _LEXICON_PARAM = "lexicon"
 _SPEAKERS_PARAM = "speakers"
 _GATE_LM_PARAM = "lm_model"  # the gate's in-domain LM, which judges the finished text
 _LEXICON_LM_PARAM = "lm_model"  # the lexicon stage's in-domain LM for its context term
+_LEXICON_CARRIER_PARAM = "carrier_text"  # in-domain lines whose slots, held by everyday words, it fills
 # Words that announce a person in workshop-style requests ("call ...", "book it for ...").
 # With them, person names are also looked for with a looser phone floor where the in-domain
 # LM agrees (the lexicon stage's slot settings); see docs/lexicon.md for the measured effect.
@@ -81,6 +82,8 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
             params[_SPEAKERS_PARAM] = str(speakers.resolve())
         if model is not None:
             params[_LEXICON_LM_PARAM] = str(model)
+        if train is not None:
+            params[_LEXICON_CARRIER_PARAM] = str(train.resolve())
         params |= {key: value.copy() if isinstance(value, (dict, list)) else value
                    for key, value in _LEXICON_EXTRAS.items()}
         stages.append({"lexicon": params})

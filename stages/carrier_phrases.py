@@ -37,6 +37,8 @@ class Unfilled:
     words: str  # what the text has in its place
     template: str  # the template as written, slots included
     where: str  # file:line it came from
+    start: int = 0  # the slot's token range in the tokens searched
+    end: int = 0
 
 
 @dataclass(frozen=True, slots=True)
@@ -152,7 +154,9 @@ class CarrierPhrases:
                 name, words = empty[0]
                 kind = _SLOT.fullmatch(template.text.split(" ")[int(name[1:])])
                 assert kind is not None
-                found = Unfilled(type=kind.group(1), words=words, template=template.text, where=template.where)
+                start = line.count(" ", 0, match.start(name))
+                found = Unfilled(type=kind.group(1), words=words, template=template.text, where=template.where,
+                                 start=start, end=start + len(words.split(" ")))
                 if best is None or (spread, found.template) < (best[0], best[1].template):
                     best = (spread, found)
         return None if best is None else best[1]

@@ -17,6 +17,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from relay.errors import StageError
 from relay.pipeline import Correction, Entity, StageContext, Utterance
+from stages.carrier_phrases import CarrierPhrases
 from stages.lexicon_compile import CompiledLexicon, load_compiled
 from stages.lexicon_context import ContextScorer
 from stages.lexicon_data import read_speakers
@@ -74,6 +75,10 @@ class LexiconSettings(BaseModel):
     slot_floors: dict[str, float] = Field(default_factory=dict, description="type -> its own slot_min_phone")
     slot_hypotheses: int = Field(10, ge=1, le=50, description="hypotheses searched for slots, likeliest first")
     slot_min_pooled: float = Field(0.0, ge=0, le=1, description="least slot phone similarity pooled by posterior")
+    carrier_text: Path | None = Field(None, description="in-domain text whose lines, as templates, mark a slot that everyday words hold")
+    carrier_min_phone: float = Field(0.7, ge=0, le=1, description="least phone similarity for a carrier slot match")
+    carrier_margin: float = Field(0.03, ge=0, le=1, description="least phone lead of a carrier slot match over another entry")
+    carrier_hypotheses: int = Field(3, ge=1, le=50, description="hypotheses read for a carrier phrase, likeliest first")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
 
     @model_validator(mode="after")
@@ -130,6 +135,10 @@ class LexiconStage:
         self.affinity = read_speakers(self.context.resolve(s.speakers), ids) if s.speakers else {}
         self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
         self.slots: dict[str, SlotForms] = slot_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
+        self.carriers = None if s.carrier_text is None else CarrierPhrases.from_files(
+            self.context.resolve(s.carrier_text), self.context.resolve(s.lexicon))
+        self.carrier_slots = {} if self.carriers is None else slot_forms(
+            self.compiled, sorted({entry.type for entry in self.compiled.entries}))
         self.lm = shared_model(self.context.resolve(s.lm_model)) if s.lm_model is not None and (s.lm_weight or s.lm_loss_weight) else None
 
     def process(self, utterance: Utterance) -> Utterance:
@@ -173,7 +182,79 @@ class LexiconStage:
             if context is None and self.lm is not None:
                 context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
             placed += self._slot_recall(utterance, best, placed, blocked, context)
-        return self._finish(utterance, best, placed, blocked, choices)
+        carrier: dict[str, Any] | None = None
+        if self.carriers is not None:
+            if context is None and self.lm is not None:
+                context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
+            found, carrier = self._carrier_recall(self.carriers, utterance, best, placed, context)
+            placed += found
+        self._finish(utterance, best, placed, blocked, choices)
+        if carrier is not None:
+            utterance.note(carrier=carrier)
+        return utterance
+
+    def _carrier_recall(self, carriers: CarrierPhrases, utterance: Utterance, best: int, placed: list[_Choice],
+                        context: ContextScorer | None) -> tuple[list[_Choice], dict[str, Any] | None]:
+        """The entry of the type a carrier phrase expects where everyday words hold its slot.
+
+        With the entities found so far marked, an in-domain line that matches a hypothesis
+        word for word except for one slot pins down both the slot's words and its type ("meet
+        me in they won" against "meet me in {place}"), so those exact words are aligned with
+        every form of that type, with a floor of their own and a lead over the next entry. The
+        LM gain is only traced: on the workshop corpus, wrong fills gained as much as right ones.
+        The best hypothesis is read first, then the likeliest others, up to
+        ``carrier_hypotheses``; the first that a template matches decides. Returns the match
+        (if any) and what the trace records.
+        """
+        s = self.settings
+        lexicon = self._lexicon
+        nbest = utterance.nbest
+        tokens = nbest[best].tokens
+        order = [best] + sorted((h for h in range(len(nbest)) if h != best),
+                                key=lambda h: -nbest[h].posterior)[: s.carrier_hypotheses - 1]
+        for source in order:
+            heard = nbest[source].tokens
+            spans = sorted((map_span(tokens, heard, c.start, c.end), lexicon.entries[c.evidence.entry].type)
+                           for c in placed)
+            marked: list[str] = []
+            where: list[int] = []  # marked position -> token position in the hypothesis
+            at = 0
+            for (start, end), kind in spans:
+                if start < at or end <= start:
+                    continue
+                marked += heard[at:start] + ["{" + kind + "}"]
+                where += list(range(at, start + 1))
+                at = end
+            marked += heard[at:]
+            where += list(range(at, len(heard)))
+            empty = carriers.unfilled(marked)
+            if empty is not None and empty.type in self.carrier_slots:
+                break
+        else:
+            return [], None
+        start, end = where[empty.start], where[empty.end - 1] + 1
+        note: dict[str, Any] = {"template": empty.template, "where": empty.where, "heard": empty.words,
+                                "type": empty.type, "hypothesis": source}
+        phones = "".join(self.pronouncer.word(token) for token in heard[start:end])
+        matches = slot_matches([SlotHypothesis([phones], [0])], self.carrier_slots[empty.type], lexicon, self.costs,
+                               max_words=1, min_phone=0.0, min_edit=s.slot_min_edit)
+        if not matches:
+            return [], note | {"guard": "carrier_phone"}
+        match = matches[0]
+        form = lexicon.forms[match.form]
+        start, end = map_span(heard, tokens, start, end)
+        gain = context.gain(start, end, form.text.split()) if context is not None else 0.0
+        note |= {"id": lexicon.entries[form.entry].id, "form": form.text, "phone": round(match.phone, 4),
+                 "runner_up": round(match.runner_up, 4), "lm_gain": round(gain, 3)}
+        if match.phone < s.carrier_min_phone:
+            return [], note | {"guard": "carrier_phone"}
+        if match.phone - match.runner_up < s.carrier_margin:
+            return [], note | {"guard": "carrier_margin"}
+        if end <= start or any(c.evidence.entry == form.entry or (c.start < end and start < c.end) for c in placed):
+            return [], note | {"guard": "overlap"}
+        support = {source: (match.phone, start, end, match.form, False)}
+        return [_Choice(Evidence(form.entry, match.phone, support), match.phone, start, end, match.form,
+                        False, False, gain)], note
 
     def _slot_recall(self, utterance: Utterance, best: int, placed: list[_Choice], blocked: list[dict[str, Any]],
                      context: ContextScorer | None) -> list[_Choice]:

@@ -1,4 +1,4 @@
-"""The default chain hands its language model to the lexicon stage as well as to lm_rescore."""
+"""The default chain hands its language model and in-domain text to the lexicon stage as well."""
 
 from __future__ import annotations
 
@@ -21,10 +21,12 @@ def test_lexicon_stage_gets_the_models_path_and_loads_it(tmp_path: Path) -> None
         raw = default_config(lexicon=lexicon, train=train, speakers=None, cache_dir=tmp_path / "cache")
     params = {name: p for item in raw["stages"] if isinstance(item, dict) for name, p in item.items()}
     assert params["lexicon"]["lm_model"] == params["lm_rescore"]["model"]
+    assert params["lexicon"]["carrier_text"] == str(train.resolve())
     chain = build_chain(config_from_dict(raw, base_dir=tmp_path))
     chain.load()
     lexicon_stage = chain.stages[chain.names.index("lexicon")]
     assert lexicon_stage.lm is not None  # type: ignore[attr-defined]
+    assert len(lexicon_stage.carriers) == 3  # type: ignore[attr-defined]
 
 
 def test_default_chain_carries_person_hints_and_slots(tmp_path: Path) -> None:
@@ -34,6 +36,7 @@ def test_default_chain_carries_person_hints_and_slots(tmp_path: Path) -> None:
     params = {name: p for item in raw["stages"] if isinstance(item, dict) for name, p in item.items()}
     assert "call" in params["lexicon"]["type_hints"]["person"]
     assert params["lexicon"]["slot_types"] == ["person", "machine"]
+    assert "carrier_text" not in params["lexicon"]  # no in-domain text, no carrier phrases
     assert params["lexicon"]["slot_floors"]["machine"] > params["lexicon"].get("slot_min_phone", 0.68)  # stricter than persons'
     chain = build_chain(config_from_dict(raw, base_dir=tmp_path))
     chain.load()

@@ -35,6 +35,7 @@ def test_a_slot_held_by_everyday_words_is_reported_with_its_type_and_words() -> 
     found = phrases().unfilled("let tomatoes hello know the {machine} is ready".split())
     assert found is not None
     assert (found.type, found.words, found.where) == ("person", "tomatoes hello", "train.txt:1")
+    assert (found.start, found.end) == (1, 3)  # the slot's tokens
     assert found.template == "let {person} know the {machine} is ready"
 
 
