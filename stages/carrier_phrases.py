@@ -48,6 +48,7 @@ class _Template:
     carrier: frozenset[str]
     slots: tuple[str, ...]
     pattern: re.Pattern[str]
+    loose: int = 0  # carrier words that may be any word
 
 
 def _marker(kind: str) -> str:
@@ -59,7 +60,7 @@ class CarrierPhrases:
 
     def __init__(self, templates: Iterable[tuple[str, Sequence[str]]], *,
                  slot_values: dict[str, list[str]] | None = None,
-                 max_slot_words: int = 5, min_carrier_words: int = 2) -> None:
+                 max_slot_words: int = 5, min_carrier_words: int = 2, loose_from: int = 0) -> None:
         forms: dict[str, list[tuple[tuple[str, ...], str]]] = {}  # first word -> (form, type), longest first
         for kind, values in (slot_values or {}).items():
             for value in values:
@@ -78,11 +79,18 @@ class CarrierPhrases:
             carrier = [t for t in marked if not _SLOT.fullmatch(t)]
             if len(carrier) < min_carrier_words:
                 continue
-            self._templates.append(_Template(
-                text=" ".join(marked), where=where, carrier=frozenset(carrier),
-                slots=tuple(m.group(1) for t in marked if (m := _SLOT.fullmatch(t))),
-                pattern=self._compile(marked, max_slot_words),
-            ))
+            slots = tuple(m.group(1) for t in marked if (m := _SLOT.fullmatch(t)))
+            self._templates.append(_Template(text=" ".join(marked), where=where, carrier=frozenset(carrier),
+                                             slots=slots, pattern=self._compile(marked, max_slot_words)))
+            if loose_from and len(carrier) >= loose_from and slots:
+                # Long lines also match with any one carrier word misheard ("he has the key for
+                # ..." against "who has the key for {place}").
+                for at, token in enumerate(marked):
+                    if _SLOT.fullmatch(token) is None:
+                        rest = [t for i, t in enumerate(marked) if i != at and _SLOT.fullmatch(t) is None]
+                        self._templates.append(_Template(
+                            text=" ".join(marked), where=where, carrier=frozenset(rest), slots=slots,
+                            pattern=self._compile(marked, max_slot_words, loose=at), loose=1))
         # Each template is filed under its rarest carrier word: a text can only match templates
         # filed under one of its own words, so few patterns are ever tried.
         counts: dict[str, int] = {}
@@ -102,7 +110,8 @@ class CarrierPhrases:
         return cls(read_templates(text), slot_values=values, **options)
 
     def __len__(self) -> int:
-        return len(self._templates)
+        """Lines kept as templates (loose variants not counted)."""
+        return sum(1 for t in self._templates if not t.loose)
 
     @staticmethod
     def _slotted(tokens: list[str], forms: dict[str, list[tuple[tuple[str, ...], str]]]) -> list[str]:
@@ -120,11 +129,13 @@ class CarrierPhrases:
         return out
 
     @staticmethod
-    def _compile(marked: Sequence[str], max_slot_words: int) -> re.Pattern[str]:
+    def _compile(marked: Sequence[str], max_slot_words: int, loose: int = -1) -> re.Pattern[str]:
         parts = []
         for index, token in enumerate(marked):
             slot = _SLOT.fullmatch(token)
-            if slot is None:
+            if index == loose:
+                parts.append(r"[^{} ]+")
+            elif slot is None:
                 parts.append(re.escape(token))
             else:
                 # Either the entity marker of that type, or 1..max_slot_words plain words (group s<i>).
@@ -138,7 +149,7 @@ class CarrierPhrases:
         slot filled by an entity (the text is explained)."""
         present = set(tokens)
         line = " ".join(tokens)
-        best: tuple[int, Unfilled] | None = None
+        best: tuple[int, int, Unfilled] | None = None
         for word in present:
             for template in self._by_word.get(word, ()):
                 if not template.carrier <= present:
@@ -157,9 +168,9 @@ class CarrierPhrases:
                 start = line.count(" ", 0, match.start(name))
                 found = Unfilled(type=kind.group(1), words=words, template=template.text, where=template.where,
                                  start=start, end=start + len(words.split(" ")))
-                if best is None or (spread, found.template) < (best[0], best[1].template):
-                    best = (spread, found)
-        return None if best is None else best[1]
+                if best is None or (template.loose, spread, found.template) < (best[0], best[1], best[2].template):
+                    best = (template.loose, spread, found)
+        return None if best is None else best[2]
 
     @staticmethod
     def marked(text: str, spans: Iterable[tuple[int, int, str]]) -> list[str]:

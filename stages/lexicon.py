@@ -79,6 +79,7 @@ class LexiconSettings(BaseModel):
     carrier_min_phone: float = Field(0.7, ge=0, le=1, description="least phone similarity for a carrier slot match")
     carrier_margin: float = Field(0.03, ge=0, le=1, description="least phone lead of a carrier slot match over another entry")
     carrier_hypotheses: int = Field(3, ge=1, le=50, description="hypotheses read for a carrier phrase, likeliest first")
+    carrier_loose_from: int = Field(3, ge=0, le=20, description="lines with at least this many carrier words also match with one of them misheard (0: exact only)")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
 
     @model_validator(mode="after")
@@ -136,7 +137,7 @@ class LexiconStage:
         self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
         self.slots: dict[str, SlotForms] = slot_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
         self.carriers = None if s.carrier_text is None else CarrierPhrases.from_files(
-            self.context.resolve(s.carrier_text), self.context.resolve(s.lexicon))
+            self.context.resolve(s.carrier_text), self.context.resolve(s.lexicon), loose_from=s.carrier_loose_from)
         self.carrier_slots = {} if self.carriers is None else slot_forms(
             self.compiled, sorted({entry.type for entry in self.compiled.entries}))
         self.lm = shared_model(self.context.resolve(s.lm_model)) if s.lm_model is not None and (s.lm_weight or s.lm_loss_weight) else None

@@ -96,3 +96,20 @@ def test_a_bad_line_is_reported_with_file_and_line(tmp_path: Path) -> None:
     path.write_text("meet me in {}\n")
     with pytest.raises(InputError, match=r"train.txt:1: empty slot"):
         CarrierPhrases.from_files(path)
+
+
+def test_long_lines_can_match_with_one_carrier_word_misheard() -> None:
+    lines = ["who has the key for {place}", "meet me in {place}", "who has the key for the {machine}"]
+    exact, loose = phrases(lines), phrases(lines, loose_from=3)
+    heard = "he has the key for bait to".split()
+    assert exact.unfilled(heard) is None
+    found = loose.unfilled(heard)
+    assert found is not None and (found.type, found.words) == ("place", "bait to")
+    assert found.template == "who has the key for {place}"  # written as in the text, not with the wildcard
+    # Only one word may differ, and short lines (three carrier words: "meet me in") stay exact...
+    assert loose.unfilled("he had the key for bait to".split()) is None
+    assert phrases(lines, loose_from=4).unfilled("meat me in they won".split()) is None
+    # ... and an exact match is preferred to a loose one (here the loose one would sort first).
+    both = phrases(["who has a key for {place}", "who has the key for {machine}"], loose_from=3)
+    found = both.unfilled("who has the key for the kiln".split())
+    assert found is not None and (found.type, found.words) == ("machine", "the kiln")
