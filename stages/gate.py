@@ -204,6 +204,19 @@ def _by_thresholds(features: GateFeatures, settings: GateSettings) -> tuple[Deci
     return decision, rule
 
 
+def _without(words: tuple[str, ...], names: set[tuple[str, ...]]) -> tuple[str, ...]:
+    """``words`` with every occurrence of one of ``names`` replaced by one empty token."""
+    if not names:
+        return words
+    out: list[str] = []
+    i = 0
+    while i < len(words):
+        name = max((n for n in names if words[i:i + len(n)] == n), key=len, default=None)
+        out.append("" if name else words[i])
+        i += len(name) if name else 1
+    return tuple(out)
+
+
 def _judged(model: Any, words: list[str]) -> dict[str, Any]:
     """How the LM sees the finished text: natural log per word (``</s>`` counted), its least
     likely word, and the words it has never seen."""
@@ -248,14 +261,20 @@ class GateStage:
 
         A likely runner-up counts too: "stat the lathe" on top of "start the lathe" may
         well have been a start command, and accepting it must not be how one slips through.
+        Words inside a found entity's name do not count (entity types have their own rule).
         """
         for entity in utterance.entities:
             if entity.type in self._types:
                 return f"type:{entity.type}"
-        texts = [utterance.text]
-        texts += [h.text for h in utterance.ranked() if h.posterior >= self.settings.safety_min_posterior]
-        for text in texts:
-            words = tuple(tokenize(text))
+        # A word inside an entity's name is part of the name, not an order: "the heron lift is
+        # making a noise" names a machine; "lift the pallet" still asks. In the result the
+        # entities' spans are left out; in a runner-up, the same names and the words heard for them.
+        spans = [(e.span[0], e.span[1], e.type) for e in utterance.entities]
+        names = {tuple(tokenize(form)) for e in utterance.entities for form in (e.name, e.heard)} - {()}
+        texts = [(utterance.text, tuple(CarrierPhrases.marked(utterance.text, spans)))]
+        texts += [(h.text, _without(tuple(tokenize(h.text)), names)) for h in utterance.ranked()
+                  if h.posterior >= self.settings.safety_min_posterior]
+        for text, words in texts:
             found = [(order, phrase) for i, word in enumerate(words) for order, phrase in self._starting.get(word, ())
                      if words[i:i + len(phrase)] == phrase]
             if found:

@@ -281,3 +281,23 @@ def test_unfilled_slots_needs_carrier_text() -> None:
         GateSettings.model_validate({"confidence": {"features": {"unfilled_slots": {"weight": -1.0}}}})
     with pytest.raises(ValidationError, match="carrier_lexicon is set without carrier_text"):
         GateSettings.model_validate({"carrier_lexicon": "lexicon.csv"})
+
+
+def test_a_safety_word_inside_an_entity_name_is_part_of_the_name() -> None:
+    text = "the heron lift is making a grinding noise"
+    lift = Entity(id="machine.heron_lift", type="machine", name="heron lift", span=(4, 14), heard="heron lift",
+                  score=0.95)
+    # The runner-up holds the name too: it is masked there as well.
+    quiet = gate().process(make_utterance([0.8, 0.2], [text, "the heron lift is making a grinding noises"],
+                                          entities=[lift]))
+    assert quiet.trace[-1].scores["safety_rule"] is None
+    assert quiet.decision == "accept"
+    # The verb outside the name still asks, in the result ...
+    order = "lift the heron lift"
+    lifted = Entity(id="machine.heron_lift", type="machine", name="heron lift", span=(9, 19), heard="heron lift",
+                    score=0.95)
+    asked = gate().process(make_utterance([0.9, 0.1], [order, "x"], entities=[lifted]))
+    assert (asked.decision, asked.trace[-1].scores["rule"]) == ("confirm", "safety:word:lift")
+    # ... and in a likely runner-up.
+    runner = gate().process(make_utterance([0.8, 0.2], [text, "lift the heron lift now"], entities=[lift]))
+    assert runner.trace[-1].scores["rule"] == "safety:word:lift (runner-up)"
