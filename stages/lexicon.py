@@ -9,6 +9,7 @@ text of the best hypothesis. Every guard that stops a change is written to the t
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, ClassVar
@@ -16,7 +17,7 @@ from typing import Any, ClassVar
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from relay.errors import StageError
-from relay.pipeline import Correction, Entity, StageContext, Utterance
+from relay.pipeline import Correction, Entity, Hypothesis, StageContext, Utterance
 from stages.carrier_phrases import CarrierPhrases
 from stages.lexicon_compile import CompiledLexicon, load_compiled
 from stages.lexicon_context import ContextScorer
@@ -99,6 +100,12 @@ class _Choice:
     exact: bool
     hint_missing: bool
     lm_gain: float = 0.0
+
+
+def _likeliest(nbest: Sequence[Hypothesis], best: int, count: int) -> list[int]:
+    """``best`` and then the likeliest other hypotheses, ``count`` in all."""
+    others = sorted((h for h in range(len(nbest)) if h != best), key=lambda h: -nbest[h].posterior)
+    return [best] + others[: count - 1]
 
 
 class LexiconStage:
@@ -211,8 +218,7 @@ class LexiconStage:
         lexicon = self._lexicon
         nbest = utterance.nbest
         tokens = nbest[best].tokens
-        order = [best] + sorted((h for h in range(len(nbest)) if h != best),
-                                key=lambda h: -nbest[h].posterior)[: s.carrier_hypotheses - 1]
+        order = _likeliest(nbest, best, s.carrier_hypotheses)
         for source in order:
             heard = nbest[source].tokens
             spans = sorted((map_span(tokens, heard, c.start, c.end), lexicon.entries[c.evidence.entry].type)
@@ -272,8 +278,7 @@ class LexiconStage:
         lexicon = self._lexicon
         nbest = utterance.nbest
         tokens = nbest[best].tokens
-        order = [best] + sorted((h for h in range(len(nbest)) if h != best),
-                                key=lambda h: -nbest[h].posterior)[: s.slot_hypotheses - 1]
+        order = _likeliest(nbest, best, s.slot_hypotheses)
         sounds = [[self.pronouncer.word(token) for token in nbest[h].tokens] for h in order]
         posteriors = [nbest[h].posterior for h in order]
         taken = [(c.start, c.end) for c in placed]
