@@ -29,7 +29,7 @@ from stages.respell import RespellError
 
 __all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys", "word_run_keys"]
 
-COMPILE_FORMAT = "lexicon-compiled-6"
+COMPILE_FORMAT = "lexicon-compiled-7"
 
 
 @lru_cache(maxsize=65536)

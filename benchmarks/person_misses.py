@@ -1,0 +1,182 @@
+"""Where the lexicon stage loses the entity mentions it misses, one line per mention and counts per cause.
+
+Runs a configured chain over a labelled corpus and, for every reference mention of the chosen
+type (default person) that the chain did not report, follows the entry through the stage's
+steps with the stage's own settings and names the first step it does not pass:
+
+- ``say_unused``: the form the speaker said was not pronounced from the entry's `say` field
+  (an alias of an entry whose `say` cannot be split by name word), noted beside the cause;
+- ``not_retrieved``: no span of any hypothesis brought a form of the entry out of the phone index
+  (``candidates`` per span, ``min_retrieval``);
+- ``pair_floors``: retrieved, but every pair fell below ``min_edit``, ``min_phone`` or ``pair_floor``;
+- ``weak``: scored, but not among the strongest entries or under ``pair_floor`` after pooling
+  and priors, so no guard was even asked;
+- a guard's name (``min_score``, ``common_words``, ``margin``, ``short_form``, ``type_hint``,
+  ``exact_text_kept``, ``overlap``, ``superseded``) when the trace shows the general matcher
+  blocked it, with the score it had;
+- ``slot_*``/``carrier_*``: only the slot or carrier path saw it and its guard stopped it.
+
+Beside the cause each line gives the best phone similarity any span of the N-best reaches with
+the said form ("reach", the most any threshold could allow), that span, the index's Dice score
+and rank of the form for it (how far down ``candidates`` would have to go), and any other entry
+of the type reported instead.
+
+    python benchmarks/person_misses.py examples/workshop/corpus.jsonl \
+        --config examples/workshop/relay.yaml --where 'snr_db!=15'
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections import Counter
+from pathlib import Path
+from typing import Any
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+from relay.config import build_chain, load_config
+from relay.corpus import parse_filter, read_corpus
+from stages.lexicon import LexiconStage
+from stages.lexicon_match import find_spans, score_spans
+from stages.lexicon_slots import SlotForms, SlotHypothesis, slot_anchors, slot_matches
+from stages.phonetics import batch_similarity
+from stages.tokens import tokenize
+
+
+def _lexicon_stage(chain: Any) -> LexiconStage:
+    for stage in chain.stages:
+        if isinstance(stage, LexiconStage):
+            return stage
+    raise SystemExit("the chain has no lexicon stage")
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("corpus", type=Path, help="labelled corpus (JSONL, FORMATS section 5)")
+    parser.add_argument("--config", type=Path, required=True, help="relay configuration whose chain is measured")
+    parser.add_argument("--where", action="append", default=[], metavar="TAG=VALUE|TAG!=VALUE",
+                        help="keep only utterances whose tags match (repeatable), e.g. snr_db!=15")
+    parser.add_argument("--type", default="person", help="entity type to follow (default person)")
+    parser.add_argument("--quiet", action="store_true", help="counts only, no line per mention")
+    args = parser.parse_args(argv)
+    filters = [parse_filter(text) for text in args.where]
+    items = [item for item in read_corpus(args.corpus) if all(f(item) for f in filters)]
+    chain = build_chain(load_config(args.config))
+    chain.load()
+    stage = _lexicon_stage(chain)
+    settings = stage.settings
+    lexicon = stage._lexicon
+    by_id = {entry.id: number for number, entry in enumerate(lexicon.entries)}
+    forms_of: dict[int, list[int]] = {}
+    for number, form in enumerate(lexicon.forms):
+        forms_of.setdefault(form.entry, []).append(number)
+
+    causes: Counter[str] = Counter()
+    reach: Counter[str] = Counter()
+    slot_causes: Counter[str] = Counter()
+    say_unused = 0
+    mentions = found_count = 0
+    for item in items:
+        utterance = chain.process(item.utterance())
+        reported = {e.id for e in utterance.entities}
+        trace = next((t.scores for t in utterance.trace if t.stage == stage.name), {})
+        for entity_id, text in item.entity_texts:
+            if not entity_id.startswith(args.type + "."):
+                continue
+            mentions += 1
+            if entity_id in reported:
+                found_count += 1
+                continue
+            entry = by_id[entity_id]
+            record = lexicon.entries[entry]
+            said = " ".join(tokenize(text))
+            said_forms = [f for f in forms_of[entry] if lexicon.forms[f].text == said] or forms_of[entry]
+            unused = bool(record.say) and any(
+                lexicon.forms[f].phones == stage.pronouncer.words(lexicon.forms[f].text.split())
+                for f in said_forms)
+            say_unused += unused
+
+            nbest = utterance.nbest
+            spans = find_spans(nbest, settings.max_span_words or lexicon.max_words + 1, stage.pronouncer)
+            # The most any threshold could allow: the best phone similarity of any span and the said form.
+            queries = [q for q in range(len(spans)) for _ in said_forms]
+            targets = [lexicon.forms[f].phones for _ in range(len(spans)) for f in said_forms]
+            similarity = batch_similarity([spans.phones[q] for q in queries], targets, stage.costs)
+            top = int(similarity.argmax())
+            best_span, best_form, best_phone = queries[top], said_forms[top % len(said_forms)], float(similarity[top])
+            wide = lexicon.index.search([spans.phones[best_span]], k=len(lexicon.forms), min_score=0.0)
+            ranked = wide.item.tolist()
+            rank = next((i + 1 for i, f in enumerate(ranked) if lexicon.forms[f].entry == entry), None)
+            dice = float(wide.score[rank - 1]) if rank is not None else 0.0
+
+            hits = lexicon.index.search(spans.phones, k=settings.candidates, min_score=settings.min_retrieval)
+            retrieved = any(lexicon.forms[f].entry == entry for f in hits.item.tolist())
+            pairs = score_spans(spans, lexicon, stage.weights, stage.costs)
+            paired = [p for p in pairs if lexicon.forms[p[1]].entry == entry]
+            blocked = [b for b in trace.get("blocked", []) if b["id"] == entity_id]
+            general = [b for b in blocked if not b["guard"].startswith(("slot_", "carrier_"))]
+            slot = [b for b in blocked if b["guard"].startswith("slot_")]
+            carrier = trace.get("carrier") or {}
+            if general:
+                worst = max(general, key=lambda b: b["score"])
+                cause, detail = worst["guard"], f"score {worst['score']:.3f} heard {worst['heard']!r}"
+            elif slot:
+                worst = max(slot, key=lambda b: b["score"])
+                cause, detail = worst["guard"], f"phone {worst['score']:.3f} heard {worst['heard']!r} lm {worst['lm_gain']}"
+            elif carrier.get("id") == entity_id and "guard" in carrier:
+                cause, detail = carrier["guard"], f"phone {carrier.get('phone')} heard {carrier.get('heard')}"
+            elif not retrieved:
+                cause, detail = "not_retrieved", ""
+            elif not paired:
+                cause, detail = "pair_floors", ""
+            else:
+                strongest = max(p[2] for p in paired)
+                cause, detail = "weak", f"best pair {strongest:.3f}"
+            slot_note = ""
+            if cause in ("not_retrieved", "pair_floors", "weak") and record.type in stage.slots:
+                # The slot path's second chance: the entry's best phone similarity after an anchor.
+                hints = stage.hints.get(record.type, set()) | set(settings.slot_hints.get(record.type, ()))
+                order = sorted(range(len(nbest)), key=lambda h: (h != nbest.index(utterance.best), -nbest[h].posterior))
+                searched = [SlotHypothesis([stage.pronouncer.word(t) for t in nbest[h].tokens],
+                                           slot_anchors(nbest[h].tokens, hints, at_start=settings.slot_at_start))
+                            for h in order[: settings.slot_hypotheses]]
+                floor = settings.slot_floors.get(record.type, settings.slot_min_phone)
+                # Aligned with this entry's slot forms alone and no edit screen: what it could reach there.
+                own = tuple(f for f in stage.slots[record.type].forms if lexicon.forms[f].entry == entry)
+                alone = SlotForms(record.type, own, tuple(lexicon.forms[f].phones for f in own))
+                mine = slot_matches(searched, alone, lexicon, stage.costs, max_words=settings.slot_max_words,
+                                    min_phone=0.0, min_edit=0.0)
+                if not any(h.anchors for h in searched):
+                    slot_note, slot_cause = "slot: no anchor", "no_anchor"
+                elif not mine:
+                    slot_note, slot_cause = "slot: no slot form (too short)", "no_form"
+                else:
+                    top_match = max(mine, key=lambda m: m.phone)
+                    slot_cause = "under_floor" if top_match.phone < floor else "over_floor"
+                    slot_note = (f"slot: best {top_match.phone:.3f} (floor {floor}) on "
+                                 f"{' '.join(nbest[order[top_match.hypothesis]].tokens[top_match.start:top_match.end])!r}")
+                slot_causes[slot_cause] += 1
+            causes[cause] += 1
+            band = "<0.60" if best_phone < 0.6 else "0.60-0.70" if best_phone < 0.7 else ">=0.70"
+            reach[band] += 1
+            instead = sorted(i for i in reported - item.entity_ids if i.startswith(args.type + "."))
+            if not args.quiet:
+                print(f"{item.id} {said!r:24s} {cause:15s} {detail}")
+                print(f"    first {nbest[0].text!r}; reach {best_phone:.3f} on {spans.texts[best_span]!r}"
+                      f" ({lexicon.forms[best_form].text}), dice {dice:.2f} rank {rank}"
+                      f"{'; say unused' if unused else ''}{'; instead ' + ', '.join(instead) if instead else ''}")
+                if slot_note:
+                    print(f"    {slot_note}")
+    print(f"{args.type}: {found_count}/{mentions} mentions found, {mentions - found_count} missed")
+    print("missed by cause: " + ", ".join(f"{cause} {count}" for cause, count in causes.most_common()))
+    print("best phone similarity reachable in the N-best: " + ", ".join(
+        f"{band} {reach[band]}" for band in ("<0.60", "0.60-0.70", ">=0.70")))
+    print("of those the general matcher never weighed, the slot path: " + ", ".join(
+        f"{cause} {count}" for cause, count in slot_causes.most_common()))
+    print(f"said form not pronounced from its say field: {say_unused}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
