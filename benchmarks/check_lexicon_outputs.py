@@ -48,7 +48,8 @@ def digest(rows: Iterable[dict[str, Any]]) -> tuple[str, int]:
     h = hashlib.sha256()
     count = 0
     for row in rows:
-        h.update(json.dumps(row, sort_keys=True, default=repr).encode())
+        # Traces name files (a carrier line's file:line); where the checkout lives must not count.
+        h.update(json.dumps(row, sort_keys=True, default=repr).replace(str(_ROOT), "<repo>").encode())
         count += 1
     return h.hexdigest(), count
 
