@@ -6,7 +6,7 @@ The commonest wrong result on real recogniser output is an entity that was never
 the slot holds everyday words, so no entity score can be low - there is no entity. The
 carrier words give it away. ``CarrierPhrases`` keeps the in-domain lines as templates (the
 lexicon's names and aliases in literal lines become slots too) and tells, for a finished text
-with its entities marked, which slot a template expects that no entity fills.
+with its entities marked, which slots a template expects that no entity fills.
 
 Carrier words must match exactly. Allowing edits was tried on the workshop corpus: the best
 approximate template then "explains" most texts with a slot full of everyday words, right
@@ -33,7 +33,7 @@ _SLOT = re.compile(r"\{([^{}\s]+)\}")
 class Unfilled:
     """A template that matches the text with a slot held by plain words."""
 
-    type: str  # the first empty slot's entity type
+    type: str  # the empty slot's entity type
     words: str  # what the text has in its place
     template: str  # the template as written, slots included
     where: str  # file:line it came from
@@ -144,12 +144,18 @@ class CarrierPhrases:
         return re.compile(" ".join(parts))
 
     def unfilled(self, tokens: Sequence[str]) -> Unfilled | None:
-        """The best template match with an empty slot, for tokens in which entities are already
-        replaced by ``{type}`` markers; None when no template matches, or one matches with every
-        slot filled by an entity (the text is explained)."""
+        """The first empty slot of the best template match (see ``empty_slots``), or None."""
+        empty = self.empty_slots(tokens)
+        return empty[0] if empty else None
+
+    def empty_slots(self, tokens: Sequence[str]) -> list[Unfilled]:
+        """Every slot that plain words hold in the best template match, for tokens in which
+        entities are already replaced by ``{type}`` markers, in text order; empty when no
+        template matches, or one matches with every slot filled by an entity (the text is
+        explained)."""
         present = set(tokens)
         line = " ".join(tokens)
-        best: tuple[int, int, Unfilled] | None = None
+        best: tuple[int, int, str, list[Unfilled]] | None = None
         for word in present:
             for template in self._by_word.get(word, ()):
                 if not template.carrier <= present:
@@ -157,20 +163,22 @@ class CarrierPhrases:
                 match = template.pattern.fullmatch(line)
                 if match is None:
                     continue
-                empty = [(name, words) for name, words in match.groupdict().items() if words is not None]
-                if not empty:
-                    return None
+                found: list[Unfilled] = []
+                for name, words in match.groupdict().items():
+                    if words is None:
+                        continue
+                    kind = _SLOT.fullmatch(template.text.split(" ")[int(name[1:])])
+                    assert kind is not None
+                    start = line.count(" ", 0, match.start(name))
+                    found.append(Unfilled(type=kind.group(1), words=words, template=template.text,
+                                          where=template.where, start=start, end=start + len(words.split(" "))))
+                if not found:
+                    return []
                 # Fewest plain words in slots: the template that explains most of the text.
-                spread = sum(len(words.split()) for _, words in empty)
-                name, words = empty[0]
-                kind = _SLOT.fullmatch(template.text.split(" ")[int(name[1:])])
-                assert kind is not None
-                start = line.count(" ", 0, match.start(name))
-                found = Unfilled(type=kind.group(1), words=words, template=template.text, where=template.where,
-                                 start=start, end=start + len(words.split(" ")))
-                if best is None or (template.loose, spread, found.template) < (best[0], best[1], best[2].template):
-                    best = (template.loose, spread, found)
-        return None if best is None else best[2]
+                spread = sum(len(f.words.split()) for f in found)
+                if best is None or (template.loose, spread, template.text) < best[:3]:
+                    best = (template.loose, spread, template.text, found)
+        return [] if best is None else best[3]
 
     @staticmethod
     def marked(text: str, spans: Iterable[tuple[int, int, str]]) -> list[str]:

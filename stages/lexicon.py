@@ -18,7 +18,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from relay.errors import StageError
 from relay.pipeline import Correction, Entity, Hypothesis, StageContext, Utterance
-from stages.carrier_phrases import CarrierPhrases
+from stages.carrier_phrases import CarrierPhrases, Unfilled
 from stages.lexicon_compile import CompiledLexicon, load_compiled
 from stages.lexicon_context import ContextScorer
 from stages.lexicon_data import read_speakers
@@ -79,7 +79,7 @@ class LexiconSettings(BaseModel):
     carrier_text: Path | None = Field(None, description="in-domain text whose lines, as templates, mark a slot that everyday words hold")
     carrier_min_phone: float = Field(0.7, ge=0, le=1, description="least phone similarity for a carrier slot match")
     carrier_margin: float = Field(0.03, ge=0, le=1, description="least phone lead of a carrier slot match over another entry")
-    carrier_hypotheses: int = Field(3, ge=1, le=50, description="hypotheses read for a carrier phrase, likeliest first")
+    carrier_hypotheses: int = Field(4, ge=1, le=50, description="hypotheses read for carrier phrases, likeliest first; each slot takes its best fill")
     carrier_loose_from: int = Field(3, ge=0, le=20, description="lines with at least this many carrier words also match with one of them misheard (0: exact only)")
     trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
 
@@ -190,38 +190,38 @@ class LexiconStage:
             if context is None and self.lm is not None:
                 context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
             placed += self._slot_recall(utterance, best, placed, blocked, context)
-        carrier: dict[str, Any] | None = None
+        carrier: list[dict[str, Any]] = []
         if self.carriers is not None:
             if context is None and self.lm is not None:
                 context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
             found, carrier = self._carrier_recall(self.carriers, utterance, best, placed, context)
             placed += found
         self._finish(utterance, best, placed, blocked, choices)
-        if carrier is not None:
+        if carrier:
             utterance.note(carrier=carrier)
         return utterance
 
     def _carrier_recall(self, carriers: CarrierPhrases, utterance: Utterance, best: int, placed: list[_Choice],
-                        context: ContextScorer | None) -> tuple[list[_Choice], dict[str, Any] | None]:
-        """The entry of the type a carrier phrase expects where everyday words hold its slot.
+                        context: ContextScorer | None) -> tuple[list[_Choice], list[dict[str, Any]]]:
+        """Entries of the types a carrier phrase expects where everyday words hold its slots.
 
         With the entities found so far marked, an in-domain line that matches a hypothesis
-        word for word except for one slot pins down both the slot's words and its type ("meet
-        me in they won" against "meet me in {place}"), so those exact words are aligned with
-        every form of that type, with a floor of their own and a lead over the next entry. The
-        LM gain is only traced: on the workshop corpus, wrong fills gained as much as right ones.
-        The best hypothesis is read first, then the likeliest others, up to
-        ``carrier_hypotheses``; the first that a template matches decides. Returns the match
-        (if any) and what the trace records.
+        word for word except for slots held by everyday words pins down both each slot's words
+        and its type ("meet me in they won" against "meet me in {place}"), so those exact words
+        are aligned with every form of that type, with a floor of their own and a lead over the
+        next entry. The LM gain is only traced: on the workshop corpus, wrong fills gained as
+        much as right ones. Every empty slot of the match is tried, in the best hypothesis and
+        the likeliest others (``carrier_hypotheses`` in all), and each slot takes its best fill.
+        Returns the fills and one trace record per slot tried.
         """
         s = self.settings
-        lexicon = self._lexicon
         nbest = utterance.nbest
         tokens = nbest[best].tokens
-        order = _likeliest(nbest, best, s.carrier_hypotheses)
-        for source in order:
+        attempts: list[tuple[_Choice | None, dict[str, Any]]] = []
+        tried: set[tuple[str, str]] = set()
+        for source in _likeliest(nbest, best, s.carrier_hypotheses):
             heard = nbest[source].tokens
-            spans = sorted((map_span(tokens, heard, c.start, c.end), lexicon.entries[c.evidence.entry].type)
+            spans = sorted((map_span(tokens, heard, c.start, c.end), self._lexicon.entries[c.evidence.entry].type)
                            for c in placed)
             marked: list[str] = []
             where: list[int] = []  # marked position -> token position in the hypothesis
@@ -234,19 +234,37 @@ class LexiconStage:
                 at = end
             marked += heard[at:]
             where += list(range(at, len(heard)))
-            empty = carriers.unfilled(marked)
-            if empty is not None and empty.type in self.carrier_slots:
-                break
-        else:
-            return [], None
-        start, end = where[empty.start], where[empty.end - 1] + 1
+            for empty in carriers.empty_slots(marked):
+                if empty.type in self.carrier_slots and (empty.type, empty.words) not in tried:
+                    tried.add((empty.type, empty.words))  # the same words in another hypothesis: the same fill
+                    attempts.append(self._carrier_fill(empty, source, heard, where[empty.start],
+                                                       where[empty.end - 1] + 1, tokens, context))
+        # Each slot takes its best-aligned fill: best first, at a tie the likelier hypothesis (a
+        # stable sort); a fill that overlaps one already placed is dropped.
+        found: list[_Choice] = []
+        notes: list[dict[str, Any]] = []
+        for choice, note in sorted(attempts, key=lambda a: -a[1].get("phone", 0.0)):
+            if choice is not None and any(c.evidence.entry == choice.evidence.entry or (
+                    c.start < choice.end and choice.start < c.end) for c in placed + found):
+                note["guard"] = "overlap"
+            elif choice is not None:
+                found.append(choice)
+            notes.append(note)
+        return found, notes
+
+    def _carrier_fill(self, empty: Unfilled, source: int, heard: list[str], start: int, end: int,
+                      tokens: list[str], context: ContextScorer | None) -> tuple[_Choice | None, dict[str, Any]]:
+        """The entry that best fits one empty slot, the words ``start:end`` of hypothesis
+        ``source`` (``heard``), when it clears the carrier floor and margin; and the trace record."""
+        s = self.settings
+        lexicon = self._lexicon
         note: dict[str, Any] = {"template": empty.template, "where": empty.where, "heard": empty.words,
                                 "type": empty.type, "hypothesis": source}
         phones = "".join(self.pronouncer.word(token) for token in heard[start:end])
         matches = slot_matches([SlotHypothesis([phones], [0])], self.carrier_slots[empty.type], lexicon, self.costs,
                                max_words=1, min_phone=0.0, min_edit=s.slot_min_edit)
         if not matches:
-            return [], note | {"guard": "carrier_phone"}
+            return None, note | {"guard": "carrier_phone"}
         match = matches[0]
         form = lexicon.forms[match.form]
         start, end = map_span(heard, tokens, start, end)
@@ -254,14 +272,14 @@ class LexiconStage:
         note |= {"id": lexicon.entries[form.entry].id, "form": form.text, "phone": round(match.phone, 4),
                  "runner_up": round(match.runner_up, 4), "lm_gain": round(gain, 3)}
         if match.phone < s.carrier_min_phone:
-            return [], note | {"guard": "carrier_phone"}
+            return None, note | {"guard": "carrier_phone"}
         if match.phone - match.runner_up < s.carrier_margin:
-            return [], note | {"guard": "carrier_margin"}
-        if end <= start or any(c.evidence.entry == form.entry or (c.start < end and start < c.end) for c in placed):
-            return [], note | {"guard": "overlap"}
+            return None, note | {"guard": "carrier_margin"}
+        if end <= start:
+            return None, note | {"guard": "overlap"}
         support = {source: (match.phone, start, end, match.form, False)}
-        return [_Choice(Evidence(form.entry, match.phone, support), match.phone, start, end, match.form,
-                        False, False, gain)], note
+        return _Choice(Evidence(form.entry, match.phone, support), match.phone, start, end, match.form,
+                       False, False, gain), note
 
     def _slot_recall(self, utterance: Utterance, best: int, placed: list[_Choice], blocked: list[dict[str, Any]],
                      context: ContextScorer | None) -> list[_Choice]:

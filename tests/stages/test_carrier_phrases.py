@@ -39,6 +39,14 @@ def test_a_slot_held_by_everyday_words_is_reported_with_its_type_and_words() -> 
     assert found.template == "let {person} know the {machine} is ready"
 
 
+def test_every_empty_slot_of_the_match_is_reported_in_text_order() -> None:
+    found = phrases().empty_slots("let tomatoes hello know the people through is ready".split())
+    assert [(f.type, f.words, f.start, f.end) for f in found] == [
+        ("person", "tomatoes hello", 1, 3), ("machine", "people through", 5, 7)]
+    assert phrases().empty_slots("let {person} know the people through is ready".split())[0].type == "machine"
+    assert phrases().empty_slots("let {person} know the {machine} is ready".split()) == []
+
+
 def test_every_slot_filled_by_an_entity_reports_nothing() -> None:
     assert phrases().unfilled("let {person} know the {machine} is ready".split()) is None
     assert phrases().unfilled("meet me in {place}".split()) is None
