@@ -20,8 +20,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from relay.config import build_chain, load_config
-from relay.corpus import parse_filter, read_corpus
+from benchmarks.corpus_chain import add_corpus_arguments, items_and_chain
 from relay.evaluate import run_corpus
 from stages.tokens import tokenize
 
@@ -34,15 +33,9 @@ def _padded(text: str) -> str:
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("corpus", type=Path, help="labelled corpus (JSONL, FORMATS section 5)")
-    parser.add_argument("--config", type=Path, required=True, help="relay configuration whose chain is measured")
-    parser.add_argument("--where", action="append", default=[], metavar="TAG=VALUE|TAG!=VALUE",
-                        help="keep only utterances whose tags match (repeatable), e.g. snr_db!=15")
+    add_corpus_arguments(parser)
     args = parser.parse_args(argv)
-    filters = [parse_filter(text) for text in args.where]
-    items = [item for item in read_corpus(args.corpus) if all(f(item) for f in filters)]
-    chain = build_chain(load_config(args.config))
-    chain.load()
+    items, chain = items_and_chain(args)
     outcomes = {o.id: o for o in run_corpus(chain, items, progress=True)}
 
     hits: Counter[tuple[str, str]] = Counter()  # (group, type) -> mentions found

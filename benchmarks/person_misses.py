@@ -35,8 +35,7 @@ from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from relay.config import build_chain, load_config
-from relay.corpus import parse_filter, read_corpus
+from benchmarks.corpus_chain import add_corpus_arguments, items_and_chain
 from stages.lexicon import LexiconStage
 from stages.lexicon_match import find_spans, score_spans
 from stages.lexicon_slots import SlotForms, SlotHypothesis, slot_anchors, slot_matches
@@ -53,17 +52,11 @@ def _lexicon_stage(chain: Any) -> LexiconStage:
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("corpus", type=Path, help="labelled corpus (JSONL, FORMATS section 5)")
-    parser.add_argument("--config", type=Path, required=True, help="relay configuration whose chain is measured")
-    parser.add_argument("--where", action="append", default=[], metavar="TAG=VALUE|TAG!=VALUE",
-                        help="keep only utterances whose tags match (repeatable), e.g. snr_db!=15")
+    add_corpus_arguments(parser)
     parser.add_argument("--type", default="person", help="entity type to follow (default person)")
     parser.add_argument("--quiet", action="store_true", help="counts only, no line per mention")
     args = parser.parse_args(argv)
-    filters = [parse_filter(text) for text in args.where]
-    items = [item for item in read_corpus(args.corpus) if all(f(item) for f in filters)]
-    chain = build_chain(load_config(args.config))
-    chain.load()
+    items, chain = items_and_chain(args)
     stage = _lexicon_stage(chain)
     settings = stage.settings
     lexicon = stage._lexicon
@@ -117,14 +110,15 @@ def main(argv: list[str] | None = None) -> int:
             blocked = [b for b in trace.get("blocked", []) if b["id"] == entity_id]
             general = [b for b in blocked if not b["guard"].startswith(("slot_", "carrier_"))]
             slot = [b for b in blocked if b["guard"].startswith("slot_")]
-            carrier = trace.get("carrier") or {}
+            # One record per carrier slot tried; the one that named this entry and was refused.
+            carrier = next((c for c in trace.get("carrier") or [] if c.get("id") == entity_id and "guard" in c), {})
             if general:
                 worst = max(general, key=lambda b: b["score"])
                 cause, detail = worst["guard"], f"score {worst['score']:.3f} heard {worst['heard']!r}"
             elif slot:
                 worst = max(slot, key=lambda b: b["score"])
                 cause, detail = worst["guard"], f"phone {worst['score']:.3f} heard {worst['heard']!r} lm {worst['lm_gain']}"
-            elif carrier.get("id") == entity_id and "guard" in carrier:
+            elif carrier:
                 cause, detail = carrier["guard"], f"phone {carrier.get('phone')} heard {carrier.get('heard')}"
             elif not retrieved:
                 cause, detail = "not_retrieved", ""
