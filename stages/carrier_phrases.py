@@ -8,10 +8,11 @@ carrier words give it away. ``CarrierPhrases`` keeps the in-domain lines as temp
 lexicon's names and aliases in literal lines become slots too) and tells, for a finished text
 with its entities marked, which slots a template expects that no entity fills.
 
-Carrier words must match exactly. Allowing edits was tried on the workshop corpus: the best
-approximate template then "explains" most texts with a slot full of everyday words, right
-results included, and the signal drowns. A text that an all-filled template matches
-("is the {machine} on" with the kiln found) is explained and reports nothing.
+Carrier words must match exactly, or with ``loose_from`` one of them may be any word in lines
+that have at least that many (an exact match is preferred). Allowing edits freely was tried on
+the workshop corpus: the best approximate template then "explains" most texts with a slot full
+of everyday words, right results included, and the signal drowns. A text that an all-filled
+template matches ("is the {machine} on" with the kiln found) is explained and reports nothing.
 """
 
 from __future__ import annotations
@@ -24,7 +25,7 @@ from pathlib import Path
 from stages.corpus_text import read_slot_values, read_templates
 from stages.tokens import tokenize
 
-__all__ = ["CarrierPhrases", "Unfilled"]
+__all__ = ["CarrierPhrases", "Unfilled", "replace_runs", "runs_by_first_word"]
 
 _SLOT = re.compile(r"\{([^{}\s]+)\}")
 
@@ -46,7 +47,7 @@ class _Template:
     text: str
     where: str
     carrier: frozenset[str]
-    slots: tuple[str, ...]
+    kinds: dict[str, str]  # regex group of each slot -> its entity type
     pattern: re.Pattern[str]
     loose: int = 0  # carrier words that may be any word
 
@@ -55,42 +56,68 @@ def _marker(kind: str) -> str:
     return "{" + kind + "}"
 
 
+Runs = dict[str, list[tuple[tuple[str, ...], str]]]  # first word -> (words, replacement), longest first
+
+
+def runs_by_first_word(pairs: Iterable[tuple[tuple[str, ...], str]]) -> Runs:
+    """Word runs and their replacements, filed by first word with the longest run first."""
+    runs: Runs = {}
+    for words, replacement in pairs:
+        if words:
+            runs.setdefault(words[0], []).append((words, replacement))
+    for listed in runs.values():
+        listed.sort(key=lambda pair: -len(pair[0]))
+    return runs
+
+
+def replace_runs(tokens: Sequence[str], runs: Runs) -> list[str]:
+    """``tokens`` with each occurrence of a run replaced by its one replacement token, left to
+    right, the longest run first where several start at the same word."""
+    out: list[str] = []
+    i = 0
+    while i < len(tokens):
+        for words, replacement in runs.get(tokens[i], ()):
+            if tuple(tokens[i:i + len(words)]) == words:
+                out.append(replacement)
+                i += len(words)
+                break
+        else:
+            out.append(tokens[i])
+            i += 1
+    return out
+
+
 class CarrierPhrases:
     """Templates from in-domain text; ``unfilled`` finds a slot that plain words hold."""
 
     def __init__(self, templates: Iterable[tuple[str, Sequence[str]]], *,
                  slot_values: dict[str, list[str]] | None = None,
                  max_slot_words: int = 5, min_carrier_words: int = 2, loose_from: int = 0) -> None:
-        forms: dict[str, list[tuple[tuple[str, ...], str]]] = {}  # first word -> (form, type), longest first
-        for kind, values in (slot_values or {}).items():
-            for value in values:
-                form = tuple(tokenize(value))
-                if form:
-                    forms.setdefault(form[0], []).append((form, kind))
-        for listed in forms.values():
-            listed.sort(key=lambda pair: -len(pair[0]))
+        # The lexicon's names and aliases in a literal line become slots of their type.
+        names = runs_by_first_word((tuple(tokenize(value)), _marker(kind))
+                                   for kind, values in (slot_values or {}).items() for value in values)
         seen: set[tuple[str, ...]] = set()
         self._templates: list[_Template] = []
         for where, tokens in templates:
-            marked = tuple(self._slotted(list(tokens), forms))
+            marked = tuple(replace_runs(tokens, names))
             if marked in seen:
                 continue
             seen.add(marked)
-            carrier = [t for t in marked if not _SLOT.fullmatch(t)]
+            kinds = {f"s{i}": m.group(1) for i, t in enumerate(marked) if (m := _SLOT.fullmatch(t))}
+            at_carrier = [i for i in range(len(marked)) if f"s{i}" not in kinds]
+            carrier = [marked[i] for i in at_carrier]
             if len(carrier) < min_carrier_words:
                 continue
-            slots = tuple(m.group(1) for t in marked if (m := _SLOT.fullmatch(t)))
             self._templates.append(_Template(text=" ".join(marked), where=where, carrier=frozenset(carrier),
-                                             slots=slots, pattern=self._compile(marked, max_slot_words)))
-            if loose_from and len(carrier) >= loose_from and slots:
+                                             kinds=kinds, pattern=self._compile(marked, max_slot_words)))
+            if loose_from and len(carrier) >= max(loose_from, 2) and kinds:  # a variant keeps a carrier word
                 # Long lines also match with any one carrier word misheard ("he has the key for
                 # ..." against "who has the key for {place}").
-                for at, token in enumerate(marked):
-                    if _SLOT.fullmatch(token) is None:
-                        rest = [t for i, t in enumerate(marked) if i != at and _SLOT.fullmatch(t) is None]
-                        self._templates.append(_Template(
-                            text=" ".join(marked), where=where, carrier=frozenset(rest), slots=slots,
-                            pattern=self._compile(marked, max_slot_words, loose=at), loose=1))
+                for at in at_carrier:
+                    rest = frozenset(marked[i] for i in at_carrier if i != at)
+                    self._templates.append(_Template(
+                        text=" ".join(marked), where=where, carrier=rest, kinds=kinds,
+                        pattern=self._compile(marked, max_slot_words, loose=at), loose=1))
         # Each template is filed under its rarest carrier word: a text can only match templates
         # filed under one of its own words, so few patterns are ever tried.
         counts: dict[str, int] = {}
@@ -112,21 +139,6 @@ class CarrierPhrases:
     def __len__(self) -> int:
         """Lines kept as templates (loose variants not counted)."""
         return sum(1 for t in self._templates if not t.loose)
-
-    @staticmethod
-    def _slotted(tokens: list[str], forms: dict[str, list[tuple[tuple[str, ...], str]]]) -> list[str]:
-        out: list[str] = []
-        i = 0
-        while i < len(tokens):
-            for form, kind in forms.get(tokens[i], ()):
-                if tuple(tokens[i:i + len(form)]) == form:
-                    out.append(_marker(kind))
-                    i += len(form)
-                    break
-            else:
-                out.append(tokens[i])
-                i += 1
-        return out
 
     @staticmethod
     def _compile(marked: Sequence[str], max_slot_words: int, loose: int = -1) -> re.Pattern[str]:
@@ -167,10 +179,8 @@ class CarrierPhrases:
                 for name, words in match.groupdict().items():
                     if words is None:
                         continue
-                    kind = _SLOT.fullmatch(template.text.split(" ")[int(name[1:])])
-                    assert kind is not None
                     start = line.count(" ", 0, match.start(name))
-                    found.append(Unfilled(type=kind.group(1), words=words, template=template.text,
+                    found.append(Unfilled(type=template.kinds[name], words=words, template=template.text,
                                           where=template.where, start=start, end=start + len(words.split(" "))))
                 if not found:
                     return []

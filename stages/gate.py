@@ -19,7 +19,7 @@ from typing import Any, ClassVar
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from relay.pipeline import Decision, StageContext, Utterance
-from stages.carrier_phrases import CarrierPhrases
+from stages.carrier_phrases import CarrierPhrases, replace_runs, runs_by_first_word
 from stages.gate_confidence import ConfidenceModel, confidence
 from stages.lm_rescore import score_tokens, shared_model
 from stages.tokens import tokenize
@@ -204,17 +204,9 @@ def _by_thresholds(features: GateFeatures, settings: GateSettings) -> tuple[Deci
     return decision, rule
 
 
-def _without(words: tuple[str, ...], names: set[tuple[str, ...]]) -> tuple[str, ...]:
-    """``words`` with every occurrence of one of ``names`` replaced by one empty token."""
-    if not names:
-        return words
-    out: list[str] = []
-    i = 0
-    while i < len(words):
-        name = max((n for n in names if words[i:i + len(n)] == n), key=len, default=None)
-        out.append("" if name else words[i])
-        i += len(name) if name else 1
-    return tuple(out)
+def _marked(utterance: Utterance) -> list[str]:
+    """The result's tokens with each entity's span replaced by its ``{type}`` marker."""
+    return CarrierPhrases.marked(utterance.text, [(e.span[0], e.span[1], e.type) for e in utterance.entities])
 
 
 def _judged(model: Any, words: list[str]) -> dict[str, Any]:
@@ -256,12 +248,13 @@ class GateStage:
                 None if lexicon is None else self.context.resolve(lexicon),
             )
 
-    def safety_rule(self, utterance: Utterance) -> str | None:
+    def safety_rule(self, utterance: Utterance, marked: list[str] | None = None) -> str | None:
         """Which safety rule the result trips, if any (by entity type first, then by words).
 
         A likely runner-up counts too: "stat the lathe" on top of "start the lathe" may
         well have been a start command, and accepting it must not be how one slips through.
         Words inside a found entity's name do not count (entity types have their own rule).
+        ``marked`` is the result's tokens with the entities' spans replaced (``_marked``).
         """
         for entity in utterance.entities:
             if entity.type in self._types:
@@ -269,10 +262,9 @@ class GateStage:
         # A word inside an entity's name is part of the name, not an order: "the heron lift is
         # making a noise" names a machine; "lift the pallet" still asks. In the result the
         # entities' spans are left out; in a runner-up, the same names and the words heard for them.
-        spans = [(e.span[0], e.span[1], e.type) for e in utterance.entities]
-        names = {tuple(tokenize(form)) for e in utterance.entities for form in (e.name, e.heard)} - {()}
-        texts = [(utterance.text, tuple(CarrierPhrases.marked(utterance.text, spans)))]
-        texts += [(h.text, _without(tuple(tokenize(h.text)), names)) for h in utterance.ranked()
+        names = runs_by_first_word((tuple(tokenize(form)), "") for e in utterance.entities for form in (e.name, e.heard))
+        texts = [(utterance.text, tuple(marked if marked is not None else _marked(utterance)))]
+        texts += [(h.text, tuple(replace_runs(tokenize(h.text), names))) for h in utterance.ranked()
                   if h.posterior >= self.settings.safety_min_posterior]
         for text, words in texts:
             found = [(order, phrase) for i, word in enumerate(words) for order, phrase in self._starting.get(word, ())
@@ -293,10 +285,10 @@ class GateStage:
         text_lm: dict[str, Any] = {}
         if self.lm is not None:
             text_lm = _judged(self.lm, words)
+        marked = _marked(utterance)
         unfilled: dict[str, Any] = {}
         if self.carriers is not None:
-            spans = [(e.span[0], e.span[1], e.type) for e in utterance.entities]
-            empty = self.carriers.unfilled(CarrierPhrases.marked(utterance.text, spans))
+            empty = self.carriers.unfilled(marked)
             unfilled = {"unfilled_slots": int(empty is not None), "unfilled_type": empty and empty.type}
         return GateFeatures(
             posterior=top,
@@ -305,7 +297,7 @@ class GateStage:
             corrected=bool(utterance.corrections),
             correction_score=min(correction_scores) if correction_scores else None,
             lm_per_word=lm,
-            safety_rule=self.safety_rule(utterance),
+            safety_rule=self.safety_rule(utterance, marked),
             empty=not utterance.text.strip(),
             entities=len(utterance.entities),
             corrections=len(utterance.corrections),
