@@ -25,7 +25,7 @@ from pathlib import Path
 from stages.corpus_text import read_slot_values, read_templates
 from stages.tokens import tokenize
 
-__all__ = ["CarrierPhrases", "Unfilled", "replace_runs", "runs_by_first_word"]
+__all__ = ["CarrierPhrases", "Unfilled", "marked_lines", "replace_runs", "runs_by_first_word"]
 
 _SLOT = re.compile(r"\{([^{}\s]+)\}")
 
@@ -87,22 +87,30 @@ def replace_runs(tokens: Sequence[str], runs: Runs) -> list[str]:
     return out
 
 
+def marked_lines(templates: Iterable[tuple[str, Sequence[str]]],
+                 slot_values: dict[str, list[str]] | None = None) -> list[tuple[str, tuple[str, ...]]]:
+    """Distinct in-domain lines as (location, tokens), the lexicon's names and aliases in a
+    literal line replaced by their ``{type}`` marker, as a slot of that type would be."""
+    names = runs_by_first_word((tuple(tokenize(value)), _marker(kind))
+                               for kind, values in (slot_values or {}).items() for value in values)
+    seen: set[tuple[str, ...]] = set()
+    lines = []
+    for where, tokens in templates:
+        marked = tuple(replace_runs(tokens, names))
+        if marked not in seen:
+            seen.add(marked)
+            lines.append((where, marked))
+    return lines
+
+
 class CarrierPhrases:
     """Templates from in-domain text; ``unfilled`` finds a slot that plain words hold."""
 
     def __init__(self, templates: Iterable[tuple[str, Sequence[str]]], *,
                  slot_values: dict[str, list[str]] | None = None,
                  max_slot_words: int = 5, min_carrier_words: int = 2, loose_from: int = 0) -> None:
-        # The lexicon's names and aliases in a literal line become slots of their type.
-        names = runs_by_first_word((tuple(tokenize(value)), _marker(kind))
-                                   for kind, values in (slot_values or {}).items() for value in values)
-        seen: set[tuple[str, ...]] = set()
         self._templates: list[_Template] = []
-        for where, tokens in templates:
-            marked = tuple(replace_runs(tokens, names))
-            if marked in seen:
-                continue
-            seen.add(marked)
+        for where, marked in marked_lines(templates, slot_values):
             kinds = {f"s{i}": m.group(1) for i, t in enumerate(marked) if (m := _SLOT.fullmatch(t))}
             at_carrier = [i for i in range(len(marked)) if f"s{i}" not in kinds]
             carrier = [marked[i] for i in at_carrier]

@@ -19,9 +19,11 @@ from typing import Any, ClassVar
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from relay.pipeline import Decision, StageContext, Utterance
-from stages.carrier_phrases import CarrierPhrases, replace_runs, runs_by_first_word
+from stages.carrier_phrases import CarrierPhrases, marked_lines, replace_runs, runs_by_first_word
+from stages.corpus_text import read_slot_values, read_templates
 from stages.gate_confidence import ConfidenceModel, confidence
 from stages.lm_rescore import score_tokens, shared_model
+from stages.nearest_line import NearestLine
 from stages.tokens import tokenize
 
 __all__ = ["GateFeatures", "GateSettings", "GateStage", "decide"]
@@ -85,7 +87,8 @@ class GateSettings(BaseModel):
     )
     carrier_text: Path | None = Field(
         None, description="in-domain text with {type} slots (FORMATS 4): a template whose slot holds everyday "
-        "words marks an entity that was missed (feature unfilled_slots for `confidence`; 'Which ...?' prompts)",
+        "words marks an entity that was missed (feature unfilled_slots for `confidence`; 'Which ...?' prompts); "
+        "a result far from every line is one the NLU was not trained on (feature line_edits)",
     )
     carrier_lexicon: Path | None = Field(
         None, description="lexicon whose names and aliases in carrier_text's literal lines count as slots",
@@ -118,8 +121,10 @@ class GateSettings(BaseModel):
         needs_lm = sorted(n for n in (self.confidence.features if self.confidence else {}) if n.startswith("text_"))
         if needs_lm and self.lm_model is None:
             raise ValueError(f"confidence uses {', '.join(needs_lm)}, which need lm_model")
-        if self.confidence and "unfilled_slots" in self.confidence.features and self.carrier_text is None:
-            raise ValueError("confidence uses unfilled_slots, which needs carrier_text")
+        needs_text = sorted(n for n in (self.confidence.features if self.confidence else {})
+                            if n in ("unfilled_slots", "line_edits"))
+        if needs_text and self.carrier_text is None:
+            raise ValueError(f"confidence uses {', '.join(needs_text)}, which need carrier_text")
         if self.carrier_lexicon is not None and self.carrier_text is None:
             raise ValueError("carrier_lexicon is set without carrier_text")
         return self
@@ -145,6 +150,7 @@ class GateFeatures:
     text_oov: int | None = None
     unfilled_slots: int | None = None  # 1 when a carrier phrase has a slot no entity fills; None: no carrier_text
     unfilled_type: str | None = None  # that slot's entity type
+    line_edits: int | None = None  # word edits to the nearest in-domain line; None: no carrier_text
 
     def values(self) -> dict[str, float | None]:
         """The numeric features by name, as ``stages.gate_confidence`` reads them."""
@@ -160,6 +166,7 @@ class GateFeatures:
             "text_lm_weakest": self.text_lm_weakest,
             "text_oov": None if self.text_oov is None else float(self.text_oov),
             "unfilled_slots": None if self.unfilled_slots is None else float(self.unfilled_slots),
+            "line_edits": None if self.line_edits is None else float(self.line_edits),
         }
 
 
@@ -229,6 +236,7 @@ class GateStage:
         self.context = context
         self.lm: Any = None
         self.carriers: CarrierPhrases | None = None
+        self.lines: NearestLine | None = None
         phrases = [tuple(tokenize(p)) for p in settings.safety_words]
         self._phrases = sorted({p for p in phrases if p}, key=len, reverse=True)
         # Phrases by their first word, each with its place in the longest-first order.
@@ -243,10 +251,11 @@ class GateStage:
             self.lm = shared_model(self.context.resolve(path))
         if self.settings.carrier_text is not None:
             lexicon = self.settings.carrier_lexicon
-            self.carriers = CarrierPhrases.from_files(
-                self.context.resolve(self.settings.carrier_text),
-                None if lexicon is None else self.context.resolve(lexicon),
-            )
+            text = self.context.resolve(self.settings.carrier_text)
+            values = None if lexicon is None else read_slot_values(self.context.resolve(lexicon))
+            templates = list(read_templates(text))
+            self.carriers = CarrierPhrases(templates, slot_values=values)
+            self.lines = NearestLine(tokens for _, tokens in marked_lines(templates, values))
 
     def safety_rule(self, utterance: Utterance, marked: list[str] | None = None) -> str | None:
         """Which safety rule the result trips, if any (by entity type first, then by words).
@@ -286,10 +295,12 @@ class GateStage:
         if self.lm is not None:
             text_lm = _judged(self.lm, words)
         marked = _marked(utterance)
-        unfilled: dict[str, Any] = {}
+        in_domain: dict[str, Any] = {}
         if self.carriers is not None:
             empty = self.carriers.unfilled(marked)
-            unfilled = {"unfilled_slots": int(empty is not None), "unfilled_type": empty and empty.type}
+            in_domain = {"unfilled_slots": int(empty is not None), "unfilled_type": empty and empty.type}
+        if self.lines is not None:
+            in_domain["line_edits"] = self.lines.edits(marked)
         return GateFeatures(
             posterior=top,
             margin=top - runner_up,
@@ -303,7 +314,7 @@ class GateStage:
             corrections=len(utterance.corrections),
             words=len(words),
             **text_lm,
-            **unfilled,
+            **in_domain,
         )
 
     def _prompt(self, utterance: Utterance, decision: Decision, rule: str, features: GateFeatures) -> str | None:

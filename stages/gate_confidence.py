@@ -42,6 +42,7 @@ FEATURES: tuple[str, ...] = (
     "text_lm_weakest",    # the finished text's least likely word under the LM
     "text_oov",           # words of the finished text the LM has never seen
     "unfilled_slots",     # 1 when an in-domain carrier phrase has a slot that no entity fills
+    "line_edits",         # word edits from the finished text (entities marked) to the nearest in-domain line
 )
 _LM_FLOOR = -30.0
 

@@ -271,14 +271,30 @@ def test_a_slot_no_entity_fills_is_a_feature_and_asks_for_that_type(tmp_path: Pa
     assert (other.trace[-1].scores["unfilled_slots"], other.decision) == (0, "accept")
 
 
+def test_line_edits_counts_words_away_from_the_nearest_in_domain_line(tmp_path: Path) -> None:
+    stage = _carrier_gate(tmp_path)
+    bay = Entity(id="place.bay_1", type="place", name="bay one", span=(11, 18), heard="they won", score=0.9)
+    assert stage.features(make_utterance([0.9, 0.1], ["meet me in bay one", "x"], entities=[bay])).line_edits == 0
+    # "meet me in they won": the slot's two plain words against one marker, a substitution and an insertion.
+    assert stage.features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).line_edits == 2
+    assert stage.features(make_utterance([0.9, 0.1], ["please meet me in bay one", "x"],
+                                         entities=[Entity(id="place.bay_1", type="place", name="bay one",
+                                                          span=(18, 25), heard="bay one", score=1.0)])).line_edits == 1
+    far = stage.features(make_utterance([0.9, 0.1], ["what time is it", "x"]))
+    assert far.line_edits == 4 and far.values()["line_edits"] == 4.0
+
+
 def test_without_carrier_text_the_feature_is_unknown() -> None:
     features = gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"]))
     assert features.unfilled_slots is None and features.values()["unfilled_slots"] is None
+    assert features.line_edits is None and features.values()["line_edits"] is None
 
 
 def test_unfilled_slots_needs_carrier_text() -> None:
-    with pytest.raises(ValidationError, match="unfilled_slots, which needs carrier_text"):
+    with pytest.raises(ValidationError, match="unfilled_slots, which need carrier_text"):
         GateSettings.model_validate({"confidence": {"features": {"unfilled_slots": {"weight": -1.0}}}})
+    with pytest.raises(ValidationError, match="line_edits, which need carrier_text"):
+        GateSettings.model_validate({"confidence": {"features": {"line_edits": {"weight": -1.0}}}})
     with pytest.raises(ValidationError, match="carrier_lexicon is set without carrier_text"):
         GateSettings.model_validate({"carrier_lexicon": "lexicon.csv"})
 

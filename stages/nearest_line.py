@@ -1,0 +1,73 @@
+"""How far a finished text is from the nearest in-domain line, in word edits.
+
+The NLU service was trained on the in-domain text, so a result that reads like one of its
+lines (entities marked by type: "tell {person} the {machine} is free") is one it understands,
+and, on the workshop corpus, one whose entities are nearly always right: of 107 results that
+equal a line, 106 had exactly the right entities; one word away 57 of 63; four or more words
+away 50 of 138. Garbage from a noisy recording ("connie incendiary", "not that thunderstorm")
+finds no entity to doubt, so the entity scores cannot flag it, but it is far from every line.
+
+``NearestLine`` counts the fewest word substitutions, insertions and deletions that turn the
+marked text into some in-domain line. Each distinct word is coded as one character, so the
+comparison is done by rapidfuzz (in C), one call per line length, nearest lengths first: about
+30 us against the workshop's 219 lines.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+
+from rapidfuzz.distance import Levenshtein
+from rapidfuzz.process import extractOne
+
+__all__ = ["NearestLine"]
+
+
+def _character(number: int) -> str:
+    """The ``number``-th code point from U+0100, the surrogate block skipped."""
+    point = 0x100 + number
+    return chr(point if point < 0xD800 else point + 0x800)
+
+
+class NearestLine:
+    """The in-domain lines as coded strings; ``edits`` measures a text against all of them."""
+
+    def __init__(self, lines: Iterable[Sequence[str]]) -> None:
+        self._codes: dict[str, str] = {}
+        coded = {self._code(tokens) for tokens in lines if tokens}
+        # Lines by length: the edits to a line are at least the difference in length, so the
+        # search goes outwards from the text's own length and stops once no bucket can win.
+        self._by_length: dict[int, list[str]] = {}
+        for line in sorted(coded):
+            self._by_length.setdefault(len(line), []).append(line)
+
+    def __len__(self) -> int:
+        return sum(len(lines) for lines in self._by_length.values())
+
+    def _code(self, tokens: Sequence[str]) -> str:
+        codes = self._codes
+        for token in tokens:
+            if token not in codes:
+                codes[token] = _character(len(codes))
+        return "".join(codes[token] for token in tokens)
+
+    def edits(self, tokens: Sequence[str]) -> int | None:
+        """Fewest word edits from ``tokens`` (entities as ``{type}`` markers) to a line; None
+        when there are no lines."""
+        if not self._by_length:
+            return None
+        # A word no line uses gets a code of its own after the lines' words, one per distinct
+        # word, so two unknown words never count as equal.
+        unknown: dict[str, str] = {}
+        known = len(self._codes)
+        query = "".join(self._codes.get(token) or unknown.setdefault(token, _character(known + len(unknown)))
+                        for token in tokens)
+        best: int | None = None
+        for length in sorted(self._by_length, key=lambda n: abs(n - len(query))):
+            if best is not None and abs(length - len(query)) >= best:
+                break
+            found = extractOne(query, self._by_length[length], scorer=Levenshtein.distance,
+                               score_cutoff=None if best is None else best - 1)
+            if found is not None:
+                best = int(found[1])
+        return best
