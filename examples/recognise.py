@@ -56,8 +56,10 @@ def recognise_pcm(pcm: bytes, top: int = DEFAULT_TOP) -> list[dict[str, Any]]:
     A fresh Decoder per utterance: a reused one adapts its cepstral mean and so
     changes the scores of later utterances. The N-best order and duplicates are
     kept exactly as the decoder yields them (entry one is not always the best
-    scored). `prob` of an N-best item is always 1.0, not a posterior, so no `conf`
-    is written.
+    scored). `prob` of an N-best item is always 1.0, not a posterior; the
+    decoder's best path does have one (`Decoder.hyp().prob`, from the lattice),
+    so the N-best item with the best path's text carries it as `conf`: the
+    recogniser's own confidence, low where noise left it guessing.
     """
     # Imported here so `--help` works without loading the model.
     from pocketsphinx import Decoder
@@ -70,15 +72,20 @@ def recognise_pcm(pcm: bytes, top: int = DEFAULT_TOP) -> list[dict[str, Any]]:
         {"text": hyp.hypstr, "logprob": round(score_to_logprob(hyp.score), 3)}
         for hyp in islice(decoder.nbest(), top)
     ]
+    best = decoder.hyp()
     if not items:
         # No lattice (e.g. silence): fall back to the single best path, or empty text.
-        best = decoder.hyp()
         if best is None:
             items = [{"text": ""}]
         else:
             items = [
                 {"text": best.hypstr, "logprob": round(score_to_logprob(best.score), 3)}
             ]
+    if best is not None:
+        for item in items:
+            if item["text"] == best.hypstr:
+                item["conf"] = float(f"{min(max(best.prob, 0.0), 1.0):.4g}")
+                break
     return items
 
 

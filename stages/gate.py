@@ -11,6 +11,7 @@ a valve or dose a chemical is never accepted on voice alone.
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -31,6 +32,9 @@ __all__ = ["GateFeatures", "GateSettings", "GateStage", "decide"]
 _PLACEHOLDERS = frozenset({"text", "entity", "heard", "type_noun"})
 _FIELD = re.compile(r"\{([^{}]*)\}")
 _SEVERITY: dict[Decision, int] = {"accept": 0, "confirm": 1, "reprompt": 2}
+# The recogniser's confidence enters as a natural log, floored here: a sentence posterior that
+# underflowed to 0 must not become -inf (pocketsphinx's reach about -30 on noisy workshop audio).
+ASR_LOG_FLOOR = -40.0
 
 # Verbs that set something in motion, release energy or material. A false alarm costs one
 # "did you mean ...?"; a miss can hurt someone, so the list errs on the side of asking.
@@ -151,6 +155,7 @@ class GateFeatures:
     unfilled_slots: int | None = None  # 1 when a carrier phrase has a slot no entity fills; None: no carrier_text
     unfilled_type: str | None = None  # that slot's entity type
     line_edits: int | None = None  # word edits to the nearest in-domain line; None: no carrier_text
+    asr_log_conf: float | None = None  # ln of the highest `conf` the recogniser gave; None: it gave none
 
     def values(self) -> dict[str, float | None]:
         """The numeric features by name, as ``stages.gate_confidence`` reads them."""
@@ -167,6 +172,7 @@ class GateFeatures:
             "text_oov": None if self.text_oov is None else float(self.text_oov),
             "unfilled_slots": None if self.unfilled_slots is None else float(self.unfilled_slots),
             "line_edits": None if self.line_edits is None else float(self.line_edits),
+            "asr_log_conf": self.asr_log_conf,
         }
 
 
@@ -209,6 +215,18 @@ def _by_thresholds(features: GateFeatures, settings: GateSettings) -> tuple[Deci
     else:
         decision, rule = "accept", "scores"
     return decision, rule
+
+
+def _recogniser_confidence(utterance: Utterance) -> float | None:
+    """Natural log of the highest ``conf`` (FORMATS section 1) the recogniser gave any hypothesis,
+    read from the message as received; None when it gave none. A recogniser that scores only its
+    best path (pocketsphinx: the lattice posterior of the best path) puts it on that entry."""
+    entries = utterance.payload.get("nbest") or []  # as received: merging duplicates drops entries
+    given = [float(c) for h in entries if isinstance(h, dict) and isinstance(c := h.get("conf"), (int, float))]
+    if not given:
+        return None
+    top = max(given)
+    return max(math.log(top), ASR_LOG_FLOOR) if top > 0 else ASR_LOG_FLOOR
 
 
 def _marked(utterance: Utterance) -> list[str]:
@@ -313,6 +331,7 @@ class GateStage:
             entities=len(utterance.entities),
             corrections=len(utterance.corrections),
             words=len(words),
+            asr_log_conf=_recogniser_confidence(utterance),
             **text_lm,
             **in_domain,
         )

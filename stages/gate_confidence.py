@@ -43,6 +43,7 @@ FEATURES: tuple[str, ...] = (
     "text_oov",           # words of the finished text the LM has never seen
     "unfilled_slots",     # 1 when an in-domain carrier phrase has a slot that no entity fills
     "line_edits",         # word edits from the finished text (entities marked) to the nearest in-domain line
+    "asr_log_conf",       # natural log of the recogniser's own confidence (`conf`), when it gives one
 )
 _LM_FLOOR = -30.0
 

@@ -36,7 +36,7 @@ from examples.workshop.scenario import HERE, load_phrasings, load_scenario
 DEFAULT_SEED = 20261202
 DEFAULT_COUNT = 450
 NOISE_SECONDS = 120
-RECIPE_VERSION = "1"
+RECIPE_VERSION = "2"  # 2: the best path's posterior as `conf`
 
 
 def run(cmd: list[str]) -> None:

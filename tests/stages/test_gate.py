@@ -10,7 +10,7 @@ from relay.config import build_chain, load_config
 from relay.messages import parse_message
 from relay.pipeline import Correction, Entity, Hypothesis, StageContext, TraceEntry, Utterance
 from relay.registry import Registry
-from stages.gate import GateFeatures, GateSettings, GateStage, decide
+from stages.gate import ASR_LOG_FLOOR, GateFeatures, GateSettings, GateStage, decide
 
 CONTEXT = StageContext(base_dir=Path("."), cache_dir=Path(".rehear-cache"))
 
@@ -317,3 +317,17 @@ def test_a_safety_word_inside_an_entity_name_is_part_of_the_name() -> None:
     # ... and in a likely runner-up.
     runner = gate().process(make_utterance([0.8, 0.2], [text, "lift the heron lift now"], entities=[lift]))
     assert runner.trace[-1].scores["rule"] == "safety:word:lift (runner-up)"
+
+
+def test_the_recognisers_own_confidence_is_a_feature_as_a_log() -> None:
+    utterance = make_utterance([0.6, 0.4], ["tell the front desk", "tell the front desks"])
+    assert gate().features(utterance).asr_log_conf is None  # no `conf` given: unknown
+    # As received: a later duplicate dropped by merging still counts, and the highest conf wins.
+    utterance.payload = {"nbest": [{"text": "tell the front desk"}, {"text": "tell the front desks", "conf": 0.02},
+                                   {"text": "tell the front desk", "conf": 0.5}]}
+    features = gate().features(utterance)
+    assert features.asr_log_conf == pytest.approx(math.log(0.5))
+    assert features.values()["asr_log_conf"] == pytest.approx(-0.693147, abs=1e-6)
+    # A posterior that underflowed to 0 is floored, not -inf.
+    utterance.payload = {"nbest": [{"text": "x", "conf": 0.0}]}
+    assert gate().features(utterance).asr_log_conf == ASR_LOG_FLOOR
