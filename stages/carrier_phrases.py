@@ -109,8 +109,10 @@ class CarrierPhrases:
     def __init__(self, templates: Iterable[tuple[str, Sequence[str]]], *,
                  slot_values: dict[str, list[str]] | None = None,
                  max_slot_words: int = 5, min_carrier_words: int = 2, loose_from: int = 0) -> None:
+        # Every distinct line, marked, short ones included (the gate measures distance to them).
+        self.lines = marked_lines(templates, slot_values)
         self._templates: list[_Template] = []
-        for where, marked in marked_lines(templates, slot_values):
+        for where, marked in self.lines:
             kinds = {f"s{i}": m.group(1) for i, t in enumerate(marked) if (m := _SLOT.fullmatch(t))}
             at_carrier = [i for i in range(len(marked)) if f"s{i}" not in kinds]
             carrier = [marked[i] for i in at_carrier]

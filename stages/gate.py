@@ -20,8 +20,7 @@ from typing import Any, ClassVar
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from relay.pipeline import Decision, StageContext, Utterance
-from stages.carrier_phrases import CarrierPhrases, marked_lines, replace_runs, runs_by_first_word
-from stages.corpus_text import read_slot_values, read_templates
+from stages.carrier_phrases import CarrierPhrases, replace_runs, runs_by_first_word
 from stages.gate_confidence import ConfidenceModel, confidence
 from stages.lm_rescore import score_tokens, shared_model
 from stages.nearest_line import NearestLine
@@ -269,11 +268,11 @@ class GateStage:
             self.lm = shared_model(self.context.resolve(path))
         if self.settings.carrier_text is not None:
             lexicon = self.settings.carrier_lexicon
-            text = self.context.resolve(self.settings.carrier_text)
-            values = None if lexicon is None else read_slot_values(self.context.resolve(lexicon))
-            templates = list(read_templates(text))
-            self.carriers = CarrierPhrases(templates, slot_values=values)
-            self.lines = NearestLine(tokens for _, tokens in marked_lines(templates, values))
+            self.carriers = CarrierPhrases.from_files(
+                self.context.resolve(self.settings.carrier_text),
+                None if lexicon is None else self.context.resolve(lexicon),
+            )
+            self.lines = NearestLine(tokens for _, tokens in self.carriers.lines)
 
     def safety_rule(self, utterance: Utterance, marked: list[str] | None = None) -> str | None:
         """Which safety rule the result trips, if any (by entity type first, then by words).
