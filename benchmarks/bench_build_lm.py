@@ -7,7 +7,7 @@ Two synthetic corpora, both seeded:
 - ``templated``: command-like sentences from a small grammar over a 2,000-word vocabulary,
   closer to real in-domain text (many repeats).
 
-Each run is a separate `python -m relay.commands.build_lm` process, so the peak RSS reported
+Each run is a separate `python -m relay.cli.build_lm` process, so the peak RSS reported
 (from getrusage of the child) is the estimator's alone. Target: <= 60 s for 1M words at order 3.
 
     PYTHONPATH=. python benchmarks/bench_build_lm.py [--words 1000000] [--order 3]
@@ -69,7 +69,7 @@ def _templated_corpus(path: Path, words: int, rng: random.Random) -> None:
 
 def _run(corpus: Path, order: int, raw: bool) -> tuple[float, float]:
     model = corpus.with_suffix(".arpa")
-    command = [sys.executable, "-m", "relay.commands.build_lm", str(corpus), "-o", str(model),
+    command = [sys.executable, "-m", "relay.cli.build_lm", str(corpus), "-o", str(model),
                "--order", str(order), "--no-progress"] + (["--raw"] if raw else [])
     before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
     began = time.perf_counter()

@@ -22,7 +22,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from benchmarks.bench_build_lm import _templated_corpus  # noqa: E402
 from benchmarks.bench_lexicon import make_lexicon  # noqa: E402
-from relay.commands.build_lm import build_model  # noqa: E402
+from relay.workbench.build_lm import build_model  # noqa: E402
 
 CONFIG = """\
 stages:
@@ -35,7 +35,7 @@ stages:
 
 def load_once(folder: Path) -> None:
     """Load the chain in this process and print seconds and peak RSS (MB)."""
-    from relay.config import build_chain, load_config
+    from relay.core.config import build_chain, load_config
 
     began = time.perf_counter()
     build_chain(load_config(folder / "relay.yaml")).load()

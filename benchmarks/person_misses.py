@@ -36,11 +36,11 @@ from typing import Any
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 from benchmarks.corpus_chain import add_corpus_arguments, items_and_chain
-from stages.lexicon import LexiconStage
-from stages.lexicon_match import find_spans, score_spans
-from stages.lexicon_slots import SlotForms, SlotHypothesis, slot_anchors, slot_matches
-from stages.phonetics import batch_similarity
-from stages.tokens import tokenize
+from stages.lexicon.anchored import SlotForms, SlotHypothesis, slot_anchors, slot_matches
+from stages.lexicon.match import find_spans, score_spans
+from stages.lexicon.sound.phonetics import batch_similarity
+from stages.lexicon.stage import LexiconStage
+from stages.normalize.tokens import tokenize
 
 
 def _lexicon_stage(chain: Any) -> LexiconStage:

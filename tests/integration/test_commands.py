@@ -16,15 +16,15 @@ import orjson
 import pytest
 
 from tests.integration.support import Collector, load, make_config, message, publish_all, running_relay
+from tests.paths import ROOT
 
 pytestmark = pytest.mark.broker
 
-ROOT = Path(__file__).resolve().parents[2]
 
 
 def _start(path: Path, *extra: str) -> subprocess.Popen[str]:
     env = dict(os.environ, PYTHONPATH=str(ROOT))
-    return subprocess.Popen([sys.executable, "-m", "relay.commands.run", str(path), *extra], cwd=ROOT, env=env,
+    return subprocess.Popen([sys.executable, "-m", "relay.cli.run", str(path), *extra], cwd=ROOT, env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
 
 
@@ -94,7 +94,7 @@ def test_relay_killed_mid_stream_loses_nothing(broker: Any, tmp_path: Path) -> N
 
 def test_demo_runs_end_to_end_on_the_embedded_broker() -> None:
     env = dict(os.environ, PYTHONPATH=str(ROOT))
-    result = subprocess.run([sys.executable, "-m", "relay.commands.demo", "--interval", "0", "--count", "8"],
+    result = subprocess.run([sys.executable, "-m", "relay.cli.demo", "--interval", "0", "--count", "8"],
                             cwd=ROOT, env=env, capture_output=True, text=True, timeout=90)
     assert result.returncode == 0, result.stdout + result.stderr
     lines = [line for line in (ROOT / "examples/demo/messages.jsonl").read_text().splitlines() if line.strip()]

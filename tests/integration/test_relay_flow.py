@@ -14,8 +14,9 @@ import pytest
 from prometheus_client.parser import text_string_to_metric_families
 from pydantic import BaseModel, ConfigDict
 
-from relay.pipeline import StageContext, Utterance
-from relay.registry import Registry
+from relay.core.registry import Registry
+from relay.core.stage import StageContext
+from relay.core.utterance import Utterance
 from tests.integration.support import Collector, load, make_config, message, publish_all, running_relay
 
 pytestmark = pytest.mark.broker

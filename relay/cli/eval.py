@@ -1,0 +1,73 @@
+"""`rehear eval CORPUS`: run a labelled corpus through the relay's chain and report accuracy,
+decisions and latency."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+from typing import Any
+
+import orjson
+
+from relay.cli.corpus_args import add_corpus_arguments, chosen_config, report_error, selected_items
+from relay.core.config import build_chain
+from relay.core.errors import RehearError
+from relay.workbench.evaluate import format_table, run_corpus, summarize
+from stages.gate.stage import GateStage
+
+__all__ = ["add_parser", "run"]
+
+DESCRIPTION = """\
+Evaluate the relay on a labelled corpus. Each line's recogniser message is parsed and
+processed exactly as the live relay would, by the same chain. Prints WER of the first
+hypothesis, of the best hypothesis in the list (oracle) and of the relay; entity recall and
+precision; the share of each decision; wrong accepts (accepted, but the entity ids differ
+from the reference); the share of accepted results with any word error; latency per stage.
+"""
+
+
+def _configure(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
+    add_corpus_arguments(parser)
+    parser.add_argument("--json", type=Path, metavar="OUT", help="also write the main numbers as JSON")
+    parser.add_argument("--report", type=Path, metavar="OUT.html",
+                        help="also write an HTML report with plots (needs matplotlib)")
+    return parser
+
+
+def add_parser(subparsers: Any) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser("eval", help="evaluate the chain on a labelled corpus", description=DESCRIPTION,
+                                   formatter_class=argparse.RawDescriptionHelpFormatter)
+    return _configure(parser)
+
+
+def run(args: argparse.Namespace) -> int:
+    try:
+        loaded = chosen_config(args)
+        items, described = selected_items(args, loaded)
+        chain = build_chain(loaded, progress=not args.no_progress)
+        chain.load()
+        outcomes = run_corpus(chain, items, progress=not args.no_progress)
+    except RehearError as exc:
+        return report_error(exc)
+    summary = summarize(outcomes)
+    print(format_table(summary, title=f"{args.corpus} ({described}), chain: {' -> '.join(chain.names)}"))
+    if args.json is not None:
+        args.json.write_bytes(orjson.dumps(summary.to_json(), option=orjson.OPT_INDENT_2) + b"\n")
+    if args.report is not None:
+        from relay.workbench.report import write_report  # matplotlib loads only when a report is asked for
+
+        gate = next((stage for stage in chain.stages if isinstance(stage, GateStage)), None)
+        write_report(args.report, outcomes, summary, title=f"rehear evaluation: {args.corpus.name} ({described})",
+                     confidence_model=gate.settings.confidence if gate is not None else None)
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = _configure(argparse.ArgumentParser(prog="rehear eval", description=DESCRIPTION,
+                                                formatter_class=argparse.RawDescriptionHelpFormatter))
+    return run(parser.parse_args(argv))
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,1 +1,0 @@
-"""One module per `rehear` subcommand, each with ``add_parser(subparsers)`` and ``run(args)``."""

@@ -1,0 +1,71 @@
+"""The stage contract: what a stage is (the Stage protocol), what it may know (StageContext),
+and the capabilities stages declare they need and provide."""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, ClassVar, Protocol, runtime_checkable
+
+from pydantic import BaseModel
+
+from relay.core.errors import ConfigError
+from relay.core.utterance import Utterance
+
+__all__ = ["CAPABILITIES", "Stage", "StageContext", "check_order"]
+
+# What a stage can read or produce. The message itself provides "text" only.
+CAPABILITIES = frozenset({"text", "tokens", "posterior", "lm_score", "entities", "decision"})
+
+
+@dataclass(frozen=True, slots=True)
+class StageContext:
+    """What a stage may know about its surroundings at construction."""
+
+    base_dir: Path  # relative paths in stage settings resolve against this
+    cache_dir: Path  # where compiled resources may be cached
+    progress: bool = False  # whether slow loads may draw a progress bar
+
+    def resolve(self, path: Path) -> Path:
+        """A path from stage settings: ``~`` expanded, relative ones taken from ``base_dir``."""
+        path = path.expanduser()
+        return path if path.is_absolute() else self.base_dir / path
+
+
+@runtime_checkable
+class Stage(Protocol):
+    """A step of the chain.
+
+    ``Settings`` is a pydantic model (extra keys forbidden) the YAML parameters validate
+    against. ``load`` reads models and lexicons; it may be slow and runs again on reload.
+    ``process`` is fast, pure and synchronous.
+    """
+
+    name: ClassVar[str]
+    Settings: ClassVar[type[BaseModel]]
+    needs: ClassVar[frozenset[str]]
+    provides: ClassVar[frozenset[str]]
+
+    def __init__(self, settings: Any, *, context: StageContext) -> None: ...
+
+    def load(self) -> None: ...
+
+    def process(self, utterance: Utterance) -> Utterance: ...
+
+
+def check_order(stages: Iterable[Stage], *, location: Callable[[int], str] | None = None) -> None:
+    """Raise ConfigError when a stage needs something no earlier stage provides."""
+    available = {"text"}
+    problems = []
+    for index, stage in enumerate(stages):
+        missing = sorted(stage.needs - available)
+        if missing:
+            where = location(index) if location else f"stages[{index}] ({stage.name})"
+            problems.append(
+                f"{where}: needs {', '.join(missing)}, which no earlier stage provides"
+                f" (available: {', '.join(sorted(available))})"
+            )
+        available |= stage.provides
+    if problems:
+        raise ConfigError("The stage chain is out of order", problems)

@@ -1,0 +1,106 @@
+"""The Utterance a stage works on: the N-best list as hypotheses, and what stages find and decide.
+
+Data flows one way: a validated recogniser message becomes an Utterance, each stage in the
+configured order takes it and returns it changed, and the result is rendered as the cleaned
+message. Stages are pure, synchronous CPU code; they never touch the network.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+__all__ = ["Correction", "Decision", "Entity", "Hypothesis", "TraceEntry", "Utterance", "softmax"]
+
+Decision = Literal["accept", "confirm", "reprompt"]
+
+
+@dataclass(slots=True)
+class Hypothesis:
+    """One entry of the N-best list as the chain sees it."""
+
+    text: str
+    rank: int  # position in the recogniser's list (first occurrence, 0-based)
+    fields: dict[str, Any]  # the recogniser's own fields, as received
+    tokens: list[str] = field(default_factory=list)
+    posterior: float = 0.0  # the relay's probability; sums to 1 over the list
+    scores: dict[str, float] = field(default_factory=dict)  # natural-log scores by source
+    merged: int = 1  # how many identical recogniser entries this one stands for
+
+
+@dataclass(slots=True)
+class Entity:
+    """A lexicon entry found in the chosen text."""
+
+    id: str
+    type: str
+    name: str
+    span: tuple[int, int]  # character offsets in Utterance.text
+    heard: str  # the words the recogniser produced for it
+    score: float
+
+
+@dataclass(slots=True)
+class Correction:
+    stage: str
+    before: str
+    after: str
+    score: float
+    reason: str
+
+
+@dataclass(slots=True)
+class TraceEntry:
+    stage: str
+    elapsed_us: float = 0.0
+    scores: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass(slots=True)
+class Utterance:
+    """The working object for one message."""
+
+    id: str
+    source: str
+    speaker: str | None
+    payload: dict[str, Any]  # the validated message as received, extra fields included
+    nbest: list[Hypothesis]
+    entities: list[Entity] = field(default_factory=list)
+    corrections: list[Correction] = field(default_factory=list)
+    trace: list[TraceEntry] = field(default_factory=list)
+    decision: Decision | None = None
+    prompt: str | None = None
+    chosen_text: str | None = None  # set by a stage that rewrites the output text
+
+    @property
+    def best(self) -> Hypothesis:
+        """The hypothesis with the highest posterior; the recogniser's order breaks ties."""
+        return min(self.nbest, key=lambda h: (-h.posterior, h.rank))
+
+    @property
+    def text(self) -> str:
+        if self.chosen_text is not None:
+            return self.chosen_text
+        return self.best.text if self.nbest else ""
+
+    def ranked(self) -> list[Hypothesis]:
+        return sorted(self.nbest, key=lambda h: (-h.posterior, h.rank))
+
+    def note(self, **scores: Any) -> None:
+        """Record key scores in the trace entry of the stage now running."""
+        if self.trace:
+            self.trace[-1].scores.update(scores)
+
+
+def softmax(log_scores: Sequence[float]) -> list[float]:
+    """Probabilities from natural-log scores, computed stably."""
+    if not log_scores:
+        return []
+    top = max(log_scores)
+    if top == -math.inf:
+        return [1.0 / len(log_scores)] * len(log_scores)
+    weights = [math.exp(s - top) for s in log_scores]
+    total = sum(weights)
+    return [w / total for w in weights]

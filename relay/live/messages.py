@@ -1,0 +1,193 @@
+"""The public message formats: the recogniser message in, the cleaned message out.
+
+The reader validates with pydantic and raises InputError with a bounded ``reason`` and a
+detail naming the field; the writer renders plain dicts (orjson) because it runs per message.
+"""
+
+from __future__ import annotations
+
+import time
+from typing import Any, Literal
+
+import orjson
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from relay.core.errors import InputError
+from relay.core.fieldmap import FieldMap
+from relay.core.utterance import Hypothesis, Utterance
+
+__all__ = [
+    "CleanedMessage",
+    "NbestEntry",
+    "RecogniserMessage",
+    "dump",
+    "parse_message",
+    "render_cleaned",
+    "render_passthrough",
+]
+
+MAX_HYPOTHESES = 50  # FORMATS section 1: 1..50 items
+
+
+class NbestEntry(BaseModel):
+    model_config = ConfigDict(extra="allow")
+
+    text: str
+    conf: float | None = Field(None, ge=0.0, le=1.0)
+    logprob: float | None = Field(None, le=0.0)
+
+
+class RecogniserMessage(BaseModel):
+    """FORMATS section 1. Unknown fields are kept and passed through."""
+
+    model_config = ConfigDict(extra="allow")
+
+    id: str = Field(min_length=1, max_length=128)
+    source: str | None = None
+    speaker: str | None = None
+    final: bool = True
+    nbest: list[NbestEntry] = Field(min_length=1, max_length=MAX_HYPOTHESES)
+
+
+class EntityOut(BaseModel):
+    id: str
+    type: str
+    name: str
+    span: tuple[int, int]
+    heard: str
+    score: float
+
+
+class CorrectionOut(BaseModel):
+    stage: str
+    before: str
+    after: str
+    score: float
+    reason: str
+
+
+class TraceOut(BaseModel):
+    stage: str
+    elapsed_us: float
+    scores: dict[str, Any] = {}
+
+
+class RelayInfo(BaseModel):
+    model_config = ConfigDict(extra="allow")
+
+    version: str
+    config_hash: str
+    received_at: float
+    published_at: float
+
+
+class CleanedMessage(RecogniserMessage):
+    """FORMATS section 2: everything in the input, plus what the relay decided."""
+
+    text: str
+    entities: list[EntityOut] = []
+    corrections: list[CorrectionOut] = []
+    decision: Literal["accept", "confirm", "reprompt"] | None = None
+    prompt: str | None = None
+    trace: list[TraceOut] = []
+    relay: RelayInfo
+
+
+def _describe(error: ValidationError) -> str:
+    first = error.errors()[0]
+    where = ".".join(str(part) for part in first["loc"]) or "message"
+    value = first.get("input")
+    shown = repr(value) if not isinstance(value, (dict, list)) else type(value).__name__
+    extra = f" ({len(error.errors()) - 1} more)" if len(error.errors()) > 1 else ""
+    return f"field {where}: {first['msg']}, got {shown[:80]}{extra}"
+
+
+def parse_message(
+    payload: bytes,
+    *,
+    topic: str,
+    field_map: FieldMap | None = None,
+    max_payload_bytes: int = 262_144,
+    max_hypotheses: int = MAX_HYPOTHESES,
+) -> Utterance:
+    """Validate one recogniser message and turn it into an Utterance."""
+    if len(payload) > max_payload_bytes:
+        raise InputError("oversize", f"topic {topic}: payload of {len(payload)} bytes exceeds {max_payload_bytes}")
+    try:
+        text = payload.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError("not_utf8", f"topic {topic}: byte {exc.start} is not UTF-8") from None
+    try:
+        data = orjson.loads(text)
+    except orjson.JSONDecodeError as exc:
+        raise InputError("invalid_json", f"topic {topic}: {exc}") from None
+    if not isinstance(data, dict):
+        raise InputError("schema", f"topic {topic}: expected a JSON object, got {type(data).__name__}")
+    if field_map is not None and not field_map.is_identity:
+        data = field_map.apply(data, topic=topic)
+    nbest = data.get("nbest")
+    if isinstance(nbest, list) and len(nbest) > max_hypotheses:
+        raise InputError(
+            "too_many_hypotheses", f"topic {topic}: field nbest has {len(nbest)} items, at most {max_hypotheses}"
+        )
+    try:
+        message = RecogniserMessage.model_validate(data)
+    except ValidationError as exc:
+        raise InputError("schema", f"topic {topic}: {_describe(exc)}") from None
+    # Keep the message as received (validated above) so unknown fields pass through unchanged.
+    hypotheses = [
+        Hypothesis(text=entry.text, rank=rank, fields=data["nbest"][rank], tokens=entry.text.split())
+        for rank, entry in enumerate(message.nbest)
+    ]
+    for hypothesis in hypotheses:
+        hypothesis.posterior = 1.0 / len(hypotheses)
+    return Utterance(
+        id=message.id,
+        source=message.source or topic,
+        speaker=message.speaker,
+        payload=data,
+        nbest=hypotheses,
+    )
+
+
+def render_cleaned(utterance: Utterance, *, relay: dict[str, Any]) -> dict[str, Any]:
+    """The cleaned message (FORMATS section 2) as a plain dict."""
+    out = dict(utterance.payload)
+    out["text"] = utterance.text
+    nbest = []
+    for hypothesis in utterance.ranked():
+        item = dict(hypothesis.fields)
+        item["posterior"] = hypothesis.posterior
+        if hypothesis.merged > 1:
+            item["merged"] = hypothesis.merged
+        nbest.append(item)
+    out["nbest"] = nbest
+    out["entities"] = [
+        {"id": e.id, "type": e.type, "name": e.name, "span": list(e.span), "heard": e.heard, "score": e.score}
+        for e in utterance.entities
+    ]
+    out["corrections"] = [
+        {"stage": c.stage, "before": c.before, "after": c.after, "score": c.score, "reason": c.reason}
+        for c in utterance.corrections
+    ]
+    if utterance.decision is not None:
+        out["decision"] = utterance.decision
+    if utterance.prompt is not None and utterance.decision != "accept":
+        out["prompt"] = utterance.prompt
+    out["trace"] = [{"stage": t.stage, "elapsed_us": t.elapsed_us, "scores": t.scores} for t in utterance.trace]
+    out["relay"] = dict(relay)
+    out["relay"].setdefault("published_at", time.time())
+    return out
+
+
+def render_passthrough(utterance: Utterance, *, relay: dict[str, Any], reason: str) -> dict[str, Any]:
+    """The original message forwarded as is, flagged, when the chain could not finish in time."""
+    out = dict(utterance.payload)
+    out["text"] = utterance.payload["nbest"][0]["text"]
+    out["relay"] = dict(relay, passthrough=reason)
+    out["relay"].setdefault("published_at", time.time())
+    return out
+
+
+def dump(message: dict[str, Any]) -> bytes:
+    return orjson.dumps(message, option=orjson.OPT_SERIALIZE_NUMPY)

@@ -1,0 +1,212 @@
+"""Offline evaluation: run a labelled corpus through the same Chain the relay runs, then score it.
+
+Running and scoring are separate: ``run_corpus`` records one ``Outcome`` per utterance (what
+the chain produced, the gate's features, timings), and ``summarize`` turns any subset of
+outcomes into the numbers. `tune` relies on that split to score held-out folds only.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+from tqdm import tqdm
+
+from relay.core.chain import Chain
+from relay.core.utterance import Decision
+from relay.workbench.corpus import CorpusItem
+from stages.gate.stage import GateFeatures, GateStage
+from stages.normalize.tokens import tokenize
+
+__all__ = ["Outcome", "Summary", "edit_distance", "run_corpus", "summarize", "word_errors"]
+
+DECISIONS: tuple[Decision, ...] = ("accept", "confirm", "reprompt")
+
+
+def edit_distance(reference: Sequence[str], hypothesis: Sequence[str]) -> int:
+    """Levenshtein distance over words: substitutions, deletions and insertions cost 1."""
+    if len(reference) < len(hypothesis):
+        reference, hypothesis = hypothesis, reference  # the distance is symmetric; keep the row short
+    previous = list(range(len(hypothesis) + 1))
+    for i, ref_word in enumerate(reference, start=1):
+        current = [i]
+        for j, hyp_word in enumerate(hypothesis, start=1):
+            current.append(min(previous[j] + 1, current[j - 1] + 1, previous[j - 1] + (ref_word != hyp_word)))
+        previous = current
+    return previous[-1]
+
+
+def word_errors(reference: str, hypothesis: str) -> tuple[int, int]:
+    """(edits, reference words) after the shared tokeniser normalises both sides."""
+    ref = tokenize(reference)
+    return edit_distance(ref, tokenize(hypothesis)), len(ref)
+
+
+@dataclass(slots=True)
+class Outcome:
+    """What the chain made of one corpus utterance."""
+
+    id: str
+    tags: dict[str, Any]
+    ref_words: int
+    errors_first: int
+    errors_oracle: int
+    errors_relay: int
+    reference_ids: frozenset[str]
+    found: dict[str, str]  # entity id -> type, as the chain reported them
+    decision: Decision | None
+    gate: GateFeatures | None
+    stage_us: dict[str, float]
+    total_us: float
+    text: str = ""
+    reference: str = ""
+    first: str = ""
+    corrections: list[tuple[str, str]] = field(default_factory=list)
+
+    @property
+    def entity_ok(self) -> bool:
+        return frozenset(self.found) == self.reference_ids
+
+
+def _gate_of(chain: Chain) -> GateStage | None:
+    return next((s for s in chain.stages if isinstance(s, GateStage)), None)
+
+
+def run_corpus(chain: Chain, items: Iterable[CorpusItem], *, progress: bool = False,
+               description: str = "evaluating") -> list[Outcome]:
+    """Process every item with ``chain`` and record its outcome; the chain must be loaded."""
+    items = list(items)
+    gate = _gate_of(chain)
+    outcomes = []
+    bar = tqdm(items, desc=description, unit="utt", disable=not progress or len(items) < 50, leave=False)
+    for item in bar:
+        utterance = item.utterance()
+        first = utterance.nbest[0].text
+        oracle = min(word_errors(item.reference, h.text)[0] for h in utterance.nbest)
+        utterance = chain.process(utterance)
+        errors_first, ref_words = word_errors(item.reference, first)
+        stage_us: dict[str, float] = {}
+        for entry in utterance.trace:
+            stage_us[entry.stage] = stage_us.get(entry.stage, 0.0) + entry.elapsed_us
+        outcomes.append(Outcome(
+            id=item.id,
+            tags=item.tags,
+            ref_words=ref_words,
+            errors_first=errors_first,
+            errors_oracle=oracle,
+            errors_relay=word_errors(item.reference, utterance.text)[0],
+            reference_ids=item.entity_ids,
+            found={e.id: e.type for e in utterance.entities},
+            decision=utterance.decision,
+            gate=gate.features(utterance) if gate is not None else None,
+            stage_us=stage_us,
+            total_us=sum(stage_us.values()),
+            text=utterance.text,
+            reference=item.reference,
+            first=first,
+            corrections=[(c.before, c.after) for c in utterance.corrections],
+        ))
+    return outcomes
+
+
+def percentile(values: Sequence[float], q: float) -> float:
+    """Nearest-rank percentile (q in [0, 100]); 0.0 for no values."""
+    if not values:
+        return 0.0
+    ordered = sorted(values)
+    rank = max(1, math.ceil(q / 100 * len(ordered)))
+    return ordered[rank - 1]
+
+
+def _ratio(part: float, whole: float) -> float:
+    return part / whole if whole else 0.0
+
+
+@dataclass(slots=True)
+class Summary:
+    """The evaluation's numbers for a set of outcomes."""
+
+    utterances: int
+    wer_first: float
+    wer_oracle: float
+    wer_relay: float
+    entity_recall: float
+    entity_precision: float
+    decisions: dict[str, float]
+    wrong_accept_rate: float
+    accepted_with_word_error: float
+    latency_us: dict[str, float]
+    stage_latency_us: dict[str, dict[str, float]]
+
+    @property
+    def clarify_rate(self) -> float:
+        return self.decisions["confirm"] + self.decisions["reprompt"]
+
+    def to_json(self) -> dict[str, Any]:
+        """Exactly the keys `rehear eval --json` promises."""
+        return {
+            "utterances": self.utterances,
+            "wer_first": self.wer_first,
+            "wer_oracle": self.wer_oracle,
+            "wer_relay": self.wer_relay,
+            "entity_recall": self.entity_recall,
+            "entity_precision": self.entity_precision,
+            "decisions": dict(self.decisions),
+            "wrong_accept_rate": self.wrong_accept_rate,
+            "latency_us": dict(self.latency_us),
+        }
+
+
+def summarize(outcomes: Sequence[Outcome], *, decisions: Sequence[Decision | None] | None = None) -> Summary:
+    """Score outcomes. ``decisions`` overrides the recorded ones (a gate sweep re-decides on
+    recorded features). No gate in the chain means every result goes through: accept."""
+    chosen = [d or "accept" for d in (decisions if decisions is not None else [o.decision for o in outcomes])]
+    words = sum(o.ref_words for o in outcomes)
+    hits = sum(len(o.reference_ids & o.found.keys()) for o in outcomes)
+    accepted = [o for o, d in zip(outcomes, chosen) if d == "accept"]
+    stages: dict[str, list[float]] = {}
+    for outcome in outcomes:
+        for stage, elapsed in outcome.stage_us.items():
+            stages.setdefault(stage, []).append(elapsed)
+    totals = [o.total_us for o in outcomes]
+    return Summary(
+        utterances=len(outcomes),
+        wer_first=_ratio(sum(o.errors_first for o in outcomes), words),
+        wer_oracle=_ratio(sum(o.errors_oracle for o in outcomes), words),
+        wer_relay=_ratio(sum(o.errors_relay for o in outcomes), words),
+        entity_recall=_ratio(hits, sum(len(o.reference_ids) for o in outcomes)),
+        entity_precision=_ratio(hits, sum(len(o.found) for o in outcomes)),
+        decisions={d: _ratio(chosen.count(d), len(chosen)) for d in DECISIONS},
+        wrong_accept_rate=_ratio(sum(not o.entity_ok for o in accepted), len(accepted)),
+        accepted_with_word_error=_ratio(sum(o.errors_relay > 0 for o in accepted), len(accepted)),
+        latency_us={"p50": percentile(totals, 50), "p99": percentile(totals, 99)},
+        stage_latency_us={s: {"p50": percentile(v, 50), "p99": percentile(v, 99)} for s, v in stages.items()},
+    )
+
+
+def format_table(summary: Summary, *, title: str = "") -> str:
+    """The summary as an aligned plain-text table."""
+    rows = [
+        ("utterances", f"{summary.utterances}"),
+        ("WER, first hypothesis", f"{summary.wer_first:.1%}"),
+        ("WER, best in list (oracle)", f"{summary.wer_oracle:.1%}"),
+        ("WER, rehear", f"{summary.wer_relay:.1%}"),
+        ("  change against first", f"{_ratio(summary.wer_relay - summary.wer_first, summary.wer_first):+.1%}"),
+        ("entity recall", f"{summary.entity_recall:.1%}"),
+        ("entity precision", f"{summary.entity_precision:.1%}"),
+    ]
+    rows += [(f"decision {d}", f"{summary.decisions[d]:.1%}") for d in DECISIONS]
+    rows += [
+        ("asked back (confirm + reprompt)", f"{summary.clarify_rate:.1%}"),
+        ("wrong accepts (entity ids differ)", f"{summary.wrong_accept_rate:.1%}"),
+        ("accepted with a word error", f"{summary.accepted_with_word_error:.1%}"),
+    ]
+    for stage, values in summary.stage_latency_us.items():
+        rows.append((f"latency {stage} p50 / p99", f"{values['p50']:.0f} / {values['p99']:.0f} us"))
+    rows.append(("latency total p50 / p99", f"{summary.latency_us['p50']:.0f} / {summary.latency_us['p99']:.0f} us"))
+    width = max(len(name) for name, _ in rows)
+    lines = [title] if title else []
+    lines += [f"{name.ljust(width)}  {value}" for name, value in rows]
+    return "\n".join(lines)

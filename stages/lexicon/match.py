@@ -1,0 +1,240 @@
+"""Spans of the N-best, their candidate entries and scores, and evidence pooled by posterior.
+
+A span is any run of 1..k words of a hypothesis, pronounced as one phone string; identical
+word runs in several hypotheses are one span with several occurrences. Candidates come from
+the phone index; each (span, form) pair is scored as a weighted mean of
+
+- phone similarity: 1 - feature-weighted alignment cost / longer length (stages.phonetics),
+- spelling similarity: rapidfuzz's normalised Indel ratio of the two texts, spaces removed,
+- key agreement: the best normalised Levenshtein similarity between the Double Metaphone keys.
+
+An exact written match scores 1.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from functools import lru_cache
+
+import numpy as np
+import numpy.typing as npt
+from rapidfuzz.distance import Levenshtein
+from rapidfuzz.fuzz import ratio
+from rapidfuzz.process import cpdist
+
+from relay.core.utterance import Hypothesis
+from stages.lexicon.compile import CompiledLexicon, Form, word_run_keys
+from stages.lexicon.sound.kernels import compiled
+from stages.lexicon.sound.phonetics import CostModel, batch_similarity
+from stages.lexicon.sound.pronounce import Pronouncer
+
+__all__ = ["Evidence", "Spans", "Weights", "find_spans", "pool", "score_spans"]
+
+
+@dataclass(frozen=True, slots=True)
+class Weights:
+    phone: float
+    spelling: float
+    keys: float
+    candidates: int
+    min_retrieval: float
+    pair_floor: float  # pairs that cannot reach this score are dropped before the costlier signals
+    min_phone: float  # pairs whose phones agree less than this are dropped whatever their spelling
+    min_edit: float  # pairs below this unit-cost phone similarity are not aligned at all
+
+
+@dataclass(slots=True)
+class Spans:
+    """The distinct word runs of an N-best, one column per attribute; a span is an index into them."""
+
+    words: list[tuple[str, ...]]
+    phones: list[str]  # the words' phones run together
+    texts: list[str]  # the words joined by spaces
+    occurrences: list[list[tuple[int, int, int]]]  # (hypothesis, start, end)
+
+    def __len__(self) -> int:
+        return len(self.words)
+
+
+@dataclass(slots=True)
+class Evidence:
+    """What the N-best says about one entry."""
+
+    entry: int
+    pooled: float = 0.0  # sum over hypotheses of posterior x best span score
+    per_hypothesis: dict[int, tuple[float, int, int, int, bool]] = field(default_factory=dict)
+    # hypothesis -> (score, start, end, form, exact)
+
+
+def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer) -> Spans:
+    word = pronouncer.word
+    token_lists = [hypothesis.tokens for hypothesis in nbest]
+    sound_lists = [[word(token) for token in tokens] for tokens in token_lists]
+    if compiled is not None:
+        return Spans(*compiled.word_spans(token_lists, sound_lists, longest))
+    return _word_spans_python(token_lists, sound_lists, longest)
+
+
+def _word_spans_python(token_lists: Sequence[Sequence[str]], sound_lists: Sequence[Sequence[str]],
+                       longest: int) -> Spans:
+    index: dict[tuple[str, ...], int] = {}
+    spans = Spans([], [], [], [])
+    for number, (hypothesis, sounds) in enumerate(zip(token_lists, sound_lists)):
+        tokens = tuple(hypothesis)
+        count = len(tokens)
+        for start in range(count):
+            phones = ""
+            for end in range(start + 1, min(count, start + longest) + 1):
+                phones += sounds[end - 1]  # a span's phones are its words' phones run together
+                words = tokens[start:end]
+                at = index.get(words)
+                if at is None:
+                    index[words] = len(spans.words)
+                    spans.words.append(words)
+                    spans.phones.append(phones)
+                    spans.texts.append(" ".join(words))
+                    spans.occurrences.append([(number, start, end)])
+                else:
+                    spans.occurrences[at].append((number, start, end))
+    return spans
+
+
+_span_keys = lru_cache(maxsize=32768)(word_run_keys)  # span words recur from message to message
+
+
+def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
+                costs: CostModel) -> list[tuple[int, int, float, bool]]:
+    """(span, form, score, exact) for every candidate pair worth keeping."""
+    pairs: list[tuple[int, int, float, bool]] = []
+    exact_pairs: set[tuple[int, int]] = set()
+    exact = lexicon.exact
+    for number, text in enumerate(spans.texts):
+        if text in exact:
+            for form in exact[text]:
+                pairs.append((number, form, 1.0, True))
+                exact_pairs.add((number, form))
+    hits = lexicon.index.search(spans.phones, k=weights.candidates,
+                                min_score=weights.min_retrieval)
+    forms = lexicon.forms
+    # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
+    # feature alignment; see docs/lexicon.md for how the threshold was chosen.
+    screen = weights.min_edit
+    queries, items = hits.query.tolist(), hits.item.tolist()
+    phones = spans.phones
+    edit = cpdist([phones[q] for q in queries], [forms[f].phones for f in items],
+                  scorer=Levenshtein.normalized_similarity, dtype=np.float64)
+    passed = (edit >= screen).tolist()
+    if exact_pairs:
+        chosen = [(q, f) for q, f, ok in zip(queries, items, passed) if ok and (q, f) not in exact_pairs]
+    else:
+        chosen = [(q, f) for q, f, ok in zip(queries, items, passed) if ok]
+    if not chosen:
+        return pairs
+    phone = batch_similarity([phones[q] for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
+    phone_weight, spelling, key_weight, min_phone = weights.phone, weights.spelling, weights.keys, weights.min_phone
+    total = phone_weight + spelling + key_weight
+    floor = weights.pair_floor * total
+    # The same sums as pair by pair, in the same order, one array operation per term.
+    phone_score = phone.astype(np.float64, copy=False)
+    score = phone_weight * phone_score
+    kept = np.flatnonzero(~((phone_score < min_phone) | (score + spelling + key_weight < floor))).tolist()
+    if not kept:
+        return pairs
+    chosen = [chosen[i] for i in kept]
+    score = score[kept]
+    if spelling:
+        texts = spans.texts
+        joined = {q: texts[q].replace(" ", "") for q, _ in chosen}
+        score = score + spelling * cpdist([joined[q] for q, _ in chosen],
+                                          [forms[f].text.replace(" ", "") for _, f in chosen],
+                                          scorer=ratio, dtype=np.float64) / 100.0
+    if key_weight:
+        # Pairs with no chance to reach the floor are dropped below whatever their keys say.
+        score = score + key_weight * _key_agreements(chosen, spans, forms)
+    for (q, f), value in zip(chosen, score.tolist()):
+        if value >= floor:
+            pairs.append((q, f, value / total, False))
+    return pairs
+
+
+def _key_agreements(chosen: list[tuple[int, int]], spans: Spans, forms: Sequence[Form]) -> npt.NDArray[np.float64]:
+    """Per pair, the best normalised Levenshtein similarity between any span key and any form key.
+
+    A run has one or two keys; taking its first and last covers both, so four similarities per
+    pair hold every combination (a repeated one cannot change the maximum).
+    """
+    queries = [q for q, _ in chosen]
+    words = spans.words
+    keys = {q: _span_keys(words[q]) for q in dict.fromkeys(queries)}
+    heard = [keys[q] for q in queries]
+    known = [forms[f].keys for _, f in chosen]
+    first = [k[0] for k in heard]
+    last = [k[-1] for k in heard]
+    their_first = [k[0] for k in known]
+    their_last = [k[-1] for k in known]
+    similar = cpdist(first + first + last + last, their_first + their_last + their_first + their_last,
+                     scorer=Levenshtein.normalized_similarity, dtype=np.float64)
+    best: npt.NDArray[np.float64] = similar.reshape(4, len(chosen)).max(axis=0)
+    return best
+
+
+def pool(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexicon: CompiledLexicon,
+         posteriors: Sequence[float], *, strong: float = 0.75) -> dict[int, Evidence]:
+    """Per entry: best span score in each hypothesis, summed over hypotheses by posterior.
+
+    Among spans scoring at least ``strong``, the one covering more words is preferred, so a
+    near match of a full name ("tamsin okorra") is not lost to an exact match of its alias
+    ("tamsin") alone.
+    """
+    evidence: dict[int, Evidence] = {}
+    forms = lexicon.forms
+    words: dict[int, int] = {}  # form -> its word count, for the pairs _better weighs
+    occurrences = spans.occurrences
+    for q, f, score, exact in pairs:
+        entry = forms[f].entry
+        found = evidence.get(entry)
+        if found is None:
+            found = evidence[entry] = Evidence(entry, 0.0, {})
+        held_by = found.per_hypothesis
+        for hypothesis, start, end in occurrences[q]:
+            held = held_by.get(hypothesis)
+            if held is None:
+                held_by[hypothesis] = (score, start, end, f, exact)
+            elif exact or held[4]:
+                for form in (f, held[3]):
+                    if form not in words:
+                        words[form] = forms[form].words
+                if _better((score, start, end, f, exact), held, strong, words):
+                    held_by[hypothesis] = (score, start, end, f, exact)
+            # Neither exact: _better reduces to the higher score, then the longer span.
+            elif score > held[0] or (score == held[0] and end - start > held[2] - held[1]):
+                held_by[hypothesis] = (score, start, end, f, exact)
+    for found in evidence.values():
+        found.pooled = float(sum([posteriors[h] * held[0] for h, held in found.per_hypothesis.items()]))
+    return evidence
+
+
+def _better(new: tuple[float, int, int, int, bool], held: tuple[float, int, int, int, bool],
+            strong: float, words: dict[int, int]) -> bool:
+    score, start, end, form, exact = new
+    held_score, held_start, held_end, held_form, held_exact = held
+    # A near match of a longer form (the full name) beats an exact match of a shorter one (an
+    # alias) inside it; a longer span around the same form does not.
+    longer_form = words[form] > words[held_form]
+    contains = start <= held_start and held_end <= end and end - start > held_end - held_start and longer_form
+    inside = held_start <= start and end <= held_end and held_end - held_start > end - start and \
+        words[held_form] > words[form]
+    if held_exact and not exact and score >= strong and contains:
+        return True
+    if exact and not held_exact and held_score >= strong and inside:
+        return False
+    # Otherwise the higher score; at equal scores the longer span (it explains more words).
+    return (score, end - start) > (held_score, held_end - held_start)
+
+
+def best_entries(evidence: dict[int, Evidence], count: int) -> list[Evidence]:
+    scores = np.fromiter((e.pooled for e in evidence.values()), dtype=np.float64, count=len(evidence))
+    order = np.argsort(-scores)[:count]
+    values = list(evidence.values())
+    return [values[i] for i in order]

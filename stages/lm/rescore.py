@@ -1,0 +1,87 @@
+"""Stage `lm_rescore`: re-rank the N-best with an in-domain n-gram language model.
+
+Per hypothesis: score = a * asr + b * lm + c * words - oov_penalty * oov_words, all natural-log
+quantities, and the new posterior is the softmax of the scores over the list.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any, ClassVar
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from relay.core.errors import StageError
+from relay.core.stage import StageContext
+from relay.core.utterance import Hypothesis, Utterance, softmax
+from stages.lm.model import LmScore, score_tokens, shared_model
+
+__all__ = ["LmRescoreSettings", "LmRescoreStage", "lm_per_word"]
+_POSTERIOR_FLOOR = 1e-300  # log(0) would poison the sum; the entry stays merely very unlikely
+
+
+class LmRescoreSettings(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    model: str = Field(description="ARPA or kenlm binary model; a relative path resolves against the config")
+    asr_weight: float = Field(1.0, ge=0, description="a: weight of the recogniser's log posterior")
+    lm_weight: float = Field(0.5, ge=0, description="b: weight of the LM natural-log probability")
+    word_weight: float = Field(
+        1.0, description="c: added per word; offsets the LM's preference for short hypotheses"
+    )
+    oov_penalty: float = Field(0.0, ge=0, description="subtracted per word the model does not know")
+
+
+def lm_per_word(hypothesis: Hypothesis) -> float | None:
+    """The LM natural-log probability per word (``</s>`` included) of a rescored hypothesis."""
+    if "lm_per_word" in hypothesis.scores:
+        return hypothesis.scores["lm_per_word"]
+    if "lm" in hypothesis.scores:
+        return hypothesis.scores["lm"] / (len(hypothesis.tokens) + 1)
+    return None
+
+
+class LmRescoreStage:
+    """Combine the recogniser's posterior with an in-domain LM and re-rank."""
+
+    name: ClassVar[str] = "lm_rescore"
+    Settings: ClassVar[type[BaseModel]] = LmRescoreSettings
+    needs: ClassVar[frozenset[str]] = frozenset({"tokens", "posterior"})
+    provides: ClassVar[frozenset[str]] = frozenset({"posterior", "lm_score"})
+
+    def __init__(self, settings: LmRescoreSettings, *, context: StageContext) -> None:
+        self.settings = settings
+        self.model_path = context.resolve(Path(settings.model))
+        self._model: Any = None
+
+    def load(self) -> None:
+        self._model = shared_model(self.model_path)
+
+    def score(self, tokens: Sequence[str]) -> LmScore:
+        if self._model is None:
+            raise StageError(self.name, "process called before load")
+        return score_tokens(self._model, tokens)
+
+    def process(self, utterance: Utterance) -> Utterance:
+        s = self.settings
+        combined: list[float] = []
+        lm_scores: list[float] = []
+        oovs: list[int] = []
+        for hypothesis in utterance.nbest:
+            lm = self.score(hypothesis.tokens)
+            asr = hypothesis.scores.get("asr")
+            if asr is None:
+                asr = math.log(max(hypothesis.posterior, _POSTERIOR_FLOOR))
+            total = s.asr_weight * asr + s.lm_weight * lm.total + s.word_weight * lm.words - s.oov_penalty * lm.oov
+            hypothesis.scores["lm"] = lm.total
+            hypothesis.scores["lm_per_word"] = lm.per_word
+            hypothesis.scores["lm_rescore"] = total
+            combined.append(total)
+            lm_scores.append(round(lm.total, 4))
+            oovs.append(lm.oov)
+        for hypothesis, posterior in zip(utterance.nbest, softmax(combined)):
+            hypothesis.posterior = posterior
+        utterance.note(lm=lm_scores, oov=oovs, combined=[round(c, 4) for c in combined])
+        return utterance

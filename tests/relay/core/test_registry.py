@@ -1,0 +1,59 @@
+from typing import ClassVar
+
+import pytest
+from pydantic import BaseModel
+
+from relay.core.errors import ConfigError
+from relay.core.registry import Registry
+from relay.core.stage import StageContext
+from relay.core.utterance import Utterance
+from stages.normalize.stage import NormalizeStage
+
+
+class _Settings(BaseModel):
+    pass
+
+
+def _stage(stage_name: str) -> type:
+    class Custom:
+        name: ClassVar[str] = stage_name
+        Settings: ClassVar[type[BaseModel]] = _Settings
+        needs: ClassVar[frozenset[str]] = frozenset()
+        provides: ClassVar[frozenset[str]] = frozenset()
+
+        def __init__(self, settings: _Settings, *, context: StageContext) -> None:
+            pass
+
+        def load(self) -> None:
+            pass
+
+        def process(self, utterance: Utterance) -> Utterance:
+            return utterance
+
+    return Custom
+
+
+def test_builtin_is_imported_on_demand() -> None:
+    assert Registry().get("normalize") is NormalizeStage
+
+
+def test_register_and_get() -> None:
+    registry = Registry()
+    cls = registry.register(_stage("shout"))
+    assert registry.get("shout") is cls and "shout" in registry.names()
+
+
+def test_taken_name_is_refused() -> None:
+    with pytest.raises(ConfigError, match="taken by stages.normalize.stage.NormalizeStage"):
+        Registry().register(_stage("normalize"))
+
+
+def test_invalid_name_is_refused() -> None:
+    with pytest.raises(ConfigError, match="invalid name"):
+        Registry().register(_stage("Bad-Name"))
+
+
+def test_unknown_name_lists_valid_ones() -> None:
+    with pytest.raises(ConfigError) as caught:
+        Registry(plugins=False).get("nope")
+    assert "valid stages: gate, lexicon, lm_rescore, normalize" in str(caught.value)

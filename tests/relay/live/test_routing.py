@@ -1,0 +1,49 @@
+from __future__ import annotations
+
+import base64
+
+import orjson
+
+from relay.core.errors import InputError
+from relay.core.settings import TopicSettings
+from relay.live.messages import parse_message
+from relay.live.routing import cleaned, dead_letter, is_final, partial, passthrough
+
+TOPICS = TopicSettings(output="nlu/{source}/in", prompt="say/{source}/{decision}", dead_letter="dead")
+
+
+def _utterance(**extra: object):  # type: ignore[no-untyped-def]
+    payload = {"id": "u1", "source": "kiosk/1", "nbest": [{"text": "hello there"}], **extra}
+    return parse_message(orjson.dumps(payload), topic="asr/k/nbest")
+
+
+def test_dead_letter_keeps_the_payload_and_says_why() -> None:
+    error = InputError("schema", "topic asr/k/nbest: field id: missing")
+    v5 = dead_letter("asr/k/nbest", b"\xff raw", error, TOPICS, v5=True)
+    assert (v5.topic, v5.payload) == ("dead", b"\xff raw")
+    assert v5.properties == {"reason": "schema", "detail": error.detail, "topic": "asr/k/nbest"}
+    v311 = dead_letter("asr/k/nbest", b"\xff raw", error, TOPICS, v5=False)
+    envelope = orjson.loads(v311.payload)
+    assert v311.properties is None
+    assert envelope["reason"] == "schema" and envelope["topic"] == "asr/k/nbest"
+    assert base64.b64decode(envelope["payload_b64"]) == b"\xff raw"
+
+
+def test_cleaned_goes_to_output_and_prompt_only_when_unsure() -> None:
+    utterance = _utterance()
+    [out] = cleaned(utterance, TOPICS, {"version": "x", "config_hash": "h", "received_at": 0.0})
+    assert out.topic == "nlu/kiosk_1/in"  # the '/' in the source cannot add a level
+    utterance.decision, utterance.prompt = "confirm", "did you mean hello there?"
+    outs = cleaned(utterance, TOPICS, {"version": "x", "config_hash": "h", "received_at": 0.0})
+    assert [o.topic for o in outs] == ["nlu/kiosk_1/in", "say/kiosk_1/confirm"]
+    assert orjson.loads(outs[1].payload)["prompt"] == "did you mean hello there?"
+    quiet = TopicSettings(forward_unsure=False)
+    assert [o.topic for o in cleaned(utterance, quiet, {})] == ["dialogue/kiosk_1/prompt"]
+
+
+def test_partial_and_passthrough() -> None:
+    utterance = _utterance(final="false")
+    assert not is_final(utterance)
+    assert partial(utterance, b"raw", TOPICS).payload == b"raw"
+    flagged = orjson.loads(passthrough(_utterance(), TOPICS, {"received_at": 0.0}, "deadline").payload)
+    assert flagged["relay"]["passthrough"] == "deadline" and flagged["text"] == "hello there"

@@ -1,0 +1,313 @@
+from __future__ import annotations
+
+import dataclasses
+import random
+from pathlib import Path
+from typing import Any, ClassVar
+
+import numpy as np
+import pytest
+from pydantic import BaseModel, ConfigDict
+
+import relay.workbench.tuning
+from relay.cli import tune as tune_command
+from relay.core.config import build_chain, load_config
+from relay.core.registry import Registry
+from relay.core.stage import StageContext
+from relay.core.utterance import Utterance
+from relay.workbench.evaluate import Outcome
+from relay.workbench.tuning import (
+    DEFAULT_GATE_GRID,
+    DEFAULT_SPACE,
+    Choice,
+    RecordedFeatures,
+    cross_validate,
+    expand_space,
+    fit,
+    gate_accepts,
+    gate_settings,
+    held_out_summary,
+    make_folds,
+)
+from relay.workbench.variants import VariantBuilder, config_from_dict
+from stages.gate.stage import GateFeatures, GateSettings, decide
+from stages.lexicon.stage import LexiconSettings
+from stages.lm.rescore import LmRescoreSettings
+from stages.normalize.stage import NormalizeSettings
+from tests.relay.workbench.corpus_fixtures import write_config, write_corpus
+
+
+def test_folds_are_disjoint_cover_everything_and_follow_the_seed() -> None:
+    folds = make_folds(103, 5, seed=1)
+    joined = np.concatenate(folds)
+    assert sorted(joined.tolist()) == list(range(103))
+    assert len(set(joined.tolist())) == 103
+    assert [len(f) for f in folds] == [21, 21, 21, 20, 20]
+    assert all(np.array_equal(a, b) for a, b in zip(folds, make_folds(103, 5, seed=1)))
+    assert not all(np.array_equal(a, b) for a, b in zip(folds, make_folds(103, 5, seed=2)))
+    with pytest.raises(ValueError, match="folds"):
+        make_folds(3, 5, seed=1)
+
+
+def test_cross_validation_fits_on_training_folds_and_scores_on_the_held_out_one_only() -> None:
+    folds = make_folds(50, 5, seed=3)
+    fitted: list[np.ndarray] = []
+    scored: list[np.ndarray] = []
+
+    def fit_on(train: np.ndarray) -> Choice:
+        fitted.append(train)
+        return Choice(setting=0, gate={})
+
+    def score_on(choice: Choice, test: np.ndarray) -> int:
+        scored.append(test)
+        return len(test)
+
+    results = cross_validate(folds, fit_on, score_on)
+    assert len(results) == 5
+    for train, test, fold in zip(fitted, scored, folds):
+        assert np.array_equal(test, fold)
+        assert not set(train.tolist()) & set(test.tolist())
+        assert len(train) + len(test) == 50
+    # Every utterance is scored exactly once, always by a choice fitted without it.
+    assert sorted(np.concatenate(scored).tolist()) == list(range(50))
+
+
+def _features(rng: random.Random) -> GateFeatures:
+    corrected = rng.random() < 0.3
+    return GateFeatures(
+        posterior=rng.random(), margin=rng.random() * 0.6,
+        weakest_entity=None if rng.random() < 0.3 else rng.random(),
+        corrected=corrected, correction_score=rng.random() if corrected else None,
+        lm_per_word=None if rng.random() < 0.2 else -rng.uniform(1, 9),
+        safety_rule="word:start" if rng.random() < 0.1 else None, empty=rng.random() < 0.02,
+    )
+
+
+def _outcomes(count: int, seed: int, *, informative: bool = True) -> list[Outcome]:
+    rng = random.Random(seed)
+    outcomes = []
+    for i in range(count):
+        features = _features(rng)
+        # Right entities are likelier when the gate's scores are high, as with a real chain.
+        right = rng.random() < (features.posterior if informative else 0.5)
+        outcomes.append(Outcome(id=str(i), tags={}, ref_words=5, errors_first=2, errors_oracle=1,
+                                errors_relay=0 if right else 2, reference_ids=frozenset({"a"}),
+                                found={"a": "machine"} if right else {}, decision="accept", gate=features,
+                                stage_us={}, total_us=0.0))
+    return outcomes
+
+
+def test_vectorised_sweep_agrees_with_the_gate_decision() -> None:
+    outcomes = _outcomes(300, seed=5)
+    features = RecordedFeatures(outcomes)
+    rng = np.random.default_rng(0)
+    grid = np.column_stack([rng.choice(v, 40) for v in DEFAULT_GATE_GRID.values()])
+    for min_lm in (None, -5.0):
+        accepts = gate_accepts(features, grid, min_lm)
+        for row, thresholds in enumerate(grid):
+            gate = dict(zip(DEFAULT_GATE_GRID, thresholds.tolist()))
+            gate["accept_without_entity"] = bool(gate["accept_without_entity"])
+            settings = gate_settings(GateSettings(), {**gate, "min_lm_per_word": min_lm})
+            expected = [decide(o.gate, settings)[0] == "accept" for o in outcomes if o.gate is not None]
+            assert accepts[row].tolist() == expected
+
+
+def test_fit_keeps_within_the_clarification_budget_and_cuts_wrong_accepts() -> None:
+    outcomes = _outcomes(400, seed=11)
+    recorded = [RecordedFeatures(outcomes)]
+    train = np.arange(400)
+    everything = Choice(0, {"accept_posterior": 0.0, "accept_margin": 0.0, "accept_entity": 0.0,
+                            "accept_correction": 0.0, "accept_without_entity": True, "min_lm_per_word": None})
+    baseline = held_out_summary([outcomes], [_result(everything, train)], GateSettings(safety_words=[]))
+    choice = fit(recorded, train, max_clarify=0.4)
+    tuned = held_out_summary([outcomes], [_result(choice, train)], GateSettings())
+    assert tuned.clarify_rate <= 0.4 + 1e-9
+    assert tuned.wrong_accept_rate < baseline.wrong_accept_rate - 0.05
+
+
+def _hidden_cue_outcomes(count: int, seed: int) -> list[Outcome]:
+    """Right or wrong by a cue the hand thresholds cannot see (unknown words in the finished
+    text), while the posterior says nothing: only the learned confidence can tell them apart."""
+    rng = random.Random(seed)
+    outcomes = []
+    for i in range(count):
+        features = dataclasses.replace(_features(rng), text_oov=rng.randint(0, 3), safety_rule=None, empty=False,
+                                       text_lm_per_word=-rng.uniform(2, 8))
+        right = rng.random() < (0.95 if features.text_oov == 0 else 0.3)
+        outcomes.append(Outcome(id=str(i), tags={}, ref_words=5, errors_first=2, errors_oracle=1,
+                                errors_relay=0 if right else 2, reference_ids=frozenset({"a"}),
+                                found={"a": "machine"} if right else {}, decision="accept", gate=features,
+                                stage_us={}, total_us=0.0))
+    return outcomes
+
+
+def test_learned_confidence_beats_hand_thresholds_on_held_out_folds_when_the_cue_is_hidden() -> None:
+    outcomes = _hidden_cue_outcomes(500, seed=3)
+    recorded = [RecordedFeatures(outcomes)]
+    base = GateSettings(lm_model=Path("domain.arpa"), safety_words=[])
+    folds = make_folds(500, 5, seed=1)
+    summaries = {}
+    for learn in (False, True):
+        results = cross_validate(folds, lambda train, learn=learn: fit(recorded, train, max_clarify=0.4, learn=learn),
+                                 lambda choice, test: choice)
+        summaries[learn] = held_out_summary([outcomes], results, base)
+        assert all((r.choice.gate.get("confidence") is not None) == learn for r in results)
+    assert summaries[True].wrong_accept_rate < summaries[False].wrong_accept_rate - 0.1
+    assert summaries[True].clarify_rate <= 0.45  # fitted under a 40% budget, scored on other folds
+
+
+def test_the_learned_sweep_agrees_with_the_gate_decision() -> None:
+    outcomes = _hidden_cue_outcomes(200, seed=8)
+    train = np.arange(200)
+    choice = fit([RecordedFeatures(outcomes)], train, max_clarify=0.3)
+    assert choice.gate["confidence"] is not None
+    settings = gate_settings(GateSettings(lm_model=Path("domain.arpa"), safety_words=[]), choice.gate)
+    accepted = [decide(o.gate, settings)[0] == "accept" for o in outcomes if o.gate is not None]
+    # Under the budget on the utterances it was fitted on, as the sweep promised.
+    asked_back = 1 - sum(accepted) / len(accepted)
+    assert asked_back <= 0.3 + 1e-9
+
+
+def _result(choice: Choice, index: np.ndarray) -> Any:
+    return cross_validate([index, np.array([], dtype=int)], lambda train: choice,
+                          lambda c, test: None)[0]
+
+
+def test_held_out_summary_uses_only_each_folds_test_utterances() -> None:
+    outcomes = _outcomes(60, seed=2)
+    folds = make_folds(60, 3, seed=9)
+    results = cross_validate(folds, lambda train: fit([RecordedFeatures([outcomes[i] for i in range(60)])], train,
+                                                      max_clarify=0.3), lambda choice, test: None)
+    summary = held_out_summary([outcomes], results, GateSettings())
+    assert summary.utterances == 60
+    only_first = held_out_summary([outcomes], results[:1], GateSettings())
+    assert only_first.utterances == len(folds[0])
+
+
+def test_space_expands_and_samples_with_a_fixed_seed() -> None:
+    space = {"lm_rescore": {"lm_weight": [0.1, 0.2, 0.3]}, "lexicon": {"min_score": [0.5, 0.7]}}
+    settings = expand_space(space, max_settings=10, seed=1)
+    assert len(settings) == 6
+    assert {"lm_rescore": {"lm_weight": 0.3}, "lexicon": {"min_score": 0.5}} in settings
+    assert expand_space(space, max_settings=4, seed=1) == expand_space(space, max_settings=4, seed=1)
+    assert len(expand_space(space, max_settings=4, seed=1)) == 4
+    assert expand_space({}, max_settings=4, seed=1) == [{}]
+
+
+class CountingSettings(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    bias: float = 0.0
+
+
+class CountingStage:
+    name: ClassVar[str] = "counting"
+    Settings: ClassVar[type[BaseModel]] = CountingSettings
+    needs: ClassVar[frozenset[str]] = frozenset({"posterior"})
+    provides: ClassVar[frozenset[str]] = frozenset()
+    loads: ClassVar[int] = 0
+
+    def __init__(self, settings: CountingSettings, *, context: StageContext) -> None:
+        self.settings = settings
+
+    def load(self) -> None:
+        CountingStage.loads += 1
+
+    def process(self, utterance: Utterance) -> Utterance:
+        return utterance
+
+
+def test_variant_builder_loads_each_distinct_stage_setting_once(tmp_path: Path) -> None:
+    registry = Registry(plugins=False)
+    registry.register(CountingStage)  # type: ignore[arg-type]
+    loaded = config_from_dict({"stages": ["normalize", {"counting": {"bias": 0.1}}, "gate"]}, base_dir=tmp_path)
+    builder = VariantBuilder(loaded, registry=registry)
+    CountingStage.loads = 0
+    first = builder.chain({"counting": {"bias": 0.5}})
+    second = builder.chain({"counting": {"bias": 0.5}})
+    third = builder.chain({"counting": {"bias": 0.9}})
+    assert CountingStage.loads == 2
+    assert first.stages[0] is third.stages[0]  # normalize did not change: shared
+    assert first.stages[1] is second.stages[1] and first.stages[1] is not third.stages[1]
+    assert builder.settings_fields("counting") == {"bias"}
+    assert builder.settings_fields("no_such_stage") == set()
+
+
+def test_tune_writes_a_config_eval_accepts_and_prints_held_out_numbers(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 120)
+    out = tmp_path / "tuned" / "tuned.yaml"
+    out.parent.mkdir()
+    code = tune_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")), "-o", str(out),
+                              "--max-clarify", "0.5", "--folds", "4", "--no-progress"])
+    assert code == 0
+    captured = capsys.readouterr()
+    assert "held-out folds pooled" in captured.out
+    assert "fold 4/4" in captured.out
+    # The default space names stages this chain lacks; tuning goes on without them.
+    assert "no stage lm_rescore" in captured.err
+    chain = build_chain(load_config(out))
+    assert chain.names == ["normalize", "gate"]
+    gate = chain.stages[1]
+    assert isinstance(gate.settings, GateSettings)  # type: ignore[attr-defined]
+    # Confident utterances are the right ones in this corpus: the gate must have learnt to ask back.
+    tuned = gate.settings  # type: ignore[attr-defined]
+    assert tuned.accept_posterior > 0 or tuned.accept_margin > 0
+
+
+def test_tune_adds_a_gate_when_the_chain_has_none(tmp_path: Path) -> None:
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 60)
+    config = tmp_path / "relay.yaml"
+    config.write_text("stages:\n  - normalize\n")
+    out = tmp_path / "tuned.yaml"
+    assert tune_command.main([str(corpus), "--config", str(config), "-o", str(out), "--no-progress"]) == 0
+    assert build_chain(load_config(out)).names == ["normalize", "gate"]
+
+
+def test_tune_prints_only_numbers_from_utterances_the_choice_was_not_fitted_on(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    fitted: list[set[int]] = []
+    scored: list[list[int]] = []
+    real_fit, real_summarize = tune_command.fit, tune_command.summarize
+
+    def spy_fit(recorded: Any, index: np.ndarray, **options: Any) -> Choice:
+        fitted.append(set(index.tolist()))
+        return real_fit(recorded, index, **options)
+
+    def spy_summarize(outcomes: Any, **options: Any) -> Any:
+        scored.append([int(o.id.removeprefix("t-")) for o in outcomes])
+        return real_summarize(outcomes, **options)
+
+    monkeypatch.setattr(tune_command, "fit", spy_fit)
+    monkeypatch.setattr(tune_command, "summarize", spy_summarize)
+    monkeypatch.setattr(relay.workbench.tuning, "summarize", spy_summarize)
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 80)
+    assert tune_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")),
+                              "-o", str(tmp_path / "t.yaml"), "--folds", "4", "--no-progress"]) == 0
+    # Four fold fits, then one on everything for the written file; five summaries: four folds and the pool.
+    assert len(fitted) == 5 and fitted[4] == set(range(80))
+    assert len(scored) == 5
+    for train, test in zip(fitted[:4], scored[:4]):
+        assert not train & set(test)
+        assert len(train) + len(test) == 80
+    assert sorted(scored[4]) == list(range(80))
+
+
+def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("REHEAR_TEST_PASSWORD", "hunter2")
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 40)
+    config = tmp_path / "relay.yaml"
+    config.write_text("broker:\n  password: ${REHEAR_TEST_PASSWORD}\nstages:\n  - normalize\n  - gate\n")
+    out = tmp_path / "tuned.yaml"
+    assert tune_command.main([str(corpus), "--config", str(config), "-o", str(out), "--no-progress"]) == 0
+    written = out.read_text()
+    assert "${REHEAR_TEST_PASSWORD}" in written and "hunter2" not in written
+    assert load_config(out).config.broker.password is not None
+
+
+def test_default_space_names_only_settings_the_stages_have() -> None:
+    fields = {"normalize": NormalizeSettings.model_fields, "lm_rescore": LmRescoreSettings.model_fields,
+              "lexicon": LexiconSettings.model_fields}
+    for stage, params in DEFAULT_SPACE.items():
+        for param, values in params.items():
+            assert param in fields[stage], f"{stage}.{param}"
+            assert values, f"{stage}.{param} has no values"

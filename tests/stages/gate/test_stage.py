@@ -1,0 +1,334 @@
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import pytest
+from pydantic import ValidationError
+
+from relay.core.config import build_chain, load_config
+from relay.core.registry import Registry
+from relay.core.stage import StageContext
+from relay.core.utterance import Correction, Entity, Hypothesis, TraceEntry, Utterance
+from relay.live.messages import parse_message
+from stages.gate.stage import ASR_LOG_FLOOR, GateFeatures, GateSettings, GateStage, decide
+from tests.paths import DATA
+
+CONTEXT = StageContext(base_dir=Path("."), cache_dir=Path(".rehear-cache"))
+
+
+def make_utterance(posteriors: list[float], texts: list[str] | None = None, *,
+                   entities: list[Entity] | None = None, corrections: list[Correction] | None = None,
+                   lm_per_word: float | None = None) -> Utterance:
+    texts = texts or [f"hypothesis {i}" for i in range(len(posteriors))]
+    nbest = [Hypothesis(text=t, rank=i, fields={"text": t}, tokens=t.split(), posterior=p)
+             for i, (t, p) in enumerate(zip(texts, posteriors))]
+    if lm_per_word is not None:
+        nbest[0].scores["lm_per_word"] = lm_per_word
+    utterance = Utterance(id="u1", source="test", speaker=None, payload={}, nbest=nbest,
+                          entities=entities or [], corrections=corrections or [])
+    utterance.trace.append(TraceEntry("gate"))
+    return utterance
+
+
+def machine(score: float, name: str = "corvin bandsaw") -> Entity:
+    return Entity(id="machine.x", type="machine", name=name, span=(0, len(name)), heard="carving band saw", score=score)
+
+
+def gate(**settings: object) -> GateStage:
+    return GateStage(GateSettings.model_validate(settings), context=CONTEXT)
+
+
+def test_confident_result_with_strong_entity_is_accepted() -> None:
+    utterance = gate().process(make_utterance([0.9, 0.1], ["book the corvin bandsaw", "book the"],
+                                              entities=[machine(0.95)]))
+    assert utterance.decision == "accept"
+    assert utterance.prompt is None
+    assert utterance.trace[-1].scores["rule"] == "scores"
+
+
+def test_low_posterior_asks_again_naming_the_entity_type() -> None:
+    utterance = gate().process(make_utterance([0.15, 0.1, 0.1], entities=[machine(0.9)]))
+    assert utterance.decision == "reprompt"
+    assert utterance.trace[-1].scores["rule"] == "low_posterior"
+
+
+def test_weak_entity_asks_which_one() -> None:
+    utterance = gate().process(make_utterance([0.9, 0.1], entities=[machine(0.1)]))
+    assert utterance.decision == "reprompt"
+    assert utterance.prompt == "Which machine?"
+
+
+def test_type_nouns_and_per_type_prompts_apply() -> None:
+    stage = gate(type_nouns={"machine": "tool"}, prompts_by_type={"person": {"reprompt_entity": "Who do you mean?"}})
+    assert stage.process(make_utterance([0.9, 0.1], entities=[machine(0.1)])).prompt == "Which tool?"
+    person = Entity(id="p", type="person", name="ane szymanska", span=(0, 3), heard="anne", score=0.1)
+    assert stage.process(make_utterance([0.9, 0.1], entities=[person])).prompt == "Who do you mean?"
+
+
+def test_narrow_margin_confirms_the_whole_text() -> None:
+    stage = gate(accept_posterior=0.5, accept_margin=0.3)
+    utterance = stage.process(make_utterance([0.62, 0.38], ["book the lathe", "look the lathe"]))
+    assert utterance.decision == "confirm"
+    assert utterance.prompt == "Did you mean book the lathe?"
+    assert utterance.trace[-1].scores["rule"] == "margin"
+    assert utterance.trace[-1].scores["margin"] == pytest.approx(0.24)
+
+
+def test_uncertain_correction_is_confirmed_naming_the_corrected_entity() -> None:
+    fix = Correction(stage="lexicon", before="pillow table saw", after="pellow table saw", score=0.7, reason="phonetic")
+    utterance = gate().process(make_utterance(
+        [0.95, 0.05], ["book the pellow table saw", "x"], entities=[machine(0.9, "pellow table saw")], corrections=[fix]))
+    assert utterance.decision == "confirm"
+    assert utterance.prompt == "Did you mean pellow table saw?"
+    assert utterance.trace[-1].scores["corrected"] is True
+
+
+def test_confident_correction_is_accepted() -> None:
+    fix = Correction(stage="lexicon", before="pillow", after="pellow table saw", score=0.95, reason="phonetic")
+    utterance = gate().process(make_utterance([0.95, 0.05], entities=[machine(0.9)], corrections=[fix]))
+    assert utterance.decision == "accept"
+
+
+@pytest.mark.parametrize("text,rule", [
+    ("start the corvin bandsaw", "safety:word:start"),
+    ("please spin up the lathe", "safety:word:spin up"),
+    ("Open valve 3", "safety:word:open"),
+])
+def test_dangerous_commands_are_always_confirmed(text: str, rule: str) -> None:
+    utterance = gate().process(make_utterance([0.99, 0.01], [text, "x"], entities=[machine(0.99)]))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == rule
+    assert utterance.prompt == f"Please confirm: {utterance.text}?"
+
+
+def test_a_likely_runner_up_with_a_dangerous_word_is_confirmed() -> None:
+    texts = ["stat the lathe", "start the lathe"]
+    utterance = gate().process(make_utterance([0.85, 0.15], texts))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == "safety:word:start (runner-up)"
+    assert gate(safety_min_posterior=0.2).process(make_utterance([0.85, 0.15], texts)).decision == "accept"
+
+
+def test_words_match_whole_words_only() -> None:
+    utterance = gate().process(make_utterance([0.99, 0.01], ["the starter kit is in bay two", "x"]))
+    assert utterance.decision == "accept"
+
+
+def test_dangerous_entity_type_is_confirmed() -> None:
+    valve = Entity(id="v1", type="valve", name="coolant valve", span=(0, 5), heard="coolant valve", score=0.99)
+    utterance = gate(safety_words=[]).process(make_utterance([0.99, 0.01], ["check the coolant valve", "x"],
+                                                             entities=[valve]))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == "safety:type:valve"
+
+
+def test_safety_rule_never_relaxes_a_reprompt() -> None:
+    utterance = gate().process(make_utterance([0.1, 0.1], ["start it", "stop it"]))
+    assert utterance.decision == "reprompt"
+
+
+def test_low_language_model_score_confirms_when_configured() -> None:
+    assert gate().process(make_utterance([0.9, 0.1], lm_per_word=-9.0)).decision == "accept"
+    utterance = gate(min_lm_per_word=-6.0).process(make_utterance([0.9, 0.1], lm_per_word=-9.0))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["lm_per_word"] == -9.0
+
+
+def test_result_without_entity_can_be_sent_back() -> None:
+    assert gate(accept_without_entity=False).process(make_utterance([0.9, 0.1])).decision == "confirm"
+
+
+def test_empty_text_asks_again() -> None:
+    assert gate().process(make_utterance([1.0], [""])).decision == "reprompt"
+
+
+def test_decide_is_a_pure_function_of_features() -> None:
+    features = GateFeatures(posterior=0.7, margin=0.5, weakest_entity=0.55, corrected=False,
+                            correction_score=None, lm_per_word=None, safety_rule=None, empty=False)
+    assert decide(features, GateSettings()) == ("accept", "scores")
+    assert decide(features, GateSettings(accept_entity=0.6)) == ("confirm", "entity")
+
+
+@pytest.mark.parametrize("settings,message", [
+    ({"accept_posterior": 0.3, "reprompt_posterior": 0.5}, "reprompt_posterior"),
+    ({"prompts": {"confirm": "Did you mean {txt}?"}}, "unknown placeholder {txt}"),
+    ({"acept_posterior": 0.5}, "Extra inputs are not permitted"),
+])
+def test_invalid_settings_are_rejected(settings: dict[str, object], message: str) -> None:
+    with pytest.raises(ValidationError, match=message.replace("{", r"\{").replace("}", r"\}")):
+        GateSettings.model_validate(settings)
+
+
+def test_gate_runs_in_a_chain_built_from_yaml(tmp_path: Path) -> None:
+    config = tmp_path / "relay.yaml"
+    config.write_text("stages:\n  - normalize\n  - gate:\n      accept_posterior: 0.7\n")
+    chain = build_chain(load_config(config))
+    assert Registry().get("gate") is GateStage
+    chain.load()
+    message = b'{"id": "a", "nbest": [{"text": "Book the lathe", "conf": 0.9}, {"text": "look the lathe", "conf": 0.1}]}'
+    utterance = chain.process(parse_message(message, topic="asr/a/nbest"))
+    assert utterance.decision == "accept"
+    assert utterance.trace[-1].stage == "gate"
+    assert utterance.trace[-1].scores["posterior"] == pytest.approx(0.9)
+
+
+# --- learned confidence -------------------------------------------------------------------
+
+
+
+def _oov_model(**extra: object) -> dict[str, object]:
+    """A confidence that falls with each word the LM has never seen (weights written by hand)."""
+    return {"lm_model": str(DATA / "lm_domain.o3.arpa"), "accept_confidence": 0.6, "reprompt_confidence": 0.2,
+            "confidence": {"bias": 2.0, "features": {"text_oov": {"weight": -1.5, "center": 0.0, "scale": 1.0}}},
+            "safety_words": [], **extra}
+
+
+def test_the_gate_scores_the_finished_text_with_its_language_model() -> None:
+    import kenlm
+
+    stage = gate(**_oov_model())
+    stage.load()
+    text = "book the quux"
+    features = stage.features(make_utterance([0.9, 0.1], [text, "other"]))
+    # Reference: kenlm's own per-word scores of the same sentence (log10, turned into natural log).
+    config = kenlm.Config()
+    config.show_progress = False
+    scores = list(kenlm.Model(str(DATA / "lm_domain.o3.arpa"), config).full_scores(text, bos=True, eos=True))
+    assert features.text_lm_per_word == pytest.approx(sum(s[0] for s in scores) * math.log(10) / 4)
+    assert features.text_lm_weakest == pytest.approx(min(s[0] for s in scores[:3]) * math.log(10))
+    assert features.text_oov == sum(s[2] for s in scores[:3]) == 1
+    assert features.words == 3
+
+
+def test_confidence_accepts_confirms_or_asks_again() -> None:
+    stage = gate(**_oov_model(accept_posterior=0.0, accept_entity=0.0, accept_correction=0.0,
+                              reprompt_posterior=0.0, reprompt_entity=0.0))
+    stage.load()
+    # sigmoid(2) = 0.88 with no unknown word, sigmoid(0.5) = 0.62 with one, sigmoid(-1) = 0.27, sigmoid(-2.5) = 0.08.
+    for text, decision, rule in (("book the lathe", "accept", "scores"), ("book the quux", "accept", "scores"),
+                                 ("quux the quuz", "confirm", "confidence"),
+                                 ("quux quuz quuv", "reprompt", "low_confidence")):
+        utterance = stage.process(make_utterance([0.9, 0.1], [text, "other"]))
+        assert (utterance.decision, utterance.trace[-1].scores["rule"]) == (decision, rule), text
+
+
+def test_the_more_cautious_of_thresholds_and_confidence_wins() -> None:
+    stage = gate(**_oov_model(accept_posterior=0.95))
+    stage.load()
+    # Confident by the model, but the posterior threshold asks: thresholds still apply.
+    utterance = stage.process(make_utterance([0.9, 0.1], ["book the lathe", "other"]))
+    assert utterance.decision == "confirm"
+    assert utterance.trace[-1].scores["rule"] == "posterior"
+    # And the safety rule is above both.
+    stage = gate(**_oov_model(accept_posterior=0.0, accept_entity=0.0, accept_correction=0.0,
+                              reprompt_posterior=0.0, reprompt_entity=0.0, safety_words=["book"]))
+    stage.load()
+    assert stage.process(make_utterance([0.9, 0.1], ["book the lathe", "other"])).decision == "confirm"
+
+
+def test_text_features_need_a_language_model() -> None:
+    settings = _oov_model()
+    del settings["lm_model"]
+    with pytest.raises(ValidationError, match="text_oov, which need lm_model"):
+        GateSettings.model_validate(settings)
+    with pytest.raises(ValidationError, match="reprompt_confidence must not exceed"):
+        GateSettings.model_validate(_oov_model(reprompt_confidence=0.7))
+
+
+def test_an_unsure_correction_is_confirmed_by_naming_the_corrected_entity() -> None:
+    stage = gate(**_oov_model(accept_posterior=0.0, accept_entity=0.0, accept_correction=0.0,
+                              reprompt_posterior=0.0, reprompt_entity=0.0))
+    stage.load()
+    fix = Correction(stage="lexicon", before="lay the", after="lathe", score=0.9, reason="phonetic")
+    # Two unknown words: sigmoid(2 - 3) = 0.27, between the reprompt and accept thresholds.
+    utterance = stage.process(make_utterance([0.9, 0.1], ["quux quuz lathe", "other"],
+                                             entities=[machine(0.9, name="lathe")], corrections=[fix]))
+    assert (utterance.decision, utterance.trace[-1].scores["rule"]) == ("confirm", "confidence")
+    assert utterance.prompt == "Did you mean lathe?"
+
+
+def _carrier_gate(tmp_path: Path) -> GateStage:
+    (tmp_path / "train.txt").write_text("meet me in {place}\nbook the {machine} for {person}\n")
+    stage = gate(carrier_text=str(tmp_path / "train.txt"), accept_confidence=0.6, reprompt_confidence=0.2,
+                 confidence={"bias": 2.0, "features": {"unfilled_slots": {"weight": -4.0, "center": 0.0, "scale": 1.0}}},
+                 type_nouns={"place": "room"}, safety_words=[])
+    stage.load()
+    return stage
+
+
+def test_a_slot_no_entity_fills_is_a_feature_and_asks_for_that_type(tmp_path: Path) -> None:
+    stage = _carrier_gate(tmp_path)
+    missed = stage.process(make_utterance([0.9, 0.1], ["meet me in they won", "meet me in day one"]))
+    assert missed.trace[-1].scores["unfilled_slots"] == 1
+    assert missed.trace[-1].scores["unfilled_type"] == "place"
+    # sigmoid(2 - 4) = 0.12, below reprompt_confidence: ask for the room, not for the whole sentence.
+    assert (missed.decision, missed.prompt) == ("reprompt", "Which room?")
+    bay = Entity(id="place.bay_1", type="place", name="bay one", span=(11, 18), heard="they won", score=0.9)
+    found = stage.process(make_utterance([0.9, 0.1], ["meet me in bay one", "other"], entities=[bay]))
+    assert found.trace[-1].scores["unfilled_slots"] == 0
+    assert found.decision == "accept"
+    other = stage.process(make_utterance([0.9, 0.1], ["what time is it", "other"]))
+    assert (other.trace[-1].scores["unfilled_slots"], other.decision) == (0, "accept")
+
+
+def test_line_edits_counts_words_away_from_the_nearest_in_domain_line(tmp_path: Path) -> None:
+    stage = _carrier_gate(tmp_path)
+    bay = Entity(id="place.bay_1", type="place", name="bay one", span=(11, 18), heard="they won", score=0.9)
+    assert stage.features(make_utterance([0.9, 0.1], ["meet me in bay one", "x"], entities=[bay])).line_edits == 0
+    # "meet me in they won": the slot's two plain words against one marker, a substitution and an insertion.
+    assert stage.features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).line_edits == 2
+    assert stage.features(make_utterance([0.9, 0.1], ["please meet me in bay one", "x"],
+                                         entities=[Entity(id="place.bay_1", type="place", name="bay one",
+                                                          span=(18, 25), heard="bay one", score=1.0)])).line_edits == 1
+    far = stage.features(make_utterance([0.9, 0.1], ["what time is it", "x"]))
+    assert far.line_edits == 4 and far.values()["line_edits"] == 4.0
+
+
+def test_without_carrier_text_the_feature_is_unknown() -> None:
+    features = gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"]))
+    assert features.unfilled_slots is None and features.values()["unfilled_slots"] is None
+    assert features.line_edits is None and features.values()["line_edits"] is None
+
+
+def test_unfilled_slots_needs_carrier_text() -> None:
+    with pytest.raises(ValidationError, match="unfilled_slots, which need carrier_text"):
+        GateSettings.model_validate({"confidence": {"features": {"unfilled_slots": {"weight": -1.0}}}})
+    with pytest.raises(ValidationError, match="line_edits, which need carrier_text"):
+        GateSettings.model_validate({"confidence": {"features": {"line_edits": {"weight": -1.0}}}})
+    with pytest.raises(ValidationError, match="carrier_lexicon is set without carrier_text"):
+        GateSettings.model_validate({"carrier_lexicon": "lexicon.csv"})
+
+
+def test_a_safety_word_inside_an_entity_name_is_part_of_the_name() -> None:
+    text = "the heron lift is making a grinding noise"
+    lift = Entity(id="machine.heron_lift", type="machine", name="heron lift", span=(4, 14), heard="heron lift",
+                  score=0.95)
+    # The runner-up holds the name too: it is masked there as well.
+    quiet = gate().process(make_utterance([0.8, 0.2], [text, "the heron lift is making a grinding noises"],
+                                          entities=[lift]))
+    assert quiet.trace[-1].scores["safety_rule"] is None
+    assert quiet.decision == "accept"
+    # The verb outside the name still asks, in the result ...
+    order = "lift the heron lift"
+    lifted = Entity(id="machine.heron_lift", type="machine", name="heron lift", span=(9, 19), heard="heron lift",
+                    score=0.95)
+    asked = gate().process(make_utterance([0.9, 0.1], [order, "x"], entities=[lifted]))
+    assert (asked.decision, asked.trace[-1].scores["rule"]) == ("confirm", "safety:word:lift")
+    # ... and in a likely runner-up.
+    runner = gate().process(make_utterance([0.8, 0.2], [text, "lift the heron lift now"], entities=[lift]))
+    assert runner.trace[-1].scores["rule"] == "safety:word:lift (runner-up)"
+
+
+def test_the_recognisers_own_confidence_is_a_feature_as_a_log() -> None:
+    utterance = make_utterance([0.6, 0.4], ["tell the front desk", "tell the front desks"])
+    assert gate().features(utterance).asr_log_conf is None  # no `conf` given: unknown
+    # As received: a later duplicate dropped by merging still counts, and the highest conf wins.
+    utterance.payload = {"nbest": [{"text": "tell the front desk"}, {"text": "tell the front desks", "conf": 0.02},
+                                   {"text": "tell the front desk", "conf": 0.5}]}
+    features = gate().features(utterance)
+    assert features.asr_log_conf == pytest.approx(math.log(0.5))
+    assert features.values()["asr_log_conf"] == pytest.approx(-0.693147, abs=1e-6)
+    # A posterior that underflowed to 0 is floored, not -inf.
+    utterance.payload = {"nbest": [{"text": "x", "conf": 0.0}]}
+    assert gate().features(utterance).asr_log_conf == ASR_LOG_FLOOR

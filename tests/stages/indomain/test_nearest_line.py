@@ -1,0 +1,71 @@
+"""Word edits to the nearest in-domain line."""
+
+from __future__ import annotations
+
+import random
+
+import jiwer
+import pytest
+
+from stages.indomain.carriers import marked_lines
+from stages.indomain.nearest_line import NearestLine
+
+LINES = [
+    "tell {person} the {machine} is free",
+    "book the {machine} for {person} at three",
+    "call {person}",
+    "meet me in {place}",
+]
+
+
+def _jiwer_edits(reference: str, hypothesis: str) -> int:
+    # Reference library: jiwer's word alignment (substitutions + deletions + insertions).
+    out = jiwer.process_words(reference, hypothesis)
+    return out.substitutions + out.deletions + out.insertions
+
+
+def test_a_line_itself_is_zero_edits_and_a_changed_word_one() -> None:
+    near = NearestLine(line.split() for line in LINES)
+    assert len(near) == 4
+    assert near.edits("tell {person} the {machine} is free".split()) == 0
+    assert near.edits("tell {person} the {machine} is broken".split()) == 1  # one substitution
+    assert near.edits("call {person} please".split()) == 1  # one insertion
+    assert near.edits("meet in {place}".split()) == 1  # one deletion
+
+
+def test_two_unknown_words_never_match_each_other() -> None:
+    near = NearestLine([["xx", "yy"]])
+    # "aa" and "bb" are both outside the lines' words; each is its own word: two substitutions.
+    assert near.edits(["aa", "bb"]) == 2
+    assert near.edits(["aa", "aa"]) == 2
+    assert near.edits(["xx", "aa"]) == 1
+
+
+def test_no_lines_means_unknown() -> None:
+    assert NearestLine([]).edits(["call", "{person}"]) is None
+
+
+def test_matches_jiwer_on_random_texts() -> None:
+    rng = random.Random(7)
+    vocabulary = sorted({w for line in LINES for w in line.split()} | {"now", "shown", "three", "lathe"})
+    near = NearestLine(line.split() for line in LINES)
+    for _ in range(300):
+        words = [rng.choice(vocabulary) for _ in range(rng.randint(1, 9))]
+        expected = min(_jiwer_edits(line, " ".join(words)) for line in LINES)
+        assert near.edits(words) == expected, words
+
+
+def test_names_in_literal_lines_count_as_their_slot() -> None:
+    lines = marked_lines([("t:1", "is the kiln on".split()), ("t:2", "is the {machine} on".split()),
+                          ("t:3", "meet me in bay one".split())],
+                         {"machine": ["kiln"], "place": ["bay one"]})
+    assert [tokens for _, tokens in lines] == [("is", "the", "{machine}", "on"), ("meet", "me", "in", "{place}")]
+    assert [where for where, _ in lines] == ["t:1", "t:3"]  # a repeat after marking is kept once
+
+
+@pytest.mark.parametrize("count", [7000, 70000])
+def test_large_vocabularies_stay_distinct(count: int) -> None:
+    # Past the 16-bit range and the surrogate block, codes stay one per word.
+    near = NearestLine([[f"w{i}" for i in range(count)]])
+    assert near.edits([f"w{i}" for i in range(count)]) == 0
+    assert near.edits([f"w{i}" for i in range(count - 1)] + ["other"]) == 1

@@ -1,0 +1,155 @@
+"""The compiled kernels (stages/_lexfast.c) against the numpy code they stand in for.
+
+Both paths must give the same bits: the same hits in the same order with the same float32
+scores, and the same float32 alignment costs. Where the module is not built these tests skip,
+except under CI=true, where ``pip install`` must have compiled it and they fail instead.
+"""
+
+from __future__ import annotations
+
+import os
+import pickle
+import random
+
+import jiwer
+import numpy as np
+import pytest
+
+from stages.lexicon.match import Spans, _word_spans_python
+from stages.lexicon.sound.kernels import compiled
+from stages.lexicon.sound.phone_index import Hits, PhoneIndex
+from stages.lexicon.sound.phonetics import (
+    PHONES,
+    CostModel,
+    _batch_alignment_cost_compiled,
+    _batch_alignment_cost_numpy,
+    encode,
+)
+
+if compiled is None:
+    if os.environ.get("CI") == "true" and os.environ.get("REHEAR_NO_COMPILED", "") in ("", "0"):
+        pytest.fail("the compiled kernels are not built (pip install -e . should build stages/_lexfast)",
+                    pytrace=False)
+    pytest.skip("the compiled kernels are not built", allow_module_level=True)
+
+
+def random_phones(rng: random.Random, shortest: int, longest: int, inventory: int = len(PHONES)) -> str:
+    return encode(rng.choices(PHONES[:inventory], k=rng.randint(shortest, longest)))
+
+
+def same_bits(x: np.ndarray, y: np.ndarray) -> bool:
+    return x.dtype == y.dtype and x.shape == y.shape and x.tobytes() == y.tobytes()
+
+
+def same_hits(a: Hits, b: Hits) -> bool:
+    return same_bits(a.query, b.query) and same_bits(a.item, b.item) and same_bits(a.score, b.score)
+
+
+@pytest.mark.parametrize("model", [CostModel.features(), CostModel.unit()], ids=["features", "unit"])
+def test_alignment_costs_are_the_same_bits(model: CostModel) -> None:
+    rng = random.Random(21)
+    # Empty strings, one-phone strings and long spans (a run of words) all occur in practice.
+    a = [random_phones(rng, 0, 40) for _ in range(3000)] + ["", "", encode(["K"])]
+    b = [random_phones(rng, 0, 40) for _ in range(3000)] + ["", encode(["AH", "T"]), ""]
+    compiled_costs = _batch_alignment_cost_compiled(a, b, model)
+    numpy_costs = _batch_alignment_cost_numpy(a, b, model)
+    assert same_bits(compiled_costs, numpy_costs)
+    assert (compiled_costs > 0).any()
+
+
+def test_compiled_unit_cost_equals_jiwer() -> None:
+    # Source: jiwer (reference WER library): with unit costs the alignment cost is the number of
+    # substitutions, deletions and insertions of its minimum-edit alignment.
+    rng = random.Random(4)
+    pairs = [(" ".join(rng.choices(PHONES, k=rng.randint(1, 12))), " ".join(rng.choices(PHONES, k=rng.randint(1, 12))))
+             for _ in range(200)]
+    costs = _batch_alignment_cost_compiled([encode(a.split()) for a, _ in pairs], [encode(b.split()) for _, b in pairs],
+                                           CostModel.unit())
+    for (a, b), cost in zip(pairs, costs.tolist()):
+        out = jiwer.process_words(a, b)
+        assert cost == out.substitutions + out.deletions + out.insertions
+
+
+def test_alignment_refuses_what_is_not_a_phone_string() -> None:
+    with pytest.raises(ValueError, match="not an encoded phone"):
+        _batch_alignment_cost_compiled(["abc"], [encode(["K"])], CostModel.features())
+    with pytest.raises(ValueError, match="as many strings"):
+        _batch_alignment_cost_compiled([encode(["K"])], [], CostModel.features())
+
+
+@pytest.fixture(scope="module")
+def index_and_queries() -> tuple[PhoneIndex, list[str]]:
+    rng = random.Random(9)
+    # A small phone inventory makes n-grams shared widely, so posting lists are long, some are
+    # dropped as common, and many scores tie: the ranking's tie order is exercised too.
+    items = [random_phones(rng, 1, 14, inventory=12) for _ in range(4000)]
+    index = PhoneIndex(items, max_postings=60)
+    queries = [random_phones(rng, 0, 30, inventory=12) for _ in range(300)] + items[:50] + [""]
+    return index, queries
+
+
+@pytest.mark.parametrize("k, min_score", [(3, 0.2), (8, 0.3), (50, 0.7), (1, 0.0), (5, 0.45), (20, 0.6)])
+def test_search_gives_the_same_hits(index_and_queries: tuple[PhoneIndex, list[str]], k: int,
+                                    min_score: float) -> None:
+    index, queries = index_and_queries
+    got = index._search_compiled(queries, k=k, min_score=min_score)
+    want = index._search_numpy(queries, k=k, min_score=min_score)
+    assert same_hits(got, want)
+    if k > 1:
+        assert len(got.query) > len(set(got.query.tolist()))  # several hits per query: the order counts
+    assert not index.counts.any()  # the scratch counters are left zeroed for the next call
+
+
+def test_search_keeps_a_score_equal_to_the_threshold_as_numpy_does() -> None:
+    # Scores are float32 and numpy compares them with the threshold rounded to float32 too.
+    # Five phones against the same five and one more share 7 of 9 + 11 n-grams: Dice 14/20,
+    # whose float32 lies below 0.7 but equals float32(0.7), so both paths keep the pair.
+    query = encode(["K", "AE", "T", "IH", "N"])
+    items = [query + encode(["Z"]), encode(["S", "IY", "M"]), query + encode(["Z", "Z"])]
+    index = PhoneIndex(items, max_postings=10_000)
+    got = index._search_compiled([query], k=5, min_score=0.7)
+    assert same_hits(got, index._search_numpy([query], k=5, min_score=0.7))
+    assert float(np.float32(0.7)) < 0.7
+    assert got.item.tolist() == [0] and got.score[0] == np.float32(0.7)
+
+
+def test_search_survives_pickling_and_empty_batches(index_and_queries: tuple[PhoneIndex, list[str]]) -> None:
+    index, queries = index_and_queries
+    loaded = pickle.loads(pickle.dumps(index))
+    assert "counts" not in index.__getstate__()  # scratch is rebuilt on load, not stored
+    assert same_hits(loaded._search_compiled(queries, k=3, min_score=0.2), index._search_numpy(queries, k=3, min_score=0.2))
+    assert same_hits(index._search_compiled([], k=3, min_score=0.2), index._search_numpy([], k=3, min_score=0.2))
+
+
+def test_search_refuses_what_is_not_a_phone_string(index_and_queries: tuple[PhoneIndex, list[str]]) -> None:
+    index, queries = index_and_queries
+    with pytest.raises(ValueError, match="not an encoded phone"):
+        index._search_compiled([queries[0], "plain text"], k=3, min_score=0.2)
+    assert not index.counts.any()  # counts taken for the first query are cleared on the error
+
+
+@pytest.mark.parametrize("longest", [1, 3, 8])
+def test_word_spans_are_the_same(longest: int) -> None:
+    rng = random.Random(longest)
+    vocabulary = ["bay", "three", "tamsin", "okara", "pump", "the", "a", "it's"]
+    for _ in range(50):
+        token_lists = [rng.choices(vocabulary, k=rng.randint(0, 9)) for _ in range(rng.randint(0, 10))]
+        sound_lists = [[random_phones(rng, 1, 5) for _ in tokens] for tokens in token_lists]
+        got = Spans(*compiled.word_spans(token_lists, sound_lists, longest))
+        expected = _word_spans_python(token_lists, sound_lists, longest)
+        assert got == expected
+        for words, phones, text, occurrences in zip(got.words, got.phones, got.texts, got.occurrences):
+            number, start, end = occurrences[0]
+            assert words == tuple(token_lists[number][start:end]) and text == " ".join(words)
+            assert phones == "".join(sound_lists[number][start:end]) and 1 <= end - start <= longest
+
+
+def test_word_spans_refuse_mismatched_input() -> None:
+    with pytest.raises(ValueError, match="differ in length"):
+        compiled.word_spans([["a", "b"]], [["x"]], 2)
+    with pytest.raises(ValueError, match="differ in length"):
+        compiled.word_spans([["a"]], [], 2)
+    with pytest.raises(TypeError, match="must be str"):
+        compiled.word_spans([["a", 3]], [["x", "y"]], 2)
+    with pytest.raises(ValueError, match="at least 1"):
+        compiled.word_spans([["a"]], [["x"]], 0)

@@ -1,0 +1,35 @@
+"""The `say` field: respelling and ARPAbet in slashes."""
+
+from __future__ import annotations
+
+import pytest
+
+from stages.lexicon.sound.respell import RespellError, parse_say
+
+
+def test_respelling_examples() -> None:
+    # Worked by hand from the respelling key in stages/respell.py.
+    assert parse_say("oh-KONK-woh") == ["OW0", "K", "AA1", "NG", "K", "W", "OW0"]
+    assert parse_say("kurf") == ["K", "ER1", "F"]
+    assert parse_say("kil-BRIDE") == ["K", "IH0", "L", "B", "R", "AY1", "D"]
+    assert parse_say("MY-teh") == ["M", "AY1", "T", "EH0"]
+
+
+def test_arpabet_in_slashes_is_taken_as_given() -> None:
+    assert parse_say("/OW0 K AA1 NG K W OW0/") == ["OW0", "K", "AA1", "NG", "K", "W", "OW0"]
+
+
+def test_name_words_keep_their_own_pronunciation() -> None:
+    out = parse_say("KWIL-an router", name_words=["quillan", "router"], pronounce=lambda w: ["<" + w + ">"])
+    assert out[-1] == "<router>"
+
+
+@pytest.mark.parametrize("say, message", [
+    ("/OW0 K QQ/", "not ARPAbet"),
+    ("/OW0 K", "slashes"),
+    ("bzz", "no vowel"),
+    ("oh-K4NK", "letters only"),
+])
+def test_unreadable_say_is_an_error(say: str, message: str) -> None:
+    with pytest.raises(RespellError, match=message):
+        parse_say(say)

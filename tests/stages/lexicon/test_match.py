@@ -1,0 +1,139 @@
+"""Span scoring in batches against the pair-by-pair definition it replaces.
+
+score_spans computes the spelling and key terms of all pairs at once (rapidfuzz cpdist) and
+sums the terms as arrays; these tests hold it to the plain definition, one pair at a time with
+rapidfuzz's own scorers, bit for bit.
+"""
+
+from __future__ import annotations
+
+import random
+
+import pytest
+from rapidfuzz.distance import Levenshtein
+from rapidfuzz.fuzz import ratio
+
+from relay.core.utterance import Hypothesis
+from stages.lexicon.compile import CompiledLexicon, compile_entries, phonetic_keys
+from stages.lexicon.data import LexiconEntry
+from stages.lexicon.match import Spans, Weights, _key_agreements, find_spans, pool, score_spans
+from stages.lexicon.sound.phonetics import CostModel, batch_similarity
+from stages.lexicon.sound.pronounce import Pronouncer
+
+_SYLLABLES = ["ka", "lo", "mir", "ta", "sen", "dru", "vo", "ne", "pal", "rik", "sho", "bel", "tam", "zin"]
+_WORDS = ["bay", "three", "check", "the", "pump", "at", "station", "oven", "band", "saw", "for", "near"]
+
+
+def _name(rng: random.Random) -> str:
+    return " ".join("".join(rng.choice(_SYLLABLES) for _ in range(rng.randint(2, 3)))
+                    for _ in range(rng.randint(1, 2)))
+
+
+def _misheard(word: str, rng: random.Random) -> str:
+    if len(word) < 3:
+        return word
+    i = rng.randrange(1, len(word) - 1)
+    return word[:i] + rng.choice("aeioulnrst") + word[i + 1:]
+
+
+@pytest.fixture(scope="module")
+def pronouncer() -> Pronouncer:
+    return Pronouncer()
+
+
+@pytest.fixture(scope="module")
+def lexicon(pronouncer: Pronouncer) -> CompiledLexicon:
+    rng = random.Random(3)
+    names = sorted({_name(rng) for _ in range(300)})
+    entries = [LexiconEntry(f"e{i}", "thing", name, (name.split()[0],) if " " in name else (), None, 1.0, i + 2)
+               for i, name in enumerate(names)]
+    return compile_entries(entries, pronouncer, max_postings=60)
+
+
+def _nbest(lexicon: CompiledLexicon, rng: random.Random) -> list[Hypothesis]:
+    name = rng.choice(lexicon.entries).name.split()
+    hypotheses = []
+    for rank in range(6):
+        words = [rng.choice(_WORDS) for _ in range(6)]
+        heard = name if rank == 0 else [_misheard(w, rng) for w in name]
+        at = rng.randrange(0, len(words) - len(heard) + 1)
+        words[at:at + len(heard)] = heard
+        hypotheses.append(Hypothesis(" ".join(words), rank, {}, tokens=words, posterior=1.0 / (rank + 2)))
+    return hypotheses
+
+
+def _pairwise(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
+              costs: CostModel) -> list[tuple[int, int, float, bool]]:
+    """The definition: each candidate pair scored on its own (rapidfuzz scorers called one by one)."""
+    pairs: list[tuple[int, int, float, bool]] = []
+    exact: set[tuple[int, int]] = set()
+    for number, text in enumerate(spans.texts):
+        for form in lexicon.exact.get(text, ()):
+            pairs.append((number, form, 1.0, True))
+            exact.add((number, form))
+    hits = lexicon.index.search(spans.phones, k=weights.candidates, min_score=weights.min_retrieval)
+    forms = lexicon.forms
+    chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
+              if Levenshtein.normalized_similarity(spans.phones[q], forms[f].phones) >= weights.min_edit
+              and (q, f) not in exact]
+    if not chosen:
+        return pairs
+    phone = batch_similarity([spans.phones[q] for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
+    total = weights.phone + weights.spelling + weights.keys
+    floor = weights.pair_floor * total
+    for (q, f), phone_score in zip(chosen, phone.tolist()):
+        score = weights.phone * phone_score
+        if phone_score < weights.min_phone or score + weights.spelling + weights.keys < floor:
+            continue
+        score += weights.spelling * ratio(spans.texts[q].replace(" ", ""), forms[f].text.replace(" ", "")) / 100.0
+        if score + weights.keys >= floor:
+            score += weights.keys * max(Levenshtein.normalized_similarity(x, y)
+                                        for x in phonetic_keys(spans.texts[q]) for y in forms[f].keys)
+        if score >= floor:
+            pairs.append((q, f, score / total, False))
+    return pairs
+
+
+def test_key_agreements_are_the_best_levenshtein_similarity_of_any_key_pair(lexicon: CompiledLexicon) -> None:
+    runs = [("tamzin", "okara"), ("x",), ("schmidt",)]  # "schmidt" has two keys (XMT, SMT)
+    spans = Spans(runs, ["", "", ""], [" ".join(words) for words in runs], [[], [], []])
+    assert len(phonetic_keys("schmidt")) == 2
+    chosen = [(q, f) for q in range(len(spans)) for f in range(0, len(lexicon.forms), 7)]
+    got = _key_agreements(chosen, spans, lexicon.forms).tolist()
+    expected = [max(Levenshtein.normalized_similarity(x, y) for x in phonetic_keys(spans.texts[q])
+                    for y in lexicon.forms[f].keys) for q, f in chosen]
+    assert got == expected
+
+
+@pytest.mark.parametrize("weights", [
+    Weights(0.6, 0.2, 0.2, 3, 0.2, 0.45, 0.6, 0.4),  # the stage's defaults
+    Weights(0.5, 0.3, 0.2, 8, 0.1, 0.2, 0.3, 0.2),  # looser: more pairs reach every term
+])
+def test_batched_scores_equal_the_pairwise_definition(lexicon: CompiledLexicon, pronouncer: Pronouncer,
+                                                      weights: Weights) -> None:
+    rng = random.Random(11)
+    costs = CostModel.features()
+    compared = 0
+    for _ in range(40):
+        spans = find_spans(_nbest(lexicon, rng), lexicon.max_words + 1, pronouncer)
+        got = score_spans(spans, lexicon, weights, costs)
+        assert got == _pairwise(spans, lexicon, weights, costs)
+        compared += sum(1 for pair in got if not pair[3])
+    assert compared > 200  # fuzzy pairs, not only exact ones, were compared
+
+
+def test_spans_and_pooling_keep_every_occurrence(lexicon: CompiledLexicon, pronouncer: Pronouncer) -> None:
+    nbest = [Hypothesis("a b a b", 0, {}, tokens=["a", "b", "a", "b"], posterior=0.75),
+             Hypothesis("b a", 1, {}, tokens=["b", "a"], posterior=0.25)]
+    spans = find_spans(nbest, 2, pronouncer)
+    assert spans.words == [("a",), ("a", "b"), ("b",), ("b", "a")]
+    assert spans.texts == ["a", "a b", "b", "b a"]
+    assert spans.occurrences[1] == [(0, 0, 2), (0, 2, 4)]
+    assert spans.occurrences[3] == [(0, 1, 3), (1, 0, 2)]
+    assert spans.phones[1] == pronouncer.word("a") + pronouncer.word("b")
+    form = 0
+    evidence = pool(spans, [(3, form, 0.5, False), (1, form, 0.5, False)], lexicon, [0.75, 0.25])
+    found = evidence[lexicon.forms[form].entry]
+    # Equal scores: the first span seen stays in hypothesis 0 (same length), hypothesis 1 has only "b a".
+    assert found.per_hypothesis == {0: (0.5, 1, 3, form, False), 1: (0.5, 0, 2, form, False)}
+    assert found.pooled == 0.75 * 0.5 + 0.25 * 0.5

@@ -1,0 +1,157 @@
+"""Stage lm_rescore on hand-built N-best lists, with kenlm as the reference for LM scores."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from pathlib import Path
+from typing import Any
+
+import kenlm
+import pydantic
+import pytest
+
+from relay.core.chain import Chain
+from relay.core.errors import StageError
+from relay.core.registry import Registry
+from relay.core.stage import StageContext
+from relay.core.utterance import Hypothesis, Utterance
+from stages.lm.kneser_ney import DiscountFallbackWarning, estimate
+from stages.lm.model import score_tokens
+from stages.lm.rescore import LmRescoreSettings, LmRescoreStage, lm_per_word
+from stages.normalize.stage import NormalizeSettings, NormalizeStage
+from tests.paths import DATA
+
+LN10 = math.log(10)
+
+
+def _context(base: Path = DATA) -> StageContext:
+    return StageContext(base_dir=base, cache_dir=base / ".cache")
+
+
+def _utterance(*entries: dict[str, Any]) -> Utterance:
+    nbest = [Hypothesis(text=e["text"], rank=i, fields=e) for i, e in enumerate(entries)]
+    return Utterance(id="u-1", source="test", speaker=None, payload={"nbest": list(entries)}, nbest=nbest)
+
+
+def _chain(model: str = "lm_domain.o3.arpa", **weights: float) -> Chain:
+    context = _context()
+    rescore = LmRescoreStage(LmRescoreSettings(model=model, **weights), context=context)
+    chain = Chain([NormalizeStage(NormalizeSettings(), context=context), rescore])
+    chain.load()
+    return chain
+
+
+@pytest.mark.parametrize(
+    ("in_domain", "confusion"),
+    [
+        ("book the lathe for tuesday", "book the late for tuesday"),
+        ("is the band saw free now", "is the bands are free now"),
+        ("report a fault on the kiln", "report a fault on the killer"),
+        ("order more plywood for the store", "order more ply would for the store"),
+    ],
+)
+def test_prefers_the_in_domain_hypothesis(in_domain: str, confusion: str) -> None:
+    # The recogniser ranks the confusion first with a small margin, as it does for domain terms.
+    utt = _utterance({"text": confusion, "conf": 0.5}, {"text": in_domain, "conf": 0.4})
+    utt = _chain().process(utt)
+    assert utt.best.text == in_domain
+    assert sum(h.posterior for h in utt.nbest) == pytest.approx(1.0)
+
+
+def test_a_strong_recogniser_margin_still_wins() -> None:
+    # The LM re-ranks, it does not overrule: a clearly better acoustic score keeps its place.
+    utt = _utterance({"text": "book the late for tuesday", "conf": 0.99999}, {"text": "book the lathe for tuesday",
+                                                                            "conf": 1e-6})
+    assert _chain().process(utt).best.text == "book the late for tuesday"
+
+
+def test_scores_follow_the_formula_with_kenlm_as_reference() -> None:
+    a, b, c, penalty = 0.8, 0.6, 0.3, 2.0
+    utt = _utterance({"text": "book the lathe for zorblax", "conf": 0.3}, {"text": "open the wet room", "conf": 0.6})
+    utt = _chain(asr_weight=a, lm_weight=b, word_weight=c, oov_penalty=penalty).process(utt)
+    config = kenlm.Config()
+    config.show_progress = False
+    reference = kenlm.Model(str(DATA / "lm_domain.o3.arpa"), config)
+    for h in utt.nbest:
+        lm = reference.score(" ".join(h.tokens), bos=True, eos=True) * LN10
+        oov = sum(1 for w in h.tokens if w not in reference)
+        assert h.scores["lm"] == pytest.approx(lm, abs=1e-5)  # kenlm sums in float32
+        assert h.scores["lm_per_word"] == pytest.approx(lm / (len(h.tokens) + 1))
+        expected = a * h.scores["asr"] + b * lm + c * len(h.tokens) - penalty * oov
+        assert h.scores["lm_rescore"] == pytest.approx(expected, abs=1e-5)
+    assert [w for w in utt.nbest[0].tokens if w not in reference] == ["zorblax"]
+    # softmax of the combined scores (definition)
+    top = max(h.scores["lm_rescore"] for h in utt.nbest)
+    z = sum(math.exp(h.scores["lm_rescore"] - top) for h in utt.nbest)
+    for h in utt.nbest:
+        assert h.posterior == pytest.approx(math.exp(h.scores["lm_rescore"] - top) / z)
+
+
+def test_lm_score_matches_the_estimator(tmp_path: Path) -> None:
+    lines = [line.split() for line in (DATA / "lm_domain.txt").read_text().splitlines() if line.strip()]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DiscountFallbackWarning)  # small text: fallback is expected
+        model = estimate(lines, 3)
+    config = kenlm.Config()
+    config.show_progress = False
+    lm = kenlm.Model(str(DATA / "lm_domain.o3.arpa"), config)
+    for tokens in (["book", "the", "kiln"], ["stop", "the", "lathe", "now"], []):
+        assert score_tokens(lm, tokens).total == pytest.approx(model.sentence_log10(tokens) * LN10, abs=1e-3)
+
+
+def test_binary_model_gives_the_same_scores() -> None:
+    utt_arpa = _chain("lm_domain.o3.arpa").process(_utterance({"text": "open the loading dock"}, {"text": "x"}))
+    utt_bin = _chain("lm_domain.o3.binary").process(_utterance({"text": "open the loading dock"}, {"text": "x"}))
+    for h1, h2 in zip(utt_arpa.nbest, utt_bin.nbest):
+        assert h1.scores["lm"] == pytest.approx(h2.scores["lm"], abs=1e-4)
+
+
+def test_empty_and_unknown_hypotheses_do_not_crash() -> None:
+    utt = _utterance({"text": "open the wet room"}, {"text": ""}, {"text": "zxq vvlorp krrt"}, {"text": "!!!"})
+    utt = _chain(oov_penalty=3.0).process(utt)
+    assert all(math.isfinite(h.scores["lm_rescore"]) for h in utt.nbest)
+    assert sum(h.posterior for h in utt.nbest) == pytest.approx(1.0)
+    assert utt.best.text == "open the wet room"
+    empty = next(h for h in utt.nbest if not h.tokens)
+    assert lm_per_word(empty) == pytest.approx(empty.scores["lm"])  # only </s> scored
+    trace = utt.trace[-1]
+    assert trace.stage == "lm_rescore"
+    assert len(trace.scores["lm"]) == len(utt.nbest)
+    assert trace.scores["oov"][[h.text for h in utt.nbest].index("zxq vvlorp krrt")] == 3
+
+
+def test_posterior_used_when_no_asr_score() -> None:
+    stage = LmRescoreStage(LmRescoreSettings(model="lm_domain.o3.arpa", lm_weight=0.0, word_weight=0.0),
+                           context=_context())
+    stage.load()
+    utt = _utterance({"text": "a"}, {"text": "b"})
+    for h, p in zip(utt.nbest, (0.7, 0.3)):
+        h.tokens, h.posterior = [h.text], p
+    utt = stage.process(utt)
+    assert [h.posterior for h in utt.nbest] == pytest.approx([0.7, 0.3])
+
+
+def test_lm_per_word_helper() -> None:
+    h = Hypothesis(text="a b", rank=0, fields={}, tokens=["a", "b"], scores={"lm": -6.0})
+    assert lm_per_word(h) == pytest.approx(-2.0)
+    assert lm_per_word(Hypothesis(text="", rank=0, fields={})) is None
+
+
+def test_relative_model_path_resolves_against_base_dir(tmp_path: Path) -> None:
+    stage = LmRescoreStage(LmRescoreSettings(model="models/lm.arpa"), context=_context(tmp_path))
+    assert stage.model_path == tmp_path / "models" / "lm.arpa"
+    with pytest.raises(StageError, match="not found"):
+        stage.load()
+    (tmp_path / "models").mkdir()
+    (tmp_path / "models" / "lm.arpa").write_text("not a model\n")
+    with pytest.raises(StageError, match="cannot load model"):
+        stage.load()
+
+
+def test_settings_forbid_unknown_keys_and_registry_finds_the_stage() -> None:
+    with pytest.raises(pydantic.ValidationError, match="lm_wieght"):
+        LmRescoreSettings.model_validate({"model": "x.arpa", "lm_wieght": 1})
+    assert Registry(plugins=False).get("lm_rescore") is LmRescoreStage
+    assert LmRescoreStage.needs == {"tokens", "posterior"}
+    assert LmRescoreStage.provides == {"posterior", "lm_score"}
