@@ -5,7 +5,10 @@ from __future__ import annotations
 import argparse
 import time
 
+from relay.core.chain import Chain
 from relay.core.config import build_chain, load_config
+from relay.core.errors import ConfigError
+from relay.core.stage import files_used
 
 HELP = "validate a configuration, load every stage and print the chain"
 
@@ -19,9 +22,19 @@ def add_parser(subparsers: argparse._SubParsersAction[argparse.ArgumentParser]) 
     parser.set_defaults(handler=run)
 
 
+def _missing(chain: Chain) -> list[str]:
+    """Files a stage will read that are not there, found without loading anything."""
+    return [f"stages[{index}] ({stage.name}): {role} file {path} does not exist"
+            for index, stage in enumerate(chain.stages)
+            for role, path in files_used(stage).items() if not path.is_file()]
+
+
 def run(args: argparse.Namespace) -> int:
     loaded = load_config(args.config)
     chain = build_chain(loaded, progress=True)
+    missing = _missing(chain)
+    if missing:
+        raise ConfigError(f"Invalid configuration {args.config}", missing)
     lines = []
     for index, stage in enumerate(chain.stages):
         began = time.perf_counter()
@@ -30,6 +43,7 @@ def run(args: argparse.Namespace) -> int:
         took = "" if args.no_load else f"  loaded in {time.perf_counter() - began:.2f} s"
         lines.append(f"    {index + 1}. {stage.name:<11} needs {', '.join(sorted(stage.needs)) or '-'}; "
                      f"provides {', '.join(sorted(stage.provides)) or '-'}{took}")
+        lines += [f"         uses {role}: {path}" for role, path in files_used(stage).items()]
     config = loaded.config
     print(f"{args.config}: valid (config hash {loaded.hash})")
     print(f"  broker   {config.broker.host}:{config.broker.port} MQTT {config.broker.protocol}")

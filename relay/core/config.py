@@ -15,6 +15,7 @@ from typing import Any
 from pydantic import BaseModel, Field, ValidationError
 
 from relay.core.chain import Chain
+from relay.core.domain import Domain, DomainSettings
 from relay.core.errors import ConfigError
 from relay.core.fieldmap import FieldMap
 from relay.core.registry import Registry
@@ -47,6 +48,7 @@ class RelayConfig(_Strict):
     metrics: MetricsSettings = MetricsSettings()
     logging: LogSettings = LogSettings()
     fields: FieldMap = Field(default_factory=FieldMap)
+    domain: DomainSettings = DomainSettings()
     cache_dir: str = ".rehear-cache"
     stages: list[StageSpec] = Field(default_factory=list)
 
@@ -62,6 +64,15 @@ class LoadedConfig:
 
     def where(self, *path: str | int) -> str:
         return self.source.where(tuple(path))
+
+    @property
+    def domain(self) -> Domain:
+        return Domain.from_settings(self.config.domain, self.base_dir)
+
+    def context(self, *, progress: bool = False) -> StageContext:
+        """What every stage of this configuration is constructed with."""
+        return StageContext(base_dir=self.base_dir, cache_dir=self.base_dir / self.config.cache_dir,
+                            progress=progress, domain=self.domain)
 
 
 def _shown(value: Any) -> str:
@@ -134,9 +145,7 @@ def build_chain(loaded: LoadedConfig, *, registry: Registry | None = None, progr
     source = loaded.source
     problems: list[str] = []
     stages: list[Stage] = []
-    context = StageContext(
-        base_dir=loaded.base_dir, cache_dir=(loaded.base_dir / loaded.config.cache_dir), progress=progress
-    )
+    context = loaded.context(progress=progress)
     for spec in loaded.config.stages:
         label = f"stages[{spec.index}] ({spec.name}) -> "
         try:
@@ -150,7 +159,11 @@ def build_chain(loaded: LoadedConfig, *, registry: Registry | None = None, progr
         except ValidationError as exc:
             problems += _pydantic_problems(exc, source, ("stages", spec.index, spec.name), label)
             continue
-        stages.append(cls(settings, context=context))
+        try:
+            stages.append(cls(settings, context=context))
+        except ConfigError as exc:  # e.g. a file neither the stage nor domain: names
+            problems.append(f"{source.where(('stages', spec.index))} {label}{exc.title}"
+                            + "".join(f"; {p}" for p in exc.problems))
     if problems:
         raise ConfigError(f"Invalid stage settings in {source.file}", problems)
     if not stages:

@@ -10,10 +10,11 @@ from typing import Any, ClassVar, Protocol, runtime_checkable
 
 from pydantic import BaseModel
 
+from relay.core.domain import Domain, DomainFile
 from relay.core.errors import ConfigError
 from relay.core.utterance import Utterance
 
-__all__ = ["CAPABILITIES", "Stage", "StageContext", "check_order"]
+__all__ = ["CAPABILITIES", "Stage", "StageContext", "check_order", "files_used"]
 
 # What a stage can read or produce. The message itself provides "text" only.
 CAPABILITIES = frozenset({"text", "tokens", "posterior", "lm_score", "entities", "decision"})
@@ -26,11 +27,22 @@ class StageContext:
     base_dir: Path  # relative paths in stage settings resolve against this
     cache_dir: Path  # where compiled resources may be cached
     progress: bool = False  # whether slow loads may draw a progress bar
+    domain: Domain = Domain()  # the files of the configuration's domain: section
 
     def resolve(self, path: Path) -> Path:
         """A path from stage settings: ``~`` expanded, relative ones taken from ``base_dir``."""
         path = path.expanduser()
         return path if path.is_absolute() else self.base_dir / path
+
+    def domain_file(self, role: DomainFile, override: Path | None) -> Path | None:
+        """The stage's own setting when given, else the domain's file for ``role`` (either may be None)."""
+        return self.resolve(override) if override is not None else getattr(self.domain, role)
+
+    def require_file(self, role: DomainFile, override: Path | None, *, stage: str, setting: str) -> Path:
+        """As ``domain_file``, but a ConfigError naming both places when neither gives the file."""
+        if override is not None:
+            return self.resolve(override)
+        return self.domain.require(role, stage=stage, setting=setting)
 
 
 @runtime_checkable
@@ -52,6 +64,16 @@ class Stage(Protocol):
     def load(self) -> None: ...
 
     def process(self, utterance: Utterance) -> Utterance: ...
+
+
+def files_used(stage: object) -> dict[str, Path]:
+    """The files a constructed stage will read, by role ("lexicon", "language model", ...).
+
+    A stage lists them in an optional ``uses`` mapping (None for a role it leaves unused), so
+    `rehear check` can show where each file comes from and find missing ones without loading.
+    """
+    uses = getattr(stage, "uses", None) or {}
+    return {role: path for role, path in uses.items() if path is not None}
 
 
 def check_order(stages: Iterable[Stage], *, location: Callable[[int], str] | None = None) -> None:

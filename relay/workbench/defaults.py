@@ -19,13 +19,6 @@ from relay.workbench.build_lm import build_model
 
 __all__ = ["default_config"]
 
-# Parameter names of stages owned elsewhere; the only place this module depends on them.
-_LM_MODEL_PARAM = "model"
-_LEXICON_PARAM = "lexicon"
-_SPEAKERS_PARAM = "speakers"
-_GATE_LM_PARAM = "lm_model"  # the gate's in-domain LM, which judges the finished text
-_LEXICON_LM_PARAM = "lm_model"  # the lexicon stage's in-domain LM for its context term
-_LEXICON_CARRIER_PARAM = "carrier_text"  # in-domain lines whose slots, held by everyday words, it fills
 # Words that announce a person in workshop-style requests ("call ...", "book it for ...").
 # With them, person names are also looked for with a looser phone floor where the in-domain
 # LM agrees (the lexicon stage's slot settings); see docs/lexicon.md for the measured effect.
@@ -64,37 +57,31 @@ def _note(message: str) -> None:
 
 def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
                    cache_dir: Path = Path(".rehear-cache"), registry: Registry | None = None) -> dict[str, Any]:
-    """A relay configuration dict holding the default chain for these files (absolute paths)."""
+    """A relay configuration dict holding the default chain for these files (absolute paths).
+
+    The files go into the ``domain:`` section once; every stage reads them from there: the
+    language model built from ``train`` (rescoring, the lexicon's context term, the gate's view
+    of the finished text), ``train`` itself as carrier phrases, the lexicon and the speakers.
+    """
     registry = registry or Registry()
     for label, path in (("lexicon", lexicon), ("in-domain text", train), ("speakers", speakers)):
         if path is not None and not path.is_file():
             raise ConfigError(f"Cannot build the default chain: {label} file {path} does not exist")
+    domain: dict[str, str] = {"lexicon": str(lexicon.resolve())}
+    if speakers is not None:
+        domain["speakers"] = str(speakers.resolve())
     stages: list[Any] = ["normalize"]
-    model: Path | None = None
-    if train is not None and _available(registry, "lm_rescore"):
-        model = _build_language_model(train.resolve(), lexicon.resolve(), cache_dir.resolve())
-        stages.append({"lm_rescore": {_LM_MODEL_PARAM: str(model)}})
-    elif train is not None:
-        _note("stage lm_rescore is not installed; the default chain runs without it")
+    if train is not None:
+        domain["text"] = str(train.resolve())
+        domain["language_model"] = str(_build_language_model(train.resolve(), lexicon.resolve(), cache_dir.resolve()))
+        if _available(registry, "lm_rescore"):
+            stages.append("lm_rescore")
+        else:
+            _note("stage lm_rescore is not installed; the default chain runs without it")
     if _available(registry, "lexicon"):
-        params: dict[str, Any] = {_LEXICON_PARAM: str(lexicon.resolve())}
-        if speakers is not None:
-            params[_SPEAKERS_PARAM] = str(speakers.resolve())
-        if model is not None:
-            params[_LEXICON_LM_PARAM] = str(model)
-        if train is not None:
-            params[_LEXICON_CARRIER_PARAM] = str(train.resolve())
-        params |= {key: value.copy() if isinstance(value, (dict, list)) else value
-                   for key, value in _LEXICON_EXTRAS.items()}
-        stages.append({"lexicon": params})
+        stages.append({"lexicon": {key: value.copy() if isinstance(value, (dict, list)) else value
+                                   for key, value in _LEXICON_EXTRAS.items()}})
     else:
         _note("stage lexicon is not installed; the default chain runs without it")
-    # The gate judges the finished text with the same model, and reads the in-domain lines as
-    # carrier phrases to notice a slot that no entity fills (features of its learned confidence).
-    gate: dict[str, Any] = {}
-    if model is not None:
-        gate[_GATE_LM_PARAM] = str(model)
-    if train is not None:
-        gate |= {"carrier_text": str(train.resolve()), "carrier_lexicon": str(lexicon.resolve())}
-    stages.append({"gate": gate} if gate else "gate")
-    return {"cache_dir": str(cache_dir.resolve()), "stages": stages}
+    stages.append("gate")
+    return {"domain": domain, "cache_dir": str(cache_dir.resolve()), "stages": stages}

@@ -18,7 +18,7 @@ from relay.core.chain import Chain
 from relay.core.config import LoadedConfig, parse_config
 from relay.core.errors import ConfigError
 from relay.core.registry import Registry
-from relay.core.stage import Stage, StageContext
+from relay.core.stage import Stage
 from relay.core.yamlsource import Located
 
 __all__ = ["Overrides", "VariantBuilder", "config_from_dict", "with_overrides"]
@@ -51,9 +51,7 @@ class VariantBuilder:
     def __init__(self, loaded: LoadedConfig, *, registry: Registry | None = None, progress: bool = False) -> None:
         self.loaded = loaded
         self.registry = registry or Registry()
-        self.context = StageContext(
-            base_dir=loaded.base_dir, cache_dir=loaded.base_dir / loaded.config.cache_dir, progress=progress
-        )
+        self.context = loaded.context(progress=progress)
         self._stages: dict[bytes, Stage] = {}
 
     @property

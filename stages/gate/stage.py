@@ -19,6 +19,7 @@ from typing import Any, ClassVar
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
+from relay.core.errors import ConfigError
 from relay.core.stage import StageContext
 from relay.core.utterance import Decision, Utterance
 from stages.gate.confidence import ConfidenceModel, confidence
@@ -87,15 +88,17 @@ class GateSettings(BaseModel):
     reprompt_posterior: float = Field(0.2, ge=0, le=1, description="top posterior below which to ask again")
     reprompt_entity: float = Field(0.2, ge=0, le=1, description="weakest entity score below which to ask again")
     lm_model: Path | None = Field(
-        None, description="in-domain ARPA/kenlm model that judges the finished text (features for `confidence`)"
+        None, description="in-domain ARPA/kenlm model that judges the finished text (features for `confidence`); "
+        "default: domain.language_model"
     )
     carrier_text: Path | None = Field(
         None, description="in-domain text with {type} slots (FORMATS 4): a template whose slot holds everyday "
         "words marks an entity that was missed (feature unfilled_slots for `confidence`; 'Which ...?' prompts); "
-        "a result far from every line is one the NLU was not trained on (feature line_edits)",
+        "a result far from every line is one the NLU was not trained on (feature line_edits); default: domain.text",
     )
     carrier_lexicon: Path | None = Field(
-        None, description="lexicon whose names and aliases in carrier_text's literal lines count as slots",
+        None, description="lexicon whose names and aliases in carrier_text's literal lines count as slots; "
+        "default: domain.lexicon",
     )
     confidence: ConfidenceModel | None = Field(
         None, description="learned confidence that the entities are right (written by `rehear tune`); off when unset"
@@ -122,15 +125,6 @@ class GateSettings(BaseModel):
             raise ValueError("reprompt_entity must not exceed accept_entity")
         if self.reprompt_confidence > self.accept_confidence:
             raise ValueError("reprompt_confidence must not exceed accept_confidence")
-        needs_lm = sorted(n for n in (self.confidence.features if self.confidence else {}) if n.startswith("text_"))
-        if needs_lm and self.lm_model is None:
-            raise ValueError(f"confidence uses {', '.join(needs_lm)}, which need lm_model")
-        needs_text = sorted(n for n in (self.confidence.features if self.confidence else {})
-                            if n in ("unfilled_slots", "line_edits"))
-        if needs_text and self.carrier_text is None:
-            raise ValueError(f"confidence uses {', '.join(needs_text)}, which need carrier_text")
-        if self.carrier_lexicon is not None and self.carrier_text is None:
-            raise ValueError("carrier_lexicon is set without carrier_text")
         return self
 
 
@@ -252,6 +246,18 @@ class GateStage:
     def __init__(self, settings: GateSettings, *, context: StageContext) -> None:
         self.settings = settings
         self.context = context
+        self.lm_path = context.domain_file("language_model", settings.lm_model)
+        self.text_path = context.domain_file("text", settings.carrier_text)
+        self.lexicon_path = context.domain_file("lexicon", settings.carrier_lexicon) if self.text_path else None
+        self.uses = {"language model": self.lm_path, "carrier phrases": self.text_path,
+                     "carrier lexicon": self.lexicon_path}
+        used = set(settings.confidence.features) if settings.confidence else set()
+        for needed, path, where in ((sorted(n for n in used if n.startswith("text_")), self.lm_path,
+                                     "domain.language_model (or lm_model)"),
+                                    (sorted(used & {"unfilled_slots", "line_edits"}), self.text_path,
+                                     "domain.text (or carrier_text)")):
+            if needed and path is None:
+                raise ConfigError(f"confidence uses {', '.join(needed)}", [f"which need {where}"])
         self.lm: Any = None
         self.carriers: CarrierPhrases | None = None
         self.lines: NearestLine | None = None
@@ -264,15 +270,10 @@ class GateStage:
         self._types = frozenset(settings.safety_types)
 
     def load(self) -> None:
-        path = self.settings.lm_model
-        if path is not None:
-            self.lm = shared_model(self.context.resolve(path))
-        if self.settings.carrier_text is not None:
-            lexicon = self.settings.carrier_lexicon
-            self.carriers = CarrierPhrases.from_files(
-                self.context.resolve(self.settings.carrier_text),
-                None if lexicon is None else self.context.resolve(lexicon),
-            )
+        if self.lm_path is not None:
+            self.lm = shared_model(self.lm_path)
+        if self.text_path is not None:
+            self.carriers = CarrierPhrases.from_files(self.text_path, self.lexicon_path)
             self.lines = NearestLine(tokens for _, tokens in self.carriers.lines)
 
     def safety_rule(self, utterance: Utterance, marked: list[str] | None = None) -> str | None:

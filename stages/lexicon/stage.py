@@ -43,8 +43,8 @@ __all__ = ["LexiconSettings", "LexiconStage"]
 class LexiconSettings(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    lexicon: Path = Field(description="lexicon file (.csv, .yaml, .yml or .json)")
-    speakers: Path | None = Field(None, description="speaker,id,affinity CSV for personal priors")
+    lexicon: Path | None = Field(None, description="lexicon file (.csv, .yaml, .yml or .json); default: domain.lexicon")
+    speakers: Path | None = Field(None, description="speaker,id,affinity CSV for personal priors; default: domain.speakers")
     max_span_words: int | None = Field(None, ge=1, le=8, description="longest span; default longest entry + 1")
     candidates: int = Field(3, ge=1, le=50, description="entries taken from the index per span")
     min_retrieval: float = Field(0.2, ge=0, le=1, description="least phone n-gram Dice score to consider a pair")
@@ -66,7 +66,7 @@ class LexiconSettings(BaseModel):
     min_edit: float = Field(0.4, ge=0, le=1, description="least unit-cost phone similarity to align a pair")
     min_phone: float = Field(0.6, ge=0, le=1, description="least phone similarity for a span/entry pair")
     pair_floor: float = Field(0.45, ge=0, le=1, description="span/entry pairs scoring less are ignored")
-    lm_model: Path | None = Field(None, description="in-domain ARPA/kenlm model for the context term")
+    lm_model: Path | None = Field(None, description="in-domain ARPA/kenlm model for the context term; default: domain.language_model")
     lm_weight: float = Field(0.01, ge=0, le=1, description="score added per nat the LM gains by a correction")
     lm_loss_weight: float = Field(0.06, ge=0, le=1, description="score taken per nat the LM loses by a correction")
     lm_cap: float = Field(10.0, ge=0, le=100, description="LM gain (nats) is clipped to +-this")
@@ -84,7 +84,7 @@ class LexiconSettings(BaseModel):
     slot_floors: dict[str, float] = Field(default_factory=dict, description="type -> its own slot_min_phone")
     slot_hypotheses: int = Field(10, ge=1, le=50, description="hypotheses searched for slots, likeliest first")
     slot_min_pooled: float = Field(0.0, ge=0, le=1, description="least slot phone similarity pooled by posterior")
-    carrier_text: Path | None = Field(None, description="in-domain text whose lines, as templates, mark a slot that everyday words hold")
+    carrier_text: Path | None = Field(None, description="in-domain text whose lines, as templates, mark a slot that everyday words hold; default: domain.text")
     carrier_min_phone: float = Field(0.7, ge=0, le=1, description="least phone similarity for a carrier slot match")
     carrier_margin: float = Field(0.03, ge=0, le=1, description="least phone lead of a carrier slot match over another entry")
     carrier_hypotheses: int = Field(4, ge=1, le=50, description="hypotheses read for carrier phrases, likeliest first; each slot takes its best fill")
@@ -127,6 +127,13 @@ class LexiconStage:
     def __init__(self, settings: LexiconSettings, *, context: StageContext) -> None:
         self.settings = settings
         self.context = context
+        s = settings
+        self.lexicon_path = context.require_file("lexicon", s.lexicon, stage=self.name, setting="lexicon")
+        self.speakers_path = context.domain_file("speakers", s.speakers)
+        self.lm_path = context.domain_file("language_model", s.lm_model) if s.lm_weight or s.lm_loss_weight else None
+        self.carrier_path = context.domain_file("text", s.carrier_text)
+        self.uses = {"lexicon": self.lexicon_path, "speakers": self.speakers_path,
+                     "language model": self.lm_path, "carrier phrases": self.carrier_path}
         self.compiled: CompiledLexicon | None = None
         self.affinity: dict[str, dict[str, float]] = {}
         self.loaded_from_cache = False
@@ -145,17 +152,17 @@ class LexiconStage:
         self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval,
                                s.pair_floor, s.min_phone, s.min_edit)
         self.compiled, self.loaded_from_cache = load_compiled(
-            self.context.resolve(s.lexicon), self.context.cache_dir, self.pronouncer,
+            self.lexicon_path, self.context.cache_dir, self.pronouncer,
             progress=self.context.progress, max_postings=s.max_postings)
         ids = {entry.id for entry in self.compiled.entries}
-        self.affinity = read_speakers(self.context.resolve(s.speakers), ids) if s.speakers else {}
+        self.affinity = read_speakers(self.speakers_path, ids) if self.speakers_path else {}
         self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
         self.slots: dict[str, SlotForms] = slot_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
-        self.carriers = None if s.carrier_text is None else CarrierPhrases.from_files(
-            self.context.resolve(s.carrier_text), self.context.resolve(s.lexicon), loose_from=s.carrier_loose_from)
+        self.carriers = None if self.carrier_path is None else CarrierPhrases.from_files(
+            self.carrier_path, self.lexicon_path, loose_from=s.carrier_loose_from)
         self.carrier_slots = {} if self.carriers is None else slot_forms(
             self.compiled, sorted({entry.type for entry in self.compiled.entries}))
-        self.lm = shared_model(self.context.resolve(s.lm_model)) if s.lm_model is not None and (s.lm_weight or s.lm_loss_weight) else None
+        self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
 
     def process(self, utterance: Utterance) -> Utterance:
         lexicon = self._lexicon

@@ -25,7 +25,7 @@ _POSTERIOR_FLOOR = 1e-300  # log(0) would poison the sum; the entry stays merely
 class LmRescoreSettings(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    model: str = Field(description="ARPA or kenlm binary model; a relative path resolves against the config")
+    model: Path | None = Field(None, description="ARPA or kenlm binary model; default: domain.language_model")
     asr_weight: float = Field(1.0, ge=0, description="a: weight of the recogniser's log posterior")
     lm_weight: float = Field(0.5, ge=0, description="b: weight of the LM natural-log probability")
     word_weight: float = Field(
@@ -53,7 +53,8 @@ class LmRescoreStage:
 
     def __init__(self, settings: LmRescoreSettings, *, context: StageContext) -> None:
         self.settings = settings
-        self.model_path = context.resolve(Path(settings.model))
+        self.model_path = context.require_file("language_model", settings.model, stage=self.name, setting="model")
+        self.uses = {"language model": self.model_path}
         self._model: Any = None
 
     def load(self) -> None:

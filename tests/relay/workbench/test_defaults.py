@@ -1,4 +1,4 @@
-"""The default chain hands its language model and in-domain text to the lexicon stage as well."""
+"""The default chain names its files once, in domain:, and every stage that reads them gets them."""
 
 from __future__ import annotations
 
@@ -19,14 +19,16 @@ def test_lexicon_stage_gets_the_models_path_and_loads_it(tmp_path: Path) -> None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", DiscountFallbackWarning)  # a toy corpus has too few counts
         raw = default_config(lexicon=lexicon, train=train, speakers=None, cache_dir=tmp_path / "cache")
-    params = {name: p for item in raw["stages"] if isinstance(item, dict) for name, p in item.items()}
-    assert params["lexicon"]["lm_model"] == params["lm_rescore"]["model"]
-    assert params["lexicon"]["carrier_text"] == str(train.resolve())
+    assert raw["domain"]["text"] == str(train.resolve())
+    model = Path(raw["domain"]["language_model"])
     chain = build_chain(config_from_dict(raw, base_dir=tmp_path))
     chain.load()
-    lexicon_stage = chain.stages[chain.names.index("lexicon")]
-    assert lexicon_stage.lm is not None  # type: ignore[attr-defined]
-    assert len(lexicon_stage.carriers) == 3  # type: ignore[attr-defined]
+    by_name = dict(zip(chain.names, chain.stages))
+    assert by_name["lm_rescore"].model_path == model  # type: ignore[attr-defined]
+    assert by_name["lexicon"].lm is not None  # type: ignore[attr-defined]
+    assert by_name["lexicon"].uses["language model"] == model  # type: ignore[attr-defined]
+    assert len(by_name["lexicon"].carriers) == 3  # type: ignore[attr-defined]
+    assert by_name["gate"].uses["carrier phrases"] == train.resolve()  # type: ignore[attr-defined]
 
 
 def test_default_chain_carries_person_hints_and_slots(tmp_path: Path) -> None:
@@ -36,7 +38,7 @@ def test_default_chain_carries_person_hints_and_slots(tmp_path: Path) -> None:
     params = {name: p for item in raw["stages"] if isinstance(item, dict) for name, p in item.items()}
     assert "call" in params["lexicon"]["type_hints"]["person"]
     assert params["lexicon"]["slot_types"] == ["person", "machine"]
-    assert "carrier_text" not in params["lexicon"]  # no in-domain text, no carrier phrases
+    assert "text" not in raw["domain"]  # no in-domain text, no carrier phrases
     assert params["lexicon"]["slot_floors"]["machine"] > params["lexicon"].get("slot_min_phone", 0.68)  # stricter than persons'
     chain = build_chain(config_from_dict(raw, base_dir=tmp_path))
     chain.load()

@@ -7,6 +7,8 @@ import pytest
 from pydantic import ValidationError
 
 from relay.core.config import build_chain, load_config
+from relay.core.domain import Domain
+from relay.core.errors import ConfigError
 from relay.core.registry import Registry
 from relay.core.stage import StageContext
 from relay.core.utterance import Correction, Entity, Hypothesis, TraceEntry, Utterance
@@ -230,8 +232,13 @@ def test_the_more_cautious_of_thresholds_and_confidence_wins() -> None:
 def test_text_features_need_a_language_model() -> None:
     settings = _oov_model()
     del settings["lm_model"]
-    with pytest.raises(ValidationError, match="text_oov, which need lm_model"):
-        GateSettings.model_validate(settings)
+    with pytest.raises(ConfigError, match="confidence uses text_oov") as caught:
+        gate(**settings)
+    assert "which need domain.language_model (or lm_model)" in str(caught.value)
+    # Given by the configuration's domain: section instead, the same settings load.
+    domain = StageContext(base_dir=CONTEXT.base_dir, cache_dir=CONTEXT.cache_dir,
+                          domain=Domain(language_model=DATA / "lm_domain.o3.arpa"))
+    assert GateStage(GateSettings.model_validate(settings), context=domain).lm_path == DATA / "lm_domain.o3.arpa"
     with pytest.raises(ValidationError, match="reprompt_confidence must not exceed"):
         GateSettings.model_validate(_oov_model(reprompt_confidence=0.7))
 
@@ -292,12 +299,12 @@ def test_without_carrier_text_the_feature_is_unknown() -> None:
 
 
 def test_unfilled_slots_needs_carrier_text() -> None:
-    with pytest.raises(ValidationError, match="unfilled_slots, which need carrier_text"):
-        GateSettings.model_validate({"confidence": {"features": {"unfilled_slots": {"weight": -1.0}}}})
-    with pytest.raises(ValidationError, match="line_edits, which need carrier_text"):
-        GateSettings.model_validate({"confidence": {"features": {"line_edits": {"weight": -1.0}}}})
-    with pytest.raises(ValidationError, match="carrier_lexicon is set without carrier_text"):
-        GateSettings.model_validate({"carrier_lexicon": "lexicon.csv"})
+    for feature in ("unfilled_slots", "line_edits"):
+        with pytest.raises(ConfigError, match=f"confidence uses {feature}") as caught:
+            gate(confidence={"features": {feature: {"weight": -1.0}}})
+        assert "which need domain.text (or carrier_text)" in str(caught.value)
+    # A carrier lexicon without carrier phrases is not read at all.
+    assert gate(carrier_lexicon="lexicon.csv").lexicon_path is None
 
 
 def test_a_safety_word_inside_an_entity_name_is_part_of_the_name() -> None:
