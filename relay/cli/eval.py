@@ -13,8 +13,8 @@ import orjson
 from relay.cli.corpus_args import add_corpus_arguments, chosen_config, report_error, selected_items
 from relay.core.config import build_chain
 from relay.core.errors import RehearError
+from relay.core.stage import deciding_stage
 from relay.workbench.evaluate import format_table, run_corpus, summarize
-from stages.gate.stage import GateStage
 
 __all__ = ["add_parser", "run"]
 
@@ -57,9 +57,9 @@ def run(args: argparse.Namespace) -> int:
     if args.report is not None:
         from relay.workbench.report import write_report  # matplotlib loads only when a report is asked for
 
-        gate = next((stage for stage in chain.stages if isinstance(stage, GateStage)), None)
+        gate = deciding_stage(chain.stages)
         write_report(args.report, outcomes, summary, title=f"rehear evaluation: {args.corpus.name} ({described})",
-                     confidence_model=gate.settings.confidence if gate is not None else None)
+                     confidence_model=getattr(getattr(gate, "settings", None), "confidence", None))
     return 0
 
 

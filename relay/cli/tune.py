@@ -29,7 +29,7 @@ from relay.workbench.tuning import (
     make_folds,
 )
 from relay.workbench.variants import VariantBuilder, config_from_dict, with_overrides
-from stages.gate.stage import GateSettings
+from stages.gate.settings import GateSettings
 
 __all__ = ["add_parser", "run"]
 

@@ -39,9 +39,18 @@ class Registry:
         self._targets: dict[str, str] = dict(_BUILTIN) if builtins else {}
         self._classes: dict[str, type[Stage]] = {}
         if plugins:
+            clashes = []
             for point in entry_points(group=ENTRY_POINT_GROUP):
-                if point.name not in self._targets:
-                    self._targets[point.name] = point.value
+                taken = self._targets.get(point.name)
+                if taken is not None and taken != point.value:
+                    clashes.append(f"{point.name!r} from {point.value} is already {taken}")
+                    continue
+                self._targets[point.name] = point.value
+            if clashes:
+                # Silently preferring one would run a different stage than the configuration's
+                # author meant; which one depends on install order.
+                raise ConfigError(f"Stage names declared twice in the {ENTRY_POINT_GROUP!r} entry-point group",
+                                  [*clashes, "rename the plug-in's entry point in its package's pyproject.toml"])
 
     def register(self, cls: type[Stage]) -> type[Stage]:
         """Add a stage class under its ``name``; usable as a class decorator."""

@@ -14,10 +14,14 @@ from relay.core.domain import Domain, DomainFile
 from relay.core.errors import ConfigError
 from relay.core.utterance import Utterance
 
-__all__ = ["CAPABILITIES", "Stage", "StageContext", "check_order", "files_used"]
+__all__ = ["CAPABILITIES", "GIVEN", "Stage", "StageContext", "check_declarations", "check_order", "deciding_stage",
+           "declared", "files_used"]
 
-# What a stage can read or produce. The message itself provides "text" only.
-CAPABILITIES = frozenset({"text", "tokens", "posterior", "lm_score", "entities", "decision"})
+# What a stage can read or produce. The message itself provides "text" (each hypothesis's words
+# as received) and "message" (the recogniser's fields: payload, ranks, conf, logprob).
+CAPABILITIES = frozenset({"text", "message", "tokens", "posterior", "lm_score", "entities", "corrections",
+                          "decision"})
+GIVEN = frozenset({"text", "message"})
 
 
 @dataclass(frozen=True, slots=True)
@@ -50,8 +54,11 @@ class Stage(Protocol):
     """A step of the chain.
 
     ``Settings`` is a pydantic model (extra keys forbidden) the YAML parameters validate
-    against. ``load`` reads models and lexicons; it may be slow and runs again on reload.
-    ``process`` is fast, pure and synchronous.
+    against. ``needs`` are capabilities an earlier stage must provide; ``provides`` what this
+    stage writes. A stage may also declare ``uses``: capabilities it reads when an earlier stage
+    provides them and does without otherwise (the gate reads entities when a lexicon ran).
+    ``load`` reads models and lexicons; it may be slow and runs again on reload. ``process`` is
+    fast, pure and synchronous.
     """
 
     name: ClassVar[str]
@@ -69,21 +76,48 @@ class Stage(Protocol):
 def files_used(stage: object) -> dict[str, Path]:
     """The files a constructed stage will read, by role ("lexicon", "language model", ...).
 
-    A stage lists them in an optional ``uses`` mapping (None for a role it leaves unused), so
+    A stage lists them in an optional ``files`` mapping (None for a role it leaves unused), so
     `rehear check` can show where each file comes from and find missing ones without loading.
     """
-    uses = getattr(stage, "uses", None) or {}
-    return {role: path for role, path in uses.items() if path is not None}
+    files = getattr(stage, "files", None) or {}
+    return {role: path for role, path in files.items() if path is not None}
+
+
+def declared(stage: Stage | type[Stage]) -> dict[str, frozenset[str]]:
+    """A stage's declared capabilities: ``needs``, ``uses`` (optional reads) and ``provides``."""
+    return {"needs": frozenset(stage.needs), "uses": frozenset(getattr(stage, "uses", frozenset())),
+            "provides": frozenset(stage.provides)}
+
+
+def check_declarations(stage: Stage | type[Stage]) -> list[str]:
+    """One problem per declared capability that does not exist (a typo in ``provides`` would
+    otherwise pass silently and break the order check of every later stage)."""
+    problems = []
+    for kind, names in declared(stage).items():
+        for unknown in sorted(names - CAPABILITIES):
+            problems.append(f"{kind} {unknown!r} is not a capability (valid: {', '.join(sorted(CAPABILITIES))})")
+    return problems
+
+
+def deciding_stage(stages: Iterable[Stage]) -> Stage | None:
+    """The last stage that provides "decision": the gate, whatever its class."""
+    found = None
+    for stage in stages:
+        if "decision" in stage.provides:
+            found = stage
+    return found
 
 
 def check_order(stages: Iterable[Stage], *, location: Callable[[int], str] | None = None) -> None:
-    """Raise ConfigError when a stage needs something no earlier stage provides."""
-    available = {"text"}
+    """Raise ConfigError when a stage declares an unknown capability or needs something no
+    earlier stage provides."""
+    available = set(GIVEN)
     problems = []
     for index, stage in enumerate(stages):
+        where = location(index) if location else f"stages[{index}] ({stage.name})"
+        problems += [f"{where}: {problem}" for problem in check_declarations(stage)]
         missing = sorted(stage.needs - available)
         if missing:
-            where = location(index) if location else f"stages[{index}] ({stage.name})"
             problems.append(
                 f"{where}: needs {', '.join(missing)}, which no earlier stage provides"
                 f" (available: {', '.join(sorted(available))})"

@@ -12,9 +12,25 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
-__all__ = ["Correction", "Decision", "Entity", "Hypothesis", "TraceEntry", "Utterance", "softmax"]
+__all__ = ["SCORE_KEYS", "Correction", "Decision", "Entity", "Hypothesis", "TraceEntry", "Utterance", "score_key",
+           "softmax"]
 
 Decision = Literal["accept", "confirm", "reprompt"]
+
+# Hypothesis.scores keys -> the capability of the stage that writes them. A stage names each
+# key it writes once, as a module constant made by ``score_key``; readers import the constant.
+SCORE_KEYS: dict[str, str] = {}
+
+
+def score_key(key: str, capability: str) -> str:
+    """Register ``key`` as a score written under ``capability``; returns ``key``.
+
+    Two owners for one key would make a score mean two things; that is refused.
+    """
+    owner = SCORE_KEYS.setdefault(key, capability)
+    if owner != capability:
+        raise ValueError(f"score key {key!r} is already written under {owner!r}, not {capability!r}")
+    return key
 
 
 @dataclass(slots=True)

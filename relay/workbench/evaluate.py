@@ -15,9 +15,10 @@ from typing import Any
 from tqdm import tqdm
 
 from relay.core.chain import Chain
+from relay.core.stage import deciding_stage
 from relay.core.utterance import Decision
 from relay.workbench.corpus import CorpusItem
-from stages.gate.stage import GateFeatures, GateStage
+from stages.gate.features import GateFeatures
 from stages.normalize.tokens import tokenize
 
 __all__ = ["Outcome", "Summary", "edit_distance", "run_corpus", "summarize", "word_errors"]
@@ -70,8 +71,10 @@ class Outcome:
         return frozenset(self.found) == self.reference_ids
 
 
-def _gate_of(chain: Chain) -> GateStage | None:
-    return next((s for s in chain.stages if isinstance(s, GateStage)), None)
+def _gate_of(chain: Chain) -> Any:
+    """The stage that decides (provides "decision"), when it can say why (has ``features``)."""
+    stage = deciding_stage(chain.stages)
+    return stage if callable(getattr(stage, "features", None)) else None
 
 
 def run_corpus(chain: Chain, items: Iterable[CorpusItem], *, progress: bool = False,

@@ -22,7 +22,8 @@ import numpy as np
 from relay.workbench.evaluate import Outcome, Summary, summarize
 from relay.workbench.variants import Overrides
 from stages.gate.confidence import confidence, fit_model
-from stages.gate.stage import GateSettings, decide
+from stages.gate.rules import FeatureView, Thresholds, decide, threshold_rules
+from stages.gate.settings import GateSettings
 
 __all__ = [
     "DEFAULT_GATE_GRID",
@@ -124,15 +125,20 @@ class RecordedFeatures:
 
 
 def gate_accepts(features: RecordedFeatures, grid: np.ndarray, min_lm: float | None) -> np.ndarray:
-    """Boolean (thresholds x utterances): where ``decide`` would accept. Rows follow _GATE_KEYS."""
+    """Boolean (thresholds x utterances): where ``decide`` would accept. Rows follow _GATE_KEYS.
+
+    The same conditions as the live gate (``stages.gate.rules.threshold_rules``), evaluated with
+    the utterances along one axis and the candidate thresholds (grid rows) along the other.
+    """
     p, m, e, c, w = (grid[:, i:i + 1] for i in range(5))
-    accept = (features.posterior >= p) & (features.margin >= m) & (features.weakest >= e)
-    accept &= features.correction >= c
-    accept &= (w > 0.5) | features.has_entity
-    accept &= ~features.blocked
-    if min_lm is not None:
-        accept &= features.lm >= min_lm
-    return accept
+    view = FeatureView(empty=features.blocked, posterior=features.posterior, margin=features.margin,
+                       weakest=features.weakest, has_entity=features.has_entity, correction=features.correction,
+                       lm=features.lm)
+    shape = (grid.shape[0], features.posterior.shape[0])
+    asks = np.zeros(shape, dtype=bool)
+    for _decision, _rule, holds in threshold_rules(view, Thresholds(p, m, e, c, w, min_lm_per_word=min_lm)):
+        asks |= np.broadcast_to(holds, shape)
+    return ~asks
 
 
 def _lm_grid(features: RecordedFeatures, index: np.ndarray) -> list[float | None]:

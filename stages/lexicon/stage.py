@@ -121,8 +121,8 @@ class LexiconStage:
 
     name: ClassVar[str] = "lexicon"
     Settings: ClassVar[type[BaseModel]] = LexiconSettings
-    needs: ClassVar[frozenset[str]] = frozenset({"tokens", "posterior"})
-    provides: ClassVar[frozenset[str]] = frozenset({"entities"})
+    needs: ClassVar[frozenset[str]] = frozenset({"message", "tokens", "posterior"})
+    provides: ClassVar[frozenset[str]] = frozenset({"entities", "corrections"})
 
     def __init__(self, settings: LexiconSettings, *, context: StageContext) -> None:
         self.settings = settings
@@ -132,7 +132,7 @@ class LexiconStage:
         self.speakers_path = context.domain_file("speakers", s.speakers)
         self.lm_path = context.domain_file("language_model", s.lm_model) if s.lm_weight or s.lm_loss_weight else None
         self.carrier_path = context.domain_file("text", s.carrier_text)
-        self.uses = {"lexicon": self.lexicon_path, "speakers": self.speakers_path,
+        self.files = {"lexicon": self.lexicon_path, "speakers": self.speakers_path,
                      "language model": self.lm_path, "carrier phrases": self.carrier_path}
         self.compiled: CompiledLexicon | None = None
         self.affinity: dict[str, dict[str, float]] = {}

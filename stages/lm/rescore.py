@@ -15,10 +15,15 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from relay.core.errors import StageError
 from relay.core.stage import StageContext
-from relay.core.utterance import Hypothesis, Utterance, softmax
+from relay.core.utterance import Hypothesis, Utterance, score_key, softmax
 from stages.lm.model import LmScore, score_tokens, shared_model
+from stages.normalize.stage import ASR_SCORE
 
-__all__ = ["LmRescoreSettings", "LmRescoreStage", "lm_per_word"]
+__all__ = ["LM_COMBINED", "LM_PER_WORD", "LM_TOTAL", "LmRescoreSettings", "LmRescoreStage", "lm_per_word"]
+# What this stage writes into Hypothesis.scores (natural logs), read by the gate.
+LM_TOTAL = score_key("lm", "lm_score")  # the LM's log-probability of <s> tokens </s>
+LM_PER_WORD = score_key("lm_per_word", "lm_score")  # the same per word, </s> counted
+LM_COMBINED = score_key("lm_rescore", "lm_score")  # a*asr + b*lm + c*words - oov penalty
 _POSTERIOR_FLOOR = 1e-300  # log(0) would poison the sum; the entry stays merely very unlikely
 
 
@@ -36,10 +41,10 @@ class LmRescoreSettings(BaseModel):
 
 def lm_per_word(hypothesis: Hypothesis) -> float | None:
     """The LM natural-log probability per word (``</s>`` included) of a rescored hypothesis."""
-    if "lm_per_word" in hypothesis.scores:
-        return hypothesis.scores["lm_per_word"]
-    if "lm" in hypothesis.scores:
-        return hypothesis.scores["lm"] / (len(hypothesis.tokens) + 1)
+    if LM_PER_WORD in hypothesis.scores:
+        return hypothesis.scores[LM_PER_WORD]
+    if LM_TOTAL in hypothesis.scores:
+        return hypothesis.scores[LM_TOTAL] / (len(hypothesis.tokens) + 1)
     return None
 
 
@@ -54,7 +59,7 @@ class LmRescoreStage:
     def __init__(self, settings: LmRescoreSettings, *, context: StageContext) -> None:
         self.settings = settings
         self.model_path = context.require_file("language_model", settings.model, stage=self.name, setting="model")
-        self.uses = {"language model": self.model_path}
+        self.files = {"language model": self.model_path}
         self._model: Any = None
 
     def load(self) -> None:
@@ -72,13 +77,13 @@ class LmRescoreStage:
         oovs: list[int] = []
         for hypothesis in utterance.nbest:
             lm = self.score(hypothesis.tokens)
-            asr = hypothesis.scores.get("asr")
+            asr = hypothesis.scores.get(ASR_SCORE)
             if asr is None:
                 asr = math.log(max(hypothesis.posterior, _POSTERIOR_FLOOR))
             total = s.asr_weight * asr + s.lm_weight * lm.total + s.word_weight * lm.words - s.oov_penalty * lm.oov
-            hypothesis.scores["lm"] = lm.total
-            hypothesis.scores["lm_per_word"] = lm.per_word
-            hypothesis.scores["lm_rescore"] = total
+            hypothesis.scores[LM_TOTAL] = lm.total
+            hypothesis.scores[LM_PER_WORD] = lm.per_word
+            hypothesis.scores[LM_COMBINED] = total
             combined.append(total)
             lm_scores.append(round(lm.total, 4))
             oovs.append(lm.oov)

@@ -9,11 +9,13 @@ from typing import ClassVar, Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 from relay.core.stage import StageContext
-from relay.core.utterance import Hypothesis, Utterance, softmax
+from relay.core.utterance import Hypothesis, Utterance, score_key, softmax
 from stages.normalize.tokens import tokenize
 
-__all__ = ["NormalizeStage"]
+__all__ = ["ASR_SCORE", "NormalizeSettings", "NormalizeStage"]
 
+# The recogniser's own score as a natural-log posterior, read by lm_rescore.
+ASR_SCORE = score_key("asr", "posterior")
 _CONF_FLOOR = 1e-6  # a confidence of 0 must not become -inf: the entry stays possible
 
 
@@ -39,7 +41,7 @@ class NormalizeStage:
 
     name: ClassVar[str] = "normalize"
     Settings: ClassVar[type[BaseModel]] = NormalizeSettings
-    needs: ClassVar[frozenset[str]] = frozenset({"text"})
+    needs: ClassVar[frozenset[str]] = frozenset({"text", "message"})
     provides: ClassVar[frozenset[str]] = frozenset({"tokens", "posterior"})
 
     def __init__(self, settings: NormalizeSettings, *, context: StageContext) -> None:
@@ -77,6 +79,6 @@ class NormalizeStage:
                 kept.merged += hypothesis.merged
         utterance.nbest = list(merged.values())
         for hypothesis in utterance.nbest:
-            hypothesis.scores["asr"] = math.log(max(hypothesis.posterior, 1e-300))
+            hypothesis.scores[ASR_SCORE] = math.log(max(hypothesis.posterior, 1e-300))
         utterance.note(score_source=source, hypotheses=len(nbest), distinct=len(utterance.nbest))
         return utterance

@@ -57,3 +57,16 @@ def test_unknown_name_lists_valid_ones() -> None:
     with pytest.raises(ConfigError) as caught:
         Registry(plugins=False).get("nope")
     assert "valid stages: gate, lexicon, lm_rescore, normalize" in str(caught.value)
+
+
+def test_a_plugin_taking_a_builtin_name_is_refused(monkeypatch: pytest.MonkeyPatch) -> None:
+    from importlib.metadata import EntryPoint
+
+    import relay.core.registry as registry_module
+
+    clash = EntryPoint(name="lexicon", value="someone_else.stages:Lexicon", group="rehear.stages")
+    fresh = EntryPoint(name="shout", value="someone_else.stages:Shout", group="rehear.stages")
+    monkeypatch.setattr(registry_module, "entry_points", lambda group: [clash, fresh])
+    with pytest.raises(ConfigError) as caught:
+        Registry()
+    assert "'lexicon' from someone_else.stages:Lexicon is already stages.lexicon.stage:LexiconStage" in str(caught.value)

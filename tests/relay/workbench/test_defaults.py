@@ -26,9 +26,9 @@ def test_lexicon_stage_gets_the_models_path_and_loads_it(tmp_path: Path) -> None
     by_name = dict(zip(chain.names, chain.stages))
     assert by_name["lm_rescore"].model_path == model  # type: ignore[attr-defined]
     assert by_name["lexicon"].lm is not None  # type: ignore[attr-defined]
-    assert by_name["lexicon"].uses["language model"] == model  # type: ignore[attr-defined]
+    assert by_name["lexicon"].files["language model"] == model  # type: ignore[attr-defined]
     assert len(by_name["lexicon"].carriers) == 3  # type: ignore[attr-defined]
-    assert by_name["gate"].uses["carrier phrases"] == train.resolve()  # type: ignore[attr-defined]
+    assert by_name["gate"].files["carrier phrases"] == train.resolve()  # type: ignore[attr-defined]
 
 
 def test_default_chain_carries_person_hints_and_slots(tmp_path: Path) -> None:

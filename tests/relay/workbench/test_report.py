@@ -5,7 +5,7 @@ from itertools import pairwise
 from relay.workbench.evaluate import Outcome
 from relay.workbench.report import by_tag, entity_type, tradeoff_curve
 from stages.gate.confidence import ConfidenceModel, FeatureWeight
-from stages.gate.stage import GateFeatures
+from stages.gate.features import GateFeatures
 
 
 def _outcome(posterior: float, right: bool, oov: int | None = None) -> Outcome:

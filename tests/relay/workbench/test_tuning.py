@@ -30,7 +30,9 @@ from relay.workbench.tuning import (
     make_folds,
 )
 from relay.workbench.variants import VariantBuilder, config_from_dict
-from stages.gate.stage import GateFeatures, GateSettings, decide
+from stages.gate.features import GateFeatures
+from stages.gate.rules import decide
+from stages.gate.settings import GateSettings
 from stages.lexicon.stage import LexiconSettings
 from stages.lm.rescore import LmRescoreSettings
 from stages.normalize.stage import NormalizeSettings

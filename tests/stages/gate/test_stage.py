@@ -13,7 +13,10 @@ from relay.core.registry import Registry
 from relay.core.stage import StageContext
 from relay.core.utterance import Correction, Entity, Hypothesis, TraceEntry, Utterance
 from relay.live.messages import parse_message
-from stages.gate.stage import ASR_LOG_FLOOR, GateFeatures, GateSettings, GateStage, decide
+from stages.gate.features import ASR_LOG_FLOOR, GateFeatures
+from stages.gate.rules import decide
+from stages.gate.settings import GateSettings
+from stages.gate.stage import GateStage
 from tests.paths import DATA
 
 CONTEXT = StageContext(base_dir=Path("."), cache_dir=Path(".rehear-cache"))
