@@ -4,39 +4,25 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+from rapidfuzz.distance import Levenshtein
+
 __all__ = ["align", "aligned_span"]
 
 Pair = tuple[int | None, int | None]  # (reference index, hypothesis index); None on one side = gap
 
 
 def align(reference: Sequence[str], hypothesis: Sequence[str]) -> list[Pair]:
-    """A minimum-edit (Levenshtein) alignment; ties prefer substitution, then deletion."""
-    rows, cols = len(reference) + 1, len(hypothesis) + 1
-    cost = [[0] * cols for _ in range(rows)]
-    for i in range(rows):
-        cost[i][0] = i
-    for j in range(cols):
-        cost[0][j] = j
-    for i in range(1, rows):
-        for j in range(1, cols):
-            cost[i][j] = min(
-                cost[i - 1][j - 1] + (reference[i - 1] != hypothesis[j - 1]),
-                cost[i - 1][j] + 1,
-                cost[i][j - 1] + 1,
-            )
+    """A minimum-edit (Levenshtein) alignment of two word lists, from rapidfuzz's opcodes."""
     pairs: list[Pair] = []
-    i, j = rows - 1, cols - 1
-    while i > 0 or j > 0:
-        if i > 0 and j > 0 and cost[i][j] == cost[i - 1][j - 1] + (reference[i - 1] != hypothesis[j - 1]):
-            pairs.append((i - 1, j - 1))
-            i, j = i - 1, j - 1
-        elif i > 0 and cost[i][j] == cost[i - 1][j] + 1:
-            pairs.append((i - 1, None))
-            i -= 1
+    for op in Levenshtein.opcodes(list(reference), list(hypothesis)):
+        refs = range(op.src_start, op.src_end)
+        hyps = range(op.dest_start, op.dest_end)
+        if op.tag in ("equal", "replace"):
+            pairs += list(zip(refs, hyps))
+        elif op.tag == "delete":
+            pairs += [(r, None) for r in refs]
         else:
-            pairs.append((None, j - 1))
-            j -= 1
-    pairs.reverse()
+            pairs += [(None, h) for h in hyps]
     return pairs
 
 

@@ -12,6 +12,7 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
+from rapidfuzz.distance import Levenshtein
 from tqdm import tqdm
 
 from relay.core.chain import Chain
@@ -28,15 +29,7 @@ DECISIONS: tuple[Decision, ...] = ("accept", "confirm", "reprompt")
 
 def edit_distance(reference: Sequence[str], hypothesis: Sequence[str]) -> int:
     """Levenshtein distance over words: substitutions, deletions and insertions cost 1."""
-    if len(reference) < len(hypothesis):
-        reference, hypothesis = hypothesis, reference  # the distance is symmetric; keep the row short
-    previous = list(range(len(hypothesis) + 1))
-    for i, ref_word in enumerate(reference, start=1):
-        current = [i]
-        for j, hyp_word in enumerate(hypothesis, start=1):
-            current.append(min(previous[j] + 1, current[j - 1] + 1, previous[j - 1] + (ref_word != hyp_word)))
-        previous = current
-    return previous[-1]
+    return int(Levenshtein.distance(list(reference), list(hypothesis)))
 
 
 def word_errors(reference: str, hypothesis: str) -> tuple[int, int]:
