@@ -1,40 +1,21 @@
-"""`rehear demo`: the whole relay on one machine, with nothing but Python.
-
-Starts an embedded MQTT broker on a free loopback port (or uses --broker), the relay with the
-example configuration, a publisher replaying example recogniser messages and a downstream
-subscriber that prints, per utterance, what was heard, what was sent on and the decision.
-"""
+"""`rehear demo`: the whole relay on one machine, with nothing but Python (relay.workbench.demo)."""
 
 from __future__ import annotations
 
 import argparse
-import asyncio
-import re
-import socket
-import statistics
 import sys
-import time
-from collections import Counter
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import aiomqtt
-import orjson
-from prometheus_client import CollectorRegistry
-
 from relay.core.errors import RehearError
-from relay.live.embedded_broker import EmbeddedBroker
-from relay.live.health import HealthServer
-from relay.live.serve import run_coroutine, serve
-from relay.live.service import Active, Relay, load_active
-from stages.normalize.tokens import tokenize
+from relay.live.serve import run_coroutine
+from relay.live.service import load_active
+from relay.workbench.demo import DemoOptions, play
 
 __all__ = ["add_parser", "run"]
 
 _EXAMPLES = Path(__file__).resolve().parents[2] / "examples" / "demo"
 _WORKSHOP = _EXAMPLES.parent / "workshop"
-_PLACEHOLDER = re.compile(r"\{(source|speaker|decision)\}")
 
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
@@ -64,187 +45,6 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     return parser
 
 
-def _subscription(template: str) -> str:
-    return _PLACEHOLDER.sub("+", template)
-
-
-@dataclass
-class _Item:
-    payload: bytes
-    said: str | None = None  # the reference, when the line comes from a labelled corpus
-
-
-def _items(args: argparse.Namespace) -> list[_Item]:
-    """Corpus utterances spread evenly over the file, then the hand-written edge cases."""
-    items: list[_Item] = []
-    if args.count > 0 and args.corpus.exists():
-        lines = [orjson.loads(line) for line in args.corpus.read_bytes().splitlines() if line.strip()]
-        step = max(1, len(lines) // args.count)
-        for line in lines[::step][: args.count]:
-            items.append(_Item(orjson.dumps(line["message"]), said=line.get("reference")))
-    if args.messages.exists():
-        items += [_Item(line.encode("utf-8")) for line in args.messages.read_text("utf-8").splitlines() if line.strip()]
-    return items
-
-
-def _heard(payload: bytes) -> str:
-    try:
-        message = orjson.loads(payload)
-        return str(message["nbest"][0]["text"])
-    except (orjson.JSONDecodeError, KeyError, IndexError, TypeError):
-        return payload[:60].decode("utf-8", "replace")
-
-
-def _kind(topic: str, message: dict[str, Any] | None, topics: Any) -> str:
-    if topic == topics.dead_letter:
-        return "dead_letter"
-    if message is None:
-        return "unreadable"
-    relay = message.get("relay")
-    if relay is None:
-        return "partial"
-    if "passthrough" in relay:
-        return "passthrough"
-    if "prompt" in message and "nbest" not in message:
-        return "prompt"
-    return "cleaned"
-
-
-async def _results(client: aiomqtt.Client, topics: Any) -> list[tuple[str, str, dict[str, Any] | None, bytes]]:
-    """What the downstream side receives for one input: the result and, if any, the prompt."""
-    got: list[tuple[str, str, dict[str, Any] | None, bytes]] = []
-    while True:
-        message = await anext(aiter(client.messages))
-        topic = message.topic.value
-        payload = message.payload if isinstance(message.payload, bytes) else str(message.payload).encode()
-        try:
-            body = orjson.loads(payload) if topic != topics.dead_letter or payload[:1] == b"{" else None
-        except orjson.JSONDecodeError:
-            body = None
-        kind = _kind(topic, body, topics)
-        got.append((kind, topic, body, payload))
-        asks_back = kind == "cleaned" and body is not None and body.get("decision") in ("confirm", "reprompt")
-        if not asks_back or body is None or not body.get("prompt"):
-            return got
-
-
-def _print_result(item: _Item, got: list[tuple[str, str, dict[str, Any] | None, bytes]], out: Any) -> str:
-    """Print what happened to one input; returns its kind for the summary."""
-    kind = got[0][0]
-    for each, topic, body, _payload in got:
-        if each == "dead_letter":
-            detail = body.get("detail") if body else "(reason in MQTT 5 user properties)"
-            reason = body.get("reason") if body else "?"
-            print(f"    dead letter ({reason}): {detail}", file=out)
-        elif each == "partial":
-            print("    partial result, forwarded untouched", file=out)
-        elif each == "passthrough" and body is not None:
-            print(f"    sent on unchanged ({body['relay']['passthrough']}): \"{body.get('text')}\"", file=out)
-        elif each == "prompt" and body is not None:
-            print(f"    asks back on {topic}: \"{body['prompt']}\"", file=out)
-        elif body is not None:
-            decision = body.get("decision") or "none (no gate in this chain)"
-            print(f"    sent on: \"{body.get('text')}\"  [{decision}]", file=out)
-            for fix in body.get("corrections", []):
-                print(f"      fixed: \"{fix['before']}\" -> \"{fix['after']}\" ({fix['score']:.2f})", file=out)
-            if item.said is not None:
-                right = tokenize(body.get("text", "")) == tokenize(item.said)
-                kind = "right" if right else "wrong"
-                kind = f"{decision}:{kind}"
-    return kind
-
-
-async def _demo(args: argparse.Namespace, active: Active, out: Any) -> int:
-    config = active.loaded.config
-    items = _items(args)
-    broker: EmbeddedBroker | None = None
-    if args.broker:
-        host, _, port = args.broker.rpartition(":")
-        config.broker = config.broker.model_copy(update={"host": host or "127.0.0.1", "port": int(port)})
-    else:
-        broker = EmbeddedBroker()
-        await broker.start()
-        config.broker = config.broker.model_copy(update={"host": broker.host, "port": broker.port, "protocol": "3.1.1"})
-        print(f"embedded MQTT broker (3.1.1) on {broker.address}", file=out)
-    ready: asyncio.Future[tuple[Relay, HealthServer | None]] = asyncio.get_running_loop().create_future()
-
-    def on_ready(relay: Relay, health: HealthServer | None) -> None:
-        ready.set_result((relay, health))
-
-    registry = CollectorRegistry()
-    relay_task = asyncio.create_task(serve(active, metrics_port=0,
-                                           registry=registry, on_ready=on_ready, signals=False))
-    kinds: Counter[str] = Counter()
-    latencies: list[float] = []
-    first_right = 0
-    try:
-        relay, health = await asyncio.wait_for(asyncio.shield(ready), timeout=30)
-        metrics_address = f"{health.address}/metrics" if health else "(metrics disabled)"
-        print(f"relay: stages {' -> '.join(active.chain.names)}, metrics at {metrics_address}\n", file=out)
-        topics = config.topics
-        # TCP_NODELAY here too: back-to-back small publishes otherwise wait on delayed ACKs (~40 ms).
-        async with aiomqtt.Client(config.broker.host, config.broker.port, identifier=f"rehear-demo-nlu-{time.time_ns()}",
-                                  socket_options=[(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)]) as client:
-            await client.subscribe([(_subscription(topics.output), 1), (_subscription(topics.prompt), 1),
-                                    (topics.dead_letter, 1)])
-            for _ in range(100):  # the relay subscribes on connect; wait for it (bounded)
-                if relay.connected:
-                    break
-                await asyncio.sleep(0.05)
-            input_topic = _subscription(topics.inputs[0]).replace("+", "kiosk").replace("#", "demo")
-            for number, item in enumerate(items, 1):
-                print(f"[{number}] " + (f"said:    \"{item.said}\"\n    " if item.said else "")
-                      + f"heard:   \"{_heard(item.payload)}\"", file=out)
-                if item.said is not None and tokenize(_heard(item.payload)) == tokenize(item.said):
-                    first_right += 1
-                sent = time.monotonic()
-                await client.publish(input_topic, item.payload, qos=1)
-                try:
-                    async with asyncio.timeout(args.timeout):
-                        got = await _results(client, topics)
-                except TimeoutError:
-                    print("    no result within the timeout", file=out)
-                    kinds["missing"] += 1
-                    continue
-                latencies.append(time.monotonic() - sent)
-                kinds[_print_result(item, got, out)] += 1
-                await asyncio.sleep(args.interval)
-        _summary(kinds, latencies, first_right, len(items), out)
-        print(f"metrics: {metrics_address}" + (f" (up for {args.linger:g} s more)" if args.linger else
-                                                " (served while the demo runs; --linger keeps it up)"), file=out)
-        if args.linger:
-            await asyncio.sleep(args.linger)
-        relay.request_stop()
-        await relay_task
-    finally:
-        if not relay_task.done():
-            relay_task.cancel()
-            await asyncio.gather(relay_task, return_exceptions=True)
-        if broker is not None:
-            await broker.stop()
-    return 0 if kinds["missing"] == 0 else 1
-
-
-def _summary(kinds: Counter[str], latencies: list[float], first_right: int, total: int, out: Any) -> None:
-    labelled = {k: n for k, n in kinds.items() if ":" in k}
-    print(f"\nsummary of {total} messages:", file=out)
-    if labelled:
-        count = sum(labelled.values())
-        right = sum(n for k, n in labelled.items() if k.endswith(":right"))
-        print(f"  recorded utterances: {count}; recogniser's first hypothesis right {first_right}, "
-              f"rehear's text right {right}", file=out)
-        for decision in ("accept", "confirm", "reprompt"):
-            ok, bad = labelled.get(f"{decision}:right", 0), labelled.get(f"{decision}:wrong", 0)
-            if ok or bad:
-                print(f"    {decision:<9} {ok + bad:>3}  ({ok} with the text exactly as said)", file=out)
-    others = {k: n for k, n in kinds.items() if ":" not in k}
-    if others:
-        print("  other messages: " + ", ".join(f"{n} {k.replace('_', ' ')}" for k, n in sorted(others.items())), file=out)
-    if latencies:
-        print(f"  round trip recogniser -> relay -> NLU: median {statistics.median(latencies) * 1000:.1f} ms,"
-              f" max {max(latencies) * 1000:.1f} ms", file=out)
-
-
 def run(args: argparse.Namespace) -> int:
     try:
         active = load_active(args.config)
@@ -257,7 +57,9 @@ def run(args: argparse.Namespace) -> int:
     if not args.messages.exists() and not args.corpus.exists():
         print(f"demo messages missing: {args.messages} and {args.corpus}", file=sys.stderr)
         return 2
-    result: int = run_coroutine(_demo(args, active, sys.stdout))
+    options = DemoOptions(corpus=args.corpus, messages=args.messages, count=args.count, interval=args.interval,
+                          timeout=args.timeout, linger=args.linger, broker=args.broker)
+    result: int = run_coroutine(play(options, active, sys.stdout))
     return result
 
 
