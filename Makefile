@@ -13,8 +13,9 @@ $(VENV)/.installed: pyproject.toml | $(BIN)/python
 	$(BIN)/pip install --quiet -e .
 	touch $@
 
-$(VENV)/.installed-test: pyproject.toml | $(BIN)/python
+$(VENV)/.installed-test: pyproject.toml examples/plugin/pyproject.toml | $(BIN)/python
 	$(BIN)/pip install --quiet -e '.[test,report]'
+	$(BIN)/pip install --quiet --no-deps -e examples/plugin
 	touch $(VENV)/.installed $@
 
 demo: $(VENV)/.installed
