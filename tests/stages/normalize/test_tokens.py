@@ -35,6 +35,11 @@ def test_number_words_rejects_negative() -> None:
         ("ﬁle ＡＢＣ", "file abc"),  # NFKC folds ligatures and full-width letters
         ("", ""),
         ("?!  ...", ""),
+        # As a modern recogniser writes them: grouped thousands, a bare fraction, a list.
+        ("Move 1,200 kilos to Bay 3.", "move one thousand two hundred kilos to bay three"),
+        ("set it to .8, then 2, 3, 4", "set it to zero point eight then two three four"),
+        ("12,34 and 1,2345", "twelve thirty four and one two thousand three hundred forty five"),
+        ("a 10-4 from tank 26.5", "a ten four from tank twenty six point five"),
     ],
 )
 def test_tokenize(text: str, tokens: str) -> None:
@@ -44,3 +49,16 @@ def test_tokenize(text: str, tokens: str) -> None:
 def test_tokenize_is_idempotent() -> None:
     once = tokenize("Book bay 4 at 2:30 for Łukasz & co.")
     assert tokenize(" ".join(once)) == once
+
+
+def test_number_words_agree_with_num2words() -> None:
+    # Outside reference: the num2words package (English), which says "and" after the hundreds
+    # and separates groups with commas, British style; rehear reads numbers without "and".
+    from num2words import num2words
+
+    for value in [*range(0, 1200), 2304, 10_000, 65_536, 999_999, 1_000_001, 7_200_000_015]:
+        expected = num2words(value).replace(",", "").replace("-", " ").replace(" and ", " ").split()
+        assert number_words(value) == expected, value
+        ordinal = num2words(value, to="ordinal").replace(",", "").replace("-", " ").replace(" and ", " ")
+        assert tokenize(f"{value}th" if value % 10 not in (1, 2, 3) or value % 100 in (11, 12, 13) else
+                        f"{value}{ {1: 'st', 2: 'nd', 3: 'rd'}[value % 10]}") == ordinal.split(), value
