@@ -6,7 +6,7 @@ a syllable in capitals is stressed. Respelled syllables are read with the conven
 dictionary pronunciation keys: ``ah`` as in father, ``ay`` as in day, ``ee`` as in see, ``eh``
 as in bed, ``ih`` as in bit, ``oh`` as in go, ``oo`` as in food, ``ow`` as in now, ``uh`` as in
 about, ``eye``/``ye``/final ``y`` as in my, ``zh`` as in vision, a silent final ``e`` making the
-vowel before it long (``bride``). A plain word that also appears in the entry's written name
+vowel before it long (``bride``). A syllable of a nasal or ``l`` alone is syllabic (``m-TEM-boo``). A plain word that also appears in the entry's written name
 (``KWIL-an router``) keeps that word's own pronunciation, supplied by the caller.
 """
 
@@ -52,6 +52,7 @@ def _stress(phones: list[str], stressed: bool) -> list[str]:
 
 
 _VOWEL_PHONES = {p for units in _VOWEL_UNITS.values() for p in units if p not in ("R", "Y")}
+_SYLLABIC = {"M", "N", "NG", "L"}  # consonants that can carry a syllable alone
 
 
 def _syllable(text: str) -> list[str]:
@@ -88,6 +89,10 @@ def _respelled_word(word: str) -> list[str]:
             raise RespellError(f"syllable {syllable!r} in {word!r} must be letters only")
         stressed = syllable.isupper() or len(syllables) == 1
         sounds = _syllable(syllable)
+        if sounds and all(p in _SYLLABIC for p in sounds):
+            # A nasal or liquid standing as its own syllable ("m-TEM-boo", "n-DAH-ee"): CMUdict
+            # writes such syllables with a reduced vowel ("button" B AH1 T AH0 N), and so do we.
+            sounds = ["AH", *sounds]
         if not any(p in _VOWEL_PHONES for p in sounds):
             raise RespellError(f"syllable {syllable!r} in {word!r} has no vowel sound")
         phones.extend(_stress(sounds, stressed))
