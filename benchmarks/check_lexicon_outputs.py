@@ -5,7 +5,7 @@ corrections, chosen text, the gate's decision and the lexicon trace: candidates,
 guards, counts):
 
 - `workshop`: the chain of examples/workshop/relay.yaml over every line of corpus.jsonl;
-- `generated`: a 10k-entry invented lexicon (benchmarks/bench_lexicon.py) and 300 generated
+- `generated`: a 10k-entry invented lexicon (relay/workbench/synthetic.py) and 300 generated
   10-best messages, with a 50-candidate trace so small scoring changes show.
 
     python benchmarks/check_lexicon_outputs.py --record digests.json   # before a change
@@ -29,11 +29,11 @@ from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from benchmarks.bench_lexicon import make_lexicon, make_messages
 from relay.core.config import build_chain, load_config
 from relay.core.stage import StageContext
 from relay.core.utterance import Hypothesis, TraceEntry, Utterance
 from relay.workbench.corpus import read_corpus
+from relay.workbench.synthetic import make_lexicon, make_messages
 
 _ROOT = Path(__file__).resolve().parent.parent
 
