@@ -32,9 +32,9 @@ from relay.workbench.corpus import read_corpus
 from relay.workbench.synthetic import make_lexicon, make_messages
 from stages.lexicon.stage import LexiconSettings, LexiconStage
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
-from tests.paths import ROOT, WORKSHOP
+from tests.paths import ROOT, TESTS, WORKSHOP
 
-RECORDED = Path(__file__).resolve().parent / "lexicon_outputs.json"
+RECORDED = TESTS / "stages" / "lexicon" / "lexicon_outputs.json"
 
 
 def describe(utterance: Utterance) -> dict[str, Any]:
