@@ -21,8 +21,8 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from benchmarks.bench_build_lm import _templated_corpus  # noqa: E402
-from benchmarks.bench_lexicon import make_lexicon  # noqa: E402
 from relay.workbench.build_lm import build_model  # noqa: E402
+from relay.workbench.synthetic import make_lexicon  # noqa: E402
 
 CONFIG = """\
 stages:

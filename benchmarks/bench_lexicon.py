@@ -1,9 +1,8 @@
 """Benchmark the lexicon stage: per-message latency, build time and memory at several sizes.
 
-Lexicons of invented entries (one to three words: everyday words from the shipped frequency
-list mixed with made-up names from random syllables, so both CMUdict and the G2P model are
-exercised) and 10-best x 8-word messages, a third of the hypotheses holding an entry name
-with one sound changed. Each size runs in its own process so memory is measured cleanly.
+Lexicons of invented entries and 10-best x 8-word messages with a misheard entry name planted
+in every third hypothesis (relay/workbench/synthetic.py). Each size runs in its own process so
+memory is measured cleanly.
 
     python benchmarks/bench_lexicon.py                    # 1k, 10k, 100k entries
     python benchmarks/bench_lexicon.py --sizes 10000 --messages 500
@@ -12,9 +11,7 @@ with one sound changed. Each size runs in its own process so memory is measured 
 from __future__ import annotations
 
 import argparse
-import csv
 import json
-import random
 import subprocess
 import sys
 import tempfile
@@ -27,70 +24,7 @@ import numpy as np
 import psutil
 from tqdm import tqdm
 
-_ONSETS = ["b", "d", "f", "g", "k", "l", "m", "n", "p", "r", "s", "t", "v", "z", "br", "dr", "kl", "pr", "st", "tr", "sh", "ch", "th"]
-_NUCLEI = ["a", "e", "i", "o", "u", "ai", "ee", "oo", "ou", "ia"]
-_CODAS = ["", "", "n", "r", "l", "s", "k", "m", "nd", "st"]
-
-
-def invented(rng: random.Random) -> str:
-    return "".join(rng.choice(_ONSETS) + rng.choice(_NUCLEI) + rng.choice(_CODAS)
-                   for _ in range(rng.randint(2, 3)))
-
-
-def make_lexicon(size: int, path: Path, seed: int) -> list[str]:
-    from stages.lexicon.sound.pronounce import common_words
-
-    rng = random.Random(seed)
-    everyday = [w for w, z in common_words().items() if 3.0 <= z < 5.0 and len(w) > 3]
-    names: list[str] = []
-    seen: set[str] = set()
-    with path.open("w", newline="") as handle:
-        writer = csv.writer(handle)
-        writer.writerow(["id", "type", "name", "aliases", "weight"])
-        while len(names) < size:
-            count = rng.choice((1, 2, 2, 3))
-            # A one-word entry is an invented name; everyday words appear only inside longer names.
-            words = [invented(rng) if count == 1 or rng.random() < 0.6 else rng.choice(everyday)
-                     for _ in range(count)]
-            name = " ".join(words)
-            if name in seen:
-                continue
-            seen.add(name)
-            alias = words[0] if len(words) > 1 and rng.random() < 0.3 else ""
-            writer.writerow([f"e{len(names)}", rng.choice(("person", "machine", "place")), name, alias, "1.0"])
-            names.append(name)
-    return names
-
-
-def mutate(word: str, rng: random.Random) -> str:
-    if len(word) < 3:
-        return word
-    i = rng.randrange(1, len(word) - 1)
-    return word[:i] + rng.choice("aeioulnrst") + word[i + 1:]
-
-
-def make_messages(names: list[str], count: int, seed: int) -> list[tuple[int, list[str]]]:
-    from stages.lexicon.sound.pronounce import common_words
-
-    rng = random.Random(seed)
-    vocabulary = [w for w, z in common_words().items() if z >= 4.5]
-    messages = []
-    for _ in range(count):
-        base = [rng.choice(vocabulary) for _ in range(8)]
-        planted = rng.randrange(len(names))
-        name = names[planted].split()
-        hyps = []
-        for rank in range(10):
-            words = list(base)
-            for _ in range(2):
-                words[rng.randrange(8)] = rng.choice(vocabulary)
-            if rank % 3 == 0:
-                heard = [mutate(w, rng) for w in name]
-                at = rng.randrange(0, 8 - len(heard) + 1)
-                words[at:at + len(heard)] = heard
-            hyps.append(" ".join(words[:8]))
-        messages.append((planted, hyps))
-    return messages
+from relay.workbench.synthetic import make_lexicon, make_messages
 
 
 def build(size: int, folder: Path, seed: int) -> dict[str, float]:

@@ -17,8 +17,17 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
+from hypothesis.database import DirectoryBasedExampleDatabase
+
+from tests.paths import ROOT
 
 MOSQUITTO = os.environ.get("REHEAR_TEST_MOSQUITTO", "/usr/sbin/mosquitto")
+
+# Hypothesis keeps the examples that failed before, to try them first, in .hypothesis/ under
+# the working directory by default; kept in the checkout instead, a run from anywhere replays them.
+settings.register_profile("rehear", database=DirectoryBasedExampleDatabase(ROOT / ".hypothesis" / "examples"))
+settings.load_profile("rehear")
 
 
 def free_port() -> int:

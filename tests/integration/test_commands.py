@@ -8,18 +8,24 @@ import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 from typing import Any
 
 import orjson
 import pytest
 
-from tests.integration.support import Collector, load, make_config, message, publish_all, running_relay
+from tests.integration.support import (
+    Collector,
+    LogLines,
+    load,
+    make_config,
+    message,
+    publish_all,
+    running_relay,
+)
 from tests.paths import ROOT
 
 pytestmark = pytest.mark.broker
-
 
 
 def _start(path: Path, *extra: str) -> subprocess.Popen[str]:
@@ -28,35 +34,26 @@ def _start(path: Path, *extra: str) -> subprocess.Popen[str]:
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
 
 
-def _wait_for_line(process: subprocess.Popen[str], needle: str, seen: list[str], timeout: float = 15) -> None:
-    end = time.monotonic() + timeout
+def _log_lines(process: subprocess.Popen[str]) -> LogLines:
     assert process.stderr is not None
-    while time.monotonic() < end:
-        line = process.stderr.readline()
-        if not line:
-            break
-        seen.append(line)
-        if needle in line:
-            return
-    raise AssertionError(f"{needle!r} not logged; got:\n{''.join(seen)}")
+    return LogLines(process.stderr)
 
 
 def test_run_logs_json_reloads_on_sighup_and_drains_on_sigterm(broker: Any, tmp_path: Path) -> None:
     path, _prefix = make_config(tmp_path, broker, logging={"format": "json", "level": "info"})
-    seen: list[str] = []
     with _start(path) as process:
+        log = _log_lines(process)
         try:
-            _wait_for_line(process, '"msg":"connected"', seen)
+            log.wait_for('"msg":"connected"')
             process.send_signal(signal.SIGHUP)
-            _wait_for_line(process, "configuration reloaded", seen)
+            log.wait_for("configuration reloaded")
             process.send_signal(signal.SIGTERM)
             assert process.wait(timeout=15) == 0
         finally:
             if process.poll() is None:
                 process.kill()
-        assert process.stderr is not None
-        seen += process.stderr.readlines()
-    events = [json.loads(line) for line in seen if line.startswith("{")]
+        seen = log.rest()
+    events = [json.loads(line) for line in seen]  # every line: a log shipper parses them all
     assert events and all({"ts", "level", "logger", "msg"} <= set(event) for event in events)
     assert events[-1]["msg"] == "stopped"
 
@@ -68,8 +65,9 @@ def test_relay_killed_mid_stream_loses_nothing(broker: Any, tmp_path: Path) -> N
     async def scenario() -> None:
         async with Collector(broker, [f"{prefix}/nlu/#"]) as down:
             process = _start(path, "--log-level", "info")
+            log = _log_lines(process)  # read all along: a full stderr pipe would stall the relay
             try:
-                await asyncio.to_thread(_wait_for_line, process, "connected", [])
+                await asyncio.to_thread(log.wait_for, "rehear.service: connected")
                 # A paced stream (~1.5 s) so the kill lands in its middle, however fast the relay is.
                 publishing = asyncio.create_task(publish_all(
                     broker, f"{prefix}/asr/kiosk-1/nbest",
@@ -81,6 +79,7 @@ def test_relay_killed_mid_stream_loses_nothing(broker: Any, tmp_path: Path) -> N
             finally:
                 if process.poll() is None:
                     process.kill()
+                await asyncio.to_thread(log.rest)  # the reader is done with stderr before it is closed
                 process.__exit__(None, None, None)  # closes the pipes
             relayed_before = len(down.received)
             async with running_relay(load(path)):

@@ -5,6 +5,7 @@ from __future__ import annotations
 import asyncio
 import base64
 import random
+import threading
 import time
 import urllib.request
 from typing import Any, ClassVar
@@ -17,7 +18,15 @@ from pydantic import BaseModel, ConfigDict
 from relay.core.registry import Registry
 from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
-from tests.integration.support import Collector, load, make_config, message, publish_all, running_relay
+from tests.integration.support import (
+    Collector,
+    eventually,
+    load,
+    make_config,
+    message,
+    publish_all,
+    running_relay,
+)
 
 pytestmark = pytest.mark.broker
 
@@ -80,6 +89,7 @@ def test_bad_input_goes_to_dead_letters_and_good_input_keeps_flowing(
         async with running_relay(load(path)) as relay, Collector(broker, [f"{prefix}/nlu/#", f"{prefix}/dead"]) as down:
             await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest", payloads)
             await down.wait_for(lambda items: len(items) >= len(payloads))
+            await relay.wait_handled(len(payloads))
             samples = await asyncio.to_thread(_scrape, relay.health.address)
         dead = down.on(f"{prefix}/dead")
         good = down.on(f"{prefix}/nlu/")
@@ -162,12 +172,13 @@ class _FaultySettings(BaseModel):
 
 
 class FaultyStage:
-    """Raises on text containing 'explode'; sleeps on text containing 'slow'."""
+    """Raises on text containing 'explode'; overruns any deadline on text containing 'slow'."""
 
     name: ClassVar[str] = "faulty"
     Settings: ClassVar[type[BaseModel]] = _FaultySettings
     needs: ClassVar[frozenset[str]] = frozenset({"tokens"})
     provides: ClassVar[frozenset[str]] = frozenset()
+    finished_slow: ClassVar[threading.Event]  # set by each test on a subclass of its own
 
     def __init__(self, settings: _FaultySettings, *, context: StageContext) -> None:
         self.settings = settings
@@ -179,7 +190,8 @@ class FaultyStage:
         if "explode" in utterance.text:
             raise ZeroDivisionError("a bug in a stage")
         if "slow" in utterance.text:
-            time.sleep(self.settings.sleep_s)
+            time.sleep(self.settings.sleep_s)  # the overrun under test, on the thread that runs the chain
+            self.finished_slow.set()
         return utterance
 
 
@@ -187,17 +199,23 @@ class FaultyStage:
 def test_stage_errors_and_deadlines_forward_the_original_flagged(broker: Any, tmp_path: Any, runner: str) -> None:
     path, prefix = make_config(tmp_path, broker, stages=["normalize", {"faulty": {"sleep_s": 0.3}}],
                                limits={"deadline_ms": 100, "chain_runner": runner})
+
+    class Faulty(FaultyStage):
+        finished_slow = threading.Event()  # this test's own: no earlier run can have set it
+
     registry = Registry()
-    registry.register(FaultyStage)
+    registry.register(Faulty)
     inputs = [message("m-1", "please explode now"), message("m-2", "a slow one"), message("m-3", "Plain words")]
 
     async def scenario() -> None:
         async with running_relay(load(path, registry)) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
             await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest", [orjson.dumps(item) for item in inputs])
             await down.wait_for(lambda items: len(items) >= 3)
-            await asyncio.sleep(0.4)  # the slow stage has finished by now
+            # m-4 must find the chain free again: wait until the slow stage has returned.
+            assert await asyncio.to_thread(Faulty.finished_slow.wait, 10)
             await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest", [orjson.dumps(message("m-4", "Plain words"))])
             await down.wait_for(lambda items: len(items) >= 4)
+            await relay.wait_handled(4)
             samples = await asyncio.to_thread(_scrape, relay.health.address)
         out = {orjson.loads(item.payload)["id"]: orjson.loads(item.payload) for item in down.received}
         assert out["m-1"]["relay"]["passthrough"] == "stage_error"
@@ -206,6 +224,11 @@ def test_stage_errors_and_deadlines_forward_the_original_flagged(broker: Any, tm
         if runner == "thread":
             # m-3 waited behind the stuck stage; it went on at its own deadline instead of stalling
             assert out["m-3"]["relay"]["passthrough"] == "deadline"
+        else:
+            # On the loop the stuck stage holds up m-3's receipt too, so whether m-3's deadline
+            # passed depends on when it was read; either way it went on, cleaned or flagged.
+            assert (out["m-3"]["relay"].get("passthrough"), out["m-3"]["text"]) in (
+                (None, "plain words"), ("deadline", "Plain words"))
         assert "passthrough" not in out["m-4"]["relay"] and out["m-4"]["text"] == "plain words"
         assert samples[("rehear_stage_errors_total", (("stage", "faulty"),))] == 1
         assert samples[("rehear_messages_total", (("outcome", "stage_error"),))] == 1
@@ -242,10 +265,7 @@ def test_healthz_follows_the_broker_connection(broker: Any, tmp_path: Any) -> No
             address = relay.health.address
             assert await asyncio.to_thread(status, address) == 200
             await asyncio.to_thread(broker.stop)
-            for _ in range(100):
-                if not relay.relay.connected:
-                    break
-                await asyncio.sleep(0.05)
+            await eventually(lambda: not relay.relay.connected, what="relay saw the broker go")
             assert await asyncio.to_thread(status, address) == 503
             await asyncio.to_thread(broker.start)
             await relay.wait_connected()

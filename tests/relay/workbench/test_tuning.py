@@ -65,7 +65,7 @@ def test_cross_validation_fits_on_training_folds_and_scores_on_the_held_out_one_
         return len(test)
 
     results = cross_validate(folds, fit_on, score_on)
-    assert len(results) == 5
+    assert len(results) == len(fitted) == len(scored) == len(folds) == 5
     for train, test, fold in zip(fitted, scored, folds):
         assert np.array_equal(test, fold)
         assert not set(train.tolist()) & set(test.tolist())
