@@ -41,6 +41,9 @@ FORMS: list[tuple[str, re.Pattern[str]]] = [
     ("integer 10-99 (12)", re.compile(r"^\d{2}$")),
     ("integer 100+ (430)", re.compile(r"^\d{3,}$")),
     ("other with digits", re.compile(r"\d")),
+    ("initials with dots (N.W.I)", re.compile(r"^([A-Za-z]\.){2,}[A-Za-z]?$|^([A-Za-z]\.)+[A-Za-z]$")),
+    ("letters joined by hyphens (T-Co)", re.compile(r"^[A-Za-z]{1,2}(-[A-Za-z]+)+$")),
+    ("all-capital word (WIN)", re.compile(r"^[A-Z]{2,}$")),
 ]
 PUNCT: list[tuple[str, re.Pattern[str]]] = [
     ("ends with . ? or !", re.compile(r"[.?!]$")),
@@ -162,16 +165,18 @@ def report(name: str, rows: list[dict[str, Any]], examples: int) -> None:
     print()
     for row in rows:
         first = f" {normalise(row['message']['nbest'][0]['text'])} "
+        missed = False
         for ent in row["entities"]:
             hit = f" {ent['text']} " in first
             intact[hit] += 1
+            missed = missed or not hit
             if not hit and any(
                 f" {ent['text']} " in f" {normalise(h['text'])} " for h in row["message"]["nbest"][1:]
             ):
                 deeper += 1
-            if not hit and shown < examples and row["tags"]["snr_db"] is None:
-                shown += 1
-                print(f"- said `{row['reference']}` / heard `{row['message']['nbest'][0]['text']}`")
+        if missed and shown < examples and row["tags"]["snr_db"] is None:
+            shown += 1
+            print(f"- said `{row['reference']}` / heard `{row['message']['nbest'][0]['text']}`")
     total = sum(intact.values())
     print(
         f"\nentity mentions intact in the first hypothesis (normalised): {intact[True]}/{total} "
@@ -192,7 +197,9 @@ def report(name: str, rows: list[dict[str, Any]], examples: int) -> None:
     firsts = [r["message"]["nbest"][0]["text"] for r in rows]
     counts, samples, punct = forms(firsts)
     if counts:
-        print("\nwritten forms in first hypotheses (tokens):")
+        print(
+            "\nwritten forms in first hypotheses (tokens; a hyphen-joined pair of words counts as letters only when it starts with 1-2 letters):"
+        )
         for name, _ in FORMS:
             if counts[name]:
                 common = ", ".join(f"{t} ({n})" for t, n in samples[name].most_common(6))
