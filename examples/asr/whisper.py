@@ -183,7 +183,8 @@ def recognise_audio(audio: np.ndarray, top: int = DEFAULT_TOP) -> list[dict[str,
         item = {"text": text, "logprob": round(logprob, 4)}
         seen[key] = item
         items.append(item)
-    first["conf"] = round(confidence(best["mean_logprob"], best["word_probs"]), 4)
+    # Nothing heard is no evidence of anything: an empty 1-best gets conf 0.
+    first["conf"] = round(confidence(best["mean_logprob"], best["word_probs"]), 4) if best["text"] else 0.0
     if best["word_probs"]:
         first["word_probs"] = [round(p, 4) for p in best["word_probs"]]
     return items[:top]

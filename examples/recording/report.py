@@ -32,6 +32,7 @@ from examples.recording.textnorm import normalise
 # Written forms a recogniser may use where the reference has words; counted per token.
 FORMS: list[tuple[str, re.Pattern[str]]] = [
     ("time h:mm (4:30)", re.compile(r"^\d{1,2}:\d{2}$")),
+    ("time h.mm (7.30)", re.compile(r"^([01]?\d|2[0-4])\.[0-5]\d$")),
     ("decimal (2.5)", re.compile(r"^\d*\.\d+$")),
     ("thousands comma (1,200)", re.compile(r"^\d{1,3}(,\d{3})+$")),
     ("percent (10%)", re.compile(r"^\d+(\.\d+)?%$")),

@@ -7,10 +7,14 @@ misheard words rather than spelling conventions. It is used only by the corpus
 report; rehear's own normalize stage is separate and is what the relay runs.
 
 Each form is mapped one way, British style: "120" -> "one hundred and twenty",
-"4:30" -> "four thirty", "4:05" -> "four oh five", "2.5" -> "two point five",
+"4:30" and "4.30" -> "four thirty" (a dot followed by exactly two digits, under
+an hour of 24 and 60 minutes, is read as a time, as British writers use it),
+"4:05" -> "four oh five", "2.5" -> "two point five",
 "10%" -> "ten percent", "3rd" -> "third", "1,200" -> "one thousand two hundred",
-"-2" -> "minus two", "18°" -> "eighteen degrees". Where a speaker said it another
-way ("a hundred and twenty", "five past four") the difference stays an error.
+"-2" -> "minus two", "18°" -> "eighteen degrees", and the American spellings
+Whisper uses for words the references spell the British way ("liters" ->
+"litres"). Where a speaker said it another way ("a hundred and twenty", "five
+past four") the difference stays an error.
 """
 
 from __future__ import annotations
@@ -22,6 +26,20 @@ ONES = (
     "fourteen fifteen sixteen seventeen eighteen nineteen"
 ).split()
 TENS = "_ _ twenty thirty forty fifty sixty seventy eighty ninety".split()
+BRITISH = {
+    "liter": "litre",
+    "liters": "litres",
+    "meter": "metre",
+    "meters": "metres",
+    "centimeters": "centimetres",
+    "millimeters": "millimetres",
+    "harbor": "harbour",
+    "harbors": "harbours",
+    "gray": "grey",
+    "color": "colour",
+    "colors": "colours",
+    "center": "centre",
+}
 ORDINAL_WORDS = {
     "one": "first",
     "two": "second",
@@ -100,11 +118,15 @@ def normalise(text: str) -> str:
     text = re.sub(r"(\d),(\d{3})\b", r"\1\2", text)
     text = re.sub(r"(?<![\w.])-(?=\d)", " minus ", text)
     text = re.sub(r"°\s*c?\b|º", " degrees ", text)
-    text = re.sub(r"\b(\d{1,2}):(\d{2})\b", lambda m: " " + _time(m) + " ", text)
-    text = re.sub(r"(\d*)\.(\d+)", lambda m: " " + _decimal(m) + " ", text)
+    text = re.sub(r"(\d*)\.(\d+)\s*%", lambda m: " " + _decimal(m) + " percent ", text)
     text = re.sub(r"(\d+)\s*%", lambda m: " " + _integer(m.group(1)) + " percent ", text)
+    text = re.sub(r"\b(\d{1,2}):(\d{2})\b", lambda m: " " + _time(m) + " ", text)
+    text = re.sub(
+        r"(?<!\d)(?<!\d\.)([01]?\d|2[0-4])\.([0-5]\d)(?!\d|\.\d)", lambda m: " " + _time(m) + " ", text
+    )
+    text = re.sub(r"(\d*)\.(\d+)", lambda m: " " + _decimal(m) + " ", text)
     text = re.sub(r"\b(\d+)(st|nd|rd|th)\b", lambda m: " " + ordinal_words(int(m.group(1))) + " ", text)
     text = re.sub(r"\d+", lambda m: " " + _integer(m.group(0)) + " ", text)
     text = re.sub(r"[^\w\s']", " ", text)
     text = re.sub(r"(?<!\w)'|'(?!\w)", " ", text)
-    return " ".join(text.split())
+    return " ".join(BRITISH.get(word, word) for word in text.split())
