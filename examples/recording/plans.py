@@ -12,38 +12,11 @@ import random
 from dataclasses import dataclass, field
 from typing import Literal
 
-from examples.workshop.scenario import SLOT, Entry, Scenario
+from examples.recording.scenario import SLOT, Entry, Part, Scenario, Settings
 
-VOICES = ("slt", "rms", "awb")
 NOVEL_SHARE = 0.3
 NO_ENTITY_SHARE = 0.1
 AFFINITY_PICK = 0.7
-SNR_25_SHARE = 1 / 3
-SNR_15_SHARE = 1 / 10
-
-# Which device a speaker's utterance most likely comes from, by place entry.
-PLACE_DEVICE = {
-    "place.bay_1": "bench-1",
-    "place.bay_2": "bench-2",
-    "place.bay_3": "bench-3",
-    "place.bay_4": "bench-4",
-    "place.bay_5": "bench-5",
-    "place.bay_6": "bench-6",
-    "place.mezzanine": "mezzanine-kiosk",
-    "place.wet_room": "wet-room-panel",
-    "place.kiln_yard": "yard-panel",
-    "place.front_desk": "front-desk",
-    "place.loading_dock": "door-panel",
-    "place.timber_store": "handheld-2",
-    "place.electronics_corner": "bench-7",
-}
-ROAMING_DEVICES = (
-    "handheld-1",
-    "handheld-2",
-    "door-panel",
-    "front-desk",
-    "mezzanine-kiosk",
-)
 
 
 @dataclass
@@ -61,9 +34,7 @@ class Plan:
     extra: dict[str, str] = field(default_factory=dict)
 
 
-def _pick_entry(
-    rng: random.Random, pool: list[Entry], liked: dict[str, float], taken: set[str]
-) -> Entry:
+def _pick_entry(rng: random.Random, pool: list[Entry], liked: dict[str, float], taken: set[str]) -> Entry:
     free = [e for e in pool if e.id not in taken]
     favourites = [e for e in free if e.id in liked]
     if favourites and rng.random() < AFFINITY_PICK:
@@ -100,9 +71,7 @@ def _fill(
     mentions = [(entry, form) for entry, form in literal]
     taken = {e.id for e, _ in literal}
     for kind in SLOT.findall(template):
-        entry = _pick_entry(
-            rng, scenario.by_type(kind), liked, taken | {e.id for e in used}
-        )
+        entry = _pick_entry(rng, scenario.by_type(kind), liked, taken | {e.id for e in used})
         used.append(entry)
         mentions.append((entry, entry.name))
         reference = reference.replace("{" + kind + "}", entry.name, 1)
@@ -112,22 +81,33 @@ def _fill(
     return reference, speak, [{"id": e.id, "text": form} for e, form in mentions]
 
 
-def _source(rng: random.Random, liked: dict[str, float]) -> str:
+def _source(rng: random.Random, liked: dict[str, float], settings: Settings) -> str:
+    """The device a speaker's utterance comes from: usually the one at their place."""
     homes = [
-        PLACE_DEVICE[i]
-        for i in sorted(liked, key=lambda i: -liked[i])
-        if i in PLACE_DEVICE
+        settings.place_device[i] for i in sorted(liked, key=lambda i: -liked[i]) if i in settings.place_device
     ]
-    if homes and rng.random() < 0.6:
+    if homes and rng.random() < settings.home_share:
         return homes[0]
-    return rng.choice(ROAMING_DEVICES)
+    return rng.choice(settings.roaming)
 
 
 def make_plans(
-    scenario: Scenario, train: list[str], novel: list[str], count: int, seed: int
+    scenario: Scenario,
+    train: list[str],
+    novel: list[str],
+    settings: Settings,
+    part: Part,
+    count: int | None = None,
 ) -> list[Plan]:
-    """`count` utterance plans; same inputs and seed give the same plans."""
-    rng = random.Random(seed)
+    """The plans of one part (its first `count`); same inputs and seed give the same plans.
+
+    Each part draws from its own random stream (its seed), so adding a part leaves
+    the plans of the others unchanged. The draws happen in a fixed order: the
+    noise assignment (a shuffle), then per utterance split, slot use, phrasing,
+    speaker, slot fillers and device.
+    """
+    count = part.count if count is None else min(count, part.count)
+    rng = random.Random(part.seed)
     pools = {
         ("seen", True): [t for t in train if SLOT.search(t)],
         ("seen", False): [t for t in train if not SLOT.search(t)],
@@ -135,18 +115,19 @@ def make_plans(
         ("novel", False): [t for t in novel if not SLOT.search(t)],
     }
     speakers = sorted(scenario.affinity)
-    order = list(range(count))
+    # Noise levels are dealt over the whole part, so a shorter `count` keeps each plan as is.
+    order = list(range(part.count))
     rng.shuffle(order)
-    n25, n15 = round(count * SNR_25_SHARE), round(count * SNR_15_SHARE)
-    snr: dict[int, int | None] = {i: None for i in range(count)}
-    snr.update({i: 25 for i in order[:n25]})
-    snr.update({i: 15 for i in order[n25 : n25 + n15]})
+    snr: dict[int, int | None] = {i: None for i in range(part.count)}
+    taken = 0
+    for level, share in part.snr:
+        size = round(part.count * share)
+        snr.update({i: level for i in order[taken : taken + size]})
+        taken += size
 
     plans: list[Plan] = []
     for i in range(count):
-        split: Literal["seen", "novel"] = (
-            "novel" if rng.random() < NOVEL_SHARE else "seen"
-        )
+        split: Literal["seen", "novel"] = "novel" if rng.random() < NOVEL_SHARE else "seen"
         with_entities = rng.random() >= NO_ENTITY_SHARE
         template = rng.choice(pools[(split, with_entities)])
         speaker = rng.choice(speakers)
@@ -154,15 +135,15 @@ def make_plans(
         reference, speak, entities = _fill(rng, template, scenario, liked)
         plans.append(
             Plan(
-                id=f"ws-{i + 1:04d}",
+                id=f"{settings.id_prefix}-{part.first + i:04d}",
                 split=split,
                 template=template,
                 reference=reference,
                 speak=speak,
                 entities=entities,
                 speaker=speaker,
-                source=_source(rng, liked),
-                voice=VOICES[i % len(VOICES)],
+                source=_source(rng, liked, settings),
+                voice=settings.voices[(part.first - 1 + i) % len(settings.voices)],
                 snr_db=snr[i],
             )
         )

@@ -1,7 +1,12 @@
-"""Read the workshop scenario files: lexicon, speaker affinities, phrasings.
+"""Read a scenario folder: lexicon, speaker affinities, phrasings, recording settings.
+
+A scenario folder (examples/workshop, examples/coldstore, ...) holds `lexicon.csv`,
+`speakers.csv`, `train.txt`, `novel_phrasings.txt`, `devices.csv` (which device
+stands at which place) and `scenario.yaml` (voices, noise, the parts of its corpus
+and the file each part and recogniser is written to).
 
 Also turns a lexicon entry into the text a speech synthesiser should read, since
-the written names of members and machines often mislead a synthesiser's
+the written names of people and equipment often mislead a synthesiser's
 letter-to-sound rules.
 """
 
@@ -10,10 +15,14 @@ from __future__ import annotations
 import csv
 import re
 from dataclasses import dataclass, field
+from fractions import Fraction
 from itertools import pairwise
 from pathlib import Path
+from typing import Any
 
-HERE = Path(__file__).resolve().parent
+import yaml
+
+EXAMPLES = Path(__file__).resolve().parent.parent
 SLOT = re.compile(r"\{([a-z_]+)\}")
 ALLOWED_TEXT = re.compile(r"^[a-z' {}_]+$")
 
@@ -152,9 +161,7 @@ def say_to_text(say: str) -> str:
 def check_text(text: str, where: str) -> None:
     """Enforce the corpus text convention: lowercase words, apostrophes, slots."""
     if not ALLOWED_TEXT.match(text):
-        raise ScenarioError(
-            f"{where}: only lowercase words, apostrophes and {{slots}} allowed: {text!r}"
-        )
+        raise ScenarioError(f"{where}: only lowercase words, apostrophes and {{slots}} allowed: {text!r}")
 
 
 def load_lexicon(path: Path) -> list[Entry]:
@@ -208,23 +215,119 @@ def load_affinity(path: Path, known: set[str]) -> dict[str, dict[str, float]]:
 
 def load_phrasings(path: Path, types: set[str]) -> list[str]:
     lines: list[str] = []
-    for line_no, raw in enumerate(
-        path.read_text(encoding="utf-8").splitlines(), start=1
-    ):
+    for line_no, raw in enumerate(path.read_text(encoding="utf-8").splitlines(), start=1):
         text = raw.strip()
         if not text:
             continue
         check_text(text, f"{path}:{line_no}")
         for slot in SLOT.findall(text):
             if slot not in types:
-                raise ScenarioError(
-                    f"{path}:{line_no}: slot {{{slot}}} is not a lexicon type"
-                )
+                raise ScenarioError(f"{path}:{line_no}: slot {{{slot}}} is not a lexicon type")
         lines.append(text)
     return lines
 
 
-def load_scenario(folder: Path = HERE) -> Scenario:
+def load_scenario(folder: Path) -> Scenario:
     entries = load_lexicon(folder / "lexicon.csv")
     affinity = load_affinity(folder / "speakers.csv", {e.id for e in entries})
     return Scenario(entries, affinity)
+
+
+@dataclass(frozen=True)
+class Output:
+    """Where one part's corpus from one recogniser goes."""
+
+    file: str
+    # False only for a corpus written before corpora named their recogniser.
+    tag_recogniser: bool = True
+
+
+@dataclass(frozen=True)
+class Part:
+    """A block of utterances planned from its own seeded random stream."""
+
+    name: str
+    seed: int
+    count: int
+    first: int  # number of the first utterance id (1 -> <prefix>-0001)
+    snr: tuple[tuple[int, float], ...]  # (SNR in dB, share of the part), in drawing order
+    outputs: dict[str, Output]
+
+
+@dataclass(frozen=True)
+class Settings:
+    folder: Path
+    name: str
+    id_prefix: str
+    voices: tuple[str, ...]
+    noise: str  # sox synth noise type for the noise bed
+    place_device: dict[str, str]
+    roaming: tuple[str, ...]
+    home_share: float
+    parts: dict[str, Part]
+
+
+def _share(value: Any, where: str) -> float:
+    try:
+        share = float(Fraction(str(value)))
+    except (ValueError, ZeroDivisionError) as exc:
+        raise ScenarioError(f"{where}: share {value!r} is not a number or fraction") from exc
+    if not 0.0 <= share <= 1.0:
+        raise ScenarioError(f"{where}: share must be within [0, 1]")
+    return share
+
+
+def load_devices(path: Path, known: set[str]) -> dict[str, str]:
+    """devices.csv: `place,device`, the device standing at a lexicon place."""
+    table: dict[str, str] = {}
+    with path.open(encoding="utf-8", newline="") as handle:
+        for line_no, row in enumerate(csv.DictReader(handle), start=2):
+            if row.get("place") not in known or not row.get("device"):
+                raise ScenarioError(f"{path}:{line_no}: need a known lexicon place id and a device")
+            table[row["place"]] = row["device"]
+    return table
+
+
+def load_settings(folder: Path, known: set[str] | None = None) -> Settings:
+    """scenario.yaml of a scenario folder (see examples/recording/README.md)."""
+    path = folder / "scenario.yaml"
+    try:
+        raw = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except (OSError, yaml.YAMLError) as exc:
+        raise ScenarioError(f"{path}: {exc}") from exc
+    if known is None:
+        known = {e.id for e in load_lexicon(folder / "lexicon.csv")}
+    try:
+        devices = raw["devices"]
+        parts: dict[str, Part] = {}
+        for name, part in raw["parts"].items():
+            where = f"{path}: parts.{name}"
+            outputs = {}
+            for recogniser, out in part["corpus"].items():
+                if isinstance(out, str):
+                    outputs[recogniser] = Output(out)
+                else:
+                    outputs[recogniser] = Output(out["file"], bool(out.get("tag_recogniser", True)))
+            parts[name] = Part(
+                name=name,
+                seed=int(part["seed"]),
+                count=int(part["count"]),
+                first=int(part.get("first", 1)),
+                snr=tuple((int(db), _share(v, where)) for db, v in (part.get("snr") or {}).items()),
+                outputs=outputs,
+            )
+        return Settings(
+            folder=folder,
+            name=str(raw["name"]),
+            id_prefix=str(raw["id_prefix"]),
+            voices=tuple(raw["voices"]),
+            noise=str(raw.get("noise", "pinknoise")),
+            place_device=load_devices(folder / devices["table"], known),
+            roaming=tuple(devices["roaming"]),
+            home_share=_share(devices.get("home_share", 0.6), f"{path}: devices"),
+            parts=parts,
+        )
+    except (KeyError, TypeError, ValueError) as exc:
+        if isinstance(exc, ScenarioError):
+            raise
+        raise ScenarioError(f"{path}: missing or malformed setting ({exc!r})") from exc

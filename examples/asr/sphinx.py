@@ -1,4 +1,4 @@
-"""Recognise one utterance with pocketsphinx and shape it as a recogniser message.
+"""Recognise one utterance with pocketsphinx.
 
 Shared by the corpus recorder and the MQTT bridge so both produce identical N-best
 lists. Uses the generic English model bundled with the pocketsphinx wheel and its
@@ -8,32 +8,19 @@ default decoder settings.
 from __future__ import annotations
 
 import math
-import wave
 from itertools import islice
 from pathlib import Path
 from typing import Any
 
-SAMPLE_RATE = 16000
-DEFAULT_TOP = 10
+from examples.asr.common import DEFAULT_TOP, read_pcm
+
+NAME = "pocketsphinx"
+# Changes whenever the output for the same audio would change. 2: the best path's posterior as `conf`.
+RECIPE = "2"
 
 
-class AudioFormatError(ValueError):
-    """The audio is not 16 kHz mono 16-bit PCM."""
-
-
-def read_pcm(path: Path) -> bytes:
-    """Return the raw samples of a 16 kHz mono 16-bit WAV file."""
-    try:
-        with wave.open(str(path), "rb") as wav:
-            shape = (wav.getframerate(), wav.getnchannels(), wav.getsampwidth())
-            if shape != (SAMPLE_RATE, 1, 2):
-                raise AudioFormatError(
-                    f"{path}: need 16000 Hz mono 16-bit PCM, got {shape[0]} Hz, "
-                    f"{shape[1]} channel(s), {8 * shape[2]}-bit"
-                )
-            return wav.readframes(wav.getnframes())
-    except wave.Error as exc:
-        raise AudioFormatError(f"{path}: not a readable WAV file ({exc})") from exc
+def prepare(threads: int | None = None) -> None:
+    """Nothing to load ahead: every utterance gets a fresh Decoder (see recognise_pcm)."""
 
 
 def score_to_logprob(score: float) -> float:
@@ -78,9 +65,7 @@ def recognise_pcm(pcm: bytes, top: int = DEFAULT_TOP) -> list[dict[str, Any]]:
         if best is None:
             items = [{"text": ""}]
         else:
-            items = [
-                {"text": best.hypstr, "logprob": round(score_to_logprob(best.score), 3)}
-            ]
+            items = [{"text": best.hypstr, "logprob": round(score_to_logprob(best.score), 3)}]
     if best is not None:
         for item in items:
             if item["text"] == best.hypstr:
@@ -92,20 +77,3 @@ def recognise_pcm(pcm: bytes, top: int = DEFAULT_TOP) -> list[dict[str, Any]]:
 def recognise_file(path: Path, top: int = DEFAULT_TOP) -> list[dict[str, Any]]:
     """Decode one WAV file (16 kHz mono 16-bit)."""
     return recognise_pcm(read_pcm(path), top)
-
-
-def build_message(
-    utt_id: str,
-    nbest: list[dict[str, Any]],
-    source: str | None = None,
-    speaker: str | None = None,
-) -> dict[str, Any]:
-    """A recogniser message (FORMATS section 1) for one final result."""
-    message: dict[str, Any] = {"id": utt_id}
-    if source is not None:
-        message["source"] = source
-    if speaker is not None:
-        message["speaker"] = speaker
-    message["final"] = True
-    message["nbest"] = nbest
-    return message
