@@ -31,7 +31,7 @@ from stages.lexicon.anchored import (
 from stages.lexicon.compile import CompiledLexicon, load_compiled
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.data import read_speakers
-from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
+from stages.lexicon.match import Evidence, Sighting, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon.rewrite import map_span, rewrite
 from stages.lexicon.sound.phonetics import CostModel
 from stages.lexicon.sound.pronounce import Pronouncer, common_words
@@ -292,7 +292,7 @@ class LexiconStage:
             return None, note | {"guard": "carrier_margin"}
         if end <= start:
             return None, note | {"guard": "overlap"}
-        support = {source: (match.phone, start, end, match.form, False)}
+        support = {source: Sighting(match.phone, start, end, match.form, False)}
         return _Choice(Evidence(form.entry, match.phone, support), match.phone, start, end, match.form,
                        False, False, gain), note
 
@@ -338,7 +338,7 @@ class LexiconStage:
                 scorer = scorers[source]
                 # The context is judged where the name was heard, with the hint word that hypothesis holds.
                 gain = scorer.gain(match.start, match.end, form.text.split()) if scorer is not None else 0.0
-                support = {order[i]: (m.phone, m.start, m.end, m.form, False) for i, m in pooled.support.items()}
+                support = {order[i]: Sighting(m.phone, m.start, m.end, m.form, False) for i, m in pooled.support.items()}
                 choice = _Choice(Evidence(form.entry, pooled.pooled, support), match.phone, start, end,
                                  match.form, False, False, gain)
                 if pooled.pooled < s.slot_min_pooled:
@@ -372,15 +372,16 @@ class LexiconStage:
             score += self.settings.affinity_weight * self.affinity.get(utterance.speaker, {}).get(entry.id, 0.0)
         held = evidence.per_hypothesis.get(best)
         support = evidence.per_hypothesis
-        source = max(support, key=lambda h: utterance.nbest[h].posterior * support[h][0])
-        if held is not None and held[0] >= 0.9 * support[source][0]:
-            _, start, end, form, exact = held
+        source = max(support, key=lambda h: utterance.nbest[h].posterior * support[h].score)
+        if held is not None and held.score >= 0.9 * support[source].score:
+            start, end, form, exact = held.start, held.end, held.form, held.exact
         else:
             # The best hypothesis holds the entry weakly or not at all: carry the span that
             # supports it most over to the best hypothesis.
-            _, start, end, form, _ = support[source]
-            start, end = map_span(utterance.nbest[source].tokens, utterance.nbest[best].tokens, start, end)
-            exact = False
+            strongest = support[source]
+            start, end = map_span(utterance.nbest[source].tokens, utterance.nbest[best].tokens,
+                                  strongest.start, strongest.end)
+            form, exact = strongest.form, False
         hints = self.hints.get(entry.type)
         before = utterance.nbest[best].tokens[max(0, start - self.settings.hint_window):start]
         hint_missing = bool(hints) and not hints.intersection(before)  # type: ignore[union-attr]
