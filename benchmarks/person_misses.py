@@ -36,7 +36,7 @@ from typing import Any
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 from benchmarks.corpus_chain import add_corpus_arguments, items_and_chain
-from stages.lexicon.anchored import SlotForms, SlotHypothesis, slot_anchors, slot_matches
+from stages.lexicon.anchored import AnchoredForms, AnchoredHypothesis, anchor_positions, anchored_matches
 from stages.lexicon.match import find_spans, score_spans
 from stages.lexicon.sound.phonetics import batch_similarity
 from stages.lexicon.stage import LexiconStage
@@ -132,15 +132,15 @@ def main(argv: list[str] | None = None) -> int:
                 # The slot path's second chance: the entry's best phone similarity after an anchor.
                 hints = stage.hints.get(record.type, set()) | set(settings.slot_hints.get(record.type, ()))
                 order = sorted(range(len(nbest)), key=lambda h: (h != nbest.index(utterance.best), -nbest[h].posterior))
-                searched = [SlotHypothesis([stage.pronouncer.word(t) for t in nbest[h].tokens],
-                                           slot_anchors(nbest[h].tokens, hints, at_start=settings.slot_at_start))
+                searched = [AnchoredHypothesis([stage.pronouncer.word(t) for t in nbest[h].tokens],
+                                           anchor_positions(nbest[h].tokens, hints, at_start=settings.slot_at_start))
                             for h in order[: settings.slot_hypotheses]]
                 floor = settings.slot_floors.get(record.type, settings.slot_min_phone)
                 # Aligned with this entry's slot forms alone and no edit screen: what it could reach there.
                 own = tuple(f for f in stage.slots[record.type].forms if lexicon.forms[f].entry == entry)
-                alone = SlotForms(record.type, own, tuple(lexicon.forms[f].phones for f in own))
-                mine = slot_matches(searched, alone, lexicon, stage.costs, max_words=settings.slot_max_words,
-                                    min_phone=0.0, min_edit=0.0)
+                alone = AnchoredForms(record.type, own, tuple(lexicon.forms[f].phones for f in own))
+                mine = anchored_matches(searched, alone, lexicon, stage.costs, max_words=settings.slot_max_words,
+                                    min_phone=0.0, align_floor=0.0)
                 if not any(h.anchors for h in searched):
                     slot_note, slot_cause = "slot: no anchor", "no_anchor"
                 elif not mine:

@@ -1,4 +1,4 @@
-"""Slot recall: names of one type looked for where the context announces one.
+"""Anchored search: names of one type looked for right after a word that announces the type.
 
 A recogniser that does not know a name breaks it into everyday words ("siobhan virtanen" ->
 "she voted comment"). Those runs are too far from the name in sound for the general matcher,
@@ -22,21 +22,21 @@ from rapidfuzz.process import cdist
 from stages.lexicon.compile import CompiledLexicon
 from stages.lexicon.sound.phonetics import CostModel, batch_similarity
 
-__all__ = ["PooledSlot", "SlotForms", "SlotHypothesis", "SlotMatch", "pool_slots", "slot_anchors", "slot_forms",
-           "slot_matches"]
+__all__ = ["AnchoredForms", "AnchoredHypothesis", "AnchoredMatch", "PooledAnchored", "anchor_positions",
+           "anchored_forms", "anchored_matches", "pool_anchored"]
 
 
 @dataclass(frozen=True, slots=True)
-class SlotForms:
+class AnchoredForms:
     """Every written form of the entries of one type, with its phones."""
 
-    kind: str
+    entity_type: str
     forms: tuple[int, ...]  # form numbers in the compiled lexicon
     phones: tuple[str, ...]
 
 
 @dataclass(frozen=True, slots=True)
-class SlotMatch:
+class AnchoredMatch:
     form: int
     start: int  # word range in the tokens searched
     end: int
@@ -46,46 +46,48 @@ class SlotMatch:
 
 
 @dataclass(frozen=True, slots=True)
-class SlotHypothesis:
-    """One hypothesis as the slot search reads it."""
+class AnchoredHypothesis:
+    """One hypothesis as the anchored search reads it."""
 
     sounds: Sequence[str]  # phones of each word
-    anchors: Sequence[int]  # word positions where a slot may begin
+    anchors: Sequence[int]  # word positions where a name may begin
     taken: Sequence[tuple[int, int]] = ()  # word ranges already holding an entity
 
 
 @dataclass(frozen=True, slots=True)
-class PooledSlot:
-    """What the N-best says about one entry of a slot type."""
+class PooledAnchored:
+    """What the N-best says about one entry of a type searched after its anchors."""
 
     entry: int
-    source: SlotMatch  # the match with the most posterior-weighted phone similarity
+    strongest: AnchoredMatch  # the match with the most posterior-weighted phone similarity
     pooled: float  # sum over hypotheses of posterior x best phone similarity
-    support: dict[int, SlotMatch]  # hypothesis -> its best match of the entry
+    support: dict[int, AnchoredMatch]  # hypothesis -> its best match of the entry
 
 
-def slot_forms(lexicon: CompiledLexicon, kinds: Sequence[str], *, min_phones: int = 0) -> dict[str, SlotForms]:
+def anchored_forms(lexicon: CompiledLexicon, entity_types: Sequence[str], *,
+                   min_phones: int = 0) -> dict[str, AnchoredForms]:
     """Forms of each type with at least ``min_phones`` phones: a short alias ("fola", "ane")
     sounds like too many everyday words for a loose floor."""
-    found: dict[str, SlotForms] = {}
-    for kind in kinds:
+    found: dict[str, AnchoredForms] = {}
+    for entity_type in entity_types:
         numbers = tuple(i for i, f in enumerate(lexicon.forms)
-                        if lexicon.entries[f.entry].type == kind and len(f.phones) >= min_phones)
-        found[kind] = SlotForms(kind, numbers, tuple(lexicon.forms[i].phones for i in numbers))
+                        if lexicon.entries[f.entry].type == entity_type and len(f.phones) >= min_phones)
+        found[entity_type] = AnchoredForms(entity_type, numbers, tuple(lexicon.forms[i].phones for i in numbers))
     return found
 
 
-def slot_anchors(tokens: Sequence[str], hints: set[str], *, at_start: bool) -> list[int]:
-    """Word positions where a slot may begin: just after a hint word, and (optionally) at 0."""
+def anchor_positions(tokens: Sequence[str], hints: set[str], *, at_start: bool) -> list[int]:
+    """Word positions where a name may begin: just after a hint word, and (optionally) at 0."""
     positions = {i + 1 for i, token in enumerate(tokens[:-1]) if token in hints}
     if at_start and tokens:
         positions.add(0)
     return sorted(positions)
 
 
-def slot_matches(hypotheses: Sequence[SlotHypothesis], slot: SlotForms, lexicon: CompiledLexicon,
-                 costs: CostModel, *, max_words: int, min_phone: float, min_edit: float = 0.4) -> list[SlotMatch]:
-    """Slot matches in several hypotheses at once; ``SlotMatch.hypothesis`` indexes ``hypotheses``.
+def anchored_matches(hypotheses: Sequence[AnchoredHypothesis], candidates: AnchoredForms, lexicon: CompiledLexicon,
+                     costs: CostModel, *, max_words: int, min_phone: float, align_floor: float = 0.4
+                     ) -> list[AnchoredMatch]:
+    """Matches in several hypotheses at once; ``AnchoredMatch.hypothesis`` indexes ``hypotheses``.
 
     Hypotheses of one N-best share most of their spans, so each distinct phone string is
     screened and aligned once.
@@ -101,21 +103,22 @@ def slot_matches(hypotheses: Sequence[SlotHypothesis], slot: SlotForms, lexicon:
                     break
                 phones += sounds[end - 1]
                 spans.append((number, start, end, rows.setdefault(phones, len(rows))))
-    if not spans or not slot.forms:
+    if not spans or not candidates.forms:
         return []
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
-    # feature alignment, as in the general matcher: it keeps the slot path's cost per message
-    # near a tenth of a millisecond.
-    screen = cdist(list(rows), list(slot.phones), scorer=Levenshtein.normalized_similarity,
-                   score_cutoff=min_edit, dtype=np.float32)
+    # feature alignment, as in the general matcher: it keeps the anchored search's cost per
+    # message near a tenth of a millisecond.
+    screen = cdist(list(rows), list(candidates.phones), scorer=Levenshtein.normalized_similarity,
+                   score_cutoff=align_floor, dtype=np.float32)
     hit_rows, columns = np.nonzero(screen)
     if hit_rows.size == 0:
         return []
     texts = list(rows)
-    aligned = batch_similarity([texts[r] for r in hit_rows.tolist()], [slot.phones[c] for c in columns.tolist()], costs)
-    similarity = np.zeros((len(rows), len(slot.forms)), dtype=np.float32)
+    aligned = batch_similarity([texts[r] for r in hit_rows.tolist()], [candidates.phones[c] for c in columns.tolist()],
+                               costs)
+    similarity = np.zeros((len(rows), len(candidates.forms)), dtype=np.float32)
     similarity[hit_rows, columns] = aligned
-    entries = np.array([lexicon.forms[f].entry for f in slot.forms])
+    entries = np.array([lexicon.forms[f].entry for f in candidates.forms])
     tops: dict[int, tuple[int, float, float]] = {}  # row -> (form column, phone, runner-up)
     for row in np.unique(hit_rows).tolist():
         scores = similarity[row]
@@ -124,7 +127,7 @@ def slot_matches(hypotheses: Sequence[SlotHypothesis], slot: SlotForms, lexicon:
             continue
         others = scores[entries != entries[top]]
         tops[row] = (top, float(scores[top]), float(others.max()) if others.size else 0.0)
-    best: dict[tuple[int, int, int], SlotMatch] = {}
+    best: dict[tuple[int, int, int], AnchoredMatch] = {}
     for number, start, end, row in spans:
         if row not in tops:
             continue
@@ -133,22 +136,23 @@ def slot_matches(hypotheses: Sequence[SlotHypothesis], slot: SlotForms, lexicon:
         held = best.get(key)
         # Between spans of one anchor, the better-aligned one; at a tie the shorter one.
         if held is None or phone > held.phone:
-            best[key] = SlotMatch(slot.forms[top], start, end, phone, runner_up, number)
+            best[key] = AnchoredMatch(candidates.forms[top], start, end, phone, runner_up, number)
     return sorted(best.values(), key=lambda m: (-m.phone, m.hypothesis, m.start))
 
 
-def pool_slots(matches: Sequence[SlotMatch], posteriors: Sequence[float],
-               lexicon: CompiledLexicon) -> list[PooledSlot]:
+def pool_anchored(matches: Sequence[AnchoredMatch], posteriors: Sequence[float],
+               lexicon: CompiledLexicon) -> list[PooledAnchored]:
     """Per entry: the best match in each hypothesis, summed by posterior as the general matcher
-    pools its evidence; the source is the hypothesis contributing most. Most pooled first."""
-    per_entry: dict[int, dict[int, SlotMatch]] = {}
+    pools its evidence; the strongest is the match of the hypothesis contributing most. Most
+    pooled first."""
+    per_entry: dict[int, dict[int, AnchoredMatch]] = {}
     for match in matches:
         held = per_entry.setdefault(lexicon.forms[match.form].entry, {})
         if match.hypothesis not in held or match.phone > held[match.hypothesis].phone:
             held[match.hypothesis] = match
     pooled = []
     for entry, held in per_entry.items():
-        source = max(held.values(), key=lambda m: (posteriors[m.hypothesis] * m.phone, -m.hypothesis))
+        strongest = max(held.values(), key=lambda m: (posteriors[m.hypothesis] * m.phone, -m.hypothesis))
         total = float(sum(posteriors[h] * m.phone for h, m in held.items()))
-        pooled.append(PooledSlot(entry, source, total, held))
-    return sorted(pooled, key=lambda p: (-p.pooled, -p.source.phone, p.entry))
+        pooled.append(PooledAnchored(entry, strongest, total, held))
+    return sorted(pooled, key=lambda p: (-p.pooled, -p.strongest.phone, p.entry))

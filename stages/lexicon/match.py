@@ -4,7 +4,7 @@ A span is any run of 1..k words of a hypothesis, pronounced as one phone string;
 word runs in several hypotheses are one span with several occurrences. Candidates come from
 the phone index; each (span, form) pair is scored as a weighted mean of
 
-- phone similarity: 1 - feature-weighted alignment cost / longer length (stages.phonetics),
+- phone similarity: 1 - feature-weighted alignment cost / longer length (sound.phonetics),
 - spelling similarity: rapidfuzz's normalised Indel ratio of the two texts, spaces removed,
 - key agreement: the best normalised Levenshtein similarity between the Double Metaphone keys.
 
@@ -41,7 +41,7 @@ class Weights:
     min_retrieval: float
     pair_floor: float  # pairs that cannot reach this score are dropped before the costlier signals
     min_phone: float  # pairs whose phones agree less than this are dropped whatever their spelling
-    min_edit: float  # pairs below this unit-cost phone similarity are not aligned at all
+    align_floor: float  # pairs below this unit-cost phone similarity are not aligned at all
 
 
 @dataclass(slots=True)
@@ -129,7 +129,7 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     forms = lexicon.forms
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment; see docs/lexicon.md for how the threshold was chosen.
-    screen = weights.min_edit
+    screen = weights.align_floor
     queries, items = hits.query.tolist(), hits.item.tolist()
     phones = spans.phones
     edit = cpdist([phones[q] for q in queries], [forms[f].phones for f in items],

@@ -21,12 +21,12 @@ from relay.core.stage import StageContext
 from relay.core.utterance import Correction, Entity, Hypothesis, Utterance
 from stages.indomain.carriers import CarrierPhrases, Unfilled
 from stages.lexicon.anchored import (
-    SlotForms,
-    SlotHypothesis,
-    pool_slots,
-    slot_anchors,
-    slot_forms,
-    slot_matches,
+    AnchoredForms,
+    AnchoredHypothesis,
+    anchor_positions,
+    anchored_forms,
+    anchored_matches,
+    pool_anchored,
 )
 from stages.lexicon.compile import CompiledLexicon, load_compiled
 from stages.lexicon.context import ContextScorer
@@ -150,17 +150,17 @@ class LexiconStage:
         self.common = {w for w, z in common_words().items() if z >= s.common_zipf}
         self.costs = CostModel.features()
         self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval,
-                               s.pair_floor, s.min_phone, s.min_edit)
+                               s.pair_floor, s.min_phone, align_floor=s.min_edit)
         self.compiled, self.loaded_from_cache = load_compiled(
             self.lexicon_path, self.context.cache_dir, self.pronouncer,
             progress=self.context.progress, max_postings=s.max_postings)
         ids = {entry.id for entry in self.compiled.entries}
         self.affinity = read_speakers(self.speakers_path, ids) if self.speakers_path else {}
         self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
-        self.slots: dict[str, SlotForms] = slot_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
+        self.slots: dict[str, AnchoredForms] = anchored_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
         self.carriers = None if self.carrier_path is None else CarrierPhrases.from_files(
             self.carrier_path, self.lexicon_path, loose_from=s.carrier_loose_from)
-        self.carrier_slots = {} if self.carriers is None else slot_forms(
+        self.carrier_slots = {} if self.carriers is None else anchored_forms(
             self.compiled, sorted({entry.type for entry in self.compiled.entries}))
         self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
 
@@ -276,8 +276,8 @@ class LexiconStage:
         note: dict[str, Any] = {"template": empty.template, "where": empty.where, "heard": empty.words,
                                 "type": empty.type, "hypothesis": source}
         phones = "".join(self.pronouncer.word(token) for token in heard[start:end])
-        matches = slot_matches([SlotHypothesis([phones], [0])], self.carrier_slots[empty.type], lexicon, self.costs,
-                               max_words=1, min_phone=0.0, min_edit=s.slot_min_edit)
+        matches = anchored_matches([AnchoredHypothesis([phones], [0])], self.carrier_slots[empty.type], lexicon, self.costs,
+                               max_words=1, min_phone=0.0, align_floor=s.slot_min_edit)
         if not matches:
             return None, note | {"guard": "carrier_phone"}
         match = matches[0]
@@ -320,12 +320,12 @@ class LexiconStage:
         found: list[_Choice] = []
         for kind, slot in self.slots.items():
             hints = self.hints.get(kind, set()) | set(s.slot_hints.get(kind, ()))
-            searched = [SlotHypothesis(sounds[i], slot_anchors(nbest[h].tokens, hints, at_start=s.slot_at_start),
+            searched = [AnchoredHypothesis(sounds[i], anchor_positions(nbest[h].tokens, hints, at_start=s.slot_at_start),
                                        taken if h == best else ()) for i, h in enumerate(order)]
-            matches = slot_matches(searched, slot, lexicon, self.costs, max_words=s.slot_max_words,
-                                   min_phone=s.slot_floors.get(kind, s.slot_min_phone), min_edit=s.slot_min_edit)
-            for pooled in pool_slots(matches, posteriors, lexicon):
-                match = pooled.source
+            matches = anchored_matches(searched, slot, lexicon, self.costs, max_words=s.slot_max_words,
+                                   min_phone=s.slot_floors.get(kind, s.slot_min_phone), align_floor=s.slot_min_edit)
+            for pooled in pool_anchored(matches, posteriors, lexicon):
+                match = pooled.strongest
                 source = order[match.hypothesis]
                 form = lexicon.forms[match.form]
                 start, end = map_span(nbest[source].tokens, tokens, match.start, match.end)

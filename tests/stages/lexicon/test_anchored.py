@@ -14,7 +14,7 @@ import pytest
 
 from relay.core.chain import Chain
 from relay.core.utterance import Hypothesis, Utterance
-from stages.lexicon.anchored import SlotHypothesis, pool_slots, slot_anchors, slot_matches
+from stages.lexicon.anchored import AnchoredHypothesis, anchor_positions, anchored_matches, pool_anchored
 from tests.stages.lexicon.fixtures import lexicon_chain, write_folder
 
 LEXICON = """id,type,name,aliases,say,weight
@@ -53,9 +53,9 @@ def ids(utt: Utterance) -> set[str]:
 
 def test_anchors_follow_hint_words_and_optionally_the_start() -> None:
     tokens = ["please", "page", "she", "voted", "for", "me", "for"]
-    assert slot_anchors(tokens, {"page", "for"}, at_start=False) == [2, 5]  # a final hint anchors nothing
-    assert slot_anchors(tokens, {"page"}, at_start=True) == [0, 2]
-    assert slot_anchors([], {"page"}, at_start=True) == []
+    assert anchor_positions(tokens, {"page", "for"}, at_start=False) == [2, 5]  # a final hint anchors nothing
+    assert anchor_positions(tokens, {"page"}, at_start=True) == [0, 2]
+    assert anchor_positions([], {"page"}, at_start=True) == []
 
 
 def test_a_shattered_name_after_a_hint_is_found_only_with_slots(folder: Path) -> None:
@@ -138,13 +138,13 @@ def test_slot_matches_share_spans_between_hypotheses(folder: Path) -> None:
     stage = make_chain(folder, slot_types=["person"]).stages[-1]
     words = [stage.pronouncer.word(w) for w in HEARD.split()]  # type: ignore[attr-defined]
     other = [stage.pronouncer.word(w) for w in MISHEARD_HINT.split()]  # type: ignore[attr-defined]
-    searched = [SlotHypothesis(other, slot_anchors(MISHEARD_HINT.split(), {"remind"}, at_start=False)),
-                SlotHypothesis(words, slot_anchors(HEARD.split(), {"remind"}, at_start=False)),
-                SlotHypothesis(words, [1], taken=[(2, 3)])]  # a taken word ends the span before it
-    matches = slot_matches(searched, stage.slots["person"], stage._lexicon, stage.costs,  # type: ignore[attr-defined]
-                           max_words=5, min_phone=0.68, min_edit=0.3)
+    searched = [AnchoredHypothesis(other, anchor_positions(MISHEARD_HINT.split(), {"remind"}, at_start=False)),
+                AnchoredHypothesis(words, anchor_positions(HEARD.split(), {"remind"}, at_start=False)),
+                AnchoredHypothesis(words, [1], taken=[(2, 3)])]  # a taken word ends the span before it
+    matches = anchored_matches(searched, stage.slots["person"], stage._lexicon, stage.costs,  # type: ignore[attr-defined]
+                           max_words=5, min_phone=0.68, align_floor=0.3)
     assert [(m.hypothesis, m.start, m.end) for m in matches] == [(1, 1, 4)]
-    [pooled] = pool_slots(matches, [0.5, 0.25, 0.25], stage._lexicon)  # type: ignore[attr-defined]
+    [pooled] = pool_anchored(matches, [0.5, 0.25, 0.25], stage._lexicon)  # type: ignore[attr-defined]
     assert pooled.pooled == pytest.approx(0.25 * matches[0].phone)
     assert set(pooled.support) == {1}
 

@@ -74,7 +74,7 @@ def _pairwise(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     hits = lexicon.index.search(spans.phones, k=weights.candidates, min_score=weights.min_retrieval)
     forms = lexicon.forms
     chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
-              if Levenshtein.normalized_similarity(spans.phones[q], forms[f].phones) >= weights.min_edit
+              if Levenshtein.normalized_similarity(spans.phones[q], forms[f].phones) >= weights.align_floor
               and (q, f) not in exact]
     if not chosen:
         return pairs
