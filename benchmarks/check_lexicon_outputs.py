@@ -69,7 +69,8 @@ def workshop() -> Iterable[dict[str, Any]]:
 
 
 def generated(size: int = 10_000, count: int = 300, seed: int = 7) -> Iterable[dict[str, Any]]:
-    from stages.lexicon.stage import LexiconSettings, LexiconStage
+    from stages.lexicon.settings import LexiconSettings
+    from stages.lexicon.stage import LexiconStage
     from stages.normalize.stage import NormalizeSettings, NormalizeStage
 
     with tempfile.TemporaryDirectory() as tmp:

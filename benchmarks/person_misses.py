@@ -7,14 +7,16 @@ steps with the stage's own settings and names the first step it does not pass:
 - ``say_unused``: the form the speaker said was not pronounced from the entry's `say` field
   (an alias of an entry whose `say` cannot be split by name word), noted beside the cause;
 - ``not_retrieved``: no span of any hypothesis brought a form of the entry out of the phone index
-  (``candidates`` per span, ``min_retrieval``);
-- ``pair_floors``: retrieved, but every pair fell below ``min_edit``, ``min_phone`` or ``pair_floor``;
-- ``weak``: scored, but not among the strongest entries or under ``pair_floor`` after pooling
+  (``match.candidates`` per span, ``match.min_retrieval``);
+- ``pair_floors``: retrieved, but every pair fell below ``match.align_floor``, ``match.min_phone`` or
+  ``match.pair_floor``;
+- ``weak``: scored, but not among the strongest entries or under ``match.pair_floor`` after pooling
   and priors, so no guard was even asked;
 - a guard's name (``min_score``, ``common_words``, ``margin``, ``short_form``, ``type_hint``,
   ``exact_text_kept``, ``overlap``, ``superseded``) when the trace shows the general matcher
   blocked it, with the score it had;
-- ``slot_*``/``carrier_*``: only the slot or carrier path saw it and its guard stopped it.
+- ``slot_*``/``carrier_*``: only the anchored search or the carrier phrases saw it and their guard
+  stopped it (the trace names the anchored search's guards ``slot_*``).
 
 Beside the cause each line gives the best phone similarity any span of the N-best reaches with
 the said form ("reach", the most any threshold could allow), that span, the index's Dice score
@@ -103,7 +105,7 @@ def main(argv: list[str] | None = None) -> int:
             rank = next((i + 1 for i, f in enumerate(ranked) if lexicon.forms[f].entry == entry), None)
             dice = float(wide.score[rank - 1]) if rank is not None else 0.0
 
-            hits = lexicon.index.search(spans.phones, k=settings.candidates, min_score=settings.min_retrieval)
+            hits = lexicon.index.search(spans.phones, k=settings.match.candidates, min_score=settings.match.min_retrieval)
             retrieved = any(lexicon.forms[f].entry == entry for f in hits.item.tolist())
             pairs = score_spans(spans, lexicon, stage.weights, stage.costs)
             paired = [p for p in pairs if lexicon.forms[p[1]].entry == entry]
@@ -130,16 +132,16 @@ def main(argv: list[str] | None = None) -> int:
             slot_note = ""
             if cause in ("not_retrieved", "pair_floors", "weak") and record.type in stage.slots:
                 # The slot path's second chance: the entry's best phone similarity after an anchor.
-                hints = stage.hints.get(record.type, set()) | set(settings.slot_hints.get(record.type, ()))
+                hints = stage.hints.get(record.type, set()) | set(settings.anchored.hints.get(record.type, ()))
                 order = sorted(range(len(nbest)), key=lambda h: (h != nbest.index(utterance.best), -nbest[h].posterior))
                 searched = [AnchoredHypothesis([stage.pronouncer.word(t) for t in nbest[h].tokens],
-                                           anchor_positions(nbest[h].tokens, hints, at_start=settings.slot_at_start))
-                            for h in order[: settings.slot_hypotheses]]
-                floor = settings.slot_floors.get(record.type, settings.slot_min_phone)
+                                           anchor_positions(nbest[h].tokens, hints, at_start=settings.anchored.at_start))
+                            for h in order[: settings.anchored.hypotheses]]
+                floor = settings.anchored.floors.get(record.type, settings.anchored.min_phone)
                 # Aligned with this entry's slot forms alone and no edit screen: what it could reach there.
                 own = tuple(f for f in stage.slots[record.type].forms if lexicon.forms[f].entry == entry)
                 alone = AnchoredForms(record.type, own, tuple(lexicon.forms[f].phones for f in own))
-                mine = anchored_matches(searched, alone, lexicon, stage.costs, max_words=settings.slot_max_words,
+                mine = anchored_matches(searched, alone, lexicon, stage.costs, max_words=settings.anchored.max_words,
                                     min_phone=0.0, align_floor=0.0)
                 if not any(h.anchors for h in searched):
                     slot_note, slot_cause = "slot: no anchor", "no_anchor"

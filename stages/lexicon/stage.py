@@ -11,10 +11,9 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any, ClassVar
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel
 
 from relay.core.errors import StageError
 from relay.core.stage import StageContext
@@ -33,69 +32,12 @@ from stages.lexicon.context import ContextScorer
 from stages.lexicon.data import read_speakers
 from stages.lexicon.match import Evidence, Sighting, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon.rewrite import map_span, rewrite
+from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.phonetics import CostModel
 from stages.lexicon.sound.pronounce import Pronouncer, common_words
 from stages.lm.model import shared_model
 
 __all__ = ["LexiconSettings", "LexiconStage"]
-
-
-class LexiconSettings(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-
-    lexicon: Path | None = Field(None, description="lexicon file (.csv, .yaml, .yml or .json); default: domain.lexicon")
-    speakers: Path | None = Field(None, description="speaker,id,affinity CSV for personal priors; default: domain.speakers")
-    max_span_words: int | None = Field(None, ge=1, le=8, description="longest span; default longest entry + 1")
-    candidates: int = Field(3, ge=1, le=50, description="entries taken from the index per span")
-    min_retrieval: float = Field(0.2, ge=0, le=1, description="least phone n-gram Dice score to consider a pair")
-    max_postings: int = Field(60, ge=1, description="phone n-grams held by more forms than this are not indexed")
-    weight_phone: float = Field(0.6, ge=0, description="weight of phone alignment similarity")
-    weight_spelling: float = Field(0.2, ge=0, description="weight of spelling similarity (rapidfuzz)")
-    weight_keys: float = Field(0.2, ge=0, description="weight of Double Metaphone key agreement")
-    min_score: float = Field(0.6, ge=0, le=2, description="least entry score for a correction")
-    common_min_score: float = Field(0.8, ge=0, le=2, description="least score to rewrite a span of common words")
-    common_relief: float = Field(0.02, ge=0, le=0.2, description="common_min_score eased per word past the first")
-    common_zipf: float = Field(4.0, ge=0, le=8, description="Zipf frequency from which a word is common")
-    margin: float = Field(0.05, ge=0, le=1, description="least lead over the runner-up for the same words")
-    affinity_weight: float = Field(0.15, ge=0, le=1, description="score added per unit of speaker affinity")
-    weight_prior: float = Field(0.05, ge=0, le=1, description="score added per unit of log entry weight")
-    type_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> words that announce it")
-    hint_window: int = Field(3, ge=1, le=10, description="words before a span searched for a type hint")
-    hint_penalty: float = Field(0.15, ge=0, le=1, description="more score needed when a hinted type lacks its hint")
-    hint_bonus: float = Field(0.1, ge=0, le=1, description="score added when a hinted type has its hint")
-    min_edit: float = Field(0.4, ge=0, le=1, description="least unit-cost phone similarity to align a pair")
-    min_phone: float = Field(0.6, ge=0, le=1, description="least phone similarity for a span/entry pair")
-    pair_floor: float = Field(0.45, ge=0, le=1, description="span/entry pairs scoring less are ignored")
-    lm_model: Path | None = Field(None, description="in-domain ARPA/kenlm model for the context term; default: domain.language_model")
-    lm_weight: float = Field(0.01, ge=0, le=1, description="score added per nat the LM gains by a correction")
-    lm_loss_weight: float = Field(0.06, ge=0, le=1, description="score taken per nat the LM loses by a correction")
-    lm_cap: float = Field(10.0, ge=0, le=100, description="LM gain (nats) is clipped to +-this")
-    short_phones: int = Field(6, ge=0, le=20, description="forms of at most this many phones are short")
-    short_penalty: float = Field(0.2, ge=0, le=1, description="more score needed to correct into a short form")
-    slot_types: list[str] = Field(default_factory=list, description="types looked for with a looser phone floor where the context announces one")
-    slot_min_phone: float = Field(0.68, ge=0, le=1, description="least phone similarity for a slot match")
-    slot_min_gain: float = Field(8.0, ge=-100, le=100, description="least LM gain (nats) for a slot match")
-    slot_margin: float = Field(0.0, ge=0, le=1, description="least phone lead of a slot match over another entry")
-    slot_min_phones: int = Field(8, ge=0, le=40, description="forms with fewer phones are left out of slot matching")
-    slot_min_edit: float = Field(0.3, ge=0, le=1, description="least unit-cost phone similarity to align a slot pair")
-    slot_at_start: bool = Field(False, description="a slot may also begin the sentence")
-    slot_max_words: int = Field(5, ge=1, le=8, description="longest span tried for a slot")
-    slot_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> more words after which a slot may begin (besides type_hints)")
-    slot_floors: dict[str, float] = Field(default_factory=dict, description="type -> its own slot_min_phone")
-    slot_hypotheses: int = Field(10, ge=1, le=50, description="hypotheses searched for slots, likeliest first")
-    slot_min_pooled: float = Field(0.0, ge=0, le=1, description="least slot phone similarity pooled by posterior")
-    carrier_text: Path | None = Field(None, description="in-domain text whose lines, as templates, mark a slot that everyday words hold; default: domain.text")
-    carrier_min_phone: float = Field(0.7, ge=0, le=1, description="least phone similarity for a carrier slot match")
-    carrier_margin: float = Field(0.03, ge=0, le=1, description="least phone lead of a carrier slot match over another entry")
-    carrier_hypotheses: int = Field(4, ge=1, le=50, description="hypotheses read for carrier phrases, likeliest first; each slot takes its best fill")
-    carrier_loose_from: int = Field(3, ge=0, le=20, description="lines with at least this many carrier words also match with one of them misheard (0: exact only)")
-    trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
-
-    @model_validator(mode="after")
-    def _weights_present(self) -> LexiconSettings:
-        if self.weight_phone + self.weight_spelling + self.weight_keys <= 0:
-            raise ValueError("at least one of weight_phone, weight_spelling, weight_keys must be positive")
-        return self
 
 
 @dataclass(slots=True)
@@ -130,8 +72,8 @@ class LexiconStage:
         s = settings
         self.lexicon_path = context.require_file("lexicon", s.lexicon, stage=self.name, setting="lexicon")
         self.speakers_path = context.domain_file("speakers", s.speakers)
-        self.lm_path = context.domain_file("language_model", s.lm_model) if s.lm_weight or s.lm_loss_weight else None
-        self.carrier_path = context.domain_file("text", s.carrier_text)
+        self.lm_path = context.domain_file("language_model", s.context.language_model) if s.context.gain_weight or s.context.loss_weight else None
+        self.carrier_path = context.domain_file("text", s.carrier.text)
         self.uses = {"lexicon": self.lexicon_path, "speakers": self.speakers_path,
                      "language model": self.lm_path, "carrier phrases": self.carrier_path}
         self.compiled: CompiledLexicon | None = None
@@ -147,19 +89,19 @@ class LexiconStage:
     def load(self) -> None:
         s = self.settings
         self.pronouncer = Pronouncer()
-        self.common = {w for w, z in common_words().items() if z >= s.common_zipf}
+        self.common = {w for w, z in common_words().items() if z >= s.general.common_zipf}
         self.costs = CostModel.features()
-        self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval,
-                               s.pair_floor, s.min_phone, align_floor=s.min_edit)
+        self.weights = Weights(s.match.weight_phone, s.match.weight_spelling, s.match.weight_keys, s.match.candidates, s.match.min_retrieval,
+                               s.match.pair_floor, s.match.min_phone, align_floor=s.match.align_floor)
         self.compiled, self.loaded_from_cache = load_compiled(
             self.lexicon_path, self.context.cache_dir, self.pronouncer,
-            progress=self.context.progress, max_postings=s.max_postings)
+            progress=self.context.progress, max_postings=s.match.max_postings)
         ids = {entry.id for entry in self.compiled.entries}
         self.affinity = read_speakers(self.speakers_path, ids) if self.speakers_path else {}
-        self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
-        self.slots: dict[str, AnchoredForms] = anchored_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
+        self.hints = {kind: set(words) for kind, words in s.hints.items()}
+        self.slots: dict[str, AnchoredForms] = anchored_forms(self.compiled, s.anchored.types, min_phones=s.anchored.min_phones)
         self.carriers = None if self.carrier_path is None else CarrierPhrases.from_files(
-            self.carrier_path, self.lexicon_path, loose_from=s.carrier_loose_from)
+            self.carrier_path, self.lexicon_path, loose_from=s.carrier.loose_from)
         self.carrier_slots = {} if self.carriers is None else anchored_forms(
             self.compiled, sorted({entry.type for entry in self.compiled.entries}))
         self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
@@ -176,10 +118,10 @@ class LexiconStage:
         posteriors = [h.posterior for h in utterance.nbest]
         evidence = pool(spans, pairs, lexicon, posteriors)
         # Entries too weak to be corrected or traced are not carried any further.
-        floor = min(s.min_score, s.pair_floor) * min(1.0, max(posteriors)) - s.affinity_weight - s.weight_prior
+        floor = min(s.general.min_score, s.match.pair_floor) * min(1.0, max(posteriors)) - s.priors.affinity_weight - s.priors.entry_weight
         strong = [e for e in best_entries(evidence, max(12, s.trace_top)) if e.pooled >= floor or best in e.per_hypothesis]
         tokens = utterance.nbest[best].tokens
-        context = ContextScorer(self.lm, tokens, cap=s.lm_cap) if self.lm is not None and strong else None
+        context = ContextScorer(self.lm, tokens, cap=s.context.cap) if self.lm is not None and strong else None
         choices = [self._choose(e, utterance, best, context) for e in strong]
         exacts = sorted((c for c in choices if c.exact), key=lambda c: (c.start - c.end, -c.score))
         fuzzy = sorted((c for c in choices if not c.exact), key=lambda c: (-c.score, c.start - c.end))
@@ -192,7 +134,7 @@ class LexiconStage:
             reason = self._guard(choice, placed, choices, exacts, tokens)
             if reason is None:
                 placed.append(choice)
-            elif choice.score >= s.pair_floor:
+            elif choice.score >= s.match.pair_floor:
                 blocked.append(self._describe(choice, tokens) | {"guard": reason})
         for choice in exacts:
             taken = [c for c in placed if c.start < choice.end and choice.start < c.end]
@@ -203,12 +145,12 @@ class LexiconStage:
                     self._supersedes(c, choice, tokens) for c in taken) else "overlap"})
         if self.slots:
             if context is None and self.lm is not None:
-                context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
+                context = ContextScorer(self.lm, tokens, cap=s.context.cap)
             placed += self._slot_recall(utterance, best, placed, blocked, context)
         carrier: list[dict[str, Any]] = []
         if self.carriers is not None:
             if context is None and self.lm is not None:
-                context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
+                context = ContextScorer(self.lm, tokens, cap=s.context.cap)
             found, carrier = self._carrier_recall(self.carriers, utterance, best, placed, context)
             placed += found
         self._finish(utterance, best, placed, blocked, choices)
@@ -234,7 +176,7 @@ class LexiconStage:
         tokens = nbest[best].tokens
         attempts: list[tuple[_Choice | None, dict[str, Any]]] = []
         tried: set[tuple[str, str]] = set()
-        for source in _likeliest(nbest, best, s.carrier_hypotheses):
+        for source in _likeliest(nbest, best, s.carrier.hypotheses):
             heard = nbest[source].tokens
             spans = sorted((map_span(tokens, heard, c.start, c.end), self._lexicon.entries[c.evidence.entry].type)
                            for c in placed)
@@ -277,7 +219,7 @@ class LexiconStage:
                                 "type": empty.type, "hypothesis": source}
         phones = "".join(self.pronouncer.word(token) for token in heard[start:end])
         matches = anchored_matches([AnchoredHypothesis([phones], [0])], self.carrier_slots[empty.type], lexicon, self.costs,
-                               max_words=1, min_phone=0.0, align_floor=s.slot_min_edit)
+                               max_words=1, min_phone=0.0, align_floor=s.anchored.align_floor)
         if not matches:
             return None, note | {"guard": "carrier_phone"}
         match = matches[0]
@@ -286,9 +228,9 @@ class LexiconStage:
         gain = context.gain(start, end, form.text.split()) if context is not None else 0.0
         note |= {"id": lexicon.entries[form.entry].id, "form": form.text, "phone": round(match.phone, 4),
                  "runner_up": round(match.runner_up, 4), "lm_gain": round(gain, 3)}
-        if match.phone < s.carrier_min_phone:
+        if match.phone < s.carrier.min_phone:
             return None, note | {"guard": "carrier_phone"}
-        if match.phone - match.runner_up < s.carrier_margin:
+        if match.phone - match.runner_up < s.carrier.margin:
             return None, note | {"guard": "carrier_margin"}
         if end <= start:
             return None, note | {"guard": "overlap"}
@@ -311,7 +253,7 @@ class LexiconStage:
         lexicon = self._lexicon
         nbest = utterance.nbest
         tokens = nbest[best].tokens
-        order = _likeliest(nbest, best, s.slot_hypotheses)
+        order = _likeliest(nbest, best, s.anchored.hypotheses)
         sounds = [[self.pronouncer.word(token) for token in nbest[h].tokens] for h in order]
         posteriors = [nbest[h].posterior for h in order]
         taken = [(c.start, c.end) for c in placed]
@@ -319,11 +261,11 @@ class LexiconStage:
         scorers: dict[int, ContextScorer | None] = {best: context}
         found: list[_Choice] = []
         for kind, slot in self.slots.items():
-            hints = self.hints.get(kind, set()) | set(s.slot_hints.get(kind, ()))
-            searched = [AnchoredHypothesis(sounds[i], anchor_positions(nbest[h].tokens, hints, at_start=s.slot_at_start),
+            hints = self.hints.get(kind, set()) | set(s.anchored.hints.get(kind, ()))
+            searched = [AnchoredHypothesis(sounds[i], anchor_positions(nbest[h].tokens, hints, at_start=s.anchored.at_start),
                                        taken if h == best else ()) for i, h in enumerate(order)]
-            matches = anchored_matches(searched, slot, lexicon, self.costs, max_words=s.slot_max_words,
-                                   min_phone=s.slot_floors.get(kind, s.slot_min_phone), align_floor=s.slot_min_edit)
+            matches = anchored_matches(searched, slot, lexicon, self.costs, max_words=s.anchored.max_words,
+                                   min_phone=s.anchored.floors.get(kind, s.anchored.min_phone), align_floor=s.anchored.align_floor)
             for pooled in pool_anchored(matches, posteriors, lexicon):
                 match = pooled.strongest
                 source = order[match.hypothesis]
@@ -334,18 +276,18 @@ class LexiconStage:
                 if " ".join(tokens[start:end]) == form.text:
                     continue  # exact text is the general matcher's job
                 if source not in scorers:
-                    scorers[source] = ContextScorer(self.lm, nbest[source].tokens, cap=s.lm_cap) if self.lm else None
+                    scorers[source] = ContextScorer(self.lm, nbest[source].tokens, cap=s.context.cap) if self.lm else None
                 scorer = scorers[source]
                 # The context is judged where the name was heard, with the hint word that hypothesis holds.
                 gain = scorer.gain(match.start, match.end, form.text.split()) if scorer is not None else 0.0
                 support = {order[i]: Sighting(m.phone, m.start, m.end, m.form, False) for i, m in pooled.support.items()}
                 choice = _Choice(Evidence(form.entry, pooled.pooled, support), match.phone, start, end,
                                  match.form, False, False, gain)
-                if pooled.pooled < s.slot_min_pooled:
+                if pooled.pooled < s.anchored.min_pooled:
                     reason = "slot_pooled"
-                elif match.phone - match.runner_up < s.slot_margin:
+                elif match.phone - match.runner_up < s.anchored.margin:
                     reason = "slot_margin"
-                elif scorer is not None and gain < min(s.slot_min_gain, s.lm_cap):  # the gain is clipped too
+                elif scorer is not None and gain < min(s.anchored.min_gain, s.context.cap):  # the gain is clipped too
                     reason = "slot_context"
                 else:
                     found.append(choice)
@@ -367,9 +309,9 @@ class LexiconStage:
                 context: ContextScorer | None) -> _Choice:
         lexicon = self._lexicon
         entry = lexicon.entries[evidence.entry]
-        score = evidence.pooled + self.settings.weight_prior * math.log(entry.weight)
+        score = evidence.pooled + self.settings.priors.entry_weight * math.log(entry.weight)
         if utterance.speaker is not None:
-            score += self.settings.affinity_weight * self.affinity.get(utterance.speaker, {}).get(entry.id, 0.0)
+            score += self.settings.priors.affinity_weight * self.affinity.get(utterance.speaker, {}).get(entry.id, 0.0)
         held = evidence.per_hypothesis.get(best)
         support = evidence.per_hypothesis
         source = max(support, key=lambda h: utterance.nbest[h].posterior * support[h].score)
@@ -383,10 +325,10 @@ class LexiconStage:
                                   strongest.start, strongest.end)
             form, exact = strongest.form, False
         hints = self.hints.get(entry.type)
-        before = utterance.nbest[best].tokens[max(0, start - self.settings.hint_window):start]
+        before = utterance.nbest[best].tokens[max(0, start - self.settings.general.hint_window):start]
         hint_missing = bool(hints) and not hints.intersection(before)  # type: ignore[union-attr]
         if hints and not hint_missing:
-            score += self.settings.hint_bonus  # the context announces this type: a prior like affinity
+            score += self.settings.general.hint_bonus  # the context announces this type: a prior like affinity
         lm_gain = 0.0
         if context is not None and not exact:
             # Noisy channel: the sound says how well the span matches, the in-domain LM how
@@ -395,7 +337,7 @@ class LexiconStage:
             # A rewrite the domain finds less likely is strong evidence against it (an everyday
             # word pulled into a name); a likelier one is weaker evidence for it, since
             # replacing any out-of-vocabulary word gains, so the two sides weigh differently.
-            score += (self.settings.lm_weight if lm_gain > 0 else self.settings.lm_loss_weight) * lm_gain
+            score += (self.settings.context.gain_weight if lm_gain > 0 else self.settings.context.loss_weight) * lm_gain
         return _Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain)
 
     def _guard(self, choice: _Choice, placed: list[_Choice], choices: list[_Choice],
@@ -406,7 +348,7 @@ class LexiconStage:
         def overlapping(c: _Choice) -> bool:
             return c.start < choice.end and choice.start < c.end
 
-        if choice.score < s.min_score:
+        if choice.score < s.general.min_score:
             return "min_score"
         if " ".join(tokens[choice.start:choice.end]) in self._lexicon.exact or any(
                 overlapping(e) and not self._supersedes(choice, e, tokens) for e in exacts):
@@ -416,17 +358,17 @@ class LexiconStage:
         words = tokens[choice.start:choice.end]
         # Priors count here too: on the workshop corpus, judging common words on acoustic
         # evidence alone lost a tenth of the recall for a small gain in precision.
-        needed = s.common_min_score - s.common_relief * max(0, len(words) - 1)
+        needed = s.general.common_min_score - s.general.common_relief * max(0, len(words) - 1)
         if words and all(w in self.common for w in words) and choice.score < needed:
             return "common_words"
         rivals = [c.score for c in choices if c.evidence.entry != choice.evidence.entry and overlapping(c)
                   and not (c.exact and self._supersedes(choice, c, tokens))]
-        if rivals and choice.score - max(rivals) < s.margin:
+        if rivals and choice.score - max(rivals) < s.general.margin:
             return "margin"
-        if (s.short_penalty and len(self._lexicon.forms[choice.form].phones) <= s.short_phones
-                and choice.score < s.min_score + s.short_penalty):
+        if (s.general.short_penalty and len(self._lexicon.forms[choice.form].phones) <= s.general.short_phones
+                and choice.score < s.general.min_score + s.general.short_penalty):
             return "short_form"  # a few phones match many everyday words by chance ("for" -> "bay four")
-        if choice.hint_missing and choice.score < s.min_score + s.hint_penalty:
+        if choice.hint_missing and choice.score < s.general.min_score + s.general.hint_penalty:
             return "type_hint"  # a hinted type without its hint word needs hint_penalty more evidence
         return None
 

@@ -1,5 +1,6 @@
 from __future__ import annotations
 
+import argparse
 import dataclasses
 import random
 from pathlib import Path
@@ -13,7 +14,7 @@ import relay.workbench.tuning
 from relay.cli import tune as tune_command
 from relay.core.config import build_chain, load_config
 from relay.core.registry import Registry
-from relay.core.setting_names import AcceptsOldNames
+from relay.core.setting_names import AcceptsOldNames, setting_fields
 from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
 from relay.workbench.evaluate import Outcome
@@ -32,7 +33,7 @@ from relay.workbench.tuning import (
 )
 from relay.workbench.variants import VariantBuilder, apply_overrides, config_from_dict, with_overrides
 from stages.gate.stage import GateFeatures, GateSettings, decide
-from stages.lexicon.stage import LexiconSettings
+from stages.lexicon.settings import LexiconSettings
 from stages.lm.rescore import LmRescoreSettings
 from stages.normalize.stage import NormalizeSettings
 from tests.relay.workbench.corpus_fixtures import write_config, write_corpus
@@ -347,9 +348,25 @@ def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatc
 
 
 def test_default_space_names_only_settings_the_stages_have() -> None:
-    fields = {"normalize": NormalizeSettings.model_fields, "lm_rescore": LmRescoreSettings.model_fields,
-              "lexicon": LexiconSettings.model_fields}
+    fields = {stage: {name for name, _ in setting_fields(settings)} for stage, settings in
+              (("normalize", NormalizeSettings), ("lm_rescore", LmRescoreSettings), ("lexicon", LexiconSettings))}
     for stage, params in DEFAULT_SPACE.items():
         for param, values in params.items():
             assert param in fields[stage], f"{stage}.{param}"
             assert values, f"{stage}.{param} has no values"
+    assert "general.min_score" in DEFAULT_SPACE["lexicon"]
+
+
+def test_a_search_space_may_use_dotted_top_level_and_old_names(tmp_path: Path,
+                                                               capsys: pytest.CaptureFixture[str]) -> None:
+    space = tmp_path / "space.yaml"
+    space.write_text("lexicon: {general.min_score: [0.5, 0.7], trace_top: [3], slot_min_phone: [0.7],"
+                     " general.min_scor: [0.5]}\nlm_rescore: {lm_weight: [0.3]}\n")
+    loaded = config_from_dict({"stages": ["normalize", "lm_rescore", {"lexicon": {"min_score": 0.6}}]},
+                              base_dir=tmp_path)
+    usable = tune_command._usable_space(argparse.Namespace(space=space), VariantBuilder(loaded))
+    assert usable == {"lexicon": {"general.min_score": [0.5, 0.7], "trace_top": [3], "anchored.min_phone": [0.7]},
+                      "lm_rescore": {"lm_weight": [0.3]}}
+    err = capsys.readouterr().err
+    # A misspelt name is reported with the valid ones, dotted names among them.
+    assert "stage lexicon has no setting general.min_scor (has: " in err and " general.min_score, " in err

@@ -9,7 +9,8 @@ from typing import Any
 from relay.core.chain import Chain
 from relay.core.stage import StageContext
 from relay.workbench.build_lm import build_model
-from stages.lexicon.stage import LexiconSettings, LexiconStage
+from stages.lexicon.settings import LexiconSettings
+from stages.lexicon.stage import LexiconStage
 from stages.lm.kneser_ney import DiscountFallbackWarning
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
 

@@ -10,8 +10,9 @@ import pytest
 from relay.core.chain import Chain
 from relay.core.stage import StageContext
 from relay.core.utterance import Hypothesis, Utterance
+from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.g2p import default_model
-from stages.lexicon.stage import LexiconSettings, LexiconStage
+from stages.lexicon.stage import LexiconStage
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
 
 LEXICON = """id,type,name,aliases,say,weight
@@ -77,26 +78,26 @@ def test_exact_text_is_kept_without_correction(tmp_path: Path) -> None:
 
 def test_common_words_need_stronger_evidence(tmp_path: Path) -> None:
     # "pillow" sits just under the default Zipf 4.0 line; lower it so the whole span is common.
-    chain = make_chain(tmp_path, common_min_score=0.99, common_zipf=3.5, common_relief=0.0)
+    chain = make_chain(tmp_path, general={"common_min_score": 0.99, "common_zipf": 3.5, "common_relief": 0.0})
     utt = run(chain, "book the pillow table saw for me")
     assert utt.corrections == []
     assert any(b["guard"] == "common_words" for b in blocked(utt))
     # Longer runs of common words get some relief: three words need 2 x 0.02 less.
-    eased = run(make_chain(tmp_path, common_min_score=0.99, common_zipf=3.5, common_relief=0.02),
+    eased = run(make_chain(tmp_path, general={"common_min_score": 0.99, "common_zipf": 3.5, "common_relief": 0.02}),
                 "book the pillow table saw for me")
     assert [c.after for c in eased.corrections] == ["pellow table saw"]
 
 
 def test_margin_over_the_runner_up_is_required(tmp_path: Path) -> None:
     # "tamsin okorra" is equally far from okoro and okara: neither may win.
-    utt = run(make_chain(tmp_path, margin=0.2), "call tamsin okorra now")
+    utt = run(make_chain(tmp_path, general={"margin": 0.2}), "call tamsin okorra now")
     assert utt.corrections == []
     assert any(b["guard"] == "margin" for b in blocked(utt))
 
 
 def test_entity_supported_across_the_nbest_beats_a_one_off(tmp_path: Path) -> None:
     # okoro and okara sound alike, so the default margin would (rightly) refuse both; lower it.
-    chain = make_chain(tmp_path, margin=0.02)
+    chain = make_chain(tmp_path, general={"margin": 0.02})
     # The first hypothesis alone leans to okara, the rest of the list says okoro.
     utt = run(chain, "call tamsin akara", "call tamsin okoro", "call tamsin okoro please",
               conf=[0.4, 0.3, 0.3])
@@ -116,7 +117,7 @@ def test_entity_only_in_a_deeper_hypothesis_can_win(tmp_path: Path) -> None:
 
 def test_speaker_affinity_breaks_a_tie(tmp_path: Path) -> None:
     speakers = "speaker,id,affinity\nmember-1,person.tamsin_okara,1.0\n"
-    chain = make_chain(tmp_path, speakers=speakers, margin=0.1, affinity_weight=0.3)
+    chain = make_chain(tmp_path, speakers=speakers, general={"margin": 0.1}, priors={"affinity_weight": 0.3})
     without = run(chain, "call tamsin okorra now")
     with_prior = run(chain, "call tamsin okorra now", speaker="member-1")
     assert "person.tamsin_okara" not in {e.id for e in without.entities}
@@ -125,7 +126,7 @@ def test_speaker_affinity_breaks_a_tie(tmp_path: Path) -> None:
 
 def test_type_hint_demands_more_evidence_without_its_word(tmp_path: Path) -> None:
     hints = {"person": ["call", "ask"]}
-    chain = make_chain(tmp_path, type_hints=hints, hint_penalty=0.5)
+    chain = make_chain(tmp_path, hints=hints, general={"hint_penalty": 0.5})
     hinted = run(chain, "call tamzin okoroh")
     unhinted = run(chain, "the tamzin okoroh")
     assert "person.tamsin_okoro" in {e.id for e in hinted.entities}
