@@ -6,24 +6,33 @@ whose floors and common-word guard must keep everyday speech unchanged everywher
 a word that announces the type ("call", "for", "tell", ...) or at the start of the sentence,
 a looser phone floor is safe enough when the in-domain language model agrees: the span's words
 run together as one phone string (so word boundaries need not match) are aligned with every
-form of the type, and the best forms are offered to the caller, which asks the model whether
-the sentence reads likelier with the name in it.
+form of the type, and ``AnchoredSearch`` asks the model whether the sentence reads likelier
+with the name in it. Its guards keep the trace names they had when this was called slot
+recall: ``slot_pooled``, ``slot_margin``, ``slot_context``.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from rapidfuzz.distance import Levenshtein
 from rapidfuzz.process import cdist
 
+from relay.core.utterance import Utterance
+from stages.lexicon.choice import Choice, describe, likeliest
 from stages.lexicon.compile import CompiledLexicon
+from stages.lexicon.context import ContextScorer
+from stages.lexicon.match import Evidence, Sighting
+from stages.lexicon.rewrite import map_span
+from stages.lexicon.settings import AnchoredSettings
 from stages.lexicon.sound.phonetics import CostModel, batch_similarity
+from stages.lexicon.sound.pronounce import Pronouncer
 
-__all__ = ["AnchoredForms", "AnchoredHypothesis", "AnchoredMatch", "PooledAnchored", "anchor_positions",
-           "anchored_forms", "anchored_matches", "pool_anchored"]
+__all__ = ["AnchoredForms", "AnchoredHypothesis", "AnchoredMatch", "AnchoredSearch", "PooledAnchored",
+           "anchor_positions", "anchored_forms", "anchored_matches", "pool_anchored"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -156,3 +165,80 @@ def pool_anchored(matches: Sequence[AnchoredMatch], posteriors: Sequence[float],
         total = float(sum(posteriors[h] * m.phone for h, m in held.items()))
         pooled.append(PooledAnchored(entry, strongest, total, held))
     return sorted(pooled, key=lambda p: (-p.pooled, -p.strongest.phone, p.entry))
+
+
+class AnchoredSearch:
+    """Names of ``settings.types`` looked for right after their hint words, in the likeliest hypotheses."""
+
+    def __init__(self, settings: AnchoredSettings, lexicon: CompiledLexicon, *, pronouncer: Pronouncer,
+                 costs: CostModel, hints: dict[str, set[str]], model: Any, cap: float) -> None:
+        self.settings = settings
+        self.lexicon = lexicon
+        self.pronouncer = pronouncer
+        self.costs = costs
+        self.model = model  # the in-domain language model, or None
+        self.cap = cap  # gains are clipped to +-cap nats, so min_gain above it could never pass
+        self.forms = anchored_forms(lexicon, settings.types, min_phones=settings.min_phones)
+        self.hints = {entity_type: hints.get(entity_type, set()) | set(settings.hints.get(entity_type, ()))
+                      for entity_type in self.forms}
+
+    def recall(self, utterance: Utterance, top: int, placed: list[Choice], blocked: list[dict[str, Any]],
+               context: ContextScorer | None) -> list[Choice]:
+        """Names found where no entity is placed yet; a trace record in ``blocked`` for each one
+        a guard stopped.
+
+        The ``hypotheses`` likeliest hypotheses are searched, each after its own hint words (a
+        hint the top hypothesis misheard may survive in another), and each entry's matches are
+        pooled by posterior. The span of the hypothesis contributing most is carried over to the
+        top one. A match needs the looser phone floor, ``min_pooled`` pooled evidence and, with a
+        language model, its hypothesis must read at least ``min_gain`` nats likelier with the
+        name in it: sound and context agree.
+        """
+        s = self.settings
+        lexicon = self.lexicon
+        nbest = utterance.nbest
+        tokens = nbest[top].tokens
+        order = likeliest(nbest, top, s.hypotheses)
+        sounds = [[self.pronouncer.word(token) for token in nbest[h].tokens] for h in order]
+        posteriors = [nbest[h].posterior for h in order]
+        taken = [(c.start, c.end) for c in placed]
+        entries = {c.evidence.entry for c in placed}
+        scorers: dict[int, ContextScorer | None] = {top: context}
+        found: list[Choice] = []
+        for entity_type, forms in self.forms.items():
+            searched = [AnchoredHypothesis(sounds[i], anchor_positions(nbest[h].tokens, self.hints[entity_type],
+                                                                       at_start=s.at_start),
+                                           taken if h == top else ()) for i, h in enumerate(order)]
+            matches = anchored_matches(searched, forms, lexicon, self.costs, max_words=s.max_words,
+                                       min_phone=s.floors.get(entity_type, s.min_phone), align_floor=s.align_floor)
+            for pooled in pool_anchored(matches, posteriors, lexicon):
+                match = pooled.strongest
+                hypothesis = order[match.hypothesis]
+                form = lexicon.forms[match.form]
+                start, end = map_span(nbest[hypothesis].tokens, tokens, match.start, match.end)
+                if end <= start or form.entry in entries or any(b < end and start < e for b, e in taken):
+                    continue
+                if " ".join(tokens[start:end]) == form.text:
+                    continue  # exact text is the general search's job
+                if hypothesis not in scorers:
+                    scorers[hypothesis] = ContextScorer(self.model, nbest[hypothesis].tokens,
+                                                        cap=self.cap) if self.model else None
+                scorer = scorers[hypothesis]
+                # The context is judged where the name was heard, with the hint word that hypothesis holds.
+                gain = scorer.gain(match.start, match.end, form.text.split()) if scorer is not None else 0.0
+                support = {order[i]: Sighting(m.phone, m.start, m.end, m.form, False) for i, m in pooled.support.items()}
+                choice = Choice(Evidence(form.entry, pooled.pooled, support), match.phone, start, end,
+                                match.form, False, False, gain)
+                if pooled.pooled < s.min_pooled:
+                    reason = "slot_pooled"
+                elif match.phone - match.runner_up < s.margin:
+                    reason = "slot_margin"
+                elif scorer is not None and gain < min(s.min_gain, self.cap):
+                    reason = "slot_context"
+                else:
+                    found.append(choice)
+                    taken.append((start, end))
+                    entries.add(form.entry)
+                    continue
+                blocked.append(describe(choice, lexicon, tokens) | {"guard": reason})
+        return found

@@ -27,7 +27,7 @@ def test_lexicon_stage_gets_the_models_path_and_loads_it(tmp_path: Path) -> None
     assert by_name["lm_rescore"].model_path == model  # type: ignore[attr-defined]
     assert by_name["lexicon"].lm is not None  # type: ignore[attr-defined]
     assert by_name["lexicon"].uses["language model"] == model  # type: ignore[attr-defined]
-    assert len(by_name["lexicon"].carriers) == 3  # type: ignore[attr-defined]
+    assert len(by_name["lexicon"].carrier.phrases) == 3  # type: ignore[attr-defined]
     assert by_name["gate"].uses["carrier phrases"] == train.resolve()  # type: ignore[attr-defined]
 
 

@@ -84,13 +84,12 @@ def test_the_phone_floor_holds(folder: Path) -> None:
 def test_short_aliases_are_not_searched_for(folder: Path) -> None:
     # "pekka" (5 phones) and "siobhan" (5) are under min_phones: a loose floor on so few
     # phones would match everyday words ("but", "back a") after every hint. "pekka obi" has 7.
-    chain = make_chain(folder, types=["person"], min_phones=7)
-    stage = chain.stages[-1]
-    forms = stage._lexicon.forms  # type: ignore[attr-defined]
-    texts = {forms[f].text for f in stage.slots["person"].forms}  # type: ignore[attr-defined]
-    assert texts == {"siobhan virtanen", "pekka obi"}
-    assert {forms[f].text for f in make_chain(folder, types=["person"]).stages[-1].slots["person"].forms} == {  # type: ignore[attr-defined]
-        "siobhan virtanen"}
+    def searched(**settings: Any) -> set[str]:
+        search = make_chain(folder, types=["person"], **settings).stages[-1].anchored  # type: ignore[attr-defined]
+        return {search.lexicon.forms[f].text for f in search.forms["person"].forms}
+
+    assert searched(min_phones=7) == {"siobhan virtanen", "pekka obi"}
+    assert searched() == {"siobhan virtanen"}
 
 
 def test_context_must_agree_when_a_model_is_given(folder: Path) -> None:
@@ -136,16 +135,16 @@ def test_pooled_evidence_counts_every_hypothesis_holding_the_name(folder: Path) 
 
 
 def test_anchored_matches_share_spans_between_hypotheses(folder: Path) -> None:
-    stage = make_chain(folder, types=["person"]).stages[-1]
-    words = [stage.pronouncer.word(w) for w in HEARD.split()]  # type: ignore[attr-defined]
-    other = [stage.pronouncer.word(w) for w in MISHEARD_HINT.split()]  # type: ignore[attr-defined]
+    search = make_chain(folder, types=["person"]).stages[-1].anchored  # type: ignore[attr-defined]
+    words = [search.pronouncer.word(w) for w in HEARD.split()]
+    other = [search.pronouncer.word(w) for w in MISHEARD_HINT.split()]
     searched = [AnchoredHypothesis(other, anchor_positions(MISHEARD_HINT.split(), {"remind"}, at_start=False)),
                 AnchoredHypothesis(words, anchor_positions(HEARD.split(), {"remind"}, at_start=False)),
                 AnchoredHypothesis(words, [1], taken=[(2, 3)])]  # a taken word ends the span before it
-    matches = anchored_matches(searched, stage.slots["person"], stage._lexicon, stage.costs,  # type: ignore[attr-defined]
-                           max_words=5, min_phone=0.68, align_floor=0.3)
+    matches = anchored_matches(searched, search.forms["person"], search.lexicon, search.costs,
+                               max_words=5, min_phone=0.68, align_floor=0.3)
     assert [(m.hypothesis, m.start, m.end) for m in matches] == [(1, 1, 4)]
-    [pooled] = pool_anchored(matches, [0.5, 0.25, 0.25], stage._lexicon)  # type: ignore[attr-defined]
+    [pooled] = pool_anchored(matches, [0.5, 0.25, 0.25], search.lexicon)
     assert pooled.pooled == pytest.approx(0.25 * matches[0].phone)
     assert set(pooled.support) == {1}
 
