@@ -93,7 +93,7 @@ def anchor_positions(tokens: Sequence[str], hints: set[str], *, at_start: bool) 
     return sorted(positions)
 
 
-def anchored_matches(hypotheses: Sequence[AnchoredHypothesis], candidates: AnchoredForms, lexicon: CompiledLexicon,
+def anchored_matches(hypotheses: Sequence[AnchoredHypothesis], forms: AnchoredForms, lexicon: CompiledLexicon,
                      costs: CostModel, *, max_words: int, min_phone: float, align_floor: float = 0.4
                      ) -> list[AnchoredMatch]:
     """Matches in several hypotheses at once; ``AnchoredMatch.hypothesis`` indexes ``hypotheses``.
@@ -112,46 +112,46 @@ def anchored_matches(hypotheses: Sequence[AnchoredHypothesis], candidates: Ancho
                     break
                 phones += sounds[end - 1]
                 spans.append((number, start, end, rows.setdefault(phones, len(rows))))
-    if not spans or not candidates.forms:
+    if not spans or not forms.forms:
         return []
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment, as in the general matcher: it keeps the anchored search's cost per
     # message near a tenth of a millisecond.
-    screen = cdist(list(rows), list(candidates.phones), scorer=Levenshtein.normalized_similarity,
+    screen = cdist(list(rows), list(forms.phones), scorer=Levenshtein.normalized_similarity,
                    score_cutoff=align_floor, dtype=np.float32)
     hit_rows, columns = np.nonzero(screen)
     if hit_rows.size == 0:
         return []
     texts = list(rows)
-    aligned = batch_similarity([texts[r] for r in hit_rows.tolist()], [candidates.phones[c] for c in columns.tolist()],
+    aligned = batch_similarity([texts[r] for r in hit_rows.tolist()], [forms.phones[c] for c in columns.tolist()],
                                costs)
-    similarity = np.zeros((len(rows), len(candidates.forms)), dtype=np.float32)
+    similarity = np.zeros((len(rows), len(forms.forms)), dtype=np.float32)
     similarity[hit_rows, columns] = aligned
-    entries = np.array([lexicon.forms[f].entry for f in candidates.forms])
-    tops: dict[int, tuple[int, float, float]] = {}  # row -> (form column, phone, runner-up)
+    entries = np.array([lexicon.forms[f].entry for f in forms.forms])
+    leaders: dict[int, tuple[int, float, float]] = {}  # row -> (form column, phone, runner-up)
     for row in np.unique(hit_rows).tolist():
         scores = similarity[row]
-        top = int(np.argmax(scores))
-        if scores[top] < min_phone:
+        column = int(np.argmax(scores))
+        if scores[column] < min_phone:
             continue
-        others = scores[entries != entries[top]]
-        tops[row] = (top, float(scores[top]), float(others.max()) if others.size else 0.0)
-    best: dict[tuple[int, int, int], AnchoredMatch] = {}
+        others = scores[entries != entries[column]]
+        leaders[row] = (column, float(scores[column]), float(others.max()) if others.size else 0.0)
+    kept: dict[tuple[int, int, int], AnchoredMatch] = {}  # (hypothesis, anchor, entry) -> its match
     for number, start, end, row in spans:
-        if row not in tops:
+        if row not in leaders:
             continue
-        top, phone, runner_up = tops[row]
-        key = (number, start, int(entries[top]))
-        held = best.get(key)
+        column, phone, runner_up = leaders[row]
+        key = (number, start, int(entries[column]))
+        held = kept.get(key)
         # Between spans of one anchor, the better-aligned one; at a tie the shorter one.
         if held is None or phone > held.phone:
-            best[key] = AnchoredMatch(candidates.forms[top], start, end, phone, runner_up, number)
-    return sorted(best.values(), key=lambda m: (-m.phone, m.hypothesis, m.start))
+            kept[key] = AnchoredMatch(forms.forms[column], start, end, phone, runner_up, number)
+    return sorted(kept.values(), key=lambda m: (-m.phone, m.hypothesis, m.start))
 
 
 def pool_anchored(matches: Sequence[AnchoredMatch], posteriors: Sequence[float],
-               lexicon: CompiledLexicon) -> list[PooledAnchored]:
-    """Per entry: the best match in each hypothesis, summed by posterior as the general matcher
+                  lexicon: CompiledLexicon) -> list[PooledAnchored]:
+    """Per entry: the best match in each hypothesis, summed by posterior as the general search
     pools its evidence; the strongest is the match of the hypothesis contributing most. Most
     pooled first."""
     per_entry: dict[int, dict[int, AnchoredMatch]] = {}

@@ -2,7 +2,7 @@
 
 The lexicon stage judges a span by how it sounds; the language model says whether the sentence
 reads like the domain once the span is rewritten. The term is the LM gain: natural-log
-probability of the rewritten best hypothesis minus that of the hypothesis as heard, clipped to
+probability of the rewritten top hypothesis minus that of the hypothesis as heard, clipped to
 [-cap, cap] so one out-of-vocabulary word cannot decide alone. The model was estimated with
 `{type}` slots expanded from the lexicon, so "page {person}" contexts favour person names.
 
