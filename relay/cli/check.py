@@ -37,7 +37,8 @@ def _old_names(chain: Chain) -> list[str]:
         given = old_names_given(getattr(stage, "settings", None))
         if given:
             moved = old_names_of(type(stage).Settings)
-            lines.append(f"  {stage.name}: old setting names " + ", ".join(f"{old} (now {moved[old]})" for old in given))
+            names = ", ".join(f"{old} (now {moved[old]})" for old in given)
+            lines.append(f"  {stage.name}: old setting names {names}")
     return lines
 
 

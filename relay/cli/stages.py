@@ -35,7 +35,7 @@ def run(args: argparse.Namespace) -> int:
         print(f"  needs {', '.join(sorted(cls.needs)) or '-'}; provides {', '.join(sorted(cls.provides)) or '-'}")
         for field_name, field in setting_fields(cls.Settings):
             if isinstance(field.annotation, type) and issubclass(field.annotation, BaseModel):
-                print(f"    {field_name + ':':<28} {field.description or ''}")  # a group: its settings follow
+                print(f"    {field_name + ':':<28} {field.description or ''}".rstrip())  # a group; its settings follow
                 continue
             about = f"  {field.description}" if field.description else ""
             default = "required" if field.is_required() else f"default {field.get_default(call_default_factory=True)!r}"

@@ -206,11 +206,12 @@ class AnchoredSearch:
         scorers: dict[int, ContextScorer | None] = {top: context}
         found: list[Choice] = []
         for entity_type, forms in self.forms.items():
-            searched = [AnchoredHypothesis(sounds[i], anchor_positions(nbest[h].tokens, self.hints[entity_type],
-                                                                       at_start=s.at_start),
+            hints = self.hints[entity_type]
+            searched = [AnchoredHypothesis(sounds[i], anchor_positions(nbest[h].tokens, hints, at_start=s.at_start),
                                            taken if h == top else ()) for i, h in enumerate(order)]
+            floor = s.floors.get(entity_type, s.min_phone)
             matches = anchored_matches(searched, forms, lexicon, self.costs, max_words=s.max_words,
-                                       min_phone=s.floors.get(entity_type, s.min_phone), align_floor=s.align_floor)
+                                       min_phone=floor, align_floor=s.align_floor)
             for pooled in pool_anchored(matches, posteriors, lexicon):
                 match = pooled.strongest
                 hypothesis = order[match.hypothesis]
@@ -226,7 +227,8 @@ class AnchoredSearch:
                 scorer = scorers[hypothesis]
                 # The context is judged where the name was heard, with the hint word that hypothesis holds.
                 gain = scorer.gain(match.start, match.end, form.text.split()) if scorer is not None else 0.0
-                support = {order[i]: Sighting(m.phone, m.start, m.end, m.form, False) for i, m in pooled.support.items()}
+                support = {order[i]: Sighting(m.phone, m.start, m.end, m.form, False)
+                           for i, m in pooled.support.items()}
                 choice = Choice(Evidence(form.entry, pooled.pooled, support), match.phone, start, end,
                                 match.form, False, False, gain)
                 if pooled.pooled < s.min_pooled:

@@ -55,7 +55,7 @@ class CarrierSearch:
         for hypothesis in likeliest(nbest, top, self.settings.hypotheses):
             heard = nbest[hypothesis].tokens
             spans = sorted((map_span(tokens, heard, c.start, c.end), self.lexicon.entries[c.evidence.entry].type)
-                           for c in placed)
+                           for c in placed)  # the entities so far, where this hypothesis holds them, to mark by type
             marked: list[str] = []
             where: list[int] = []  # marked position -> token position in the hypothesis
             at = 0
@@ -94,7 +94,8 @@ class CarrierSearch:
         note: dict[str, Any] = {"template": empty.template, "where": empty.where, "heard": empty.words,
                                 "type": empty.type, "hypothesis": hypothesis}
         phones = "".join(self.pronouncer.word(token) for token in heard[start:end])
-        matches = anchored_matches([AnchoredHypothesis([phones], [0])], self.forms[empty.type], lexicon, self.costs,
+        heard_as_one = [AnchoredHypothesis([phones], [0])]  # the slot's words run together, one span
+        matches = anchored_matches(heard_as_one, self.forms[empty.type], lexicon, self.costs,
                                    max_words=1, min_phone=0.0, align_floor=self.align_floor)
         if not matches:
             return None, note | {"guard": "carrier_phone"}

@@ -41,7 +41,8 @@ class GeneralSearch:
         self.affinity = affinity
         match = settings.match
         self.weights = Weights(match.weight_phone, match.weight_spelling, match.weight_keys, match.candidates,
-                               match.min_retrieval, match.pair_floor, match.min_phone, align_floor=match.align_floor)
+                               match.min_retrieval, match.pair_floor, match.min_phone,
+                               align_floor=match.align_floor)
 
     def entries(self, utterance: Utterance, top: int) -> list[Evidence]:
         """The entries the N-best supports enough to be corrected or traced, strongest first."""
@@ -55,9 +56,11 @@ class GeneralSearch:
         # Entries too weak to be corrected or traced are not carried any further.
         floor = (min(s.general.min_score, s.match.pair_floor) * min(1.0, max(posteriors))
                  - s.priors.affinity_weight - s.priors.entry_weight)
-        return [e for e in best_entries(evidence, max(12, s.trace_top)) if e.pooled >= floor or top in e.per_hypothesis]
+        return [e for e in best_entries(evidence, max(12, s.trace_top))
+                if e.pooled >= floor or top in e.per_hypothesis]
 
-    def choose(self, evidence: Evidence, utterance: Utterance, top: int, context: ContextScorer | None) -> Choice:
+    def choose(self, evidence: Evidence, utterance: Utterance, top: int,
+               context: ContextScorer | None) -> Choice:
         """Where ``evidence``'s entry goes in the top hypothesis, and its score there."""
         s = self.settings
         lexicon = self.lexicon

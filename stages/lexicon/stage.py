@@ -56,6 +56,7 @@ class LexiconStage:
                      "language model": self.lm_path, "carrier phrases": self.carrier_path}
         self.compiled: CompiledLexicon | None = None
         self.loaded_from_cache = False
+        self.lm: Any = None  # the in-domain language model (kenlm), shared with lm_rescore
         self.general: GeneralSearch | None = None
         self.anchored: AnchoredSearch | None = None
         self.carrier: CarrierSearch | None = None
@@ -80,11 +81,15 @@ class LexiconStage:
         common = {w for w, z in common_words().items() if z >= s.general.common_zipf}
         self.general = GeneralSearch(s, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
                                      common=common, hints=hints, affinity=affinity)
-        self.anchored = AnchoredSearch(s.anchored, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
-                                       hints=hints, model=self.lm, cap=s.context.cap) if s.anchored.types else None
-        self.carrier = None if self.carrier_path is None else CarrierSearch(
-            s.carrier, CarrierPhrases.from_files(self.carrier_path, self.lexicon_path, loose_from=s.carrier.loose_from),
-            self.compiled, pronouncer=self.pronouncer, costs=self.costs, align_floor=s.anchored.align_floor)
+        self.anchored = None
+        if s.anchored.types:
+            self.anchored = AnchoredSearch(s.anchored, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
+                                           hints=hints, model=self.lm, cap=s.context.cap)
+        self.carrier = None
+        if self.carrier_path is not None:
+            phrases = CarrierPhrases.from_files(self.carrier_path, self.lexicon_path, loose_from=s.carrier.loose_from)
+            self.carrier = CarrierSearch(s.carrier, phrases, self.compiled, pronouncer=self.pronouncer,
+                                         costs=self.costs, align_floor=s.anchored.align_floor)
 
     def process(self, utterance: Utterance) -> Utterance:
         general = self.general
