@@ -28,7 +28,7 @@ CONFIG = """\
 stages:
   - normalize
   - lm_rescore: {model: lm.arpa}
-  - lexicon: {lexicon: lexicon.csv, lm_model: lm.arpa}
+  - lexicon: {lexicon: lexicon.csv, context: {language_model: lm.arpa}}
   - gate
 """
 

@@ -30,7 +30,8 @@ from relay.workbench.synthetic import make_lexicon, make_messages
 def build(size: int, folder: Path, seed: int) -> dict[str, float]:
     """Write the lexicon and compile it cold into the folder's cache."""
     from relay.core.stage import StageContext
-    from stages.lexicon.stage import LexiconSettings, LexiconStage
+    from stages.lexicon.settings import LexiconSettings
+    from stages.lexicon.stage import LexiconStage
 
     make_lexicon(size, folder / "lexicon.csv", seed)
     context = StageContext(base_dir=folder, cache_dir=folder / "cache")
@@ -50,7 +51,8 @@ def measure(folder: Path, count: int, seed: int, corpus: Path | None = None) -> 
     from relay.core.stage import StageContext
     from relay.core.utterance import Hypothesis, TraceEntry, Utterance
     from relay.live.heap import freeze_loaded
-    from stages.lexicon.stage import LexiconSettings, LexiconStage
+    from stages.lexicon.settings import LexiconSettings
+    from stages.lexicon.stage import LexiconStage
     from stages.normalize.stage import NormalizeSettings, NormalizeStage
 
     context = StageContext(base_dir=folder, cache_dir=folder / "cache")

@@ -5,8 +5,10 @@ odd ones; the odd half is also split by the corpus's `split` tag, since the lang
 estimated from phrasings of the `seen` kind. The main number is the share of utterances whose
 set of found entity ids is exactly the reference's.
 
-    python benchmarks/eval_context.py examples/workshop --set lm_weight=0.0 --set lm_weight=0.3
-    (each --grid KEY=JSON,JSON,... adds a dimension; the product of all grids is evaluated)
+    python benchmarks/eval_context.py examples/workshop --set context.gain_weight=0.0 \
+        --grid general.min_score=0.55,0.6
+    (KEY: a lexicon setting, dotted inside a group; each --grid KEY=JSON,JSON,... adds a dimension,
+    the product of all grids is evaluated)
 """
 
 from __future__ import annotations

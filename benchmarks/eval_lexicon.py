@@ -24,7 +24,9 @@ import jiwer
 from relay.core.chain import Chain
 from relay.core.stage import StageContext
 from relay.core.utterance import Hypothesis, Utterance
-from stages.lexicon.stage import LexiconSettings, LexiconStage
+from relay.workbench.variants import apply_overrides
+from stages.lexicon.settings import OLD_NAMES, LexiconSettings
+from stages.lexicon.stage import LexiconStage
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
 from stages.normalize.tokens import tokenize
 
@@ -53,9 +55,9 @@ def utterance(message: dict[str, Any]) -> Utterance:
     return Utterance(message["id"], message.get("source", ""), message.get("speaker"), message, nbest)
 
 
-def build_chain(folder: Path, cache: Path, **settings: Any) -> Chain:
+def build_chain(folder: Path, cache: Path, settings: dict[str, Any]) -> Chain:
     context = StageContext(base_dir=folder, cache_dir=cache)
-    params = {"lexicon": "lexicon.csv", "speakers": "speakers.csv"} | settings
+    params = apply_overrides({"lexicon": "lexicon.csv", "speakers": "speakers.csv"}, settings, OLD_NAMES)
     chain = Chain([NormalizeStage(NormalizeSettings(), context=context),
                    LexiconStage(LexiconSettings(**params), context=context)])
     chain.load()
@@ -100,11 +102,11 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("folder", type=Path, help="folder with lexicon.csv, speakers.csv, corpus.jsonl")
     parser.add_argument("--show-misses", type=int, default=0, help="print this many wrong utterances")
     parser.add_argument("--set", action="append", default=[], metavar="KEY=JSON",
-                        help="override a lexicon setting, e.g. --set min_score=0.55")
+                        help="override a lexicon setting, dotted inside a group, e.g. --set general.min_score=0.55")
     args = parser.parse_args(argv)
     overrides = {k: json.loads(v) for k, v in (item.split("=", 1) for item in args.set)}
     with tempfile.TemporaryDirectory() as cache:
-        ours, base = evaluate(args.folder, build_chain(args.folder.resolve(), Path(cache), **overrides))
+        ours, base = evaluate(args.folder, build_chain(args.folder.resolve(), Path(cache), overrides))
     for label, r in (("lexicon stage", ours), ("exact text, 1st hyp", base)):
         print(f"{label:20s} recall {r.recall:.3f} precision {r.precision:.3f} "
               f"(tp {r.true_pos} fp {r.false_pos} fn {r.false_neg}) WER {r.out_wer:.3f}")

@@ -7,14 +7,16 @@ steps with the stage's own settings and names the first step it does not pass:
 - ``say_unused``: the form the speaker said was not pronounced from the entry's `say` field
   (an alias of an entry whose `say` cannot be split by name word), noted beside the cause;
 - ``not_retrieved``: no span of any hypothesis brought a form of the entry out of the phone index
-  (``candidates`` per span, ``min_retrieval``);
-- ``pair_floors``: retrieved, but every pair fell below ``min_edit``, ``min_phone`` or ``pair_floor``;
-- ``weak``: scored, but not among the strongest entries or under ``pair_floor`` after pooling
+  (``match.candidates`` per span, ``match.min_retrieval``);
+- ``pair_floors``: retrieved, but every pair fell below ``match.align_floor``, ``match.min_phone`` or
+  ``match.pair_floor``;
+- ``weak``: scored, but not among the strongest entries or under ``match.pair_floor`` after pooling
   and priors, so no guard was even asked;
 - a guard's name (``min_score``, ``common_words``, ``margin``, ``short_form``, ``type_hint``,
   ``exact_text_kept``, ``overlap``, ``superseded``) when the trace shows the general matcher
   blocked it, with the score it had;
-- ``slot_*``/``carrier_*``: only the slot or carrier path saw it and its guard stopped it.
+- ``slot_*``/``carrier_*``: only the anchored search or the carrier phrases saw it and their guard
+  stopped it (the trace names the anchored search's guards ``slot_*``).
 
 Beside the cause each line gives the best phone similarity any span of the N-best reaches with
 the said form ("reach", the most any threshold could allow), that span, the index's Dice score
@@ -36,7 +38,7 @@ from typing import Any
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 from benchmarks.corpus_chain import add_corpus_arguments, items_and_chain
-from stages.lexicon.anchored import SlotForms, SlotHypothesis, slot_anchors, slot_matches
+from stages.lexicon.anchored import AnchoredForms, AnchoredHypothesis, anchor_positions, anchored_matches
 from stages.lexicon.match import find_spans, score_spans
 from stages.lexicon.sound.phonetics import batch_similarity
 from stages.lexicon.stage import LexiconStage
@@ -60,6 +62,8 @@ def main(argv: list[str] | None = None) -> int:
     stage = _lexicon_stage(chain)
     settings = stage.settings
     lexicon = stage._lexicon
+    search, anchored = stage.general, stage.anchored
+    assert search is not None  # the chain is loaded
     by_id = {entry.id: number for number, entry in enumerate(lexicon.entries)}
     forms_of: dict[int, list[int]] = {}
     for number, form in enumerate(lexicon.forms):
@@ -67,7 +71,7 @@ def main(argv: list[str] | None = None) -> int:
 
     causes: Counter[str] = Counter()
     reach: Counter[str] = Counter()
-    slot_causes: Counter[str] = Counter()
+    anchored_causes: Counter[str] = Counter()
     say_unused = 0
     mentions = found_count = 0
     for item in items:
@@ -103,20 +107,20 @@ def main(argv: list[str] | None = None) -> int:
             rank = next((i + 1 for i, f in enumerate(ranked) if lexicon.forms[f].entry == entry), None)
             dice = float(wide.score[rank - 1]) if rank is not None else 0.0
 
-            hits = lexicon.index.search(spans.phones, k=settings.candidates, min_score=settings.min_retrieval)
+            hits = lexicon.index.search(spans.phones, k=settings.match.candidates, min_score=settings.match.min_retrieval)
             retrieved = any(lexicon.forms[f].entry == entry for f in hits.item.tolist())
-            pairs = score_spans(spans, lexicon, stage.weights, stage.costs)
+            pairs = score_spans(spans, lexicon, search.weights, stage.costs)
             paired = [p for p in pairs if lexicon.forms[p[1]].entry == entry]
             blocked = [b for b in trace.get("blocked", []) if b["id"] == entity_id]
             general = [b for b in blocked if not b["guard"].startswith(("slot_", "carrier_"))]
-            slot = [b for b in blocked if b["guard"].startswith("slot_")]
+            after_hint = [b for b in blocked if b["guard"].startswith("slot_")]  # the anchored search's guards
             # One record per carrier slot tried; the one that named this entry and was refused.
             carrier = next((c for c in trace.get("carrier") or [] if c.get("id") == entity_id and "guard" in c), {})
             if general:
                 worst = max(general, key=lambda b: b["score"])
                 cause, detail = worst["guard"], f"score {worst['score']:.3f} heard {worst['heard']!r}"
-            elif slot:
-                worst = max(slot, key=lambda b: b["score"])
+            elif after_hint:
+                worst = max(after_hint, key=lambda b: b["score"])
                 cause, detail = worst["guard"], f"phone {worst['score']:.3f} heard {worst['heard']!r} lm {worst['lm_gain']}"
             elif carrier:
                 cause, detail = carrier["guard"], f"phone {carrier.get('phone')} heard {carrier.get('heard')}"
@@ -127,30 +131,30 @@ def main(argv: list[str] | None = None) -> int:
             else:
                 strongest = max(p[2] for p in paired)
                 cause, detail = "weak", f"best pair {strongest:.3f}"
-            slot_note = ""
-            if cause in ("not_retrieved", "pair_floors", "weak") and record.type in stage.slots:
-                # The slot path's second chance: the entry's best phone similarity after an anchor.
-                hints = stage.hints.get(record.type, set()) | set(settings.slot_hints.get(record.type, ()))
+            anchored_note = ""
+            if cause in ("not_retrieved", "pair_floors", "weak") and anchored and record.type in anchored.forms:
+                # The anchored search's second chance: the entry's best phone similarity after an anchor.
+                hints = anchored.hints[record.type]
                 order = sorted(range(len(nbest)), key=lambda h: (h != nbest.index(utterance.best), -nbest[h].posterior))
-                searched = [SlotHypothesis([stage.pronouncer.word(t) for t in nbest[h].tokens],
-                                           slot_anchors(nbest[h].tokens, hints, at_start=settings.slot_at_start))
-                            for h in order[: settings.slot_hypotheses]]
-                floor = settings.slot_floors.get(record.type, settings.slot_min_phone)
-                # Aligned with this entry's slot forms alone and no edit screen: what it could reach there.
-                own = tuple(f for f in stage.slots[record.type].forms if lexicon.forms[f].entry == entry)
-                alone = SlotForms(record.type, own, tuple(lexicon.forms[f].phones for f in own))
-                mine = slot_matches(searched, alone, lexicon, stage.costs, max_words=settings.slot_max_words,
-                                    min_phone=0.0, min_edit=0.0)
+                searched = [AnchoredHypothesis([stage.pronouncer.word(t) for t in nbest[h].tokens],
+                                           anchor_positions(nbest[h].tokens, hints, at_start=settings.anchored.at_start))
+                            for h in order[: settings.anchored.hypotheses]]
+                floor = settings.anchored.floors.get(record.type, settings.anchored.min_phone)
+                # Aligned with this entry's searched forms alone and no screen: what it could reach there.
+                own = tuple(f for f in anchored.forms[record.type].forms if lexicon.forms[f].entry == entry)
+                alone = AnchoredForms(record.type, own, tuple(lexicon.forms[f].phones for f in own))
+                mine = anchored_matches(searched, alone, lexicon, stage.costs, max_words=settings.anchored.max_words,
+                                    min_phone=0.0, align_floor=0.0)
                 if not any(h.anchors for h in searched):
-                    slot_note, slot_cause = "slot: no anchor", "no_anchor"
+                    anchored_note, anchored_cause = "anchored: no anchor", "no_anchor"
                 elif not mine:
-                    slot_note, slot_cause = "slot: no slot form (too short)", "no_form"
+                    anchored_note, anchored_cause = "anchored: no form searched for (too short)", "no_form"
                 else:
                     top_match = max(mine, key=lambda m: m.phone)
-                    slot_cause = "under_floor" if top_match.phone < floor else "over_floor"
-                    slot_note = (f"slot: best {top_match.phone:.3f} (floor {floor}) on "
+                    anchored_cause = "under_floor" if top_match.phone < floor else "over_floor"
+                    anchored_note = (f"anchored: best {top_match.phone:.3f} (floor {floor}) on "
                                  f"{' '.join(nbest[order[top_match.hypothesis]].tokens[top_match.start:top_match.end])!r}")
-                slot_causes[slot_cause] += 1
+                anchored_causes[anchored_cause] += 1
             causes[cause] += 1
             band = "<0.60" if best_phone < 0.6 else "0.60-0.70" if best_phone < 0.7 else ">=0.70"
             reach[band] += 1
@@ -160,14 +164,14 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"    first {nbest[0].text!r}; reach {best_phone:.3f} on {spans.texts[best_span]!r}"
                       f" ({lexicon.forms[best_form].text}), dice {dice:.2f} rank {rank}"
                       f"{'; say unused' if unused else ''}{'; instead ' + ', '.join(instead) if instead else ''}")
-                if slot_note:
-                    print(f"    {slot_note}")
+                if anchored_note:
+                    print(f"    {anchored_note}")
     print(f"{args.type}: {found_count}/{mentions} mentions found, {mentions - found_count} missed")
     print("missed by cause: " + ", ".join(f"{cause} {count}" for cause, count in causes.most_common()))
     print("best phone similarity reachable in the N-best: " + ", ".join(
         f"{band} {reach[band]}" for band in ("<0.60", "0.60-0.70", ">=0.70")))
-    print("of those the general matcher never weighed, the slot path: " + ", ".join(
-        f"{cause} {count}" for cause, count in slot_causes.most_common()))
+    print("of those the general search never weighed, the anchored search: " + ", ".join(
+        f"{cause} {count}" for cause, count in anchored_causes.most_common()))
     print(f"said form not pronounced from its say field: {say_unused}")
     return 0
 

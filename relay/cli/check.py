@@ -8,6 +8,7 @@ import time
 from relay.core.chain import Chain
 from relay.core.config import build_chain, load_config
 from relay.core.errors import ConfigError
+from relay.core.setting_names import old_names_given, old_names_of
 from relay.core.stage import files_used
 
 HELP = "validate a configuration, load every stage and print the chain"
@@ -27,6 +28,18 @@ def _missing(chain: Chain) -> list[str]:
     return [f"stages[{index}] ({stage.name}): {role} file {path} does not exist"
             for index, stage in enumerate(chain.stages)
             for role, path in files_used(stage).items() if not path.is_file()]
+
+
+def _old_names(chain: Chain) -> list[str]:
+    """A line per stage written with the names its settings had before they were grouped."""
+    lines = []
+    for stage in chain.stages:
+        given = old_names_given(getattr(stage, "settings", None))
+        if given:
+            moved = old_names_of(type(stage).Settings)
+            names = ", ".join(f"{old} (now {moved[old]})" for old in given)
+            lines.append(f"  {stage.name}: old setting names {names}")
+    return lines
 
 
 def run(args: argparse.Namespace) -> int:
@@ -51,4 +64,6 @@ def run(args: argparse.Namespace) -> int:
     print(f"  output   {config.topics.output}   prompt {config.topics.prompt}   dead letters {config.topics.dead_letter}")
     print("  chain:")
     print("\n".join(lines))
+    for line in _old_names(chain):
+        print(line)
     return 0

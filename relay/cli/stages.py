@@ -4,8 +4,11 @@ from __future__ import annotations
 
 import argparse
 
+from pydantic import BaseModel
+
 from relay.core.errors import ConfigError
 from relay.core.registry import Registry
+from relay.core.setting_names import setting_fields
 
 HELP = "list the stages a chain can use, with each stage's settings and defaults"
 
@@ -30,9 +33,12 @@ def run(args: argparse.Namespace) -> int:
         doc = (cls.__doc__ or "").strip().splitlines()
         print(f"{name}: {doc[0] if doc else ''}")
         print(f"  needs {', '.join(sorted(cls.needs)) or '-'}; provides {', '.join(sorted(cls.provides)) or '-'}")
-        for field_name, field in cls.Settings.model_fields.items():
-            default = "required" if field.is_required() else f"default {field.get_default(call_default_factory=True)!r}"
+        for field_name, field in setting_fields(cls.Settings):
+            if isinstance(field.annotation, type) and issubclass(field.annotation, BaseModel):
+                print(f"    {field_name + ':':<28} {field.description or ''}".rstrip())  # a group; its settings follow
+                continue
             about = f"  {field.description}" if field.description else ""
-            print(f"    {field_name:<24} {default}{about}")
+            default = "required" if field.is_required() else f"default {field.get_default(call_default_factory=True)!r}"
+            print(f"    {field_name:<28} {default}{about}")
         print()
     return 0

@@ -44,9 +44,10 @@ utterances is kept. Numbers printed are held-out only: each fold is scored with 
 model included, fitted on the other folds. The written configuration is fitted on the whole
 (filtered) corpus.
 
-The search space names stage parameters through the configuration, e.g. a YAML file
+The search space names stage parameters through the configuration, a group's by dotted
+name, e.g. a YAML file
     lm_rescore: {lm_weight: [0.3, 0.6, 1.0]}
-    lexicon: {min_score: [0.5, 0.7]}
+    lexicon: {general.min_score: [0.5, 0.7], context.loss_weight: [0.03, 0.06]}
 Parameters of stages the chain lacks, or that the installed stage does not have, are skipped.
 """
 
@@ -106,7 +107,8 @@ def _usable_space(args: argparse.Namespace, builder: VariantBuilder) -> dict[str
             print(f"rehear: the chain has no stage {stage}; not tuning its parameters", file=sys.stderr)
             continue
         known = builder.settings_fields(stage)
-        for param, values in params.items():
+        for written, values in params.items():
+            param = builder.current_name(stage, written)  # an old name means the setting's new place
             if param not in known:
                 print(f"rehear: stage {stage} has no setting {param} (has: {', '.join(sorted(known))}); skipped",
                       file=sys.stderr)
@@ -129,6 +131,13 @@ def _written_form(args: argparse.Namespace, loaded: LoadedConfig) -> dict[str, A
     return {**raw, "stages": stages}
 
 
+def _absolute(params: dict[str, Any], base_dir: Path) -> dict[str, Any]:
+    """Stage parameters with relative paths of existing files made absolute, in groups too."""
+    return {k: _absolute(v, base_dir) if isinstance(v, dict)
+            else str((base_dir / v).resolve()) if isinstance(v, str) and not Path(v).is_absolute()
+            and (base_dir / v).exists() else v for k, v in params.items()}
+
+
 def _portable(raw: dict[str, Any], base_dir: Path) -> dict[str, Any]:
     """Relative file paths made absolute, so the written file works from any folder."""
     out = dict(raw)
@@ -138,9 +147,7 @@ def _portable(raw: dict[str, Any], base_dir: Path) -> dict[str, Any]:
     for item in out.get("stages") or []:
         if isinstance(item, dict):
             name, params = next(iter(item.items()))
-            params = {k: str((base_dir / v).resolve()) if isinstance(v, str) and not Path(v).is_absolute()
-                      and (base_dir / v).exists() else v for k, v in (params or {}).items()}
-            item = {name: params}
+            item = {name: _absolute(params or {}, base_dir)}
         stages.append(item)
     out["stages"] = stages
     return out

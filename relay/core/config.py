@@ -19,6 +19,7 @@ from relay.core.domain import Domain, DomainSettings
 from relay.core.errors import ConfigError
 from relay.core.fieldmap import FieldMap
 from relay.core.registry import Registry
+from relay.core.setting_names import OldNameConflict, old_names_of
 from relay.core.settings import (
     BrokerSettings,
     LimitSettings,
@@ -80,11 +81,24 @@ def _shown(value: Any) -> str:
     return text if len(text) <= 60 else text[:57] + "..."
 
 
-def _pydantic_problems(error: ValidationError, source: Located, prefix: tuple[str | int, ...], label: str) -> list[str]:
+def _pydantic_problems(error: ValidationError, source: Located, prefix: tuple[str | int, ...], label: str,
+                       *, written: Mapping[tuple[str, ...], str] | None = None) -> list[str]:
+    """One line per problem, at the line of the value. ``written`` maps the dotted place of a
+    setting given under its old name to that name, so its problems point at what was written."""
     problems = []
     for item in error.errors():
         loc = tuple(item["loc"])
+        conflict = (item.get("ctx") or {}).get("error")
+        if isinstance(conflict, OldNameConflict):
+            problems += [f"{source.where(prefix + (old,))} {label}{old}: the old name of {new}, which is given "
+                         f"too; keep only {new}" for old, new in conflict.pairs]
+            continue
         field = ".".join(str(part) for part in loc) or "(top level)"
+        for path, old in (written or {}).items():
+            if loc[:len(path)] == path:
+                loc = (old, *loc[len(path):])
+                field += f" (written as {old})"
+                break
         got = "" if item["type"] == "missing" else f", got {_shown(item.get('input'))}"
         message = item["msg"].removeprefix("Value error, ")
         if item["type"] == "extra_forbidden":
@@ -157,7 +171,9 @@ def build_chain(loaded: LoadedConfig, *, registry: Registry | None = None, progr
         try:
             settings = cls.Settings.model_validate(spec.params)
         except ValidationError as exc:
-            problems += _pydantic_problems(exc, source, ("stages", spec.index, spec.name), label)
+            written = {tuple(new.split(".")): old for old, new in old_names_of(cls.Settings).items()
+                       if old in spec.params}
+            problems += _pydantic_problems(exc, source, ("stages", spec.index, spec.name), label, written=written)
             continue
         try:
             stages.append(cls(settings, context=context))

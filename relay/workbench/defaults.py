@@ -8,6 +8,7 @@ so the zero-config form keeps working while stages are missing.
 
 from __future__ import annotations
 
+import copy
 import hashlib
 import sys
 from pathlib import Path
@@ -21,16 +22,17 @@ __all__ = ["default_config"]
 
 # Words that announce a person in workshop-style requests ("call ...", "book it for ...").
 # With them, person names are also looked for with a looser phone floor where the in-domain
-# LM agrees (the lexicon stage's slot settings); see docs/lexicon.md for the measured effect.
+# LM agrees (the lexicon stage's anchored search); see docs/lexicon.md for the measured effect.
 _PERSON_HINTS = ["call", "page", "ask", "tell", "find", "message", "for", "with", "is", "remind",
                  "let", "give", "get", "show", "buzz", "has", "does", "can", "seen", "grab", "put", "to"]
 # Machines are announced by their article and preposition ("on the {machine}", "book the ..."):
-# too common to be type hints of the general matcher, so they only anchor machine slots, which
-# have a stricter floor of their own. Places and materials gained a point of exact sets more but
-# put the stage's p99 over 3 ms, so they are left to configurations that can afford it.
-_LEXICON_EXTRAS: dict[str, Any] = {"type_hints": {"person": _PERSON_HINTS}, "slot_types": ["person", "machine"],
-                                   "slot_hints": {"machine": ["the", "in", "on", "of"]},
-                                   "slot_floors": {"machine": 0.72}}
+# too common to be hints of the general search, so they only anchor the search for machine
+# names, which has a stricter floor of its own. Places and materials gained a point of exact
+# sets more but put the stage's p99 over 3 ms, so they are left to configurations that can afford it.
+_LEXICON_EXTRAS: dict[str, Any] = {"hints": {"person": _PERSON_HINTS},
+                                   "anchored": {"types": ["person", "machine"],
+                                                "hints": {"machine": ["the", "in", "on", "of"]},
+                                                "floors": {"machine": 0.72}}}
 
 
 def _available(registry: Registry, name: str) -> bool:
@@ -79,8 +81,7 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
         else:
             _note("stage lm_rescore is not installed; the default chain runs without it")
     if _available(registry, "lexicon"):
-        stages.append({"lexicon": {key: value.copy() if isinstance(value, (dict, list)) else value
-                                   for key, value in _LEXICON_EXTRAS.items()}})
+        stages.append({"lexicon": copy.deepcopy(_LEXICON_EXTRAS)})
     else:
         _note("stage lexicon is not installed; the default chain runs without it")
     stages.append("gate")

@@ -40,9 +40,9 @@ __all__ = [
     "rates",
 ]
 
-# Candidate parameters of stages owned elsewhere, addressed by stage and parameter name.
-# A parameter the installed stage does not have is left out (and reported), so the search
-# degrades instead of failing when a stage is absent or renamed its settings.
+# Candidate parameters of stages owned elsewhere, addressed by stage and parameter name (a
+# grouped one by dotted name). A parameter the installed stage does not have is left out (and
+# reported), so the search degrades instead of failing when a stage is absent or renamed its settings.
 DEFAULT_SPACE: dict[str, dict[str, list[Any]]] = {
     # Recogniser log scores are often on a scale far from natural-log probabilities (pocketsphinx's
     # differ by thousands); the scale decides how sharp the posterior the gate reads is.
@@ -50,16 +50,16 @@ DEFAULT_SPACE: dict[str, dict[str, list[Any]]] = {
     "lm_rescore": {"lm_weight": [0.3, 0.6, 1.0]},
     # The lexicon settings that moved entity accuracy on the workshop corpus (docs/lexicon.md):
     # the correction floor, the two sides of the LM context term, the short-form guard and the
-    # slot-recall floors. 11,664 combinations in all, sampled to --max-settings (24 run in about 30 s on
-    # the 405 workshop utterances; 48 found the same held-out result).
+    # anchored search's floors. 11,664 combinations in all, sampled to --max-settings (24 run in
+    # about 30 s on the 405 workshop utterances; 48 found the same held-out result).
     "lexicon": {
-        "min_score": [0.55, 0.6, 0.7],
-        "lm_weight": [0.0, 0.01, 0.03],
-        "lm_loss_weight": [0.03, 0.06, 0.1],
-        "short_penalty": [0.1, 0.2, 0.3],
-        "slot_min_phone": [0.65, 0.68, 0.72],
-        "slot_min_gain": [4.0, 8.0],
-        "slot_min_pooled": [0.0, 0.1],
+        "general.min_score": [0.55, 0.6, 0.7],
+        "context.gain_weight": [0.0, 0.01, 0.03],
+        "context.loss_weight": [0.03, 0.06, 0.1],
+        "general.short_penalty": [0.1, 0.2, 0.3],
+        "anchored.min_phone": [0.65, 0.68, 0.72],
+        "anchored.min_gain": [4.0, 8.0],
+        "anchored.min_pooled": [0.0, 0.1],
     },
 }
 DEFAULT_GATE_GRID: dict[str, list[float]] = {

@@ -2,11 +2,11 @@
 
 The lexicon stage judges a span by how it sounds; the language model says whether the sentence
 reads like the domain once the span is rewritten. The term is the LM gain: natural-log
-probability of the rewritten best hypothesis minus that of the hypothesis as heard, clipped to
+probability of the rewritten top hypothesis minus that of the hypothesis as heard, clipped to
 [-cap, cap] so one out-of-vocabulary word cannot decide alone. The model was estimated with
 `{type}` slots expanded from the lexicon, so "page {person}" contexts favour person names.
 
-The model comes from `stages.lm_rescore.shared_model`, so `lm_rescore` and `lexicon` in one
+The model comes from `stages.lm.model.shared_model`, so `lm_rescore` and `lexicon` in one
 process hold a single copy.
 """
 
@@ -18,6 +18,7 @@ from typing import Any
 from stages.lm.model import score_tokens, shared_model
 
 __all__ = ["ContextScorer", "shared_model"]
+
 
 class ContextScorer:
     """LM gain of rewriting a word range of one token sequence, with per-sequence caching."""

@@ -4,7 +4,7 @@ A span is any run of 1..k words of a hypothesis, pronounced as one phone string;
 word runs in several hypotheses are one span with several occurrences. Candidates come from
 the phone index; each (span, form) pair is scored as a weighted mean of
 
-- phone similarity: 1 - feature-weighted alignment cost / longer length (stages.phonetics),
+- phone similarity: 1 - feature-weighted alignment cost / longer length (sound.phonetics),
 - spelling similarity: rapidfuzz's normalised Indel ratio of the two texts, spaces removed,
 - key agreement: the best normalised Levenshtein similarity between the Double Metaphone keys.
 
@@ -29,7 +29,7 @@ from stages.lexicon.sound.kernels import compiled
 from stages.lexicon.sound.phonetics import CostModel, batch_similarity
 from stages.lexicon.sound.pronounce import Pronouncer
 
-__all__ = ["Evidence", "Spans", "Weights", "find_spans", "pool", "score_spans"]
+__all__ = ["Evidence", "Sighting", "Spans", "Weights", "best_entries", "find_spans", "pool", "score_spans"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -41,7 +41,7 @@ class Weights:
     min_retrieval: float
     pair_floor: float  # pairs that cannot reach this score are dropped before the costlier signals
     min_phone: float  # pairs whose phones agree less than this are dropped whatever their spelling
-    min_edit: float  # pairs below this unit-cost phone similarity are not aligned at all
+    align_floor: float  # pairs below this unit-cost phone similarity are not aligned at all
 
 
 @dataclass(slots=True)
@@ -57,14 +57,26 @@ class Spans:
         return len(self.words)
 
 
+# Not frozen: about 170 are made per message, and a frozen dataclass's __init__ costs 7-10% of
+# the stage's time (measured on 10-best messages against a 10k-entry lexicon).
+@dataclass(slots=True)
+class Sighting:
+    """Where one hypothesis holds an entry: its best span there and how well it matches."""
+
+    score: float
+    start: int  # word range in that hypothesis
+    end: int
+    form: int  # the entry's form the span matches
+    exact: bool  # the span's words are the form's text
+
+
 @dataclass(slots=True)
 class Evidence:
     """What the N-best says about one entry."""
 
     entry: int
     pooled: float = 0.0  # sum over hypotheses of posterior x best span score
-    per_hypothesis: dict[int, tuple[float, int, int, int, bool]] = field(default_factory=dict)
-    # hypothesis -> (score, start, end, form, exact)
+    per_hypothesis: dict[int, Sighting] = field(default_factory=dict)
 
 
 def find_spans(nbest: Sequence[Hypothesis], longest: int, pronouncer: Pronouncer) -> Spans:
@@ -119,7 +131,7 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     forms = lexicon.forms
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment; see docs/lexicon.md for how the threshold was chosen.
-    screen = weights.min_edit
+    screen = weights.align_floor
     queries, items = hits.query.tolist(), hits.item.tolist()
     phones = spans.phones
     edit = cpdist([phones[q] for q in queries], [forms[f].phones for f in items],
@@ -200,37 +212,35 @@ def pool(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexicon: Compi
         for hypothesis, start, end in occurrences[q]:
             held = held_by.get(hypothesis)
             if held is None:
-                held_by[hypothesis] = (score, start, end, f, exact)
-            elif exact or held[4]:
-                for form in (f, held[3]):
+                held_by[hypothesis] = Sighting(score, start, end, f, exact)
+            elif exact or held.exact:
+                for form in (f, held.form):
                     if form not in words:
                         words[form] = forms[form].words
-                if _better((score, start, end, f, exact), held, strong, words):
-                    held_by[hypothesis] = (score, start, end, f, exact)
+                seen = Sighting(score, start, end, f, exact)
+                if _better(seen, held, strong, words):
+                    held_by[hypothesis] = seen
             # Neither exact: _better reduces to the higher score, then the longer span.
-            elif score > held[0] or (score == held[0] and end - start > held[2] - held[1]):
-                held_by[hypothesis] = (score, start, end, f, exact)
+            elif score > held.score or (score == held.score and end - start > held.end - held.start):
+                held_by[hypothesis] = Sighting(score, start, end, f, exact)
     for found in evidence.values():
-        found.pooled = float(sum([posteriors[h] * held[0] for h, held in found.per_hypothesis.items()]))
+        found.pooled = float(sum([posteriors[h] * held.score for h, held in found.per_hypothesis.items()]))
     return evidence
 
 
-def _better(new: tuple[float, int, int, int, bool], held: tuple[float, int, int, int, bool],
-            strong: float, words: dict[int, int]) -> bool:
-    score, start, end, form, exact = new
-    held_score, held_start, held_end, held_form, held_exact = held
+def _better(new: Sighting, held: Sighting, strong: float, words: dict[int, int]) -> bool:
     # A near match of a longer form (the full name) beats an exact match of a shorter one (an
     # alias) inside it; a longer span around the same form does not.
-    longer_form = words[form] > words[held_form]
-    contains = start <= held_start and held_end <= end and end - start > held_end - held_start and longer_form
-    inside = held_start <= start and end <= held_end and held_end - held_start > end - start and \
-        words[held_form] > words[form]
-    if held_exact and not exact and score >= strong and contains:
+    contains = (new.start <= held.start and held.end <= new.end and new.end - new.start > held.end - held.start
+                and words[new.form] > words[held.form])
+    inside = (held.start <= new.start and new.end <= held.end and held.end - held.start > new.end - new.start
+              and words[held.form] > words[new.form])
+    if held.exact and not new.exact and new.score >= strong and contains:
         return True
-    if exact and not held_exact and held_score >= strong and inside:
+    if new.exact and not held.exact and held.score >= strong and inside:
         return False
     # Otherwise the higher score; at equal scores the longer span (it explains more words).
-    return (score, end - start) > (held_score, held_end - held_start)
+    return (new.score, new.end - new.start) > (held.score, held.end - held.start)
 
 
 def best_entries(evidence: dict[int, Evidence], count: int) -> list[Evidence]:

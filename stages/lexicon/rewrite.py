@@ -9,18 +9,18 @@ from functools import lru_cache
 __all__ = ["map_span", "rewrite"]
 
 
-def map_span(source: Sequence[str], target: Sequence[str], start: int, end: int) -> tuple[int, int]:
-    """The word range of ``target`` that lines up with ``source[start:end]``.
+def map_span(origin: Sequence[str], target: Sequence[str], start: int, end: int) -> tuple[int, int]:
+    """The word range of ``target`` that lines up with ``origin[start:end]``.
 
     Words are aligned with difflib's matcher; a boundary inside a changed block goes to the
     block's edge, so the whole differing stretch is replaced.
     """
-    if list(source) == list(target):
+    if list(origin) == list(target):
         return start, end
-    opcodes = _opcodes(tuple(source), tuple(target))
+    opcodes = _opcodes(tuple(origin), tuple(target))
     mapped_start, mapped_end = len(target), len(target)
     for tag, i1, i2, j1, _j2 in opcodes:
-        if i1 <= start < i2 or (start == i2 == len(source)):
+        if i1 <= start < i2 or (start == i2 == len(origin)):
             mapped_start = j1 + (start - i1) if tag == "equal" else j1
             break
     for tag, i1, i2, j1, j2 in opcodes:
@@ -32,9 +32,9 @@ def map_span(source: Sequence[str], target: Sequence[str], start: int, end: int)
 
 
 @lru_cache(maxsize=256)
-def _opcodes(source: tuple[str, ...], target: tuple[str, ...]) -> tuple[tuple[str, int, int, int, int], ...]:
+def _opcodes(origin: tuple[str, ...], target: tuple[str, ...]) -> tuple[tuple[str, int, int, int, int], ...]:
     # Several entries of one message are often carried over from the same hypothesis.
-    return tuple(SequenceMatcher(None, source, target, autojunk=False).get_opcodes())
+    return tuple(SequenceMatcher(None, origin, target, autojunk=False).get_opcodes())
 
 
 def rewrite(tokens: Sequence[str], replacements: Sequence[tuple[int, int, str]]

@@ -1,119 +1,37 @@
 """Stage `lexicon`: find domain terms in the N-best by how they sound, and correct misheard ones.
 
-Order of work per message: spans of every hypothesis -> candidates from the phone index ->
-pair scores -> evidence pooled over the N-best by posterior -> personal and entry priors ->
-guards (exact text kept, common words, margin, type hints) -> entities and corrections in the
-text of the best hypothesis. Every guard that stops a change is written to the trace.
+Three ways of finding entries, run in this order per message, each leaving the words it
+placed to the next: the general search (every span of the N-best, guarded against
+over-correction; stages.lexicon.general), the anchored search (names right after a word that
+announces their type; stages.lexicon.anchored) and carrier phrases (slots of in-domain lines
+that everyday words hold; stages.lexicon.carrier). What they place becomes the entities and
+corrections in the text of the top hypothesis; every guard that stops a change is traced.
 """
 
 from __future__ import annotations
 
-import math
-from collections.abc import Sequence
-from dataclasses import dataclass
-from pathlib import Path
 from typing import Any, ClassVar
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel
 
 from relay.core.errors import StageError
 from relay.core.stage import StageContext
-from relay.core.utterance import Correction, Entity, Hypothesis, Utterance
-from stages.indomain.carriers import CarrierPhrases, Unfilled
-from stages.lexicon.anchored import (
-    SlotForms,
-    SlotHypothesis,
-    pool_slots,
-    slot_anchors,
-    slot_forms,
-    slot_matches,
-)
+from relay.core.utterance import Correction, Entity, Utterance
+from stages.indomain.carriers import CarrierPhrases
+from stages.lexicon.anchored import AnchoredSearch
+from stages.lexicon.carrier import CarrierSearch
+from stages.lexicon.choice import Choice, describe
 from stages.lexicon.compile import CompiledLexicon, load_compiled
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.data import read_speakers
-from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
-from stages.lexicon.rewrite import map_span, rewrite
+from stages.lexicon.general import GeneralSearch
+from stages.lexicon.rewrite import rewrite
+from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.phonetics import CostModel
 from stages.lexicon.sound.pronounce import Pronouncer, common_words
 from stages.lm.model import shared_model
 
 __all__ = ["LexiconSettings", "LexiconStage"]
-
-
-class LexiconSettings(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-
-    lexicon: Path | None = Field(None, description="lexicon file (.csv, .yaml, .yml or .json); default: domain.lexicon")
-    speakers: Path | None = Field(None, description="speaker,id,affinity CSV for personal priors; default: domain.speakers")
-    max_span_words: int | None = Field(None, ge=1, le=8, description="longest span; default longest entry + 1")
-    candidates: int = Field(3, ge=1, le=50, description="entries taken from the index per span")
-    min_retrieval: float = Field(0.2, ge=0, le=1, description="least phone n-gram Dice score to consider a pair")
-    max_postings: int = Field(60, ge=1, description="phone n-grams held by more forms than this are not indexed")
-    weight_phone: float = Field(0.6, ge=0, description="weight of phone alignment similarity")
-    weight_spelling: float = Field(0.2, ge=0, description="weight of spelling similarity (rapidfuzz)")
-    weight_keys: float = Field(0.2, ge=0, description="weight of Double Metaphone key agreement")
-    min_score: float = Field(0.6, ge=0, le=2, description="least entry score for a correction")
-    common_min_score: float = Field(0.8, ge=0, le=2, description="least score to rewrite a span of common words")
-    common_relief: float = Field(0.02, ge=0, le=0.2, description="common_min_score eased per word past the first")
-    common_zipf: float = Field(4.0, ge=0, le=8, description="Zipf frequency from which a word is common")
-    margin: float = Field(0.05, ge=0, le=1, description="least lead over the runner-up for the same words")
-    affinity_weight: float = Field(0.15, ge=0, le=1, description="score added per unit of speaker affinity")
-    weight_prior: float = Field(0.05, ge=0, le=1, description="score added per unit of log entry weight")
-    type_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> words that announce it")
-    hint_window: int = Field(3, ge=1, le=10, description="words before a span searched for a type hint")
-    hint_penalty: float = Field(0.15, ge=0, le=1, description="more score needed when a hinted type lacks its hint")
-    hint_bonus: float = Field(0.1, ge=0, le=1, description="score added when a hinted type has its hint")
-    min_edit: float = Field(0.4, ge=0, le=1, description="least unit-cost phone similarity to align a pair")
-    min_phone: float = Field(0.6, ge=0, le=1, description="least phone similarity for a span/entry pair")
-    pair_floor: float = Field(0.45, ge=0, le=1, description="span/entry pairs scoring less are ignored")
-    lm_model: Path | None = Field(None, description="in-domain ARPA/kenlm model for the context term; default: domain.language_model")
-    lm_weight: float = Field(0.01, ge=0, le=1, description="score added per nat the LM gains by a correction")
-    lm_loss_weight: float = Field(0.06, ge=0, le=1, description="score taken per nat the LM loses by a correction")
-    lm_cap: float = Field(10.0, ge=0, le=100, description="LM gain (nats) is clipped to +-this")
-    short_phones: int = Field(6, ge=0, le=20, description="forms of at most this many phones are short")
-    short_penalty: float = Field(0.2, ge=0, le=1, description="more score needed to correct into a short form")
-    slot_types: list[str] = Field(default_factory=list, description="types looked for with a looser phone floor where the context announces one")
-    slot_min_phone: float = Field(0.68, ge=0, le=1, description="least phone similarity for a slot match")
-    slot_min_gain: float = Field(8.0, ge=-100, le=100, description="least LM gain (nats) for a slot match")
-    slot_margin: float = Field(0.0, ge=0, le=1, description="least phone lead of a slot match over another entry")
-    slot_min_phones: int = Field(8, ge=0, le=40, description="forms with fewer phones are left out of slot matching")
-    slot_min_edit: float = Field(0.3, ge=0, le=1, description="least unit-cost phone similarity to align a slot pair")
-    slot_at_start: bool = Field(False, description="a slot may also begin the sentence")
-    slot_max_words: int = Field(5, ge=1, le=8, description="longest span tried for a slot")
-    slot_hints: dict[str, list[str]] = Field(default_factory=dict, description="type -> more words after which a slot may begin (besides type_hints)")
-    slot_floors: dict[str, float] = Field(default_factory=dict, description="type -> its own slot_min_phone")
-    slot_hypotheses: int = Field(10, ge=1, le=50, description="hypotheses searched for slots, likeliest first")
-    slot_min_pooled: float = Field(0.0, ge=0, le=1, description="least slot phone similarity pooled by posterior")
-    carrier_text: Path | None = Field(None, description="in-domain text whose lines, as templates, mark a slot that everyday words hold; default: domain.text")
-    carrier_min_phone: float = Field(0.7, ge=0, le=1, description="least phone similarity for a carrier slot match")
-    carrier_margin: float = Field(0.03, ge=0, le=1, description="least phone lead of a carrier slot match over another entry")
-    carrier_hypotheses: int = Field(4, ge=1, le=50, description="hypotheses read for carrier phrases, likeliest first; each slot takes its best fill")
-    carrier_loose_from: int = Field(3, ge=0, le=20, description="lines with at least this many carrier words also match with one of them misheard (0: exact only)")
-    trace_top: int = Field(5, ge=0, le=50, description="candidates recorded in the trace")
-
-    @model_validator(mode="after")
-    def _weights_present(self) -> LexiconSettings:
-        if self.weight_phone + self.weight_spelling + self.weight_keys <= 0:
-            raise ValueError("at least one of weight_phone, weight_spelling, weight_keys must be positive")
-        return self
-
-
-@dataclass(slots=True)
-class _Choice:
-    evidence: Evidence
-    score: float
-    start: int  # word range in the best hypothesis
-    end: int
-    form: int
-    exact: bool
-    hint_missing: bool
-    lm_gain: float = 0.0
-
-
-def _likeliest(nbest: Sequence[Hypothesis], best: int, count: int) -> list[int]:
-    """``best`` and then the likeliest other hypotheses, ``count`` in all."""
-    others = sorted((h for h in range(len(nbest)) if h != best), key=lambda h: -nbest[h].posterior)
-    return [best] + others[: count - 1]
 
 
 class LexiconStage:
@@ -130,13 +48,18 @@ class LexiconStage:
         s = settings
         self.lexicon_path = context.require_file("lexicon", s.lexicon, stage=self.name, setting="lexicon")
         self.speakers_path = context.domain_file("speakers", s.speakers)
-        self.lm_path = context.domain_file("language_model", s.lm_model) if s.lm_weight or s.lm_loss_weight else None
-        self.carrier_path = context.domain_file("text", s.carrier_text)
+        # With both weights at 0 the model would change no score: it is not even read.
+        weighed = s.context.gain_weight or s.context.loss_weight
+        self.lm_path = context.domain_file("language_model", s.context.language_model) if weighed else None
+        self.carrier_path = context.domain_file("text", s.carrier.text)
         self.files = {"lexicon": self.lexicon_path, "speakers": self.speakers_path,
                      "language model": self.lm_path, "carrier phrases": self.carrier_path}
         self.compiled: CompiledLexicon | None = None
-        self.affinity: dict[str, dict[str, float]] = {}
         self.loaded_from_cache = False
+        self.lm: Any = None  # the in-domain language model (kenlm), shared with lm_rescore
+        self.general: GeneralSearch | None = None
+        self.anchored: AnchoredSearch | None = None
+        self.carrier: CarrierSearch | None = None
 
     @property
     def _lexicon(self) -> CompiledLexicon:
@@ -147,299 +70,57 @@ class LexiconStage:
     def load(self) -> None:
         s = self.settings
         self.pronouncer = Pronouncer()
-        self.common = {w for w, z in common_words().items() if z >= s.common_zipf}
         self.costs = CostModel.features()
-        self.weights = Weights(s.weight_phone, s.weight_spelling, s.weight_keys, s.candidates, s.min_retrieval,
-                               s.pair_floor, s.min_phone, s.min_edit)
         self.compiled, self.loaded_from_cache = load_compiled(
             self.lexicon_path, self.context.cache_dir, self.pronouncer,
-            progress=self.context.progress, max_postings=s.max_postings)
+            progress=self.context.progress, max_postings=s.match.max_postings)
         ids = {entry.id for entry in self.compiled.entries}
-        self.affinity = read_speakers(self.speakers_path, ids) if self.speakers_path else {}
-        self.hints = {kind: set(words) for kind, words in s.type_hints.items()}
-        self.slots: dict[str, SlotForms] = slot_forms(self.compiled, s.slot_types, min_phones=s.slot_min_phones)
-        self.carriers = None if self.carrier_path is None else CarrierPhrases.from_files(
-            self.carrier_path, self.lexicon_path, loose_from=s.carrier_loose_from)
-        self.carrier_slots = {} if self.carriers is None else slot_forms(
-            self.compiled, sorted({entry.type for entry in self.compiled.entries}))
+        affinity = read_speakers(self.speakers_path, ids) if self.speakers_path else {}
+        hints = {entity_type: set(words) for entity_type, words in s.hints.items()}
         self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
+        common = {w for w, z in common_words().items() if z >= s.general.common_zipf}
+        self.general = GeneralSearch(s, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
+                                     common=common, hints=hints, affinity=affinity)
+        self.anchored = None
+        if s.anchored.types:
+            self.anchored = AnchoredSearch(s.anchored, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
+                                           hints=hints, model=self.lm, cap=s.context.cap)
+        self.carrier = None
+        if self.carrier_path is not None:
+            phrases = CarrierPhrases.from_files(self.carrier_path, self.lexicon_path, loose_from=s.carrier.loose_from)
+            self.carrier = CarrierSearch(s.carrier, phrases, self.compiled, pronouncer=self.pronouncer,
+                                         costs=self.costs, align_floor=s.anchored.align_floor)
 
     def process(self, utterance: Utterance) -> Utterance:
-        lexicon = self._lexicon
+        general = self.general
+        if general is None:
+            raise StageError(self.name, "process() called before load()")
         if not utterance.nbest:
             return utterance
-        s = self.settings
-        best = utterance.nbest.index(utterance.best)
-        longest = s.max_span_words or lexicon.max_words + 1
-        spans = find_spans(utterance.nbest, longest, self.pronouncer)
-        pairs = score_spans(spans, lexicon, self.weights, self.costs)
-        posteriors = [h.posterior for h in utterance.nbest]
-        evidence = pool(spans, pairs, lexicon, posteriors)
-        # Entries too weak to be corrected or traced are not carried any further.
-        floor = min(s.min_score, s.pair_floor) * min(1.0, max(posteriors)) - s.affinity_weight - s.weight_prior
-        strong = [e for e in best_entries(evidence, max(12, s.trace_top)) if e.pooled >= floor or best in e.per_hypothesis]
-        tokens = utterance.nbest[best].tokens
-        context = ContextScorer(self.lm, tokens, cap=s.lm_cap) if self.lm is not None and strong else None
-        choices = [self._choose(e, utterance, best, context) for e in strong]
-        exacts = sorted((c for c in choices if c.exact), key=lambda c: (c.start - c.end, -c.score))
-        fuzzy = sorted((c for c in choices if not c.exact), key=lambda c: (-c.score, c.start - c.end))
-        placed: list[_Choice] = []
-        blocked: list[dict[str, Any]] = []
-        # Corrections first, so one that keeps an exactly matching alias and explains more words
-        # ("tamsin okorra" -> "tamsin okara") can supersede it; any other overlap with exact text
-        # is blocked. Then the exact matches that remain free.
-        for choice in fuzzy:
-            reason = self._guard(choice, placed, choices, exacts, tokens)
-            if reason is None:
-                placed.append(choice)
-            elif choice.score >= s.pair_floor:
-                blocked.append(self._describe(choice, tokens) | {"guard": reason})
-        for choice in exacts:
-            taken = [c for c in placed if c.start < choice.end and choice.start < c.end]
-            if not taken:
-                placed.append(choice)
-            elif taken[0].evidence.entry != choice.evidence.entry:
-                blocked.append(self._describe(choice, tokens) | {"guard": "superseded" if any(
-                    self._supersedes(c, choice, tokens) for c in taken) else "overlap"})
-        if self.slots:
-            if context is None and self.lm is not None:
-                context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
-            placed += self._slot_recall(utterance, best, placed, blocked, context)
+        top = utterance.nbest.index(utterance.best)
+        tokens = utterance.nbest[top].tokens
+        strong = general.entries(utterance, top)
+        context = None
+        if self.lm is not None and (strong or self.anchored is not None or self.carrier is not None):
+            context = ContextScorer(self.lm, tokens, cap=self.settings.context.cap)
+        choices = [general.choose(e, utterance, top, context) for e in strong]
+        placed, blocked = general.place(choices, tokens)
+        if self.anchored is not None:
+            placed += self.anchored.recall(utterance, top, placed, blocked, context)
         carrier: list[dict[str, Any]] = []
-        if self.carriers is not None:
-            if context is None and self.lm is not None:
-                context = ContextScorer(self.lm, tokens, cap=s.lm_cap)
-            found, carrier = self._carrier_recall(self.carriers, utterance, best, placed, context)
+        if self.carrier is not None:
+            found, carrier = self.carrier.recall(utterance, top, placed, context)
             placed += found
-        self._finish(utterance, best, placed, blocked, choices)
+        self._finish(utterance, top, placed, blocked, choices)
         if carrier:
             utterance.note(carrier=carrier)
         return utterance
 
-    def _carrier_recall(self, carriers: CarrierPhrases, utterance: Utterance, best: int, placed: list[_Choice],
-                        context: ContextScorer | None) -> tuple[list[_Choice], list[dict[str, Any]]]:
-        """Entries of the types a carrier phrase expects where everyday words hold its slots.
-
-        With the entities found so far marked, an in-domain line that matches a hypothesis
-        word for word except for slots held by everyday words pins down both each slot's words
-        and its type ("meet me in they won" against "meet me in {place}"), so those exact words
-        are aligned with every form of that type, with a floor of their own and a lead over the
-        next entry. The LM gain is only traced: on the workshop corpus, wrong fills gained as
-        much as right ones. Every empty slot of the match is tried, in the best hypothesis and
-        the likeliest others (``carrier_hypotheses`` in all), and each slot takes its best fill.
-        Returns the fills and one trace record per slot tried.
-        """
-        s = self.settings
-        nbest = utterance.nbest
-        tokens = nbest[best].tokens
-        attempts: list[tuple[_Choice | None, dict[str, Any]]] = []
-        tried: set[tuple[str, str]] = set()
-        for source in _likeliest(nbest, best, s.carrier_hypotheses):
-            heard = nbest[source].tokens
-            spans = sorted((map_span(tokens, heard, c.start, c.end), self._lexicon.entries[c.evidence.entry].type)
-                           for c in placed)
-            marked: list[str] = []
-            where: list[int] = []  # marked position -> token position in the hypothesis
-            at = 0
-            for (start, end), kind in spans:
-                if start < at or end <= start:
-                    continue
-                marked += heard[at:start] + ["{" + kind + "}"]
-                where += list(range(at, start + 1))
-                at = end
-            marked += heard[at:]
-            where += list(range(at, len(heard)))
-            for empty in carriers.empty_slots(marked):
-                if empty.type in self.carrier_slots and (empty.type, empty.words) not in tried:
-                    tried.add((empty.type, empty.words))  # the same words in another hypothesis: the same fill
-                    attempts.append(self._carrier_fill(empty, source, heard, where[empty.start],
-                                                       where[empty.end - 1] + 1, tokens, context))
-        # Each slot takes its best-aligned fill: best first, at a tie the likelier hypothesis (a
-        # stable sort); a fill that overlaps one already placed is dropped.
-        found: list[_Choice] = []
-        notes: list[dict[str, Any]] = []
-        for choice, note in sorted(attempts, key=lambda a: -a[1].get("phone", 0.0)):
-            if choice is not None and any(c.evidence.entry == choice.evidence.entry or (
-                    c.start < choice.end and choice.start < c.end) for c in placed + found):
-                note["guard"] = "overlap"
-            elif choice is not None:
-                found.append(choice)
-            notes.append(note)
-        return found, notes
-
-    def _carrier_fill(self, empty: Unfilled, source: int, heard: list[str], start: int, end: int,
-                      tokens: list[str], context: ContextScorer | None) -> tuple[_Choice | None, dict[str, Any]]:
-        """The entry that best fits one empty slot, the words ``start:end`` of hypothesis
-        ``source`` (``heard``), when it clears the carrier floor and margin; and the trace record."""
-        s = self.settings
+    def _finish(self, utterance: Utterance, top: int, placed: list[Choice],
+                blocked: list[dict[str, Any]], choices: list[Choice]) -> None:
+        """Entities, corrections and the rewritten text from what was placed; the trace."""
         lexicon = self._lexicon
-        note: dict[str, Any] = {"template": empty.template, "where": empty.where, "heard": empty.words,
-                                "type": empty.type, "hypothesis": source}
-        phones = "".join(self.pronouncer.word(token) for token in heard[start:end])
-        matches = slot_matches([SlotHypothesis([phones], [0])], self.carrier_slots[empty.type], lexicon, self.costs,
-                               max_words=1, min_phone=0.0, min_edit=s.slot_min_edit)
-        if not matches:
-            return None, note | {"guard": "carrier_phone"}
-        match = matches[0]
-        form = lexicon.forms[match.form]
-        start, end = map_span(heard, tokens, start, end)
-        gain = context.gain(start, end, form.text.split()) if context is not None else 0.0
-        note |= {"id": lexicon.entries[form.entry].id, "form": form.text, "phone": round(match.phone, 4),
-                 "runner_up": round(match.runner_up, 4), "lm_gain": round(gain, 3)}
-        if match.phone < s.carrier_min_phone:
-            return None, note | {"guard": "carrier_phone"}
-        if match.phone - match.runner_up < s.carrier_margin:
-            return None, note | {"guard": "carrier_margin"}
-        if end <= start:
-            return None, note | {"guard": "overlap"}
-        support = {source: (match.phone, start, end, match.form, False)}
-        return _Choice(Evidence(form.entry, match.phone, support), match.phone, start, end, match.form,
-                       False, False, gain), note
-
-    def _slot_recall(self, utterance: Utterance, best: int, placed: list[_Choice], blocked: list[dict[str, Any]],
-                     context: ContextScorer | None) -> list[_Choice]:
-        """Names of the slot types, looked for where a hint word or the sentence start announces one.
-
-        The ``slot_hypotheses`` likeliest hypotheses are searched, each after its own hint words
-        (a hint the best hypothesis misheard may survive in another), and each entry's matches
-        are pooled by posterior. The span of the hypothesis contributing most is carried over to
-        the best one. A match needs the looser phone floor, ``slot_min_pooled`` pooled evidence
-        and, with a language model, its hypothesis must read at least ``slot_min_gain`` nats
-        likelier with the name in it: sound and context agree.
-        """
-        s = self.settings
-        lexicon = self._lexicon
-        nbest = utterance.nbest
-        tokens = nbest[best].tokens
-        order = _likeliest(nbest, best, s.slot_hypotheses)
-        sounds = [[self.pronouncer.word(token) for token in nbest[h].tokens] for h in order]
-        posteriors = [nbest[h].posterior for h in order]
-        taken = [(c.start, c.end) for c in placed]
-        entries = {c.evidence.entry for c in placed}
-        scorers: dict[int, ContextScorer | None] = {best: context}
-        found: list[_Choice] = []
-        for kind, slot in self.slots.items():
-            hints = self.hints.get(kind, set()) | set(s.slot_hints.get(kind, ()))
-            searched = [SlotHypothesis(sounds[i], slot_anchors(nbest[h].tokens, hints, at_start=s.slot_at_start),
-                                       taken if h == best else ()) for i, h in enumerate(order)]
-            matches = slot_matches(searched, slot, lexicon, self.costs, max_words=s.slot_max_words,
-                                   min_phone=s.slot_floors.get(kind, s.slot_min_phone), min_edit=s.slot_min_edit)
-            for pooled in pool_slots(matches, posteriors, lexicon):
-                match = pooled.source
-                source = order[match.hypothesis]
-                form = lexicon.forms[match.form]
-                start, end = map_span(nbest[source].tokens, tokens, match.start, match.end)
-                if end <= start or form.entry in entries or any(b < end and start < e for b, e in taken):
-                    continue
-                if " ".join(tokens[start:end]) == form.text:
-                    continue  # exact text is the general matcher's job
-                if source not in scorers:
-                    scorers[source] = ContextScorer(self.lm, nbest[source].tokens, cap=s.lm_cap) if self.lm else None
-                scorer = scorers[source]
-                # The context is judged where the name was heard, with the hint word that hypothesis holds.
-                gain = scorer.gain(match.start, match.end, form.text.split()) if scorer is not None else 0.0
-                support = {order[i]: (m.phone, m.start, m.end, m.form, False) for i, m in pooled.support.items()}
-                choice = _Choice(Evidence(form.entry, pooled.pooled, support), match.phone, start, end,
-                                 match.form, False, False, gain)
-                if pooled.pooled < s.slot_min_pooled:
-                    reason = "slot_pooled"
-                elif match.phone - match.runner_up < s.slot_margin:
-                    reason = "slot_margin"
-                elif scorer is not None and gain < min(s.slot_min_gain, s.lm_cap):  # the gain is clipped too
-                    reason = "slot_context"
-                else:
-                    found.append(choice)
-                    taken.append((start, end))
-                    entries.add(form.entry)
-                    continue
-                blocked.append(self._describe(choice, tokens) | {"guard": reason})
-        return found
-
-    def _supersedes(self, longer: _Choice, exact: _Choice, tokens: list[str]) -> bool:
-        """Whether ``longer`` spans ``exact`` and keeps its words, so replacing is no loss."""
-        if not (longer.start <= exact.start and exact.end <= longer.end
-                and longer.end - longer.start > exact.end - exact.start):
-            return False
-        kept = " " + " ".join(tokens[exact.start:exact.end]) + " "
-        return kept in " " + self._lexicon.forms[longer.form].text + " "
-
-    def _choose(self, evidence: Evidence, utterance: Utterance, best: int,
-                context: ContextScorer | None) -> _Choice:
-        lexicon = self._lexicon
-        entry = lexicon.entries[evidence.entry]
-        score = evidence.pooled + self.settings.weight_prior * math.log(entry.weight)
-        if utterance.speaker is not None:
-            score += self.settings.affinity_weight * self.affinity.get(utterance.speaker, {}).get(entry.id, 0.0)
-        held = evidence.per_hypothesis.get(best)
-        support = evidence.per_hypothesis
-        source = max(support, key=lambda h: utterance.nbest[h].posterior * support[h][0])
-        if held is not None and held[0] >= 0.9 * support[source][0]:
-            _, start, end, form, exact = held
-        else:
-            # The best hypothesis holds the entry weakly or not at all: carry the span that
-            # supports it most over to the best hypothesis.
-            _, start, end, form, _ = support[source]
-            start, end = map_span(utterance.nbest[source].tokens, utterance.nbest[best].tokens, start, end)
-            exact = False
-        hints = self.hints.get(entry.type)
-        before = utterance.nbest[best].tokens[max(0, start - self.settings.hint_window):start]
-        hint_missing = bool(hints) and not hints.intersection(before)  # type: ignore[union-attr]
-        if hints and not hint_missing:
-            score += self.settings.hint_bonus  # the context announces this type: a prior like affinity
-        lm_gain = 0.0
-        if context is not None and not exact:
-            # Noisy channel: the sound says how well the span matches, the in-domain LM how
-            # much likelier the sentence reads once rewritten.
-            lm_gain = context.gain(start, end, lexicon.forms[form].text.split())
-            # A rewrite the domain finds less likely is strong evidence against it (an everyday
-            # word pulled into a name); a likelier one is weaker evidence for it, since
-            # replacing any out-of-vocabulary word gains, so the two sides weigh differently.
-            score += (self.settings.lm_weight if lm_gain > 0 else self.settings.lm_loss_weight) * lm_gain
-        return _Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain)
-
-    def _guard(self, choice: _Choice, placed: list[_Choice], choices: list[_Choice],
-               exacts: list[_Choice], tokens: list[str]) -> str | None:
-        """None when a correction may stand; else the name of the guard that stops it."""
-        s = self.settings
-
-        def overlapping(c: _Choice) -> bool:
-            return c.start < choice.end and choice.start < c.end
-
-        if choice.score < s.min_score:
-            return "min_score"
-        if " ".join(tokens[choice.start:choice.end]) in self._lexicon.exact or any(
-                overlapping(e) and not self._supersedes(choice, e, tokens) for e in exacts):
-            return "exact_text_kept"
-        if any(overlapping(c) for c in placed):
-            return "overlap"
-        words = tokens[choice.start:choice.end]
-        # Priors count here too: on the workshop corpus, judging common words on acoustic
-        # evidence alone lost a tenth of the recall for a small gain in precision.
-        needed = s.common_min_score - s.common_relief * max(0, len(words) - 1)
-        if words and all(w in self.common for w in words) and choice.score < needed:
-            return "common_words"
-        rivals = [c.score for c in choices if c.evidence.entry != choice.evidence.entry and overlapping(c)
-                  and not (c.exact and self._supersedes(choice, c, tokens))]
-        if rivals and choice.score - max(rivals) < s.margin:
-            return "margin"
-        if (s.short_penalty and len(self._lexicon.forms[choice.form].phones) <= s.short_phones
-                and choice.score < s.min_score + s.short_penalty):
-            return "short_form"  # a few phones match many everyday words by chance ("for" -> "bay four")
-        if choice.hint_missing and choice.score < s.min_score + s.hint_penalty:
-            return "type_hint"  # a hinted type without its hint word needs hint_penalty more evidence
-        return None
-
-    def _describe(self, choice: _Choice, tokens: list[str]) -> dict[str, Any]:
-        lexicon = self._lexicon
-        return {"id": lexicon.entries[choice.evidence.entry].id,
-                "heard": " ".join(tokens[choice.start:choice.end]),
-                "form": lexicon.forms[choice.form].text, "score": round(choice.score, 4),
-                "pooled": round(choice.evidence.pooled, 4), "lm_gain": round(choice.lm_gain, 3), "hypotheses": len(choice.evidence.per_hypothesis)}
-
-    def _finish(self, utterance: Utterance, best: int, placed: list[_Choice],
-                blocked: list[dict[str, Any]], choices: list[_Choice]) -> Utterance:
-        lexicon = self._lexicon
-        tokens = utterance.nbest[best].tokens
+        tokens = utterance.nbest[top].tokens
         replacements = [(c.start, c.end, lexicon.forms[c.form].text if not c.exact
                          else " ".join(tokens[c.start:c.end])) for c in placed]
         text, char_spans = rewrite(tokens, replacements)
@@ -459,7 +140,6 @@ class LexiconStage:
         if corrections:
             utterance.chosen_text = text
         utterance.note(
-            candidates=[self._describe(c, tokens) for c in sorted(choices, key=lambda c: -c.score)
+            candidates=[describe(c, lexicon, tokens) for c in sorted(choices, key=lambda c: -c.score)
                         [: self.settings.trace_top]],
             blocked=blocked, entities=len(placed), corrections=corrections)
-        return utterance

@@ -47,3 +47,19 @@ def test_stages_lists_each_stage_with_its_settings(capsys: pytest.CaptureFixture
     for name in ("normalize:", "lm_rescore:", "lexicon:", "gate:"):
         assert name in out
     assert "logprob_scale" in out and "unavailable" not in out
+    # A group's settings by dotted name, each with its default and description.
+    assert "    general:                     the general search's guards\n" in out
+    assert "    general.min_score            default 0.6  least entry score for a correction\n" in out
+
+
+def test_check_names_old_setting_names(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    (tmp_path / "lexicon.csv").write_text("id,type,name\nplace.bay_1,place,bay one\n")
+    path = tmp_path / "relay.yaml"
+    path.write_text("stages:\n  - normalize\n  - lexicon:\n      lexicon: lexicon.csv\n      type_hints: {place: [in]}\n"
+                    "      general: {margin: 0.1}\n      min_score: 0.7\n")
+    assert main(["check", str(path), "--no-load"]) == 0
+    out = capsys.readouterr().out
+    assert "  lexicon: old setting names min_score (now general.min_score), type_hints (now hints)\n" in out
+    path.write_text("stages:\n  - normalize\n  - lexicon:\n      lexicon: lexicon.csv\n      general: {min_score: 0.7}\n")
+    assert main(["check", str(path), "--no-load"]) == 0
+    assert "old setting names" not in capsys.readouterr().out

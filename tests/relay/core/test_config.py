@@ -108,3 +108,27 @@ def test_shipped_example_configs_are_valid() -> None:
     assert configs, f"no example configuration found under {EXAMPLES}"
     for path in configs:
         build_chain(load_config(path))
+
+
+def test_a_nested_stage_setting_error_names_its_line_and_dotted_place(tmp_path: Path) -> None:
+    text = ("stages:\n  - normalize\n  - lexicon:\n      lexicon: lexicon.csv\n      general:\n"
+            "        margin: 0.1\n        min_score: 3\n      anchored:\n        min_scor: 0.7\n")
+    message = _problems(tmp_path, text, chain=True)
+    assert ("relay.yaml:7 stages[1] (lexicon) -> general.min_score: Input should be less than or equal to 2, got 3"
+            in message)
+    assert "relay.yaml:9 stages[1] (lexicon) -> anchored.min_scor: unknown setting, got 0.7" in message
+
+
+def test_an_old_setting_name_is_located_where_it_was_written(tmp_path: Path) -> None:
+    text = "stages:\n  - normalize\n  - lexicon:\n      lexicon: lexicon.csv\n      trace_top: 3\n      min_score: 3\n"
+    message = _problems(tmp_path, text, chain=True)
+    assert ("relay.yaml:6 stages[1] (lexicon) -> general.min_score (written as min_score): "
+            "Input should be less than or equal to 2, got 3") in message
+
+
+def test_one_setting_under_its_old_and_new_name_is_an_error_at_the_old_one(tmp_path: Path) -> None:
+    text = ("stages:\n  - normalize\n  - lexicon:\n      lexicon: lexicon.csv\n      general: {min_score: 0.7}\n"
+            "      min_score: 0.6\n")
+    message = _problems(tmp_path, text, chain=True)
+    assert ("relay.yaml:6 stages[1] (lexicon) -> min_score: the old name of general.min_score, which is given "
+            "too; keep only general.min_score") in message

@@ -27,7 +27,7 @@ def test_lexicon_stage_gets_the_models_path_and_loads_it(tmp_path: Path) -> None
     assert by_name["lm_rescore"].model_path == model  # type: ignore[attr-defined]
     assert by_name["lexicon"].lm is not None  # type: ignore[attr-defined]
     assert by_name["lexicon"].files["language model"] == model  # type: ignore[attr-defined]
-    assert len(by_name["lexicon"].carriers) == 3  # type: ignore[attr-defined]
+    assert len(by_name["lexicon"].carrier.phrases) == 3  # type: ignore[attr-defined]
     assert by_name["gate"].files["carrier phrases"] == train.resolve()  # type: ignore[attr-defined]
 
 
@@ -36,9 +36,10 @@ def test_default_chain_carries_person_hints_and_slots(tmp_path: Path) -> None:
     lexicon.write_text("id,type,name\nperson.mara_lind,person,mara lind\n")
     raw = default_config(lexicon=lexicon, train=None, speakers=None, cache_dir=tmp_path / "cache")
     params = {name: p for item in raw["stages"] if isinstance(item, dict) for name, p in item.items()}
-    assert "call" in params["lexicon"]["type_hints"]["person"]
-    assert params["lexicon"]["slot_types"] == ["person", "machine"]
+    assert "call" in params["lexicon"]["hints"]["person"]
+    anchored = params["lexicon"]["anchored"]
+    assert anchored["types"] == ["person", "machine"]
     assert "text" not in raw["domain"]  # no in-domain text, no carrier phrases
-    assert params["lexicon"]["slot_floors"]["machine"] > params["lexicon"].get("slot_min_phone", 0.68)  # stricter than persons'
+    assert anchored["floors"]["machine"] > anchored.get("min_phone", 0.68)  # stricter than persons'
     chain = build_chain(config_from_dict(raw, base_dir=tmp_path))
     chain.load()

@@ -1,5 +1,6 @@
 from __future__ import annotations
 
+import argparse
 import dataclasses
 import random
 from pathlib import Path
@@ -7,12 +8,13 @@ from typing import Any, ClassVar
 
 import numpy as np
 import pytest
-from pydantic import BaseModel, ConfigDict
+from pydantic import BaseModel, ConfigDict, Field
 
 import relay.workbench.tuning
 from relay.cli import tune as tune_command
 from relay.core.config import build_chain, load_config
 from relay.core.registry import Registry
+from relay.core.setting_names import AcceptsOldNames, setting_fields
 from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
 from relay.workbench.evaluate import Outcome
@@ -29,11 +31,11 @@ from relay.workbench.tuning import (
     held_out_summary,
     make_folds,
 )
-from relay.workbench.variants import VariantBuilder, config_from_dict
+from relay.workbench.variants import VariantBuilder, apply_overrides, config_from_dict, with_overrides
 from stages.gate.features import GateFeatures
 from stages.gate.rules import decide
 from stages.gate.settings import GateSettings
-from stages.lexicon.stage import LexiconSettings
+from stages.lexicon.settings import LexiconSettings
 from stages.lm.rescore import LmRescoreSettings
 from stages.normalize.stage import NormalizeSettings
 from tests.relay.workbench.corpus_fixtures import write_config, write_corpus
@@ -234,6 +236,47 @@ def test_variant_builder_loads_each_distinct_stage_setting_once(tmp_path: Path) 
     assert builder.settings_fields("no_such_stage") == set()
 
 
+class Shift(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    by: float = 0.0
+    floor: float = 0.0
+
+
+class GroupedSettings(AcceptsOldNames):
+    old_names = {"shift_by": "shift.by"}
+    bias: float = 0.0
+    shift: Shift = Field(default_factory=Shift)
+
+
+class GroupedStage(CountingStage):
+    name: ClassVar[str] = "grouped"
+    Settings: ClassVar[type[BaseModel]] = GroupedSettings
+
+
+def test_overrides_address_grouped_settings_by_dotted_name(tmp_path: Path) -> None:
+    registry = Registry(plugins=False)
+    registry.register(GroupedStage)  # type: ignore[arg-type]
+    # Written with the old flat name: an override of its new place replaces it, and keeps the rest of the group.
+    written = {"stages": ["normalize", {"grouped": {"shift_by": 0.1, "shift": {"floor": 0.2}}}, "gate"]}
+    builder = VariantBuilder(config_from_dict(written, base_dir=tmp_path), registry=registry)
+    assert builder.settings_fields("grouped") == {"bias", "shift", "shift.by", "shift.floor"}
+    assert builder.current_name("grouped", "shift_by") == "shift.by"
+    assert builder.current_name("grouped", "bias") == "bias"
+    as_written = builder.chain({}).stages[1].settings  # type: ignore[attr-defined]
+    assert (as_written.shift.by, as_written.shift.floor, as_written.old_names_given) == (0.1, 0.2, ("shift_by",))
+    for name in ("shift.by", "shift_by"):
+        tuned = builder.chain({"grouped": {name: 0.5, "bias": 1.0}}).stages[1].settings  # type: ignore[attr-defined]
+        assert (tuned.shift.by, tuned.shift.floor, tuned.bias) == (0.5, 0.2, 1.0)
+    raw = with_overrides(written, {"grouped": {"shift.by": 0.5}}, registry=registry)
+    assert raw["stages"][1] == {"grouped": {"shift": {"floor": 0.2, "by": 0.5}}}
+    assert written["stages"][1] == {"grouped": {"shift_by": 0.1, "shift": {"floor": 0.2}}}  # left as it was
+
+
+def test_apply_overrides_leaves_contradicting_parameters_to_validation() -> None:
+    params = {"shift_by": 0.1, "shift": {"by": 0.2}}
+    assert apply_overrides(params, {"bias": 1.0}, GroupedSettings.old_names) == params | {"bias": 1.0}
+
+
 def test_tune_writes_a_config_eval_accepts_and_prints_held_out_numbers(
         tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     corpus = write_corpus(tmp_path / "corpus.jsonl", 120)
@@ -307,9 +350,25 @@ def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatc
 
 
 def test_default_space_names_only_settings_the_stages_have() -> None:
-    fields = {"normalize": NormalizeSettings.model_fields, "lm_rescore": LmRescoreSettings.model_fields,
-              "lexicon": LexiconSettings.model_fields}
+    fields = {stage: {name for name, _ in setting_fields(settings)} for stage, settings in
+              (("normalize", NormalizeSettings), ("lm_rescore", LmRescoreSettings), ("lexicon", LexiconSettings))}
     for stage, params in DEFAULT_SPACE.items():
         for param, values in params.items():
             assert param in fields[stage], f"{stage}.{param}"
             assert values, f"{stage}.{param} has no values"
+    assert "general.min_score" in DEFAULT_SPACE["lexicon"]
+
+
+def test_a_search_space_may_use_dotted_top_level_and_old_names(tmp_path: Path,
+                                                               capsys: pytest.CaptureFixture[str]) -> None:
+    space = tmp_path / "space.yaml"
+    space.write_text("lexicon: {general.min_score: [0.5, 0.7], trace_top: [3], slot_min_phone: [0.7],"
+                     " general.min_scor: [0.5]}\nlm_rescore: {lm_weight: [0.3]}\n")
+    loaded = config_from_dict({"stages": ["normalize", "lm_rescore", {"lexicon": {"min_score": 0.6}}]},
+                              base_dir=tmp_path)
+    usable = tune_command._usable_space(argparse.Namespace(space=space), VariantBuilder(loaded))
+    assert usable == {"lexicon": {"general.min_score": [0.5, 0.7], "trace_top": [3], "anchored.min_phone": [0.7]},
+                      "lm_rescore": {"lm_weight": [0.3]}}
+    err = capsys.readouterr().err
+    # A misspelt name is reported with the valid ones, dotted names among them.
+    assert "stage lexicon has no setting general.min_scor (has: " in err and " general.min_score, " in err

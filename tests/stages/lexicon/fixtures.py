@@ -1,4 +1,4 @@
-"""Shared set-up for lexicon tests that need a small lexicon with an in-domain model beside it."""
+"""Shared set-up for lexicon tests: a small invented lexicon, and one with an in-domain model beside it."""
 
 from __future__ import annotations
 
@@ -8,10 +8,43 @@ from typing import Any
 
 from relay.core.chain import Chain
 from relay.core.stage import StageContext
+from relay.core.utterance import Hypothesis, Utterance
 from relay.workbench.build_lm import build_model
-from stages.lexicon.stage import LexiconSettings, LexiconStage
+from stages.lexicon.settings import LexiconSettings
+from stages.lexicon.stage import LexiconStage
 from stages.lm.kneser_ney import DiscountFallbackWarning
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
+
+SMALL_LEXICON = """id,type,name,aliases,say,weight
+machine.pellow_saw,machine,pellow table saw,pellow,,1.0
+machine.quillan_router,machine,quillan router,quillan,KWIL-an router,1.0
+person.tamsin_okoro,person,tamsin okoro,tamsin,,1.0
+person.tamsin_okara,person,tamsin okara,,,1.0
+term.kerf,term,kerf,,kurf,1.0
+place.bay_2,place,bay two,,,1.0
+"""
+
+
+def small_chain(folder: Path, lexicon: str = SMALL_LEXICON, speakers: str | None = None, **settings: Any) -> Chain:
+    """normalize -> lexicon over ``lexicon`` (and ``speakers``) written into ``folder``, loaded."""
+    (folder / "lexicon.csv").write_text(lexicon)
+    params: dict[str, Any] = {"lexicon": "lexicon.csv"} | settings
+    if speakers is not None:
+        (folder / "speakers.csv").write_text(speakers)
+        params["speakers"] = "speakers.csv"
+    return lexicon_chain(folder, **params)
+
+
+def run(chain: Chain, *texts: str, speaker: str | None = None, conf: list[float] | None = None) -> Utterance:
+    """The chain over an N-best of ``texts``, equally likely unless ``conf`` says otherwise."""
+    conf = conf or [1.0 / len(texts)] * len(texts)
+    nbest = [Hypothesis(t, r, {"conf": c}) for r, (t, c) in enumerate(zip(texts, conf))]
+    return chain.process(Utterance("u1", "test", speaker, {}, nbest))
+
+
+def blocked(utt: Utterance) -> list[dict[str, Any]]:
+    """The lexicon stage's trace records of the candidates a guard stopped."""
+    return list(utt.trace[-1].scores["blocked"])
 
 
 def write_folder(folder: Path, *, lexicon: str, train: str) -> Path:

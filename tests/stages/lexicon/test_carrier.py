@@ -1,4 +1,4 @@
-"""The lexicon stage fills a carrier phrase's slot that everyday words hold (setting carrier_text)."""
+"""The lexicon stage fills a carrier phrase's slot that everyday words hold (settings group carrier)."""
 
 from __future__ import annotations
 
@@ -8,7 +8,8 @@ from typing import Any
 from relay.core.chain import Chain
 from relay.core.stage import StageContext
 from relay.core.utterance import Hypothesis, Utterance
-from stages.lexicon.stage import LexiconSettings, LexiconStage
+from stages.lexicon.settings import LexiconSettings
+from stages.lexicon.stage import LexiconStage
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
 
 LEXICON = """id,type,name,aliases,say,weight
@@ -18,6 +19,7 @@ place.wet_room,place,the wet room,,,1.0
 machine.tamsin_lathe,machine,tamsin lathe,,,1.0
 material.sheet_brass,material,sheet brass,,,1.0
 """
+CARRIER: dict[str, Any] = {"text": Path("train.txt")}
 TRAIN = """meet me in {place}
 is the {machine} on
 order more sheet brass
@@ -43,7 +45,7 @@ def run(chain: Chain, *texts: str, confs: tuple[float, ...] = ()) -> Utterance:
 
 def test_a_missed_place_in_a_carrier_phrase_is_recovered(tmp_path: Path) -> None:
     assert run(make_chain(tmp_path), "meet me in they won").entities == []  # the general matcher misses it
-    utt = run(make_chain(tmp_path, carrier_text=Path("train.txt")), "meet me in they won")
+    utt = run(make_chain(tmp_path, carrier=CARRIER), "meet me in they won")
     [entity] = utt.entities
     assert (entity.id, entity.heard) == ("place.bay_1", "they won")
     assert utt.text == "meet me in bay one"
@@ -51,7 +53,7 @@ def test_a_missed_place_in_a_carrier_phrase_is_recovered(tmp_path: Path) -> None
 
 
 def test_the_trace_shows_the_carrier_match(tmp_path: Path) -> None:
-    utt = run(make_chain(tmp_path, carrier_text=Path("train.txt")), "meet me in they won")
+    utt = run(make_chain(tmp_path, carrier=CARRIER), "meet me in they won")
     [carrier] = utt.trace[-1].scores["carrier"]
     assert (carrier["template"], carrier["where"]) == ("meet me in {place}", f"{tmp_path / 'train.txt'}:1")
     assert (carrier["heard"], carrier["type"], carrier["id"], carrier["form"]) == (
@@ -62,13 +64,13 @@ def test_the_trace_shows_the_carrier_match(tmp_path: Path) -> None:
 
 
 def test_a_template_filled_by_the_general_matcher_reports_nothing(tmp_path: Path) -> None:
-    utt = run(make_chain(tmp_path, carrier_text=Path("train.txt")), "order more chic brass")
+    utt = run(make_chain(tmp_path, carrier=CARRIER), "order more chic brass")
     assert [e.id for e in utt.entities] == ["material.sheet_brass"]
     assert "carrier" not in utt.trace[-1].scores
 
 
 def test_an_everyday_slot_filler_far_in_sound_is_left_alone(tmp_path: Path) -> None:
-    utt = run(make_chain(tmp_path, carrier_text=Path("train.txt")), "meet me in the kitchen")
+    utt = run(make_chain(tmp_path, carrier=CARRIER), "meet me in the kitchen")
     assert utt.entities == [] and utt.text == "meet me in the kitchen"
     [carrier] = utt.trace[-1].scores["carrier"]
     assert (carrier["heard"], carrier["guard"]) == ("the kitchen", "carrier_phone")
@@ -76,14 +78,14 @@ def test_an_everyday_slot_filler_far_in_sound_is_left_alone(tmp_path: Path) -> N
 
 def test_a_slot_as_close_to_two_entries_is_left_alone(tmp_path: Path) -> None:
     # "bay" alone sounds as much like bay one as bay three: no lead, no entity.
-    utt = run(make_chain(tmp_path, carrier_text=Path("train.txt"), carrier_min_phone=0.0), "meet me in bay")
+    utt = run(make_chain(tmp_path, carrier=CARRIER | {"min_phone": 0.0}), "meet me in bay")
     assert utt.entities == []
     assert [c["guard"] for c in utt.trace[-1].scores["carrier"]] == ["carrier_margin"]
 
 
 def test_a_slot_read_in_a_runner_up_is_carried_into_the_best_hypothesis(tmp_path: Path) -> None:
     # Exact carrier words only: loosely, "meat me in ..." would match the best hypothesis itself.
-    chain = make_chain(tmp_path, carrier_text=Path("train.txt"), carrier_loose_from=0)
+    chain = make_chain(tmp_path, carrier=CARRIER | {"loose_from": 0})
     utt = run(chain, "meat me in the three", "meet me in the three")
     [entity] = utt.entities
     assert entity.id == "place.bay_3"
@@ -93,7 +95,7 @@ def test_a_slot_read_in_a_runner_up_is_carried_into_the_best_hypothesis(tmp_path
 
 def test_every_empty_slot_of_a_match_is_filled(tmp_path: Path) -> None:
     assert run(make_chain(tmp_path), "take the cheap rats to they won").entities == []
-    utt = run(make_chain(tmp_path, carrier_text=Path("train.txt")), "take the cheap rats to they won")
+    utt = run(make_chain(tmp_path, carrier=CARRIER), "take the cheap rats to they won")
     assert [e.id for e in utt.entities] == ["material.sheet_brass", "place.bay_1"]
     assert utt.text == "take the sheet brass to bay one"
     carriers = utt.trace[-1].scores["carrier"]
@@ -103,7 +105,7 @@ def test_every_empty_slot_of_a_match_is_filled(tmp_path: Path) -> None:
 
 def test_each_slot_is_judged_on_its_own(tmp_path: Path) -> None:
     # The material slot's words are far from every material; the place slot is still filled.
-    utt = run(make_chain(tmp_path, carrier_text=Path("train.txt")), "take the kitchen to they won")
+    utt = run(make_chain(tmp_path, carrier=CARRIER), "take the kitchen to they won")
     [entity] = utt.entities
     assert (entity.id, utt.text) == ("place.bay_1", "take the kitchen to bay one")
     guards = {c["heard"]: c.get("guard") for c in utt.trace[-1].scores["carrier"]}
@@ -111,7 +113,7 @@ def test_each_slot_is_judged_on_its_own(tmp_path: Path) -> None:
 
 
 def test_the_better_fill_of_a_slot_wins_even_from_a_less_likely_hypothesis(tmp_path: Path) -> None:
-    chain = make_chain(tmp_path, carrier_text=Path("train.txt"))
+    chain = make_chain(tmp_path, carrier=CARRIER)
     # Alone, "the three" is filled with bay three ...
     assert [e.id for e in run(chain, "meet me in the three").entities] == ["place.bay_3"]
     # ... but "they won" in the runner-up aligns better with bay one, so the slot takes that.
@@ -121,11 +123,11 @@ def test_the_better_fill_of_a_slot_wins_even_from_a_less_likely_hypothesis(tmp_p
     tried = [(c["hypothesis"], c["id"], c.get("guard")) for c in utt.trace[-1].scores["carrier"]]
     assert tried == [(1, "place.bay_1", None), (0, "place.bay_3", "overlap")]
     # Read alone, the likeliest hypothesis decides.
-    alone = run(make_chain(tmp_path, carrier_text=Path("train.txt"), carrier_hypotheses=1),
+    alone = run(make_chain(tmp_path, carrier=CARRIER | {"hypotheses": 1}),
                 "meet me in the three", "meet me in they won", confs=(0.6, 0.4))
     assert [e.id for e in alone.entities] == ["place.bay_3"]
 
 
 def test_without_a_match_nothing_is_traced(tmp_path: Path) -> None:
-    utt = run(make_chain(tmp_path, carrier_text=Path("train.txt")), "is the lathe free")
+    utt = run(make_chain(tmp_path, carrier=CARRIER), "is the lathe free")
     assert "carrier" not in utt.trace[-1].scores

@@ -38,8 +38,9 @@ def folder(tmp_path: Path) -> Path:
     return write_folder(tmp_path, lexicon=LEXICON, train=TRAIN)
 
 
-def make_chain(folder: Path, **settings: Any) -> Chain:
-    return lexicon_chain(folder, **({"lexicon": "lexicon.csv", "lm_model": "lm.arpa"} | settings))
+def make_chain(folder: Path, *, context: dict[str, Any] | None = None, **settings: Any) -> Chain:
+    context = {"language_model": "lm.arpa"} | (context or {})
+    return lexicon_chain(folder, lexicon="lexicon.csv", context=context, **settings)
 
 
 def run(chain: Chain, *texts: str) -> Utterance:
@@ -66,21 +67,23 @@ def test_model_is_loaded_once_per_file(folder: Path) -> None:
 def test_context_picks_the_correction_the_domain_expects(folder: Path) -> None:
     # Heard "mara lent": as close to the person as to the material by sound alone.
     sound_only = run(make_chain(folder), "page mara lent please")
-    with_context = run(make_chain(folder, lm_weight=0.05, lm_loss_weight=0.05), "page mara lent please")
+    with_context = run(make_chain(folder, context={"gain_weight": 0.05, "loss_weight": 0.05}), "page mara lent please")
     assert [e.id for e in with_context.entities] == ["person.mara_lind"]
     assert with_context.text == "page mara lind please"
     assert sound_only.entities == []  # by sound alone the two are too close to pick
     assert {b["guard"] for b in sound_only.trace[-1].scores["blocked"]} == {"margin"}
-    material = run(make_chain(folder, lm_weight=0.05, lm_loss_weight=0.05), "we are out of mara lent")
+    material = run(make_chain(folder, context={"gain_weight": 0.05, "loss_weight": 0.05}), "we are out of mara lent")
     assert [e.id for e in material.entities] == ["material.mara_lint"]
 
 
 def test_a_rewrite_the_domain_finds_less_likely_is_held_back(folder: Path) -> None:
     # "low" sounds like the alias "pellow", and an affinity-free sound score passes min_score;
     # the model knows "we are low on birch ply", so rewriting it costs probability.
-    settings = {"min_score": 0.3, "common_min_score": 0.3, "margin": 0.0, "short_penalty": 0.0, "lm_weight": 0.0}
-    plain = run(make_chain(folder, lm_loss_weight=0.0, **settings), "we are low on birch ply")
-    guarded = run(make_chain(folder, lm_loss_weight=0.1, **settings), "we are low on birch ply")
+    general = {"min_score": 0.3, "common_min_score": 0.3, "margin": 0.0, "short_penalty": 0.0}
+    plain = run(make_chain(folder, general=general, context={"gain_weight": 0.0, "loss_weight": 0.0}),
+                "we are low on birch ply")
+    guarded = run(make_chain(folder, general=general, context={"gain_weight": 0.0, "loss_weight": 0.1}),
+                  "we are low on birch ply")
     assert "machine.pellow_saw" in {e.id for e in plain.entities}
     assert guarded.entities == []
     assert guarded.text == "we are low on birch ply"
@@ -90,7 +93,7 @@ def test_a_rewrite_the_domain_finds_less_likely_is_held_back(folder: Path) -> No
 
 
 def test_without_a_model_the_term_is_off(folder: Path) -> None:
-    chain = make_chain(folder, lm_model=None, lm_weight=0.05)
+    chain = make_chain(folder, context={"language_model": None, "gain_weight": 0.05})
     assert chain.stages[1].lm is None  # type: ignore[attr-defined]
     assert run(chain, "page mara lind please").entities[0].id == "person.mara_lind"
 
@@ -98,9 +101,11 @@ def test_without_a_model_the_term_is_off(folder: Path) -> None:
 
 def test_a_short_form_needs_more_evidence(folder: Path) -> None:
     # "pellow" is four phones: a near match of a short form is easily an everyday word.
-    settings = {"lm_model": None, "common_min_score": 0.0, "margin": 0.0}
-    loose = run(make_chain(folder, short_penalty=0.0, **settings), "book the fellow for me")
-    strict = run(make_chain(folder, short_penalty=0.3, **settings), "book the fellow for me")
+    general = {"common_min_score": 0.0, "margin": 0.0}
+    loose = run(make_chain(folder, context={"language_model": None}, general=general | {"short_penalty": 0.0}),
+                "book the fellow for me")
+    strict = run(make_chain(folder, context={"language_model": None}, general=general | {"short_penalty": 0.3}),
+                 "book the fellow for me")
     assert [e.id for e in loose.entities] == ["machine.pellow_saw"]
     assert strict.entities == []
     assert any(b["guard"] == "short_form" for b in strict.trace[-1].scores["blocked"])

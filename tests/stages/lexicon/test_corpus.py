@@ -18,7 +18,8 @@ from relay.core.stage import StageContext
 from relay.workbench.corpus import read_corpus
 from relay.workbench.evaluate import run_corpus
 from stages.lexicon.data import read_lexicon
-from stages.lexicon.stage import LexiconSettings, LexiconStage
+from stages.lexicon.settings import LexiconSettings
+from stages.lexicon.stage import LexiconStage
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
 from stages.normalize.tokens import tokenize
 from tests.paths import WORKSHOP

@@ -16,7 +16,7 @@ from rapidfuzz.fuzz import ratio
 from relay.core.utterance import Hypothesis
 from stages.lexicon.compile import CompiledLexicon, compile_entries, phonetic_keys
 from stages.lexicon.data import LexiconEntry
-from stages.lexicon.match import Spans, Weights, _key_agreements, find_spans, pool, score_spans
+from stages.lexicon.match import Sighting, Spans, Weights, _key_agreements, find_spans, pool, score_spans
 from stages.lexicon.sound.phonetics import CostModel, batch_similarity
 from stages.lexicon.sound.pronounce import Pronouncer
 
@@ -74,7 +74,7 @@ def _pairwise(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     hits = lexicon.index.search(spans.phones, k=weights.candidates, min_score=weights.min_retrieval)
     forms = lexicon.forms
     chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
-              if Levenshtein.normalized_similarity(spans.phones[q], forms[f].phones) >= weights.min_edit
+              if Levenshtein.normalized_similarity(spans.phones[q], forms[f].phones) >= weights.align_floor
               and (q, f) not in exact]
     if not chosen:
         return pairs
@@ -135,5 +135,5 @@ def test_spans_and_pooling_keep_every_occurrence(lexicon: CompiledLexicon, prono
     evidence = pool(spans, [(3, form, 0.5, False), (1, form, 0.5, False)], lexicon, [0.75, 0.25])
     found = evidence[lexicon.forms[form].entry]
     # Equal scores: the first span seen stays in hypothesis 0 (same length), hypothesis 1 has only "b a".
-    assert found.per_hypothesis == {0: (0.5, 1, 3, form, False), 1: (0.5, 0, 2, form, False)}
+    assert found.per_hypothesis == {0: Sighting(0.5, 1, 3, form, False), 1: Sighting(0.5, 0, 2, form, False)}
     assert found.pooled == 0.75 * 0.5 + 0.25 * 0.5

@@ -1,0 +1,157 @@
+"""The general search: every span of the N-best against the whole lexicon, and its guards.
+
+Spans -> candidates from the phone index -> pair scores -> evidence pooled over the N-best
+(stages.lexicon.match) -> the entries strong enough to go on -> a score with the priors, the
+type hints and the language model's view -> placed in the top hypothesis unless a guard
+(exact text kept, common words, margin, short form, type hint) stops it. Every guard that
+stops a correction is named in the trace.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from typing import Any
+
+from relay.core.utterance import Utterance
+from stages.lexicon.choice import Choice, describe
+from stages.lexicon.compile import CompiledLexicon
+from stages.lexicon.context import ContextScorer
+from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
+from stages.lexicon.rewrite import map_span
+from stages.lexicon.settings import LexiconSettings
+from stages.lexicon.sound.phonetics import CostModel
+from stages.lexicon.sound.pronounce import Pronouncer
+
+__all__ = ["GeneralSearch"]
+
+
+class GeneralSearch:
+    """Finds entries anywhere in the N-best; ``place`` keeps the ones its guards let through."""
+
+    def __init__(self, settings: LexiconSettings, lexicon: CompiledLexicon, *, pronouncer: Pronouncer,
+                 costs: CostModel, common: set[str], hints: dict[str, set[str]],
+                 affinity: dict[str, dict[str, float]]) -> None:
+        self.settings = settings
+        self.lexicon = lexicon
+        self.pronouncer = pronouncer
+        self.costs = costs
+        self.common = common  # words at or above general.common_zipf
+        self.hints = hints
+        self.affinity = affinity
+        match = settings.match
+        self.weights = Weights(match.weight_phone, match.weight_spelling, match.weight_keys, match.candidates,
+                               match.min_retrieval, match.pair_floor, match.min_phone,
+                               align_floor=match.align_floor)
+
+    def entries(self, utterance: Utterance, top: int) -> list[Evidence]:
+        """The entries the N-best supports enough to be corrected or traced, strongest first."""
+        s = self.settings
+        lexicon = self.lexicon
+        longest = s.max_span_words or lexicon.max_words + 1
+        spans = find_spans(utterance.nbest, longest, self.pronouncer)
+        pairs = score_spans(spans, lexicon, self.weights, self.costs)
+        posteriors = [h.posterior for h in utterance.nbest]
+        evidence = pool(spans, pairs, lexicon, posteriors)
+        # Entries too weak to be corrected or traced are not carried any further.
+        floor = (min(s.general.min_score, s.match.pair_floor) * min(1.0, max(posteriors))
+                 - s.priors.affinity_weight - s.priors.entry_weight)
+        return [e for e in best_entries(evidence, max(12, s.trace_top))
+                if e.pooled >= floor or top in e.per_hypothesis]
+
+    def choose(self, evidence: Evidence, utterance: Utterance, top: int,
+               context: ContextScorer | None) -> Choice:
+        """Where ``evidence``'s entry goes in the top hypothesis, and its score there."""
+        s = self.settings
+        lexicon = self.lexicon
+        entry = lexicon.entries[evidence.entry]
+        score = evidence.pooled + s.priors.entry_weight * math.log(entry.weight)
+        if utterance.speaker is not None:
+            score += s.priors.affinity_weight * self.affinity.get(utterance.speaker, {}).get(entry.id, 0.0)
+        support = evidence.per_hypothesis
+        held = support.get(top)
+        from_hypothesis = max(support, key=lambda h: utterance.nbest[h].posterior * support[h].score)
+        if held is not None and held.score >= 0.9 * support[from_hypothesis].score:
+            start, end, form, exact = held.start, held.end, held.form, held.exact
+        else:
+            # The top hypothesis holds the entry weakly or not at all: carry the span that
+            # supports it most over to the top hypothesis.
+            carried = support[from_hypothesis]
+            start, end = map_span(utterance.nbest[from_hypothesis].tokens, utterance.nbest[top].tokens,
+                                  carried.start, carried.end)
+            form, exact = carried.form, False
+        hints = self.hints.get(entry.type)
+        before = utterance.nbest[top].tokens[max(0, start - s.general.hint_window):start]
+        hint_missing = bool(hints) and not hints.intersection(before)  # type: ignore[union-attr]
+        if hints and not hint_missing:
+            score += s.general.hint_bonus  # the context announces this type: a prior like affinity
+        lm_gain = 0.0
+        if context is not None and not exact:
+            # Noisy channel: the sound says how well the span matches, the in-domain LM how
+            # much likelier the sentence reads once rewritten.
+            lm_gain = context.gain(start, end, lexicon.forms[form].text.split())
+            # A rewrite the domain finds less likely is strong evidence against it (an everyday
+            # word pulled into a name); a likelier one is weaker evidence for it, since
+            # replacing any out-of-vocabulary word gains, so the two sides weigh differently.
+            score += (s.context.gain_weight if lm_gain > 0 else s.context.loss_weight) * lm_gain
+        return Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain)
+
+    def place(self, choices: list[Choice], tokens: list[str]) -> tuple[list[Choice], list[dict[str, Any]]]:
+        """The choices that stand, and a trace record for each one a guard stopped."""
+        exacts = sorted((c for c in choices if c.exact), key=lambda c: (c.start - c.end, -c.score))
+        fuzzy = sorted((c for c in choices if not c.exact), key=lambda c: (-c.score, c.start - c.end))
+        placed: list[Choice] = []
+        blocked: list[dict[str, Any]] = []
+        # Corrections first, so one that keeps an exactly matching alias and explains more words
+        # ("tamsin okorra" -> "tamsin okara") can supersede it; any other overlap with exact text
+        # is blocked. Then the exact matches that remain free.
+        for choice in fuzzy:
+            reason = self._guard(choice, placed, choices, exacts, tokens)
+            if reason is None:
+                placed.append(choice)
+            elif choice.score >= self.settings.match.pair_floor:
+                blocked.append(describe(choice, self.lexicon, tokens) | {"guard": reason})
+        for choice in exacts:
+            taken = [c for c in placed if c.overlaps(choice)]
+            if not taken:
+                placed.append(choice)
+            elif taken[0].evidence.entry != choice.evidence.entry:
+                blocked.append(describe(choice, self.lexicon, tokens) | {"guard": "superseded" if any(
+                    self._supersedes(c, choice, tokens) for c in taken) else "overlap"})
+        return placed, blocked
+
+    def _supersedes(self, longer: Choice, exact: Choice, tokens: Sequence[str]) -> bool:
+        """Whether ``longer`` spans ``exact`` and keeps its words, so replacing is no loss."""
+        if not (longer.start <= exact.start and exact.end <= longer.end
+                and longer.end - longer.start > exact.end - exact.start):
+            return False
+        kept = " " + " ".join(tokens[exact.start:exact.end]) + " "
+        return kept in " " + self.lexicon.forms[longer.form].text + " "
+
+    def _guard(self, choice: Choice, placed: list[Choice], choices: list[Choice],
+               exacts: list[Choice], tokens: list[str]) -> str | None:
+        """None when a correction may stand; else the name of the guard that stops it."""
+        g = self.settings.general
+        if choice.score < g.min_score:
+            return "min_score"
+        if " ".join(tokens[choice.start:choice.end]) in self.lexicon.exact or any(
+                choice.overlaps(e) and not self._supersedes(choice, e, tokens) for e in exacts):
+            return "exact_text_kept"
+        if any(choice.overlaps(c) for c in placed):
+            return "overlap"
+        words = tokens[choice.start:choice.end]
+        # Priors count here too: on the workshop corpus, judging common words on acoustic
+        # evidence alone lost a tenth of the recall for a small gain in precision.
+        needed = g.common_min_score - g.common_relief * max(0, len(words) - 1)
+        if words and all(w in self.common for w in words) and choice.score < needed:
+            return "common_words"
+        rivals = [c.score for c in choices if c.evidence.entry != choice.evidence.entry and choice.overlaps(c)
+                  and not (c.exact and self._supersedes(choice, c, tokens))]
+        if rivals and choice.score - max(rivals) < g.margin:
+            return "margin"
+        if (g.short_penalty and len(self.lexicon.forms[choice.form].phones) <= g.short_phones
+                and choice.score < g.min_score + g.short_penalty):
+            return "short_form"  # a few phones match many everyday words by chance ("for" -> "bay four")
+        if choice.hint_missing and choice.score < g.min_score + g.hint_penalty:
+            return "type_hint"  # a hinted type without its hint word needs general.hint_penalty more
+        return None

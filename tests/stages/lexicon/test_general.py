@@ -1,0 +1,85 @@
+"""The general search through the stage on a small invented lexicon: its guards stop a
+correction with their name in the trace, and the N-best and the priors decide between entries.
+(The short-form guard and the language model's part are in test_context.py.)
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from relay.core.utterance import Utterance
+from tests.stages.lexicon.fixtures import blocked, run, small_chain
+
+
+def test_exact_text_is_kept_without_correction(tmp_path: Path) -> None:
+    utt = run(small_chain(tmp_path), "tamsin okara is in bay two")
+    assert utt.chosen_text is None and utt.corrections == []
+    assert {e.id for e in utt.entities} == {"person.tamsin_okara", "place.bay_2"}
+    assert any(b["guard"] == "exact_text_kept" and b["id"] == "person.tamsin_okoro" for b in blocked(utt))
+
+
+def test_common_words_need_stronger_evidence(tmp_path: Path) -> None:
+    # "pillow" sits just under the default Zipf 4.0 line; lower it so the whole span is common.
+    chain = small_chain(tmp_path, general={"common_min_score": 0.99, "common_zipf": 3.5, "common_relief": 0.0})
+    utt = run(chain, "book the pillow table saw for me")
+    assert utt.corrections == []
+    assert any(b["guard"] == "common_words" for b in blocked(utt))
+    # Longer runs of common words get some relief: three words need 2 x 0.02 less.
+    eased = run(small_chain(tmp_path, general={"common_min_score": 0.99, "common_zipf": 3.5, "common_relief": 0.02}),
+                "book the pillow table saw for me")
+    assert [c.after for c in eased.corrections] == ["pellow table saw"]
+
+
+def test_margin_over_the_runner_up_is_required(tmp_path: Path) -> None:
+    # "tamsin okorra" is equally far from okoro and okara: neither may win.
+    utt = run(small_chain(tmp_path, general={"margin": 0.2}), "call tamsin okorra now")
+    assert utt.corrections == []
+    assert any(b["guard"] == "margin" for b in blocked(utt))
+
+
+def test_entity_supported_across_the_nbest_beats_a_one_off(tmp_path: Path) -> None:
+    # okoro and okara sound alike, so the default margin would (rightly) refuse both; lower it.
+    chain = small_chain(tmp_path, general={"margin": 0.02})
+    # The first hypothesis alone leans to okara, the rest of the list says okoro.
+    utt = run(chain, "call tamsin akara", "call tamsin okoro", "call tamsin okoro please",
+              conf=[0.4, 0.3, 0.3])
+    assert utt.trace[-1].scores["candidates"][0]["id"] == "person.tamsin_okoro"
+    assert [e.id for e in utt.entities] == ["person.tamsin_okoro"]
+    # The first hypothesis on its own would have chosen okara.
+    alone = run(chain, "call tamsin akara")
+    assert alone.trace[-1].scores["candidates"][0]["id"] == "person.tamsin_okara"
+
+
+def test_entity_only_in_a_deeper_hypothesis_can_win(tmp_path: Path) -> None:
+    utt = run(small_chain(tmp_path), "book the table for me", "book the pellow table saw for me",
+              "book the pellow table saw for me please", conf=[0.4, 0.35, 0.25])
+    assert [e.id for e in utt.entities] == ["machine.pellow_saw"]
+    assert "pellow table saw" in utt.text
+
+
+def test_speaker_affinity_breaks_a_tie(tmp_path: Path) -> None:
+    speakers = "speaker,id,affinity\nmember-1,person.tamsin_okara,1.0\n"
+    chain = small_chain(tmp_path, speakers=speakers, general={"margin": 0.1}, priors={"affinity_weight": 0.3})
+    without = run(chain, "call tamsin okorra now")
+    with_prior = run(chain, "call tamsin okorra now", speaker="member-1")
+    assert "person.tamsin_okara" not in {e.id for e in without.entities}
+    assert [e.id for e in with_prior.entities] == ["person.tamsin_okara"]
+
+
+def test_type_hint_demands_more_evidence_without_its_word(tmp_path: Path) -> None:
+    hints = {"person": ["call", "ask"]}
+    chain = small_chain(tmp_path, hints=hints, general={"hint_penalty": 0.5})
+    hinted = run(chain, "call tamzin okoroh")
+    unhinted = run(chain, "the tamzin okoroh")
+    assert "person.tamsin_okoro" in {e.id for e in hinted.entities}
+    assert "person.tamsin_okoro" not in {e.id for e in unhinted.entities}
+    assert any(b["guard"] == "type_hint" for b in blocked(unhinted))
+    # The hint word also adds hint_bonus to the entry's score.
+    def top(utt: Utterance) -> float:
+        return float(next(c["score"] for c in utt.trace[-1].scores["candidates"] if c["id"] == "person.tamsin_okoro"))
+
+    assert top(hinted) - top(unhinted) == pytest.approx(0.1, abs=1e-3)
+
+
