@@ -11,7 +11,7 @@ from typing import Any
 
 from relay.core.errors import InputError, RehearError
 from relay.workbench.build_lm import build_model
-from stages.indomain.text import CorpusOptions
+from stages.indomain.text import TextOptions
 from stages.lm.kneser_ney import DEFAULT_FALLBACK
 
 __all__ = ["add_parser", "main", "run"]
@@ -87,7 +87,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 def run(args: argparse.Namespace) -> int:
     """Build the model; print errors without a traceback and return 2 on bad input."""
     began = time.perf_counter()
-    options = CorpusOptions(
+    options = TextOptions(
         raw=args.raw, text_format=args.text_format, max_line_chars=args.max_line_chars,
         max_expansions=args.max_expansions, seed=args.seed, progress=args.progress,
     )

@@ -8,28 +8,13 @@ import sys
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import yaml
-from tqdm import tqdm
 
 from relay.cli.corpus_args import add_corpus_arguments, chosen_config, report_error, selected_items
-from relay.core.config import LoadedConfig
 from relay.core.errors import ConfigError, RehearError
 from relay.core.yamlsource import load_yaml
-from relay.workbench.evaluate import format_table, run_corpus, summarize
-from relay.workbench.tuning import (
-    DEFAULT_SPACE,
-    RecordedFeatures,
-    cross_validate,
-    decisions_for,
-    expand_space,
-    fit,
-    gate_settings,
-    held_out_summary,
-    make_folds,
-)
-from relay.workbench.variants import VariantBuilder, config_from_dict, with_overrides
-from stages.gate.settings import GateSettings
+from relay.workbench.evaluate import format_table
+from relay.workbench.tune import tune
 
 __all__ = ["add_parser", "run"]
 
@@ -83,117 +68,34 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     return _configure(parser)
 
 
-def _with_gate(loaded: LoadedConfig) -> LoadedConfig:
-    """The chain with a gate at its end; an added gate judges the text with lm_rescore's model."""
-    if any(spec.name == "gate" for spec in loaded.config.stages):
-        return loaded
-    raw = dict(loaded.source.value)
-    model = next((spec.params.get("model") for spec in loaded.config.stages if spec.name == "lm_rescore"), None)
-    raw["stages"] = [*(raw.get("stages") or []), {"gate": {"lm_model": model}} if model else "gate"]
-    return config_from_dict(raw, base_dir=loaded.base_dir, label=loaded.source.file)
-
-
-def _usable_space(args: argparse.Namespace, builder: VariantBuilder) -> dict[str, dict[str, list[Any]]]:
-    space = DEFAULT_SPACE
-    if args.space is not None:
-        space = load_yaml(args.space).value
-        if not isinstance(space, dict) or not all(isinstance(v, dict) for v in space.values()):
-            raise ConfigError(f"Invalid search space {args.space}", ["write stage: {parameter: [values, ...]}"])
-    usable: dict[str, dict[str, list[Any]]] = {}
-    for stage, params in space.items():
-        if stage == "gate":
-            continue  # gate thresholds are swept on recorded scores, not re-run
-        if stage not in builder.stage_names:
-            print(f"rehear: the chain has no stage {stage}; not tuning its parameters", file=sys.stderr)
-            continue
-        known = builder.settings_fields(stage)
-        for written, values in params.items():
-            param = builder.current_name(stage, written)  # an old name means the setting's new place
-            if param not in known:
-                print(f"rehear: stage {stage} has no setting {param} (has: {', '.join(sorted(known))}); skipped",
-                      file=sys.stderr)
-            elif not isinstance(values, list) or not values:
-                raise ConfigError(f"Invalid search space: {stage}.{param} must be a non-empty list")
-            else:
-                usable.setdefault(stage, {})[param] = values
-    return usable
-
-
-def _written_form(args: argparse.Namespace, loaded: LoadedConfig) -> dict[str, Any]:
-    """The configuration as the user wrote it: ${VARIABLES} stay unexpanded, so no secret from
-    the environment ends up in the tuned file."""
-    raw: dict[str, Any] = dict(loaded.source.value)
-    if args.config is not None:
-        raw = yaml.safe_load(args.config.read_text(encoding="utf-8"))
-    stages = list(raw.get("stages") or [])
-    if not any((item if isinstance(item, str) else next(iter(item))) == "gate" for item in stages):
-        stages.append("gate")
-    return {**raw, "stages": stages}
-
-
-def _absolute(params: dict[str, Any], base_dir: Path) -> dict[str, Any]:
-    """Stage parameters with relative paths of existing files made absolute, in groups too."""
-    return {k: _absolute(v, base_dir) if isinstance(v, dict)
-            else str((base_dir / v).resolve()) if isinstance(v, str) and not Path(v).is_absolute()
-            and (base_dir / v).exists() else v for k, v in params.items()}
-
-
-def _portable(raw: dict[str, Any], base_dir: Path) -> dict[str, Any]:
-    """Relative file paths made absolute, so the written file works from any folder."""
-    out = dict(raw)
-    if not Path(str(out.get("cache_dir", ".rehear-cache"))).is_absolute():
-        out["cache_dir"] = str((base_dir / str(out.get("cache_dir", ".rehear-cache"))).resolve())
-    stages = []
-    for item in out.get("stages") or []:
-        if isinstance(item, dict):
-            name, params = next(iter(item.items()))
-            item = {name: _absolute(params or {}, base_dir)}
-        stages.append(item)
-    out["stages"] = stages
-    return out
-
-
 def run(args: argparse.Namespace) -> int:
-    progress = not args.no_progress
     try:
-        loaded = _with_gate(chosen_config(args))
+        loaded = chosen_config(args)
         items, described = selected_items(args, loaded)
-        builder = VariantBuilder(loaded, progress=progress)
-        space = _usable_space(args, builder)
-        settings = expand_space(space, max_settings=args.max_settings, seed=args.seed)
-        folds = make_folds(len(items), args.folds, args.seed)
-        runs = [run_corpus(builder.chain(overrides), items, progress=False)
-                for overrides in tqdm(settings, desc="settings", unit="run", disable=not progress)]
+        space = None
+        if args.space is not None:
+            space = load_yaml(args.space).value
+            if not isinstance(space, dict) or not all(isinstance(v, dict) for v in space.values()):
+                raise ConfigError(f"Invalid search space {args.space}", ["write stage: {parameter: [values, ...]}"])
+        # The configuration as the user wrote it: ${VARIABLES} stay unexpanded, so no secret from
+        # the environment ends up in the tuned file.
+        written = yaml.safe_load(args.config.read_text(encoding="utf-8")) if args.config else dict(loaded.source.value)
+        result = tune(loaded, items, written=written, space=space, max_clarify=args.max_clarify, folds=args.folds,
+                      seed=args.seed, max_settings=args.max_settings, progress=not args.no_progress)
     except (RehearError, ValueError) as exc:
         return report_error(exc if isinstance(exc, RehearError) else ConfigError(str(exc)))
-    recorded = [RecordedFeatures(outcomes) for outcomes in runs]
-    gate_spec = next(spec for spec in loaded.config.stages if spec.name == "gate")
-    base_gate = GateSettings.model_validate(gate_spec.params)
-
-    def score(choice: Any, test: np.ndarray) -> Any:
-        chosen = [runs[choice.setting][i] for i in test]
-        return summarize(chosen, decisions=decisions_for(chosen, gate_settings(base_gate, choice.gate)))
-
-    results = cross_validate(folds, lambda train: fit(recorded, train, max_clarify=args.max_clarify), score)
-    held_out = held_out_summary(runs, results, base_gate)
-    print(f"{len(settings)} stage setting(s) tried over {', '.join(f'{s}.{p}' for s in space for p in space[s]) or 'none'}")
-    for result in results:
-        s = result.score
-        print(f"fold {result.fold + 1}/{len(folds)} (held out {len(result.test)}): WER {s.wer_relay:.1%} "
+    space_text = ", ".join(f"{s}.{p}" for s in result.space for p in result.space[s]) or "none"
+    print(f"{len(result.settings)} stage setting(s) tried over {space_text}")
+    for fold in result.folds:
+        s = fold.score
+        print(f"fold {fold.fold + 1}/{len(result.folds)} (held out {len(fold.test)}): WER {s.wer_relay:.1%} "
               f"(first {s.wer_first:.1%}), wrong accepts {s.wrong_accept_rate:.1%}, asked back {s.clarify_rate:.1%}")
+    held_out = result.held_out
     print(format_table(held_out, title=f"held-out folds pooled, {args.corpus} ({described}):"))
-    final = fit(recorded, np.arange(len(items)), max_clarify=args.max_clarify)
-    tuned_gate = gate_settings(base_gate, final.gate)
-    dumped = tuned_gate.model_dump(mode="json")
-    extra = ("reprompt_confidence",) if "accept_confidence" in final.gate else ()
-    gate_params = {**gate_spec.params, **{k: dumped[k] for k in
-                   (*final.gate, "reprompt_posterior", "reprompt_entity", *extra)}}
-    overrides = {**settings[final.setting], "gate": gate_params}
-    raw = _portable(with_overrides(_written_form(args, loaded), overrides), loaded.base_dir)
     header = (f"# rehear tune on {args.corpus} ({described}), {args.folds}-fold held-out: "
               f"WER {held_out.wer_relay:.1%}, wrong accepts {held_out.wrong_accept_rate:.1%}, "
               f"asked back {held_out.clarify_rate:.1%} (budget {args.max_clarify:.0%})\n")
-    args.output.write_text(header + yaml.safe_dump(raw, sort_keys=False), encoding="utf-8")
+    args.output.write_text(header + yaml.safe_dump(result.config, sort_keys=False), encoding="utf-8")
     print(f"wrote {args.output}")
     return 0
 

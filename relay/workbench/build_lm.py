@@ -7,7 +7,7 @@ import warnings
 from collections.abc import Sequence
 from pathlib import Path
 
-from stages.indomain.text import CorpusOptions, read_sentences, read_slot_values
+from stages.indomain.text import TextOptions, read_sentences, read_slot_values
 from stages.lm.arpa import write_arpa
 from stages.lm.kneser_ney import DEFAULT_FALLBACK, DiscountFallbackWarning, KneserNeyModel, estimate
 
@@ -20,7 +20,7 @@ def build_model(
     output: Path,
     lexicon: Path | None = None,
     order: int = 3,
-    options: CorpusOptions | None = None,
+    options: TextOptions | None = None,
     fallback: Sequence[float] = DEFAULT_FALLBACK,
 ) -> KneserNeyModel:
     """Read in-domain text, estimate the model and write it as ARPA (atomically).
@@ -31,7 +31,7 @@ def build_model(
     slots = read_slot_values(lexicon) if lexicon is not None else None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", DiscountFallbackWarning)
-        model = estimate(read_sentences(paths, slots=slots, options=options or CorpusOptions()), order,
+        model = estimate(read_sentences(paths, slots=slots, options=options or TextOptions()), order,
                          fallback=fallback)
     for warning in caught:
         print(f"warning: {warning.message}", file=sys.stderr)

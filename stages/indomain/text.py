@@ -23,7 +23,7 @@ from stages.lexicon.data import read_lexicon
 from stages.lm.kneser_ney import RESERVED
 from stages.normalize.tokens import tokenize
 
-__all__ = ["CorpusOptions", "TextFormat", "read_sentences", "read_slot_values", "read_templates"]
+__all__ = ["TextOptions", "TextFormat", "read_sentences", "read_slot_values", "read_templates"]
 
 TextFormat = Literal["auto", "plain", "csv", "jsonl"]
 
@@ -34,7 +34,7 @@ _PROGRESS_MIN_BYTES = 4 << 20  # below this a progress bar is noise
 
 
 @dataclass(frozen=True, slots=True)
-class CorpusOptions:
+class TextOptions:
     """How in-domain text is read."""
 
     raw: bool = False  # whitespace-split tokens exactly as written, no tokeniser
@@ -67,7 +67,7 @@ def read_slot_values(path: Path) -> dict[str, list[str]]:
     return {kind: list(forms) for kind, forms in values.items()}
 
 
-def _expand(text: str, where: str, slots: dict[str, list[str]] | None, options: CorpusOptions) -> list[str]:
+def _expand(text: str, where: str, slots: dict[str, list[str]] | None, options: TextOptions) -> list[str]:
     names = _SLOT.findall(text)
     if not names:
         return [text]
@@ -118,7 +118,7 @@ def _decoded_lines(path: Path, bar: tqdm[Any] | None) -> Iterator[tuple[int, str
         bar.update(pending)
 
 
-def _texts(path: Path, options: CorpusOptions, bar: tqdm[Any] | None) -> Iterator[tuple[str, str]]:
+def _texts(path: Path, options: TextOptions, bar: tqdm[Any] | None) -> Iterator[tuple[str, str]]:
     """(location, text) for every record of one file."""
     kind = _format_of(path, options.text_format)
     lines = _decoded_lines(path, bar)
@@ -156,7 +156,7 @@ def _texts(path: Path, options: CorpusOptions, bar: tqdm[Any] | None) -> Iterato
             yield f"{path}:{current[0]}", text
 
 
-def _tokens(text: str, where: str, options: CorpusOptions) -> list[str]:
+def _tokens(text: str, where: str, options: TextOptions) -> list[str]:
     if options.raw:
         tokens = text.split()
         bad = [t for t in tokens if t in RESERVED]
@@ -173,7 +173,7 @@ def read_sentences(
     paths: Sequence[Path],
     *,
     slots: dict[str, list[str]] | None = None,
-    options: CorpusOptions = CorpusOptions(),
+    options: TextOptions = TextOptions(),
 ) -> Iterator[list[str]]:
     """Token lists, one per sentence (slot expansions included); blank lines are skipped.
 
@@ -209,7 +209,7 @@ def read_sentences(
         raise InputError("empty", f"{', '.join(map(str, paths))}: no words to build a model from")
 
 
-def read_templates(path: Path, *, options: CorpusOptions = CorpusOptions()) -> Iterator[tuple[str, list[str]]]:
+def read_templates(path: Path, *, options: TextOptions = TextOptions()) -> Iterator[tuple[str, list[str]]]:
     """(location, tokens) for every non-blank line, slots kept unexpanded as ``{type}`` tokens.
 
     "book the {machine} for {person}" gives ["book", "the", "{machine}", "for", "{person}"].

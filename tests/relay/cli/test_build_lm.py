@@ -12,7 +12,7 @@ import pytest
 
 from relay.cli.build_lm import main
 from relay.core.errors import InputError
-from stages.indomain.text import CorpusOptions, read_sentences, read_slot_values
+from stages.indomain.text import TextOptions, read_sentences, read_slot_values
 from stages.lm.arpa import read_arpa
 from tests.paths import DATA, ROOT
 
@@ -46,7 +46,7 @@ def test_tokeniser_is_the_runtime_one_and_raw_keeps_text(tmp_path: Path) -> None
     text = tmp_path / "t.txt"
     text.write_text("Book Bay 3 at 2:30, please!\n\n", encoding="utf-8")
     assert list(read_sentences([text])) == [["book", "bay", "three", "at", "two", "thirty", "please"]]
-    assert list(read_sentences([text], options=CorpusOptions(raw=True))) == [
+    assert list(read_sentences([text], options=TextOptions(raw=True))) == [
         ["Book", "Bay", "3", "at", "2:30,", "please!"]
     ]
 
@@ -83,7 +83,7 @@ def test_expansions_are_capped_and_seeded(tmp_path: Path) -> None:
     text.write_text("book the {machine} for {person}\nbook the {machine} for {person}'s team\n", encoding="utf-8")
 
     def run(seed: int) -> list[str]:
-        options = CorpusOptions(max_expansions=5, seed=seed)
+        options = TextOptions(max_expansions=5, seed=seed)
         return [" ".join(s) for s in read_sentences([text], slots=slots, options=options)]
 
     first = run(0)
@@ -138,7 +138,7 @@ def test_raw_mode_rejects_reserved_tokens_and_slots_need_a_lexicon(tmp_path: Pat
     source = tmp_path / "t.txt"
     source.write_text("fine\nsay <unk> here\n")
     with pytest.raises(InputError, match=r"t.txt:2: <unk> is reserved"):
-        list(read_sentences([source], options=CorpusOptions(raw=True)))
+        list(read_sentences([source], options=TextOptions(raw=True)))
     source.write_text("book the {machine}\n")
     with pytest.raises(InputError, match=r"t.txt:1: slot \{machine\} needs a lexicon"):
         list(read_sentences([source]))

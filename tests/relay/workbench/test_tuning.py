@@ -1,6 +1,5 @@
 from __future__ import annotations
 
-import argparse
 import dataclasses
 import random
 from pathlib import Path
@@ -10,6 +9,7 @@ import numpy as np
 import pytest
 from pydantic import BaseModel, ConfigDict, Field
 
+import relay.workbench.tune as tune_workflow
 import relay.workbench.tuning
 from relay.cli import tune as tune_command
 from relay.core.config import build_chain, load_config
@@ -17,6 +17,7 @@ from relay.core.registry import Registry
 from relay.core.setting_names import AcceptsOldNames, setting_fields
 from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
+from relay.core.yamlsource import load_yaml
 from relay.workbench.evaluate import Outcome
 from relay.workbench.tuning import (
     DEFAULT_GATE_GRID,
@@ -312,7 +313,7 @@ def test_tune_prints_only_numbers_from_utterances_the_choice_was_not_fitted_on(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     fitted: list[set[int]] = []
     scored: list[list[int]] = []
-    real_fit, real_summarize = tune_command.fit, tune_command.summarize
+    real_fit, real_summarize = tune_workflow.fit, tune_workflow.summarize
 
     def spy_fit(recorded: Any, index: np.ndarray, **options: Any) -> Choice:
         fitted.append(set(index.tolist()))
@@ -322,8 +323,8 @@ def test_tune_prints_only_numbers_from_utterances_the_choice_was_not_fitted_on(
         scored.append([int(o.id.removeprefix("t-")) for o in outcomes])
         return real_summarize(outcomes, **options)
 
-    monkeypatch.setattr(tune_command, "fit", spy_fit)
-    monkeypatch.setattr(tune_command, "summarize", spy_summarize)
+    monkeypatch.setattr(tune_workflow, "fit", spy_fit)
+    monkeypatch.setattr(tune_workflow, "summarize", spy_summarize)
     monkeypatch.setattr(relay.workbench.tuning, "summarize", spy_summarize)
     corpus = write_corpus(tmp_path / "corpus.jsonl", 80)
     assert tune_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")),
@@ -366,7 +367,7 @@ def test_a_search_space_may_use_dotted_top_level_and_old_names(tmp_path: Path,
                      " general.min_scor: [0.5]}\nlm_rescore: {lm_weight: [0.3]}\n")
     loaded = config_from_dict({"stages": ["normalize", "lm_rescore", {"lexicon": {"min_score": 0.6}}]},
                               base_dir=tmp_path)
-    usable = tune_command._usable_space(argparse.Namespace(space=space), VariantBuilder(loaded))
+    usable = tune_workflow.usable_space(load_yaml(space).value, VariantBuilder(loaded), gate="gate")
     assert usable == {"lexicon": {"general.min_score": [0.5, 0.7], "trace_top": [3], "anchored.min_phone": [0.7]},
                       "lm_rescore": {"lm_weight": [0.3]}}
     err = capsys.readouterr().err
