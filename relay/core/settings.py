@@ -83,7 +83,7 @@ class LimitSettings(_Strict):
         "thread",
         description="thread: stages run on one worker thread, so a slow stage cannot stall the broker "
         "connection and the deadline is enforced even mid-stage; loop: on the event loop, "
-        "deadline checked between stages only (no cheaper: measured in docs/operations.md)",
+        "deadline checked between stages only (no cheaper: measured in relay/live/README.md)",
     )
 
 

@@ -79,7 +79,7 @@ EVENT_LOOPS = ("auto", "asyncio", "uvloop")
 
 def event_loop_runner(kind: str = "auto") -> asyncio.Runner:
     """uvloop when installed and not refused (fewer CPU microseconds per message; see
-    docs/operations.md for the numbers), else asyncio's own loop."""
+    relay/live/README.md for the numbers), else asyncio's own loop."""
     if kind == "asyncio":
         return asyncio.Runner()
     try:

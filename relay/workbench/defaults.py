@@ -22,7 +22,7 @@ __all__ = ["default_config"]
 
 # Words that announce a person in workshop-style requests ("call ...", "book it for ...").
 # With them, person names are also looked for with a looser phone floor where the in-domain
-# LM agrees (the lexicon stage's anchored search); see docs/lexicon.md for the measured effect.
+# LM agrees (the lexicon stage's anchored search); see stages/lexicon/README.md for the measured effect.
 _PERSON_HINTS = ["call", "page", "ask", "tell", "find", "message", "for", "with", "is", "remind",
                  "let", "give", "get", "show", "buzz", "has", "does", "can", "seen", "grab", "put", "to"]
 # Machines are announced by their article and preposition ("on the {machine}", "book the ..."):

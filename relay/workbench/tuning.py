@@ -48,7 +48,7 @@ DEFAULT_SPACE: dict[str, dict[str, list[Any]]] = {
     # differ by thousands); the scale decides how sharp the posterior the gate reads is.
     "normalize": {"logprob_scale": [1.0, 0.3, 0.1, 0.03]},
     "lm_rescore": {"lm_weight": [0.3, 0.6, 1.0]},
-    # The lexicon settings that moved entity accuracy on the workshop corpus (docs/lexicon.md):
+    # The lexicon settings that moved entity accuracy on the workshop corpus (stages/lexicon/README.md):
     # the correction floor, the two sides of the LM context term, the short-form guard and the
     # anchored search's floors. 11,664 combinations in all, sampled to --max-settings (24 run in
     # about 30 s on the 405 workshop utterances; 48 found the same held-out result).

@@ -130,7 +130,7 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
                                 min_score=weights.min_retrieval)
     forms = lexicon.forms
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
-    # feature alignment; see docs/lexicon.md for how the threshold was chosen.
+    # feature alignment; see stages/lexicon/README.md for how the threshold was chosen.
     screen = weights.align_floor
     queries, items = hits.query.tolist(), hits.item.tolist()
     phones = spans.phones

@@ -24,7 +24,7 @@ class NormalizeSettings(BaseModel):
 
     # Recognisers' total log scores are acoustic-model sums, far too peaked to read as a
     # posterior; 0.05 is a conventional acoustic scale and suits the example recogniser
-    # (sweep in docs/evaluation.md). `rehear tune` fits it to yours.
+    # (sweep in relay/workbench/README.md). `rehear tune` fits it to yours.
     logprob_scale: float = Field(
         0.05, gt=0, description="multiplies the recogniser's natural-log score before the softmax"
     )
