@@ -47,13 +47,13 @@ class _Template:
     text: str
     where: str
     carrier: frozenset[str]
-    kinds: dict[str, str]  # regex group of each slot -> its entity type
+    slot_types: dict[str, str]  # regex group of each slot -> its entity type
     pattern: re.Pattern[str]
     loose: int = 0  # carrier words that may be any word
 
 
-def _marker(kind: str) -> str:
-    return "{" + kind + "}"
+def _marker(entity_type: str) -> str:
+    return "{" + entity_type + "}"
 
 
 Runs = dict[str, list[tuple[tuple[str, ...], str]]]  # first word -> (words, replacement), longest first
@@ -91,8 +91,8 @@ def marked_lines(templates: Iterable[tuple[str, Sequence[str]]],
                  slot_values: dict[str, list[str]] | None = None) -> list[tuple[str, tuple[str, ...]]]:
     """Distinct in-domain lines as (location, tokens), the lexicon's names and aliases in a
     literal line replaced by their ``{type}`` marker, as a slot of that type would be."""
-    names = runs_by_first_word((tuple(tokenize(value)), _marker(kind))
-                               for kind, values in (slot_values or {}).items() for value in values)
+    names = runs_by_first_word((tuple(tokenize(value)), _marker(entity_type))
+                               for entity_type, values in (slot_values or {}).items() for value in values)
     seen: set[tuple[str, ...]] = set()
     lines = []
     for where, tokens in templates:
@@ -113,20 +113,20 @@ class CarrierPhrases:
         self.lines = marked_lines(templates, slot_values)
         self._templates: list[_Template] = []
         for where, marked in self.lines:
-            kinds = {f"s{i}": m.group(1) for i, t in enumerate(marked) if (m := _SLOT.fullmatch(t))}
-            at_carrier = [i for i in range(len(marked)) if f"s{i}" not in kinds]
+            slot_types = {f"s{i}": m.group(1) for i, t in enumerate(marked) if (m := _SLOT.fullmatch(t))}
+            at_carrier = [i for i in range(len(marked)) if f"s{i}" not in slot_types]
             carrier = [marked[i] for i in at_carrier]
             if len(carrier) < min_carrier_words:
                 continue
             self._templates.append(_Template(text=" ".join(marked), where=where, carrier=frozenset(carrier),
-                                             kinds=kinds, pattern=self._compile(marked, max_slot_words)))
-            if loose_from and len(carrier) >= max(loose_from, 2) and kinds:  # a variant keeps a carrier word
+                                             slot_types=slot_types, pattern=self._compile(marked, max_slot_words)))
+            if loose_from and len(carrier) >= max(loose_from, 2) and slot_types:  # a variant keeps a carrier word
                 # Long lines also match with any one carrier word misheard ("he has the key for
                 # ..." against "who has the key for {place}").
                 for at in at_carrier:
                     rest = frozenset(marked[i] for i in at_carrier if i != at)
                     self._templates.append(_Template(
-                        text=" ".join(marked), where=where, carrier=rest, kinds=kinds,
+                        text=" ".join(marked), where=where, carrier=rest, slot_types=slot_types,
                         pattern=self._compile(marked, max_slot_words, loose=at), loose=1))
         # Each template is filed under its rarest carrier word: a text can only match templates
         # filed under one of its own words, so few patterns are ever tried.
@@ -190,7 +190,7 @@ class CarrierPhrases:
                     if words is None:
                         continue
                     start = line.count(" ", 0, match.start(name))
-                    found.append(Unfilled(type=template.kinds[name], words=words, template=template.text,
+                    found.append(Unfilled(type=template.slot_types[name], words=words, template=template.text,
                                           where=template.where, start=start, end=start + len(words.split(" "))))
                 if not found:
                     return []
@@ -205,11 +205,11 @@ class CarrierPhrases:
         """Tokens of ``text`` with each (start, end, type) entity span replaced by its marker."""
         tokens: list[str] = []
         at = 0
-        for start, end, kind in sorted(spans):
+        for start, end, entity_type in sorted(spans):
             if start < at:
                 continue  # overlapping spans: the first one stands
             tokens += tokenize(text[at:start])
-            tokens.append(_marker(kind))
+            tokens.append(_marker(entity_type))
             at = end
         tokens += tokenize(text[at:])
         return tokens
