@@ -4,7 +4,6 @@ code they describe, so a move must carry its links along)."""
 from __future__ import annotations
 
 import re
-from pathlib import Path
 
 from tests.paths import ROOT
 

@@ -8,7 +8,6 @@ so the zero-config form keeps working while stages are missing.
 
 from __future__ import annotations
 
-import copy
 import hashlib
 import sys
 from pathlib import Path
@@ -19,21 +18,6 @@ from relay.core.registry import Registry
 from relay.workbench.build_lm import build_model
 
 __all__ = ["default_config"]
-
-# Words that announce a person in workshop-style requests ("call ...", "book it for ...").
-# With them, person names are also looked for with a looser phone floor where the in-domain
-# LM agrees (the lexicon stage's anchored search); see stages/lexicon/README.md for the measured effect.
-_PERSON_HINTS = ["call", "page", "ask", "tell", "find", "message", "for", "with", "is", "remind",
-                 "let", "give", "get", "show", "buzz", "has", "does", "can", "seen", "grab", "put", "to"]
-# Machines are announced by their article and preposition ("on the {machine}", "book the ..."):
-# too common to be hints of the general search, so they only anchor the search for machine
-# names, which has a stricter floor of its own. Places and materials gained a point of exact
-# sets more but put the stage's p99 over 3 ms, so they are left to configurations that can afford it.
-_LEXICON_EXTRAS: dict[str, Any] = {"hints": {"person": _PERSON_HINTS},
-                                   "anchored": {"types": ["person", "machine"],
-                                                "hints": {"machine": ["the", "in", "on", "of"]},
-                                                "floors": {"machine": 0.72}}}
-
 
 def _available(registry: Registry, name: str) -> bool:
     try:
@@ -81,7 +65,10 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
         else:
             _note("stage lm_rescore is not installed; the default chain runs without it")
     if _available(registry, "lexicon"):
-        stages.append({"lexicon": copy.deepcopy(_LEXICON_EXTRAS)})
+        # Hints, anchors and the types searched after them come from the in-domain text (the
+        # lexicon stage reads them off the words before each slot), so nothing here is tied to
+        # one trade's phrasing.
+        stages.append("lexicon")
     else:
         _note("stage lexicon is not installed; the default chain runs without it")
     stages.append("gate")

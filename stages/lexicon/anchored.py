@@ -171,15 +171,17 @@ class AnchoredSearch:
     """Names of ``settings.types`` looked for right after their hint words, in the likeliest hypotheses."""
 
     def __init__(self, settings: AnchoredSettings, lexicon: CompiledLexicon, *, pronouncer: Pronouncer,
-                 costs: CostModel, hints: dict[str, set[str]], model: Any, cap: float) -> None:
+                 costs: CostModel, hints: dict[str, set[str]], model: Any, cap: float,
+                 types: Sequence[str], anchors: dict[str, list[str]]) -> None:
+        """``types`` and ``anchors`` are the settings' own when given, else read off the in-domain text."""
         self.settings = settings
         self.lexicon = lexicon
         self.pronouncer = pronouncer
         self.costs = costs
         self.model = model  # the in-domain language model, or None
         self.cap = cap  # gains are clipped to +-cap nats, so min_gain above it could never pass
-        self.forms = anchored_forms(lexicon, settings.types, min_phones=settings.min_phones)
-        self.hints = {entity_type: hints.get(entity_type, set()) | set(settings.hints.get(entity_type, ()))
+        self.forms = anchored_forms(lexicon, types, min_phones=settings.min_phones)
+        self.hints = {entity_type: hints.get(entity_type, set()) | set(anchors.get(entity_type, ()))
                       for entity_type in self.forms}
 
     def recall(self, utterance: Utterance, top: int, placed: list[Choice], blocked: list[dict[str, Any]],

@@ -18,6 +18,7 @@ from relay.core.errors import StageError
 from relay.core.stage import StageContext
 from relay.core.utterance import Correction, Entity, Utterance
 from stages.indomain.carriers import CarrierPhrases
+from stages.indomain.hints import slot_neighbours
 from stages.lexicon.anchored import AnchoredSearch
 from stages.lexicon.carrier import CarrierSearch
 from stages.lexicon.choice import Choice, describe
@@ -76,18 +77,29 @@ class LexiconStage:
             progress=self.context.progress, max_postings=s.match.max_postings)
         ids = {entry.id for entry in self.compiled.entries}
         affinity = read_speakers(self.speakers_path, ids) if self.speakers_path else {}
-        hints = {entity_type: set(words) for entity_type, words in s.hints.items()}
+        phrases = None
+        if self.carrier_path is not None:
+            phrases = CarrierPhrases.from_files(self.carrier_path, self.lexicon_path, loose_from=s.carrier.loose_from)
+        learned = slot_neighbours(line for _, line in phrases.lines) if phrases is not None else None
+        written = s.hints if s.hints is not None else learned.hints(
+            min_count=s.derive.hint_count, min_share=s.derive.hint_share) if learned else {}
+        hints = {entity_type: set(words) for entity_type, words in written.items()}
+        anchors = s.anchored.hints if s.anchored.hints is not None else learned.anchors(
+            min_count=s.derive.anchor_count, min_share=s.derive.anchor_share) if learned else {}
+        types = s.anchored.types
+        if s.anchored.hints is None:  # right after the type's hints and anchors
+            anchors = {t: sorted(set(anchors.get(t, ())) | set(written.get(t, ()))) for t in types}
+        self.learned = {"hints": written, "anchors": anchors, "types": types}
         self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
         common = {w for w, z in common_words().items() if z >= s.general.common_zipf}
         self.general = GeneralSearch(s, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
                                      common=common, hints=hints, affinity=affinity)
         self.anchored = None
-        if s.anchored.types:
-            self.anchored = AnchoredSearch(s.anchored, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
+        if types:
+            self.anchored = AnchoredSearch(s.anchored, self.compiled, types=types, anchors=anchors, pronouncer=self.pronouncer, costs=self.costs,
                                            hints=hints, model=self.lm, cap=s.context.cap)
         self.carrier = None
-        if self.carrier_path is not None:
-            phrases = CarrierPhrases.from_files(self.carrier_path, self.lexicon_path, loose_from=s.carrier.loose_from)
+        if phrases is not None:
             self.carrier = CarrierSearch(s.carrier, phrases, self.compiled, pronouncer=self.pronouncer,
                                          costs=self.costs, align_floor=s.anchored.align_floor)
 

@@ -31,15 +31,22 @@ def test_lexicon_stage_gets_the_models_path_and_loads_it(tmp_path: Path) -> None
     assert by_name["gate"].files["carrier phrases"] == train.resolve()  # type: ignore[attr-defined]
 
 
-def test_default_chain_carries_person_hints_and_slots(tmp_path: Path) -> None:
+def test_the_default_chain_reads_its_hints_off_the_in_domain_text(tmp_path: Path) -> None:
+    # No word list of any one trade is built in: hints come from what stands before each slot.
     lexicon = tmp_path / "lexicon.csv"
-    lexicon.write_text("id,type,name\nperson.mara_lind,person,mara lind\n")
-    raw = default_config(lexicon=lexicon, train=None, speakers=None, cache_dir=tmp_path / "cache")
-    params = {name: p for item in raw["stages"] if isinstance(item, dict) for name, p in item.items()}
-    assert "call" in params["lexicon"]["hints"]["person"]
-    anchored = params["lexicon"]["anchored"]
-    assert anchored["types"] == ["person", "machine"]
-    assert "text" not in raw["domain"]  # no in-domain text, no carrier phrases
-    assert anchored["floors"]["machine"] > anchored.get("min_phone", 0.68)  # stricter than persons'
+    lexicon.write_text("id,type,name\nperson.mara_lind,person,mara lind\nvessel.tern,vessel,tern\n")
+    train = tmp_path / "train.txt"
+    train.write_text("hail {person} on channel two\nhail {person} now\nlift {vessel} out\nlift {vessel} at noon\n"
+                     "please hail {person}\n")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DiscountFallbackWarning)  # a toy corpus has too few counts
+        raw = default_config(lexicon=lexicon, train=train, speakers=None, cache_dir=tmp_path / "cache")
+    assert "lexicon" in raw["stages"]  # no settings of its own
     chain = build_chain(config_from_dict(raw, base_dir=tmp_path))
     chain.load()
+    stage = dict(zip(chain.names, chain.stages))["lexicon"]
+    assert stage.learned["hints"] == {"person": ["hail"], "vessel": ["lift"]}  # type: ignore[attr-defined]
+    without_text = default_config(lexicon=lexicon, train=None, speakers=None, cache_dir=tmp_path / "cache")
+    chain = build_chain(config_from_dict(without_text, base_dir=tmp_path))
+    chain.load()
+    assert dict(zip(chain.names, chain.stages))["lexicon"].learned["hints"] == {}  # type: ignore[attr-defined]

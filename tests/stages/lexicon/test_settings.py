@@ -16,6 +16,8 @@ from tests.paths import WORKSHOP
 
 # The settings that kept their place at the top when the rest moved into groups.
 UNMOVED = {"lexicon", "speakers", "max_span_words", "trace_top"}
+# Settings added after the groups, which no flat name ever meant.
+ADDED = {"derive.hint_count", "derive.hint_share", "derive.anchor_count", "derive.anchor_share"}
 
 # The lexicon stage of examples/workshop/relay.yaml as it was written before the groups.
 WORKSHOP_FLAT = {
@@ -63,7 +65,7 @@ def sample(name: str, field: FieldInfo) -> Any:
         return Path(f"{name}.file")
     if annotation == list[str]:
         return ["person"]
-    if annotation == dict[str, list[str]]:
+    if annotation in (dict[str, list[str]], dict[str, list[str]] | None):
         return {"person": ["call"]}
     if annotation == dict[str, float]:
         return {"machine": 0.7}
@@ -71,7 +73,7 @@ def sample(name: str, field: FieldInfo) -> Any:
 
 
 def test_every_setting_either_stayed_at_the_top_or_has_its_old_name() -> None:
-    assert set(leaves()) == UNMOVED | set(OLD_NAMES.values())
+    assert set(leaves()) == UNMOVED | ADDED | set(OLD_NAMES.values())
     assert len(OLD_NAMES) + len(UNMOVED) == 47  # the flat settings the stage had
     assert len(set(OLD_NAMES.values())) == len(OLD_NAMES)  # no two old names share a place
 
