@@ -56,6 +56,11 @@ class Entity:
     span: tuple[int, int]  # character offsets in Utterance.text
     heard: str  # the words the recogniser produced for it
     score: float
+    # How the N-best backs it, for the gate (None where the finding stage does not say):
+    support: float | None = None  # posterior share of hypotheses that hold it, by a strong sound match
+    heard_exactly: float | None = None  # posterior share of hypotheses that hold its written form word for word
+    margin: float | None = None  # its lead over the next entry for the same words
+    origin: str | None = None  # which way of finding entries placed it
 
 
 @dataclass(slots=True)

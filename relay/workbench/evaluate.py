@@ -57,6 +57,7 @@ class Outcome:
     text: str = ""
     reference: str = ""
     first: str = ""
+    top: str = ""  # the hypothesis the chain chose, before the lexicon rewrote any of its words
     corrections: list[tuple[str, str]] = field(default_factory=list)
 
     @property
@@ -102,6 +103,7 @@ def run_corpus(chain: Chain, items: Iterable[CorpusItem], *, progress: bool = Fa
             text=utterance.text,
             reference=item.reference,
             first=first,
+            top=" ".join(utterance.best.tokens) if utterance.nbest else "",
             corrections=[(c.before, c.after) for c in utterance.corrections],
         ))
     return outcomes

@@ -44,6 +44,13 @@ FEATURES: tuple[str, ...] = (
     "unfilled_slots",     # 1 when an in-domain carrier phrase has a slot that no entity fills
     "line_edits",         # word edits from the finished text (entities marked) to the nearest in-domain line
     "asr_log_conf",       # natural log of the recogniser's own confidence (`conf`), when it gives one
+    "weakest_support",    # least posterior share of hypotheses holding an entity by a strong sound match
+    "weakest_heard",      # least posterior share of hypotheses holding an entity word for word
+    "weakest_lead",       # least lead of an entity over the runner-up entry for its words
+    "invented",           # corrections into an entity no hypothesis holds word for word
+    "rewritten",          # share of the result's words put there by corrections
+    "text_lm_relative",   # text_lm_per_word relative to the in-domain lines' own (standard deviations)
+    "line_edit_share",    # line_edits per word of the result
 )
 _LM_FLOOR = -30.0
 

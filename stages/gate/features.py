@@ -6,13 +6,16 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 from relay.core.utterance import Utterance
 from stages.indomain.carriers import CarrierPhrases
+from stages.indomain.text import read_sentences, read_slot_values
 from stages.lm.model import score_tokens
 
-__all__ = ["ASR_LOG_FLOOR", "GateFeatures", "judged_text", "marked_tokens", "recogniser_confidence"]
+__all__ = ["ASR_LOG_FLOOR", "GateFeatures", "backing", "judged_text", "line_scores", "marked_tokens",
+           "recogniser_confidence"]
 
 # The recogniser's confidence enters as a natural log, floored here: a sentence posterior that
 # underflowed to 0 must not become -inf (pocketsphinx's reach about -30 on noisy workshop audio).
@@ -41,6 +44,13 @@ class GateFeatures:
     unfilled_type: str | None = None  # that slot's entity type
     line_edits: int | None = None  # word edits to the nearest in-domain line; None: no carrier_text
     asr_log_conf: float | None = None  # ln of the highest `conf` the recogniser gave; None: it gave none
+    # How the N-best backs the entities (the lexicon stage's evidence); None without entities.
+    weakest_support: float | None = None  # least posterior share of hypotheses that hold an entity by sound
+    weakest_heard: float | None = None  # least posterior share of hypotheses that hold an entity word for word
+    weakest_lead: float | None = None  # least lead of an entity over the next entry for its words
+    invented: int = 0  # corrections into an entity that no hypothesis holds word for word
+    rewritten: float = 0.0  # share of the result's words that corrections put there
+    text_lm_relative: float | None = None  # text_lm_per_word in standard deviations from the in-domain lines'
 
     def values(self) -> dict[str, float | None]:
         """The numeric features by name, as ``stages.gate_confidence`` reads them."""
@@ -58,6 +68,14 @@ class GateFeatures:
             "unfilled_slots": None if self.unfilled_slots is None else float(self.unfilled_slots),
             "line_edits": None if self.line_edits is None else float(self.line_edits),
             "asr_log_conf": self.asr_log_conf,
+            # Without entities nothing is in doubt: the values a sure entity would have.
+            "weakest_support": 1.0 if self.weakest_support is None else self.weakest_support,
+            "weakest_heard": 1.0 if self.weakest_heard is None else self.weakest_heard,
+            "weakest_lead": 1.0 if self.weakest_lead is None else self.weakest_lead,
+            "invented": float(self.invented),
+            "rewritten": self.rewritten,
+            "text_lm_relative": self.text_lm_relative,
+            "line_edit_share": None if self.line_edits is None else self.line_edits / max(1, self.words),
         }
 
 
@@ -83,3 +101,29 @@ def judged_text(model: Any, words: list[str]) -> dict[str, Any]:
     likely word, and the words it has never seen."""
     score = score_tokens(model, words)
     return {"text_lm_per_word": score.per_word, "text_lm_weakest": score.weakest, "text_oov": score.oov}
+
+
+def backing(utterance: Utterance, words: int) -> dict[str, Any]:
+    """The entities' evidence as features: the weakest of each kind, corrections that invent."""
+    entities = utterance.entities
+    out: dict[str, Any] = {}
+    for name, attribute in (("weakest_support", "support"), ("weakest_heard", "heard_exactly"),
+                            ("weakest_lead", "margin")):
+        known = [value for e in entities if (value := getattr(e, attribute)) is not None]
+        out[name] = min(known) if known else None
+    corrected = {c.after for c in utterance.corrections}
+    out["invented"] = sum(1 for e in entities if e.name in corrected and not e.heard_exactly)
+    out["rewritten"] = sum(len(c.after.split()) for c in utterance.corrections) / max(1, words)
+    return out
+
+
+def line_scores(model: Any, text: Path, lexicon: Path | None) -> tuple[float, float] | None:
+    """Mean and standard deviation of the LM's natural log per word over the in-domain lines
+    (slots filled from the lexicon): how the model scores text it knows, to judge a result by."""
+    slots = read_slot_values(lexicon) if lexicon is not None else None
+    scores = [score_tokens(model, tokens).per_word for tokens in read_sentences([text], slots=slots)]
+    if len(scores) < 2:
+        return None
+    mean = sum(scores) / len(scores)
+    spread = (sum((s - mean) ** 2 for s in scores) / (len(scores) - 1)) ** 0.5
+    return mean, max(spread, 1e-3)

@@ -19,7 +19,14 @@ from pydantic import BaseModel
 from relay.core.errors import ConfigError
 from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
-from stages.gate.features import GateFeatures, judged_text, marked_tokens, recogniser_confidence
+from stages.gate.features import (
+    GateFeatures,
+    backing,
+    judged_text,
+    line_scores,
+    marked_tokens,
+    recogniser_confidence,
+)
 from stages.gate.prompts import prompt_for
 from stages.gate.rules import decide
 from stages.gate.safety import SafetyRule
@@ -60,6 +67,7 @@ class GateStage:
         self.lm: Any = None
         self.carriers: CarrierPhrases | None = None
         self.lines: NearestLine | None = None
+        self.line_lm: tuple[float, float] | None = None  # mean and spread of the in-domain lines' LM per word
         self.safety = SafetyRule(settings.safety_words, settings.safety_types,
                                  min_posterior=settings.safety_min_posterior)
 
@@ -69,6 +77,8 @@ class GateStage:
         if self.text_path is not None:
             self.carriers = CarrierPhrases.from_files(self.text_path, self.lexicon_path)
             self.lines = NearestLine(tokens for _, tokens in self.carriers.lines)
+        if self.lm is not None and self.text_path is not None:
+            self.line_lm = line_scores(self.lm, self.text_path, self.lexicon_path)
 
     def features(self, utterance: Utterance) -> GateFeatures:
         ranked = utterance.ranked()
@@ -81,6 +91,9 @@ class GateStage:
         text_lm: dict[str, Any] = {}
         if self.lm is not None:
             text_lm = judged_text(self.lm, words)
+            if self.line_lm is not None:
+                mean, spread = self.line_lm
+                text_lm["text_lm_relative"] = (text_lm["text_lm_per_word"] - mean) / spread
         marked = marked_tokens(utterance)
         in_domain: dict[str, Any] = {}
         if self.carriers is not None:
@@ -101,6 +114,7 @@ class GateStage:
             corrections=len(utterance.corrections),
             words=len(words),
             asr_log_conf=recogniser_confidence(utterance),
+            **backing(utterance, len(words)),
             **text_lm,
             **in_domain,
         )

@@ -232,7 +232,7 @@ class AnchoredSearch:
                 support = {order[i]: Sighting(m.phone, m.start, m.end, m.form, False)
                            for i, m in pooled.support.items()}
                 choice = Choice(Evidence(form.entry, pooled.pooled, support), match.phone, start, end,
-                                match.form, False, False, gain)
+                                match.form, False, False, gain, origin="anchored", margin=match.phone - match.runner_up)
                 if pooled.pooled < s.min_pooled:
                     reason = "slot_pooled"
                 elif match.phone - match.runner_up < s.margin:

@@ -9,14 +9,16 @@ and their matching are stages.indomain.carriers; this module fills what they lea
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
-from relay.core.utterance import Utterance
+from relay.core.utterance import Hypothesis, Utterance
 from stages.indomain.carriers import CarrierPhrases, Unfilled
 from stages.lexicon.anchored import AnchoredHypothesis, anchored_forms, anchored_matches
 from stages.lexicon.choice import Choice, likeliest
 from stages.lexicon.compile import CompiledLexicon
 from stages.lexicon.context import ContextScorer
+from stages.lexicon.heard import heard_belief
 from stages.lexicon.match import Evidence, Sighting
 from stages.lexicon.rewrite import map_span
 from stages.lexicon.settings import CarrierSettings
@@ -30,12 +32,13 @@ class CarrierSearch:
     """Fills the empty slots of the carrier phrases that match the likeliest hypotheses."""
 
     def __init__(self, settings: CarrierSettings, phrases: CarrierPhrases, lexicon: CompiledLexicon, *,
-                 pronouncer: Pronouncer, costs: CostModel, align_floor: float) -> None:
+                 pronouncer: Pronouncer, costs: CostModel, align_floor: float, zipf: dict[str, float]) -> None:
         self.settings = settings
         self.phrases = phrases
         self.lexicon = lexicon
         self.pronouncer = pronouncer
         self.costs = costs
+        self.zipf = zipf
         # Slot fills are aligned like the anchored search's spans, and screened with its floor.
         self.align_floor = align_floor
         self.forms = anchored_forms(lexicon, sorted({entry.type for entry in lexicon.entries}))
@@ -71,7 +74,7 @@ class CarrierSearch:
                 if empty.type in self.forms and (empty.type, empty.words) not in tried:
                     tried.add((empty.type, empty.words))  # the same words in another hypothesis: the same fill
                     attempts.append(self._fill(empty, hypothesis, heard, where[empty.start],
-                                               where[empty.end - 1] + 1, tokens, context))
+                                               where[empty.end - 1] + 1, tokens, context, nbest))
         # Each slot takes its best-aligned fill: best first, at a tie the likelier hypothesis (a
         # stable sort); a fill that overlaps one already placed is dropped.
         found: list[Choice] = []
@@ -86,14 +89,16 @@ class CarrierSearch:
         return found, notes
 
     def _fill(self, empty: Unfilled, hypothesis: int, heard: list[str], start: int, end: int,
-              tokens: list[str], context: ContextScorer | None) -> tuple[Choice | None, dict[str, Any]]:
+              tokens: list[str], context: ContextScorer | None,
+              nbest: Sequence[Hypothesis]) -> tuple[Choice | None, dict[str, Any]]:
         """The entry that best fits one empty slot, the words ``start:end`` of hypothesis
         ``hypothesis`` (``heard``), when it clears the carrier floor and margin; and the trace record."""
         s = self.settings
         lexicon = self.lexicon
         note: dict[str, Any] = {"template": empty.template, "where": empty.where, "heard": empty.words,
                                 "type": empty.type, "hypothesis": hypothesis}
-        phones = "".join(self.pronouncer.word(token) for token in heard[start:end])
+        slot_words = heard[start:end]
+        phones = "".join(self.pronouncer.word(token) for token in slot_words)
         heard_as_one = [AnchoredHypothesis([phones], [0])]  # the slot's words run together, one span
         matches = anchored_matches(heard_as_one, self.forms[empty.type], lexicon, self.costs,
                                    max_words=1, min_phone=0.0, align_floor=self.align_floor)
@@ -109,8 +114,10 @@ class CarrierSearch:
             return None, note | {"guard": "carrier_phone"}
         if match.phone - match.runner_up < s.margin:
             return None, note | {"guard": "carrier_margin"}
+        if s.heard_weight and match.phone < s.min_phone + s.heard_weight * heard_belief(slot_words, nbest, self.zipf):
+            return None, note | {"guard": "carrier_heard"}
         if end <= start:
             return None, note | {"guard": "overlap"}
         support = {hypothesis: Sighting(match.phone, start, end, match.form, False)}
         return Choice(Evidence(form.entry, match.phone, support), match.phone, start, end, match.form,
-                      False, False, gain), note
+                      False, False, gain, origin="carrier", margin=match.phone - match.runner_up), note

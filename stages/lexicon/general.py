@@ -13,10 +13,11 @@ import math
 from collections.abc import Sequence
 from typing import Any
 
-from relay.core.utterance import Utterance
-from stages.lexicon.choice import Choice, describe
+from relay.core.utterance import Hypothesis, Utterance
+from stages.lexicon.choice import Choice, describe, reading_otherwise, support
 from stages.lexicon.compile import CompiledLexicon
 from stages.lexicon.context import ContextScorer
+from stages.lexicon.heard import heard_belief
 from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon.rewrite import map_span
 from stages.lexicon.settings import LexiconSettings
@@ -30,19 +31,21 @@ class GeneralSearch:
     """Finds entries anywhere in the N-best; ``place`` keeps the ones its guards let through."""
 
     def __init__(self, settings: LexiconSettings, lexicon: CompiledLexicon, *, pronouncer: Pronouncer,
-                 costs: CostModel, common: set[str], hints: dict[str, set[str]],
+                 costs: CostModel, common: set[str], zipf: dict[str, float], hints: dict[str, set[str]],
                  affinity: dict[str, dict[str, float]]) -> None:
         self.settings = settings
         self.lexicon = lexicon
         self.pronouncer = pronouncer
         self.costs = costs
         self.common = common  # words at or above general.common_zipf
+        self.zipf = zipf  # every word of the common-word list with its Zipf frequency
         self.hints = hints
         self.affinity = affinity
         match = settings.match
         self.weights = Weights(match.weight_phone, match.weight_spelling, match.weight_keys, match.candidates,
                                match.min_retrieval, match.pair_floor, match.min_phone,
-                               align_floor=match.align_floor)
+                               align_floor=match.align_floor, broad_candidates=match.broad_candidates,
+                               broad_min_retrieval=match.broad_min_retrieval)
 
     def entries(self, utterance: Utterance, top: int) -> list[Evidence]:
         """The entries the N-best supports enough to be corrected or traced, strongest first."""
@@ -96,8 +99,10 @@ class GeneralSearch:
             score += (s.context.gain_weight if lm_gain > 0 else s.context.loss_weight) * lm_gain
         return Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain)
 
-    def place(self, choices: list[Choice], tokens: list[str]) -> tuple[list[Choice], list[dict[str, Any]]]:
-        """The choices that stand, and a trace record for each one a guard stopped."""
+    def place(self, choices: list[Choice], tokens: list[str],
+              nbest: Sequence[Hypothesis]) -> tuple[list[Choice], list[dict[str, Any]]]:
+        """The choices that stand, and a trace record for each one a guard stopped; ``tokens``
+        are the top hypothesis's, ``nbest`` the whole list."""
         exacts = sorted((c for c in choices if c.exact), key=lambda c: (c.start - c.end, -c.score))
         fuzzy = sorted((c for c in choices if not c.exact), key=lambda c: (-c.score, c.start - c.end))
         placed: list[Choice] = []
@@ -106,7 +111,7 @@ class GeneralSearch:
         # ("tamsin okorra" -> "tamsin okara") can supersede it; any other overlap with exact text
         # is blocked. Then the exact matches that remain free.
         for choice in fuzzy:
-            reason = self._guard(choice, placed, choices, exacts, tokens)
+            reason = self._guard(choice, placed, choices, exacts, tokens, nbest)
             if reason is None:
                 placed.append(choice)
             elif choice.score >= self.settings.match.pair_floor:
@@ -129,7 +134,7 @@ class GeneralSearch:
         return kept in " " + self.lexicon.forms[longer.form].text + " "
 
     def _guard(self, choice: Choice, placed: list[Choice], choices: list[Choice],
-               exacts: list[Choice], tokens: list[str]) -> str | None:
+               exacts: list[Choice], tokens: list[str], nbest: Sequence[Hypothesis]) -> str | None:
         """None when a correction may stand; else the name of the guard that stops it."""
         g = self.settings.general
         if choice.score < g.min_score:
@@ -154,4 +159,10 @@ class GeneralSearch:
             return "short_form"  # a few phones match many everyday words by chance ("for" -> "bay four")
         if choice.hint_missing and choice.score < g.min_score + g.hint_penalty:
             return "type_hint"  # a hinted type without its hint word needs general.hint_penalty more
+        if g.min_support and support(choice, nbest) < g.min_support:
+            return "weak_sound"  # priors alone must not carry a rewrite: some hypothesis must sound like it
+        if g.heard_weight and choice.score < g.min_score + g.heard_weight * heard_belief(
+                words, nbest, self.zipf, holding=reading_otherwise(choice, nbest, words)):
+            return "heard_right"
         return None
+

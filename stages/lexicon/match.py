@@ -26,7 +26,7 @@ from rapidfuzz.process import cpdist
 from relay.core.utterance import Hypothesis
 from stages.lexicon.compile import CompiledLexicon, Form, word_run_keys
 from stages.lexicon.sound.kernels import compiled
-from stages.lexicon.sound.phonetics import CostModel, batch_similarity
+from stages.lexicon.sound.phonetics import CostModel, batch_similarity, broad
 from stages.lexicon.sound.pronounce import Pronouncer
 
 __all__ = ["Evidence", "Sighting", "Spans", "Weights", "best_entries", "find_spans", "pool", "score_spans"]
@@ -42,6 +42,8 @@ class Weights:
     pair_floor: float  # pairs that cannot reach this score are dropped before the costlier signals
     min_phone: float  # pairs whose phones agree less than this are dropped whatever their spelling
     align_floor: float  # pairs below this unit-cost phone similarity are not aligned at all
+    broad_candidates: int = 0  # forms taken per span from the broad-class index as well (0: none)
+    broad_min_retrieval: float = 0.3
 
 
 @dataclass(slots=True)
@@ -128,11 +130,20 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
                 exact_pairs.add((number, form))
     hits = lexicon.index.search(spans.phones, k=weights.candidates,
                                 min_score=weights.min_retrieval)
+    queries, items = hits.query.tolist(), hits.item.tolist()
+    if weights.broad_candidates:
+        # A second way in: the same search over broad phone classes, for spans whose vowels or
+        # voicing the recogniser changed; a pair both ways find is kept once, where it came first.
+        more = lexicon.broad_index.search([broad(p) for p in spans.phones], k=weights.broad_candidates,
+                                          min_score=weights.broad_min_retrieval)
+        seen = set(zip(queries, items))
+        extra = [(q, f) for q, f in zip(more.query.tolist(), more.item.tolist()) if (q, f) not in seen]
+        queries += [q for q, _ in extra]
+        items += [f for _, f in extra]
     forms = lexicon.forms
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment; see stages/lexicon/README.md for how the threshold was chosen.
     screen = weights.align_floor
-    queries, items = hits.query.tolist(), hits.item.tolist()
     phones = spans.phones
     edit = cpdist([phones[q] for q in queries], [forms[f].phones for f in items],
                   scorer=Levenshtein.normalized_similarity, dtype=np.float64)

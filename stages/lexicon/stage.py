@@ -21,7 +21,7 @@ from stages.indomain.carriers import CarrierPhrases
 from stages.indomain.hints import slot_neighbours
 from stages.lexicon.anchored import AnchoredSearch
 from stages.lexicon.carrier import CarrierSearch
-from stages.lexicon.choice import Choice, describe
+from stages.lexicon.choice import Choice, describe, support
 from stages.lexicon.compile import CompiledLexicon, load_compiled
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.data import read_speakers
@@ -33,6 +33,19 @@ from stages.lexicon.sound.pronounce import Pronouncer, common_words
 from stages.lm.model import shared_model
 
 __all__ = ["LexiconSettings", "LexiconStage"]
+
+
+def _backing(choice: Choice, choices: list[Choice], utterance: Utterance) -> dict[str, Any]:
+    """How the N-best backs a placed entry: the gate reads these (Entity's evidence fields)."""
+    posteriors = [h.posterior for h in utterance.nbest]
+    sightings = choice.evidence.per_hypothesis
+    margin = choice.margin
+    if margin is None:
+        rivals = [c.score for c in choices if c.evidence.entry != choice.evidence.entry and c.overlaps(choice)]
+        margin = choice.score - max(rivals) if rivals else choice.score
+    return {"support": round(support(choice, utterance.nbest), 6),
+            "heard_exactly": round(sum(posteriors[h] for h, s in sightings.items() if s.exact), 6),
+            "margin": round(margin, 6), "origin": "exact" if choice.exact else choice.origin}
 
 
 class LexiconStage:
@@ -91,9 +104,10 @@ class LexiconStage:
             anchors = {t: sorted(set(anchors.get(t, ())) | set(written.get(t, ()))) for t in types}
         self.learned = {"hints": written, "anchors": anchors, "types": types}
         self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
-        common = {w for w, z in common_words().items() if z >= s.general.common_zipf}
+        zipf = common_words()
+        common = {w for w, z in zipf.items() if z >= s.general.common_zipf}
         self.general = GeneralSearch(s, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
-                                     common=common, hints=hints, affinity=affinity)
+                                     common=common, zipf=zipf, hints=hints, affinity=affinity)
         self.anchored = None
         if types:
             self.anchored = AnchoredSearch(s.anchored, self.compiled, types=types, anchors=anchors, pronouncer=self.pronouncer, costs=self.costs,
@@ -101,7 +115,7 @@ class LexiconStage:
         self.carrier = None
         if phrases is not None:
             self.carrier = CarrierSearch(s.carrier, phrases, self.compiled, pronouncer=self.pronouncer,
-                                         costs=self.costs, align_floor=s.anchored.align_floor)
+                                         costs=self.costs, align_floor=s.anchored.align_floor, zipf=zipf)
 
     def process(self, utterance: Utterance) -> Utterance:
         general = self.general
@@ -116,7 +130,7 @@ class LexiconStage:
         if self.lm is not None and (strong or self.anchored is not None or self.carrier is not None):
             context = ContextScorer(self.lm, tokens, cap=self.settings.context.cap)
         choices = [general.choose(e, utterance, top, context) for e in strong]
-        placed, blocked = general.place(choices, tokens)
+        placed, blocked = general.place(choices, tokens, utterance.nbest)
         if self.anchored is not None:
             placed += self.anchored.recall(utterance, top, placed, blocked, context)
         carrier: list[dict[str, Any]] = []
@@ -142,7 +156,8 @@ class LexiconStage:
             entry = lexicon.entries[choice.evidence.entry]
             heard = " ".join(tokens[start:end])
             score = min(1.0, max(0.0, choice.score))
-            utterance.entities.append(Entity(entry.id, entry.type, entry.name, span, heard, score))
+            utterance.entities.append(Entity(entry.id, entry.type, entry.name, span, heard, score,
+                                             **_backing(choice, choices, utterance)))
             if not choice.exact and heard != after:
                 corrections += 1
                 utterance.corrections.append(Correction(

@@ -25,6 +25,7 @@ __all__ = [
     "alignment_cost",
     "batch_alignment_cost",
     "batch_similarity",
+    "broad",
     "decode",
     "encode",
     "is_phone",
@@ -79,6 +80,20 @@ def is_phone(phone: str) -> bool:
 def encode(phones: Sequence[str]) -> str:
     """A phone sequence as a string, one character per phone (stress removed)."""
     return "".join(chr(_CHAR_BASE + _INDEX[strip_stress(p)]) for p in phones)
+
+
+# Broad classes for retrieval: every vowel one vowel, voiced and voiceless partners one consonant.
+# Recognisers blur vowels and voicing first ("hell sire" for halcyra), so strings that share
+# their broad-class n-grams are worth aligning even when their exact phone n-grams differ.
+_BROAD = {**{v: "AH" for v in _VOWELS}, "B": "P", "D": "T", "G": "K", "JH": "CH", "V": "F", "DH": "TH",
+          "Z": "S", "ZH": "SH"}
+_BROAD_CHARS = str.maketrans({chr(_CHAR_BASE + _INDEX[p]): chr(_CHAR_BASE + _INDEX[_BROAD.get(p, p)])
+                              for p in PHONES})
+
+
+def broad(text: str) -> str:
+    """An encoded phone string in broad classes (see ``_BROAD``), same encoding and length."""
+    return text.translate(_BROAD_CHARS)
 
 
 def decode(text: str) -> list[str]:

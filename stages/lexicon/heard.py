@@ -1,0 +1,59 @@
+"""The reading every correction competes with: the words were heard right.
+
+A speaker may say things the lexicon does not hold. Words heard the same way by the whole
+N-best ("first thing tomorrow" in every hypothesis), that are everyday words of the language,
+are likely what was said, however near they sound to an entry ("dunmorrow"). How likely is
+the product of two shares: how much of the N-best's probability holds exactly those words,
+and how common they are (their Zipf frequency, from the shipped common-word list, scaled to
+0 below ``RARE`` and 1 from ``COMMON``). A correction must then beat its search's floor by
+``weight`` times that belief.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Collection, Mapping, Sequence
+
+from relay.core.utterance import Hypothesis
+
+__all__ = ["COMMON", "RARE", "heard_belief"]
+
+RARE = 2.0  # below any word of the shipped list (it starts at Zipf 2.97): as likely a name as a word
+COMMON = 4.5  # about three times per hundred thousand words: everyday speech
+
+
+# English inflections, longest first: an inflected everyday word ("dusted", "pallets") is an
+# everyday word too, though the frequency list may hold only its stem.
+_SUFFIXES = ("ing", "ies", "ied", "es", "ed", "er", "s", "d", "y")
+
+
+def _frequency(word: str, zipf: Mapping[str, float]) -> float:
+    known = zipf.get(word)
+    if known is not None:
+        return known
+    for suffix in _SUFFIXES:
+        if word.endswith(suffix) and len(word) - len(suffix) >= 3:
+            stem = word[: -len(suffix)]
+            for candidate in (stem, stem + "e", stem + "y", stem[:-1] if stem[-1:] == stem[-2:-1] else stem):
+                if candidate in zipf:
+                    return zipf[candidate] - 0.5  # an inflected form is somewhat rarer than its stem
+    return 0.0
+
+
+def _commonness(word: str, zipf: Mapping[str, float]) -> float:
+    return min(1.0, max(0.0, (_frequency(word, zipf) - RARE) / (COMMON - RARE)))
+
+
+def heard_belief(words: Sequence[str], nbest: Sequence[Hypothesis], zipf: Mapping[str, float], *,
+                 holding: Collection[int] = ()) -> float:
+    """Belief in [0, 1] that ``words`` (a run of the top hypothesis) were said as heard.
+
+    ``holding`` are the hypotheses that read the words as part of the name ("pellow table saw"
+    around "table"), not as said; they do not count for the heard reading.
+    """
+    if not words:
+        return 0.0
+    run = list(words)
+    size = len(run)
+    agreement = sum(h.posterior for number, h in enumerate(nbest) if number not in holding
+                    and any(h.tokens[i:i + size] == run for i in range(len(h.tokens) - size + 1)))
+    return min(1.0, agreement) * sum(_commonness(w, zipf) for w in run) / size
