@@ -44,6 +44,9 @@ class Hypothesis:
     posterior: float = 0.0  # the relay's probability; sums to 1 over the list
     scores: dict[str, float] = field(default_factory=dict)  # natural-log scores by source
     merged: int = 1  # how many identical recogniser entries this one stands for
+    # Other ways to read the same text ("7.30" as a time); a stage that scores text may choose
+    # one and put it in ``tokens``. Empty when the text reads one way only.
+    readings: list[list[str]] = field(default_factory=list)
 
 
 @dataclass(slots=True)

@@ -54,7 +54,7 @@ class LmRescoreStage:
     name: ClassVar[str] = "lm_rescore"
     Settings: ClassVar[type[BaseModel]] = LmRescoreSettings
     needs: ClassVar[frozenset[str]] = frozenset({"tokens", "posterior"})
-    provides: ClassVar[frozenset[str]] = frozenset({"posterior", "lm_score"})
+    provides: ClassVar[frozenset[str]] = frozenset({"posterior", "lm_score", "tokens"})  # tokens: a number's reading
 
     def __init__(self, settings: LmRescoreSettings, *, context: StageContext) -> None:
         self.settings = settings
@@ -75,8 +75,15 @@ class LmRescoreStage:
         combined: list[float] = []
         lm_scores: list[float] = []
         oovs: list[int] = []
+        chosen = 0
         for hypothesis in utterance.nbest:
             lm = self.score(hypothesis.tokens)
+            for other in hypothesis.readings:
+                # The reading the in-domain text makes likeliest ("seven thirty" or "seven point three zero").
+                scored = self.score(other)
+                if scored.total > lm.total:
+                    lm, hypothesis.tokens, hypothesis.text = scored, other, " ".join(other)
+                    chosen += 1
             asr = hypothesis.scores.get(ASR_SCORE)
             if asr is None:
                 asr = math.log(max(hypothesis.posterior, _POSTERIOR_FLOOR))
@@ -89,5 +96,6 @@ class LmRescoreStage:
             oovs.append(lm.oov)
         for hypothesis, posterior in zip(utterance.nbest, softmax(combined)):
             hypothesis.posterior = posterior
-        utterance.note(lm=lm_scores, oov=oovs, combined=[round(c, 4) for c in combined])
+        utterance.note(lm=lm_scores, oov=oovs, combined=[round(c, 4) for c in combined],
+                       **({"readings_changed": chosen} if chosen else {}))
         return utterance

@@ -10,7 +10,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from relay.core.stage import StageContext
 from relay.core.utterance import Hypothesis, Utterance, score_key, softmax
-from stages.normalize.tokens import tokenize
+from stages.normalize.tokens import readings
 
 __all__ = ["ASR_SCORE", "NormalizeSettings", "NormalizeStage"]
 
@@ -66,11 +66,12 @@ class NormalizeStage:
         probabilities = softmax(log_scores)
         merged: dict[tuple[str, ...], Hypothesis] = {}
         for hypothesis, probability in zip(nbest, probabilities):
-            tokens = tokenize(hypothesis.text)
+            tokens, *others = readings(hypothesis.text)
             key = tuple(tokens)
             kept = merged.get(key)
             if kept is None:
                 hypothesis.tokens = tokens
+                hypothesis.readings = [tokens, *others] if others else []
                 hypothesis.text = " ".join(tokens)
                 hypothesis.posterior = probability
                 merged[key] = hypothesis

@@ -11,7 +11,7 @@ from __future__ import annotations
 import re
 import unicodedata
 
-__all__ = ["number_words", "tokenize"]
+__all__ = ["number_words", "readings", "tokenize"]
 
 _ONES = ["zero", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten", "eleven", "twelve", "thirteen", "fourteen", "fifteen", "sixteen", "seventeen", "eighteen", "nineteen"]
 _TENS = ["_", "_", "twenty", "thirty", "forty", "fifty", "sixty", "seventy", "eighty", "ninety"]
@@ -88,3 +88,42 @@ def tokenize(text: str) -> list[str]:
         text = _BARE_FRACTION.sub(lambda m: "0." + m.group(1), text)
     text = _NUMBER.sub(_spell_number, text)
     return _WORD.findall(text)
+
+
+# Numbers a recogniser may have written for a time of day: "7.30" (British clocks) and "1130"
+# (digits run together) read as "seven thirty" and "eleven thirty" as well as arithmetically.
+_CLOCKLIKE = re.compile(r"(?<![\d.,:])(?:(\d{1,2})\.(\d\d)|(\d{1,2})(\d\d))(?![\d:]|[.,]\d|st\b|nd\b|rd\b|th\b)")
+_MAX_READINGS = 4
+
+
+def _clock(match: re.Match[str]) -> str | None:
+    hours, minutes = (match.group(1), match.group(2)) if match.group(1) else (match.group(3), match.group(4))
+    if int(hours) > 23 or int(minutes) > 59 or (match.group(3) and int(hours) == 0):
+        return None
+    return f"{int(hours)}:{minutes}"
+
+
+def readings(text: str) -> list[list[str]]:
+    """The tokens of ``text``, and other readings of its numbers when they may be clock times.
+
+    The first reading is always ``tokenize(text)``; a text with no such number has only that.
+    Which one was said is for the in-domain language model to judge (stage `lm_rescore`).
+    """
+    first = tokenize(text)
+    spots = [m for m in _CLOCKLIKE.finditer(text) if _clock(m) is not None]
+    if not spots:
+        return [first]
+    out = [first]
+    for mask in range(1, 2 ** len(spots)):
+        if len(out) >= _MAX_READINGS:
+            break
+        pieces, at = [], 0
+        for bit, m in enumerate(spots):
+            pieces.append(text[at:m.start()])
+            pieces.append(_clock(m) if mask >> bit & 1 else m.group(0))  # type: ignore[arg-type]
+            at = m.end()
+        pieces.append(text[at:])
+        tokens = tokenize("".join(pieces))
+        if tokens not in out:
+            out.append(tokens)
+    return out

@@ -155,3 +155,24 @@ def test_settings_forbid_unknown_keys_and_registry_finds_the_stage() -> None:
     assert Registry(plugins=False).get("lm_rescore") is LmRescoreStage
     assert LmRescoreStage.needs == {"tokens", "posterior"}
     assert LmRescoreStage.provides == {"posterior", "lm_score"}
+
+
+def test_the_in_domain_model_chooses_how_a_number_is_read(tmp_path: Path) -> None:
+    # "10.15" is a decimal or a time; in-domain text that speaks of times decides.
+    (tmp_path / "train.txt").write_text("back in at ten fifteen\nback in at eleven thirty\nout at nine forty five\n")
+    from relay.workbench.build_lm import build_model
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DiscountFallbackWarning)
+        build_model(train=tmp_path / "train.txt", output=tmp_path / "lm.arpa")
+    context = _context(tmp_path)
+    chain = Chain([NormalizeStage(NormalizeSettings(), context=context),
+                   LmRescoreStage(LmRescoreSettings(model=Path("lm.arpa")), context=context)])
+    chain.load()
+    utterance = chain.process(_utterance({"text": "Back in at 10.15."}))
+    assert utterance.nbest[0].tokens == "back in at ten fifteen".split()
+    assert utterance.text == "back in at ten fifteen"
+    assert utterance.trace[-1].scores["readings_changed"] == 1
+    # A number that cannot be a time keeps its one reading.
+    utterance = chain.process(_utterance({"text": "back in at 10.75"}))
+    assert utterance.nbest[0].tokens == "back in at ten point seven five".split()

@@ -1,6 +1,6 @@
 import pytest
 
-from stages.normalize.tokens import number_words, tokenize
+from stages.normalize.tokens import number_words, readings, tokenize
 
 
 @pytest.mark.parametrize(
@@ -62,3 +62,17 @@ def test_number_words_agree_with_num2words() -> None:
         ordinal = num2words(value, to="ordinal").replace(",", "").replace("-", " ").replace(" and ", " ")
         assert tokenize(f"{value}th" if value % 10 not in (1, 2, 3) or value % 100 in (11, 12, 13) else
                         f"{value}{ {1: 'st', 2: 'nd', 3: 'rd'}[value % 10]}") == ordinal.split(), value
+
+
+@pytest.mark.parametrize(("text", "expected"), [
+    ("back in at 10.15.", ["back in at ten point one five", "back in at ten fifteen"]),
+    ("at 1130, please", ["at one thousand one hundred thirty please", "at eleven thirty please"]),
+    ("at 7.30 or 9.45", ["at seven point three zero or nine point four five", "at seven thirty or nine point four five",
+                         "at seven point three zero or nine forty five", "at seven thirty or nine forty five"]),
+    ("12.75 tonnes at 2.5%", ["twelve point seven five tonnes at two point five percent"]),  # no such clock
+    ("on the 23rd, 1,200 kilos", ["on the twenty third one thousand two hundred kilos"]),
+    ("version 1.2.3", ["version one point two three"]),
+])
+def test_numbers_that_may_be_clock_times_have_a_second_reading(text: str, expected: list[str]) -> None:
+    assert [" ".join(r) for r in readings(text)] == expected
+    assert readings(text)[0] == tokenize(text)
