@@ -154,7 +154,7 @@ def test_settings_forbid_unknown_keys_and_registry_finds_the_stage() -> None:
         LmRescoreSettings.model_validate({"model": "x.arpa", "lm_wieght": 1})
     assert Registry(plugins=False).get("lm_rescore") is LmRescoreStage
     assert LmRescoreStage.needs == {"tokens", "posterior"}
-    assert LmRescoreStage.provides == {"posterior", "lm_score"}
+    assert LmRescoreStage.provides == {"posterior", "lm_score", "tokens"}
 
 
 def test_the_in_domain_model_chooses_how_a_number_is_read(tmp_path: Path) -> None:
