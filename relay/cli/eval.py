@@ -15,6 +15,7 @@ from relay.core.config import build_chain
 from relay.core.errors import RehearError
 from relay.core.stage import deciding_stage
 from relay.workbench.evaluate import format_table, run_corpus, summarize
+from stages.gate.confidence import ConfidenceModel
 
 __all__ = ["add_parser", "run"]
 
@@ -41,6 +42,13 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     return _configure(parser)
 
 
+def _model_of(gate: object) -> ConfidenceModel | None:
+    """The deciding stage's confidence model, when it has one (a gate of another class may not)."""
+    settings = getattr(gate, "settings", None)
+    model = getattr(settings, "model", None)
+    return model() if callable(model) else None
+
+
 def run(args: argparse.Namespace) -> int:
     try:
         loaded = chosen_config(args)
@@ -59,7 +67,7 @@ def run(args: argparse.Namespace) -> int:
 
         gate = deciding_stage(chain.stages)
         write_report(args.report, outcomes, summary, title=f"rehear evaluation: {args.corpus.name} ({described})",
-                     confidence_model=getattr(getattr(gate, "settings", None), "confidence", None))
+                     confidence_model=_model_of(gate))
     return 0
 
 

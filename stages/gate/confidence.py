@@ -26,7 +26,8 @@ import numpy as np
 import numpy.typing as npt
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-__all__ = ["FEATURES", "ConfidenceModel", "FeatureWeight", "confidence", "fit_logistic", "fit_model", "sigmoid"]
+__all__ = ["FEATURES", "SIGNS", "ConfidenceModel", "FeatureWeight", "confidence", "contributions", "fit_logistic",
+           "fit_model", "sigmoid"]
 
 # The features a model may use, in a fixed order. Values from the language model are natural
 # logs and floored at _LM_FLOOR so one unknown word cannot dominate.
@@ -53,6 +54,16 @@ FEATURES: tuple[str, ...] = (
     "line_edit_share",    # line_edits per word of the result
 )
 _LM_FLOOR = -30.0
+# Which way each feature may move the confidence, where the direction is known before any data:
+# +1 the higher the surer, -1 the higher the less sure. ``fit_model(..., signs=SIGNS)`` drops a
+# feature whose fitted weight points the other way (collinear features can flip a sign, and a
+# correction made on thin evidence must never raise confidence).
+SIGNS: dict[str, int] = {
+    "posterior": 1, "margin": 1, "weakest_entity": 1, "corrections": -1, "lm_per_word": 1,
+    "text_lm_per_word": 1, "text_lm_weakest": 1, "text_oov": -1, "unfilled_slots": -1, "line_edits": -1,
+    "asr_log_conf": 1, "weakest_support": 1, "weakest_heard": 1, "weakest_lead": 1, "invented": -1,
+    "rewritten": -1, "text_lm_relative": 1, "line_edit_share": -1,
+}
 
 
 def sigmoid(value: float) -> float:
@@ -102,6 +113,16 @@ def confidence(values: Mapping[str, float | None], model: ConfidenceModel) -> fl
     return sigmoid(total)
 
 
+def contributions(values: Mapping[str, float | None], model: ConfidenceModel) -> dict[str, float]:
+    """Each feature's term in the model's log-odds for these values (0 for an unknown value)."""
+    out = {}
+    for name, term in model.features.items():
+        value = values.get(name)
+        known = value is not None and math.isfinite(value)
+        out[name] = term.weight * (_floored(name, value) - term.center) / term.scale if known else 0.0  # type: ignore[arg-type]
+    return out
+
+
 def fit_logistic(x: npt.NDArray[np.float64], y: npt.NDArray[np.float64], *, l2: float = 0.0,
                  iterations: int = 50, tolerance: float = 1e-10) -> tuple[float, npt.NDArray[np.float64]]:
     """(intercept, weights) maximising the log-likelihood minus ``l2``/2 * |weights|^2 (intercept free).
@@ -130,14 +151,27 @@ class _Column:
     values: npt.NDArray[np.float64]
 
 
-def fit_model(rows: Sequence[Mapping[str, float | None]], right: Sequence[bool], *, l2: float = 1.0) -> ConfidenceModel:
+def fit_model(rows: Sequence[Mapping[str, float | None]], right: Sequence[bool], *, l2: float = 1.0,
+              signs: Mapping[str, int] | None = None, features: Sequence[str] = FEATURES) -> ConfidenceModel:
     """A model fitted on feature values and whether each result's entities were right.
 
     Features that are missing everywhere or constant are left out; a value missing in some
-    rows is filled with the mean of the others.
+    rows is filled with the mean of the others. With ``signs``, a feature whose weight comes out
+    against its sign is dropped and the rest fitted again, the worst first, until none is left.
     """
+    chosen = list(features)
+    while True:
+        model = _fit(rows, right, l2=l2, features=chosen)
+        against = [n for n, t in model.features.items() if signs is not None and signs.get(n, 0) * t.weight < 0]
+        if not against:
+            return model
+        chosen.remove(min(against, key=lambda n: signs.get(n, 0) * model.features[n].weight))  # type: ignore[union-attr]
+
+
+def _fit(rows: Sequence[Mapping[str, float | None]], right: Sequence[bool], *, l2: float,
+         features: Sequence[str]) -> ConfidenceModel:
     columns: list[_Column] = []
-    for name in FEATURES:
+    for name in features:
         raw = np.array([np.nan if (v := row.get(name)) is None else _floored(name, float(v)) for row in rows])
         known = raw[np.isfinite(raw)]
         if known.size == 0 or float(known.std()) < 1e-9:

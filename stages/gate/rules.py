@@ -91,11 +91,14 @@ def _by_thresholds(features: GateFeatures, settings: GateSettings) -> tuple[Deci
     return "accept", "scores"
 
 
-def decide(features: GateFeatures, settings: GateSettings) -> tuple[Decision, str]:
-    """The decision and the rule that produced it, from features and settings alone."""
+def decide(features: GateFeatures, settings: GateSettings, *, sure: float | None = None) -> tuple[Decision, str]:
+    """The decision and the rule that produced it, from features and settings alone (``sure``:
+    the model's confidence when the caller has computed it already)."""
     decision, rule = _by_thresholds(features, settings)
-    if settings.confidence is not None and not features.empty:
-        sure = confidence(features.values(), settings.confidence)
+    model = settings.model()
+    if model is not None and not features.empty:
+        if sure is None:
+            sure = confidence(features.values(), model)
         if sure < settings.reprompt_confidence and SEVERITY[decision] < SEVERITY["reprompt"]:
             decision, rule = "reprompt", "low_confidence"
         elif sure < settings.accept_confidence and SEVERITY[decision] < SEVERITY["confirm"]:
@@ -103,4 +106,8 @@ def decide(features: GateFeatures, settings: GateSettings) -> tuple[Decision, st
     # The safety rule only ever makes the answer more cautious: asking again stays asking again.
     if features.safety_rule is not None and SEVERITY[decision] < SEVERITY["confirm"]:
         return "confirm", "safety:" + features.safety_rule
+    # A doubt with no entity to ask about would read the whole sentence back ("did you mean
+    # somebody spilled know over to?"), which nobody can answer: ask again instead.
+    if decision == "confirm" and features.entities == 0 and features.weakest_entity is None:
+        return "reprompt", rule
     return decision, rule

@@ -19,6 +19,7 @@ from pydantic import BaseModel
 from relay.core.errors import ConfigError
 from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
+from stages.gate.confidence import confidence, contributions
 from stages.gate.features import (
     GateFeatures,
     backing,
@@ -57,7 +58,10 @@ class GateStage:
         self.lexicon_path = context.domain_file("lexicon", settings.carrier_lexicon) if self.text_path else None
         self.files = {"language model": self.lm_path, "carrier phrases": self.text_path,
                      "carrier lexicon": self.lexicon_path}
-        used = set(settings.confidence.features) if settings.confidence else set()
+        # A model from the configuration must find what it reads; the shipped default counts a
+        # feature it cannot have as its training mean (a chain without in-domain text still works).
+        given = settings.confidence if settings.confidence != "default" else None
+        used = set(given.features) if given is not None else set()
         for needed, path, where in ((sorted(n for n in used if n.startswith("text_")), self.lm_path,
                                      "domain.language_model (or lm_model)"),
                                     (sorted(used & {"unfilled_slots", "line_edits"}), self.text_path,
@@ -121,8 +125,19 @@ class GateStage:
 
     def process(self, utterance: Utterance) -> Utterance:
         features = self.features(utterance)
-        decision, rule = decide(features, self.settings)
+        model = self.settings.model()
+        why: dict[str, Any] = {}
+        sure = None
+        if model is not None and not features.empty:
+            values = features.values()
+            sure = confidence(values, model)
+            terms = contributions(values, model)
+            # What weighed most, so a reader sees why: the three largest terms of the log-odds.
+            why = {"confidence": round(sure, 4), "accept_at": self.settings.accept_confidence,
+                   "reprompt_at": self.settings.reprompt_confidence,
+                   "weighed": {n: round(t, 3) for n, t in sorted(terms.items(), key=lambda i: -abs(i[1]))[:3]}}
+        decision, rule = decide(features, self.settings, sure=sure)
         utterance.decision = decision
         utterance.prompt = prompt_for(utterance, decision, rule, features, self.settings)
-        utterance.note(rule=rule, decision=decision, **{k: v for k, v in asdict(features).items()})
+        utterance.note(rule=rule, decision=decision, **why, **{k: v for k, v in asdict(features).items()})
         return utterance

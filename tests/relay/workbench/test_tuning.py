@@ -112,7 +112,7 @@ def test_vectorised_sweep_agrees_with_the_gate_decision() -> None:
         for row, thresholds in enumerate(grid):
             gate = dict(zip(DEFAULT_GATE_GRID, thresholds.tolist()))
             gate["accept_without_entity"] = bool(gate["accept_without_entity"])
-            settings = gate_settings(GateSettings(), {**gate, "min_lm_per_word": min_lm})
+            settings = gate_settings(GateSettings(), {**gate, "min_lm_per_word": min_lm, "confidence": None})
             expected = [decide(o.gate, settings)[0] == "accept" for o in outcomes if o.gate is not None]
             assert accepts[row].tolist() == expected
 
@@ -122,7 +122,8 @@ def test_fit_keeps_within_the_clarification_budget_and_cuts_wrong_accepts() -> N
     recorded = [RecordedFeatures(outcomes)]
     train = np.arange(400)
     everything = Choice(0, {"accept_posterior": 0.0, "accept_margin": 0.0, "accept_entity": 0.0,
-                            "accept_correction": 0.0, "accept_without_entity": True, "min_lm_per_word": None})
+                            "accept_correction": 0.0, "accept_without_entity": True, "min_lm_per_word": None,
+                            "confidence": None})
     baseline = held_out_summary([outcomes], [_result(everything, train)], GateSettings(safety_words=[]))
     choice = fit(recorded, train, max_clarify=0.4)
     tuned = held_out_summary([outcomes], [_result(choice, train)], GateSettings())

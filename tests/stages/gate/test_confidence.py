@@ -101,3 +101,27 @@ def test_sigmoid_is_stable_at_the_extremes() -> None:
     assert sigmoid(-800.0) == 0.0
     assert sigmoid(800.0) == 1.0
     assert sigmoid(0.0) == 0.5
+
+
+def test_the_shipped_default_model_leans_the_known_way_on_every_feature() -> None:
+    from stages.gate.confidence import SIGNS
+    from stages.gate.settings import GateSettings, default_confidence
+
+    model = default_confidence()
+    assert GateSettings().model() == model  # used when a configuration names none
+    assert GateSettings(confidence=None).model() is None
+    assert len(model.features) >= 5
+    for name, term in model.features.items():
+        assert SIGNS.get(name, 0) * term.weight >= 0, f"{name} leans against its known direction"
+
+
+def test_fit_model_drops_a_feature_that_comes_out_against_its_sign() -> None:
+    # "invented" rises with rightness in this made-up data; held to its sign (-1) it is dropped,
+    # not given a weight that would make an invented correction raise confidence.
+    rng = np.random.default_rng(3)
+    right = rng.random(300) < 0.6
+    rows = [{"posterior": float(r) * 0.5 + float(rng.random()) * 0.5, "invented": float(r)} for r in right]
+    free = fit_model(rows, right.tolist())
+    assert free.features["invented"].weight > 0
+    held = fit_model(rows, right.tolist(), signs={"invented": -1, "posterior": 1})
+    assert "invented" not in held.features and held.features["posterior"].weight > 0

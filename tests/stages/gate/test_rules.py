@@ -36,7 +36,8 @@ def test_vectorised_sweep_accepts_exactly_where_decide_accepts() -> None:
         swept = gate_accepts(recorded, grid, min_lm)
         for r, row in enumerate(grid):
             settings = GateSettings.model_validate(
-                _thresholds(row) | {"min_lm_per_word": min_lm, "reprompt_posterior": 0.0, "reprompt_entity": 0.0})
+                _thresholds(row) | {"min_lm_per_word": min_lm, "reprompt_posterior": 0.0, "reprompt_entity": 0.0,
+                                    "confidence": None})
             one_by_one = [decide(f, settings)[0] == "accept" for f in features]
             assert swept[r].tolist() == one_by_one, f"row {row} min_lm {min_lm}"
     assert swept.any() and not swept.all()  # the grid holds accepting and asking rows

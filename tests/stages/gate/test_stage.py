@@ -40,8 +40,15 @@ def machine(score: float, name: str = "corvin bandsaw") -> Entity:
     return Entity(id="machine.x", type="machine", name=name, span=(0, len(name)), heard="carving band saw", score=score)
 
 
+# The hand thresholds these tests exercise (the gate's defaults before the shipped confidence),
+# with no learned confidence unless a test gives one.
+HAND: dict[str, object] = {"accept_posterior": 0.6, "accept_margin": 0.2, "accept_entity": 0.5,
+                           "accept_correction": 0.8, "reprompt_posterior": 0.2, "reprompt_entity": 0.2,
+                           "confidence": None, "accept_confidence": 0.5, "reprompt_confidence": 0.15}
+
+
 def gate(**settings: object) -> GateStage:
-    return GateStage(GateSettings.model_validate(settings), context=CONTEXT)
+    return GateStage(GateSettings.model_validate(HAND | settings), context=CONTEXT)
 
 
 def test_confident_result_with_strong_entity_is_accepted() -> None:
@@ -71,11 +78,11 @@ def test_type_nouns_and_per_type_prompts_apply() -> None:
     assert stage.process(make_utterance([0.9, 0.1], entities=[person])).prompt == "Who do you mean?"
 
 
-def test_narrow_margin_confirms_the_whole_text() -> None:
+def test_a_doubt_with_no_entity_to_ask_about_asks_again_instead_of_reading_the_text_back() -> None:
     stage = gate(accept_posterior=0.5, accept_margin=0.3)
     utterance = stage.process(make_utterance([0.62, 0.38], ["book the lathe", "look the lathe"]))
-    assert utterance.decision == "confirm"
-    assert utterance.prompt == "Did you mean book the lathe?"
+    assert utterance.decision == "reprompt"
+    assert utterance.prompt == "Sorry, could you say that again?"
     assert utterance.trace[-1].scores["rule"] == "margin"
     assert utterance.trace[-1].scores["margin"] == pytest.approx(0.24)
 
@@ -136,12 +143,14 @@ def test_safety_rule_never_relaxes_a_reprompt() -> None:
 def test_low_language_model_score_confirms_when_configured() -> None:
     assert gate().process(make_utterance([0.9, 0.1], lm_per_word=-9.0)).decision == "accept"
     utterance = gate(min_lm_per_word=-6.0).process(make_utterance([0.9, 0.1], lm_per_word=-9.0))
-    assert utterance.decision == "confirm"
+    assert utterance.decision == "reprompt"  # in doubt, and no entity to ask about
+    assert utterance.trace[-1].scores["rule"] == "lm_per_word"
     assert utterance.trace[-1].scores["lm_per_word"] == -9.0
 
 
 def test_result_without_entity_can_be_sent_back() -> None:
-    assert gate(accept_without_entity=False).process(make_utterance([0.9, 0.1])).decision == "confirm"
+    utterance = gate(accept_without_entity=False).process(make_utterance([0.9, 0.1]))
+    assert (utterance.decision, utterance.trace[-1].scores["rule"]) == ("reprompt", "no_entity")
 
 
 def test_empty_text_asks_again() -> None:
@@ -151,8 +160,8 @@ def test_empty_text_asks_again() -> None:
 def test_decide_is_a_pure_function_of_features() -> None:
     features = GateFeatures(posterior=0.7, margin=0.5, weakest_entity=0.55, corrected=False,
                             correction_score=None, lm_per_word=None, safety_rule=None, empty=False)
-    assert decide(features, GateSettings()) == ("accept", "scores")
-    assert decide(features, GateSettings(accept_entity=0.6)) == ("confirm", "entity")
+    assert decide(features, GateSettings.model_validate(HAND)) == ("accept", "scores")
+    assert decide(features, GateSettings.model_validate(HAND | {"accept_entity": 0.6})) == ("confirm", "entity")
 
 
 @pytest.mark.parametrize("settings,message", [
@@ -167,7 +176,7 @@ def test_invalid_settings_are_rejected(settings: dict[str, object], message: str
 
 def test_gate_runs_in_a_chain_built_from_yaml(tmp_path: Path) -> None:
     config = tmp_path / "relay.yaml"
-    config.write_text("stages:\n  - normalize\n  - gate:\n      accept_posterior: 0.7\n")
+    config.write_text("stages:\n  - normalize\n  - gate:\n      accept_posterior: 0.7\n      confidence: null\n")
     chain = build_chain(load_config(config))
     assert Registry().get("gate") is GateStage
     chain.load()
@@ -212,7 +221,7 @@ def test_confidence_accepts_confirms_or_asks_again() -> None:
     stage.load()
     # sigmoid(2) = 0.88 with no unknown word, sigmoid(0.5) = 0.62 with one, sigmoid(-1) = 0.27, sigmoid(-2.5) = 0.08.
     for text, decision, rule in (("book the lathe", "accept", "scores"), ("book the quux", "accept", "scores"),
-                                 ("quux the quuz", "confirm", "confidence"),
+                                 ("quux the quuz", "reprompt", "confidence"),  # no entity to confirm
                                  ("quux quuz quuv", "reprompt", "low_confidence")):
         utterance = stage.process(make_utterance([0.9, 0.1], [text, "other"]))
         assert (utterance.decision, utterance.trace[-1].scores["rule"]) == (decision, rule), text
@@ -223,7 +232,7 @@ def test_the_more_cautious_of_thresholds_and_confidence_wins() -> None:
     stage.load()
     # Confident by the model, but the posterior threshold asks: thresholds still apply.
     utterance = stage.process(make_utterance([0.9, 0.1], ["book the lathe", "other"]))
-    assert utterance.decision == "confirm"
+    assert utterance.decision == "reprompt"  # confirm, but no entity to confirm: asked again
     assert utterance.trace[-1].scores["rule"] == "posterior"
     # And the safety rule is above both.
     stage = gate(**_oov_model(accept_posterior=0.0, accept_entity=0.0, accept_correction=0.0,
@@ -342,3 +351,36 @@ def test_the_recognisers_own_confidence_is_a_feature_as_a_log() -> None:
     # A posterior that underflowed to 0 is floored, not -inf.
     utterance.payload = {"nbest": [{"text": "x", "conf": 0.0}]}
     assert gate().features(utterance).asr_log_conf == ASR_LOG_FLOOR
+
+
+def _default_gate() -> GateStage:
+    stage = GateStage(GateSettings(), context=CONTEXT)  # the shipped confidence, nothing configured
+    stage.load()
+    return stage
+
+
+def test_the_trace_says_how_sure_the_gate_was_and_what_weighed_most() -> None:
+    text = "book the corvin bandsaw"
+    entity = Entity(id="machine.x", type="machine", name="corvin bandsaw", span=(9, 23), heard="corvin bandsaw",
+                    score=0.97, support=1.0, heard_exactly=1.0, margin=0.6, origin="exact")
+    scores = _default_gate().process(make_utterance([0.9, 0.1], [text, "look the corvin bandsaw"],
+                                                    entities=[entity])).trace[-1].scores
+    assert 0.0 < scores["confidence"] < 1.0
+    assert scores["accept_at"] == GateSettings().accept_confidence
+    assert len(scores["weighed"]) == 3 and all(isinstance(v, float) for v in scores["weighed"].values())
+
+
+def test_a_correction_no_hypothesis_heard_lowers_confidence() -> None:
+    # The same result, once as the recogniser heard it word for word and once as a rewrite that
+    # no hypothesis holds on thin sound evidence: the second must not be surer.
+    text = "book the corvin bandsaw"
+    heard = Entity(id="machine.x", type="machine", name="corvin bandsaw", span=(9, 23), heard="corvin bandsaw",
+                   score=0.9, support=1.0, heard_exactly=1.0, margin=0.5, origin="exact")
+    invented = Entity(id="machine.x", type="machine", name="corvin bandsaw", span=(9, 23), heard="carving",
+                      score=0.9, support=0.0, heard_exactly=0.0, margin=0.05, origin="general")
+    fix = Correction(stage="lexicon", before="carving", after="corvin bandsaw", score=0.9, reason="phonetic")
+    gate_ = _default_gate()
+    sure = gate_.process(make_utterance([0.9, 0.1], [text, "x"], entities=[heard])).trace[-1].scores["confidence"]
+    unsure = gate_.process(make_utterance([0.9, 0.1], [text, "x"], entities=[invented],
+                                          corrections=[fix])).trace[-1].scores["confidence"]
+    assert unsure < sure

@@ -1,0 +1,116 @@
+"""The gate's default confidence: the recipe that fits it on labelled corpora, and how well it holds
+on a corpus it was not fitted on.
+
+The recipe: run the default chain (built from each scenario's own files) over every labelled
+corpus given, record the gate's features and whether each result's entities came out right,
+and fit the logistic confidence on the features whose meaning does not depend on the domain
+(shares, lead, in-domain fluency relative to the domain's own lines, the recogniser's own
+confidence), each held to the direction it is known to push (``stages.gate.confidence.SIGNS``).
+``scripts/fit_default_gate.py`` runs it on the shipped examples and writes the model the gate
+uses when a configuration has none of its own.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from relay.core.config import build_chain
+from relay.workbench.corpus import read_corpus
+from relay.workbench.defaults import default_config
+from relay.workbench.evaluate import run_corpus
+from relay.workbench.variants import config_from_dict, with_overrides
+from stages.gate.confidence import SIGNS, ConfidenceModel, confidence, fit_model
+
+__all__ = ["TRANSFERABLE", "Row", "calibration_error", "fit_default", "record", "transfer"]
+
+# Features whose scale means the same in any domain and for any recogniser. The in-domain LM's
+# absolute per-word scores are left out (their scale is the domain's: text_lm_relative carries
+# the same information relative to the domain's own lines).
+TRANSFERABLE: tuple[str, ...] = (
+    "posterior", "margin", "weakest_entity", "entities", "corrections", "text_lm_relative", "text_lm_weakest",
+    "text_oov", "unfilled_slots", "line_edit_share", "asr_log_conf", "weakest_support", "weakest_heard",
+    "weakest_lead", "invented", "rewritten",
+)
+
+
+@dataclass(frozen=True, slots=True)
+class Row:
+    """One recorded result: where it came from, its gate features, and whether it was right."""
+
+    scenario: str
+    corpus: str
+    snr_db: Any
+    values: dict[str, float | None]
+    right: bool
+    blocked: bool  # the safety rule or an empty result asks back whatever the confidence
+    tags: dict[str, Any] = field(default_factory=dict)
+
+
+def record(folders: Iterable[Path], corpora: Sequence[str], *, cache_dir: Path) -> list[Row]:
+    """Rows for every utterance of each folder's corpora (those that exist), default chain."""
+    rows: list[Row] = []
+    for folder in folders:
+        raw = default_config(lexicon=folder / "lexicon.csv", train=folder / "train.txt",
+                             speakers=folder / "speakers.csv" if (folder / "speakers.csv").exists() else None,
+                             cache_dir=cache_dir)
+        raw = with_overrides(raw, {"gate": {"confidence": None}})  # features do not depend on it
+        chain = build_chain(config_from_dict(raw, base_dir=folder))
+        chain.load()
+        for name in corpora:
+            if not (folder / name).exists():
+                continue
+            items = read_corpus(folder / name)
+            for item, outcome in zip(items, run_corpus(chain, items)):
+                gate = outcome.gate
+                if gate is None:
+                    continue
+                rows.append(Row(folder.name, name, item.tags.get("snr_db"), gate.values(), outcome.entity_ok,
+                                gate.safety_rule is not None or gate.empty, dict(item.tags)))
+    return rows
+
+
+def fit_default(rows: Sequence[Row]) -> ConfidenceModel:
+    """The recipe's model fitted on ``rows``."""
+    return fit_model([r.values for r in rows], [r.right for r in rows], signs=SIGNS, features=TRANSFERABLE)
+
+
+def calibration_error(probabilities: Sequence[float], right: Sequence[bool], *, bins: int = 10) -> float:
+    """Expected calibration error: the share-weighted gap between mean confidence and the rate of
+    right results, over equal-width confidence bins."""
+    p = np.asarray(probabilities, dtype=float)
+    y = np.asarray(right, dtype=float)
+    total = 0.0
+    edges = np.linspace(0.0, 1.0, bins + 1)
+    for number, (low, high) in enumerate(zip(edges[:-1], edges[1:])):
+        inside = (p >= low) & ((p < high) if number < bins - 1 else (p <= high))
+        if inside.any():
+            total += inside.mean() * abs(p[inside].mean() - y[inside].mean())
+    return float(total)
+
+
+def transfer(model: ConfidenceModel, rows: Sequence[Row], *, accept: float) -> dict[str, float]:
+    """How the model does on ``rows``: AUC, calibration error, Brier score, and with ``accept`` as
+    the threshold the share accepted, asked back from doubt, and wrong accepts (of accepted, of all)."""
+    p = np.array([confidence(r.values, model) for r in rows])
+    y = np.array([r.right for r in rows])
+    blocked = np.array([r.blocked for r in rows])
+    accepted = (p >= accept) & ~blocked
+    order = np.argsort(p, kind="stable")
+    ranks = np.empty(len(p))
+    ranks[order] = np.arange(1, len(p) + 1)
+    positives, negatives = int(y.sum()), int(len(y) - y.sum())
+    auc = (ranks[y].sum() - positives * (positives + 1) / 2) / max(1, positives * negatives)
+    return {
+        "utterances": float(len(rows)), "right": float(y.mean()) if len(y) else math.nan, "auc": float(auc),
+        "ece": calibration_error(p.tolist(), y.tolist()), "brier": float(np.mean((p - y) ** 2)),
+        "accepted": float(accepted.mean()), "asked_doubt": float(((p < accept) & ~blocked).mean()),
+        "asked_policy": float(blocked.mean()),
+        "wrong_accepts": float((accepted & ~y).sum() / max(1, accepted.sum())),
+        "wrong_accepts_of_all": float((accepted & ~y).mean()),
+    }
