@@ -14,7 +14,7 @@ from relay.cli.corpus_args import add_corpus_arguments, chosen_config, report_er
 from relay.core.config import build_chain
 from relay.core.errors import RehearError
 from relay.core.stage import deciding_stage
-from relay.workbench.evaluate import format_table, run_corpus, summarize
+from relay.workbench.evaluate import format_table, result_line, run_corpus, summarize
 from stages.gate.confidence import ConfidenceModel
 
 __all__ = ["add_parser", "run"]
@@ -30,7 +30,11 @@ from the reference); the share of accepted results with any word error; latency 
 
 def _configure(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
     add_corpus_arguments(parser)
-    parser.add_argument("--json", type=Path, metavar="OUT", help="also write the main numbers as JSON")
+    parser.add_argument("--json", type=Path, metavar="OUT", help="also write the main numbers as JSON (with the "
+                        "counts of accepted results and wrong accepts, and the confidence's NCE, ECE and Brier score)")
+    parser.add_argument("--results", type=Path, metavar="OUT.jsonl",
+                        help="also write one line per utterance: id, reference, first hypothesis, text sent on, "
+                        "entities found and expected, decision, rule, confidence, right")
     parser.add_argument("--report", type=Path, metavar="OUT.html",
                         help="also write an HTML report with plots (needs matplotlib)")
     return parser
@@ -62,6 +66,8 @@ def run(args: argparse.Namespace) -> int:
     print(format_table(summary, title=f"{args.corpus} ({described}), chain: {' -> '.join(chain.names)}"))
     if args.json is not None:
         args.json.write_bytes(orjson.dumps(summary.to_json(), option=orjson.OPT_INDENT_2) + b"\n")
+    if args.results is not None:
+        args.results.write_bytes(b"".join(orjson.dumps(result_line(o)) + b"\n" for o in outcomes))
     if args.report is not None:
         from relay.workbench.report import write_report  # matplotlib loads only when a report is asked for
 

@@ -8,6 +8,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
+import orjson
 import yaml
 
 from relay.cli.corpus_args import add_corpus_arguments, chosen_config, report_error, selected_items
@@ -20,8 +21,9 @@ __all__ = ["add_parser", "run"]
 
 DESCRIPTION = """\
 Tune the chain on a labelled corpus: language-model weights, lexicon thresholds and the gate
-are chosen to make the fewest wrong accepts while asking back at most --max-clarify of the
-utterances (then the lowest WER). Expensive stages run once per parameter setting; the gate
+are chosen to make the fewest wrong accepts while asking back from doubt at most --max-clarify
+of the utterances (then the lowest WER); what the safety rule asks back is policy and comes on
+top. Expensive stages run once per parameter setting; the gate
 is fitted on the recorded scores two ways - its hand thresholds swept, and a learned
 confidence (logistic regression on all the gate's features, including how the in-domain LM
 judges the finished text) with its threshold swept - and the better one on the training
@@ -51,7 +53,10 @@ def _configure(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
     add_corpus_arguments(parser)
     parser.add_argument("-o", "--output", type=Path, required=True, metavar="TUNED.yaml", help="configuration to write")
     parser.add_argument("--max-clarify", type=_share, default=0.25, metavar="SHARE",
-                        help="most utterances that may be asked back, confirm + reprompt (default %(default)s)")
+                        help="most utterances the gate may ask back from doubt, confirm + reprompt, not counting "
+                        "the safety rule's (default %(default)s)")
+    parser.add_argument("--json", type=Path, metavar="OUT",
+                        help="also write the held-out numbers (pooled and per fold) as JSON")
     parser.add_argument("--folds", type=int, default=5, help="cross-validation folds (default %(default)s)")
     parser.add_argument("--seed", type=int, default=20261202, help="seed for folds and sampling (default %(default)s)")
     parser.add_argument("--space", type=Path, metavar="SPACE.yaml",
@@ -94,8 +99,13 @@ def run(args: argparse.Namespace) -> int:
     print(format_table(held_out, title=f"held-out folds pooled, {args.corpus} ({described}):"))
     header = (f"# rehear tune on {args.corpus} ({described}), {args.folds}-fold held-out: "
               f"WER {held_out.wer_relay:.1%}, wrong accepts {held_out.wrong_accept_rate:.1%}, "
-              f"asked back {held_out.clarify_rate:.1%} (budget {args.max_clarify:.0%})\n")
+              f"asked back {held_out.clarify_rate:.1%}, {held_out.asked_doubt:.1%} from doubt "
+              f"(budget {args.max_clarify:.0%})\n")
     args.output.write_text(header + yaml.safe_dump(result.config, sort_keys=False), encoding="utf-8")
+    if args.json is not None:
+        document = {"held_out": held_out.to_json(), "folds": [fold.score.to_json() for fold in result.folds],
+                    "max_clarify": args.max_clarify, "settings_tried": len(result.settings)}
+        args.json.write_bytes(orjson.dumps(document, option=orjson.OPT_INDENT_2) + b"\n")
     print(f"wrote {args.output}")
     return 0
 

@@ -22,7 +22,8 @@ from relay.workbench.corpus import CorpusItem
 from stages.gate.features import GateFeatures
 from stages.normalize.tokens import tokenize
 
-__all__ = ["Outcome", "Summary", "edit_distance", "run_corpus", "summarize", "word_errors"]
+__all__ = ["Outcome", "Summary", "calibration_error", "confidence_quality", "edit_distance", "result_line",
+           "run_corpus", "summarize", "word_errors"]
 
 DECISIONS: tuple[Decision, ...] = ("accept", "confirm", "reprompt")
 
@@ -58,6 +59,8 @@ class Outcome:
     reference: str = ""
     first: str = ""
     top: str = ""  # the hypothesis the chain chose, before the lexicon rewrote any of its words
+    confidence: float | None = None  # the gate's confidence that the entities are right, when it has one
+    rule: str | None = None  # the gate's rule behind the decision
     corrections: list[tuple[str, str]] = field(default_factory=list)
 
     @property
@@ -69,6 +72,14 @@ def _gate_of(chain: Chain) -> Any:
     """The stage that decides (provides "decision"), when it can say why (has ``features``)."""
     stage = deciding_stage(chain.stages)
     return stage if callable(getattr(stage, "features", None)) else None
+
+
+def _traced(utterance: Any, stage: Any, key: str) -> Any:
+    """A value the deciding stage wrote into its trace entry, or None."""
+    if stage is None:
+        return None
+    entry = next((t for t in reversed(utterance.trace) if t.stage == stage.name), None)
+    return None if entry is None else entry.scores.get(key)
 
 
 def run_corpus(chain: Chain, items: Iterable[CorpusItem], *, progress: bool = False,
@@ -104,9 +115,19 @@ def run_corpus(chain: Chain, items: Iterable[CorpusItem], *, progress: bool = Fa
             reference=item.reference,
             first=first,
             top=" ".join(utterance.best.tokens) if utterance.nbest else "",
+            confidence=_traced(utterance, gate, "confidence"),
+            rule=_traced(utterance, gate, "rule"),
             corrections=[(c.before, c.after) for c in utterance.corrections],
         ))
     return outcomes
+
+
+def result_line(outcome: Outcome) -> dict[str, Any]:
+    """One utterance as `rehear eval --results` writes it."""
+    return {"id": outcome.id, "reference": outcome.reference, "first": outcome.first, "text": outcome.text,
+            "found": sorted(outcome.found), "expected": sorted(outcome.reference_ids), "decision": outcome.decision,
+            "rule": outcome.rule, "confidence": outcome.confidence, "right": outcome.entity_ok,
+            "tags": outcome.tags}
 
 
 def percentile(values: Sequence[float], q: float) -> float:
@@ -135,6 +156,11 @@ class Summary:
     decisions: dict[str, float]
     wrong_accept_rate: float
     accepted_with_word_error: float
+    accepted: int
+    wrong_accepts: int
+    asked_policy: float  # share asked back by the safety rule, whatever the scores
+    asked_doubt: float  # share asked back because the gate doubted the result
+    quality: dict[str, float]  # of the gate's confidence, where it has one: nce, ece, brier
     latency_us: dict[str, float]
     stage_latency_us: dict[str, dict[str, float]]
 
@@ -153,6 +179,11 @@ class Summary:
             "entity_precision": self.entity_precision,
             "decisions": dict(self.decisions),
             "wrong_accept_rate": self.wrong_accept_rate,
+            "accepted": self.accepted,
+            "wrong_accepts": self.wrong_accepts,
+            "asked_policy": self.asked_policy,
+            "asked_doubt": self.asked_doubt,
+            "confidence_quality": dict(self.quality),
             "latency_us": dict(self.latency_us),
         }
 
@@ -169,6 +200,9 @@ def summarize(outcomes: Sequence[Outcome], *, decisions: Sequence[Decision | Non
         for stage, elapsed in outcome.stage_us.items():
             stages.setdefault(stage, []).append(elapsed)
     totals = [o.total_us for o in outcomes]
+    asked = [d in ("confirm", "reprompt") for d in chosen]
+    policy = [a and o.gate is not None and o.gate.safety_rule is not None for o, a in zip(outcomes, asked)]
+    scored = [(o.confidence, o.entity_ok) for o in outcomes if o.confidence is not None]
     return Summary(
         utterances=len(outcomes),
         wer_first=_ratio(sum(o.errors_first for o in outcomes), words),
@@ -179,9 +213,42 @@ def summarize(outcomes: Sequence[Outcome], *, decisions: Sequence[Decision | Non
         decisions={d: _ratio(chosen.count(d), len(chosen)) for d in DECISIONS},
         wrong_accept_rate=_ratio(sum(not o.entity_ok for o in accepted), len(accepted)),
         accepted_with_word_error=_ratio(sum(o.errors_relay > 0 for o in accepted), len(accepted)),
+        accepted=len(accepted),
+        wrong_accepts=sum(not o.entity_ok for o in accepted),
+        asked_policy=_ratio(sum(policy), len(chosen)),
+        asked_doubt=_ratio(sum(asked) - sum(policy), len(chosen)),
+        quality=confidence_quality([p for p, _ in scored], [r for _, r in scored]) if scored else {},
         latency_us={"p50": percentile(totals, 50), "p99": percentile(totals, 99)},
         stage_latency_us={s: {"p50": percentile(v, 50), "p99": percentile(v, 99)} for s, v in stages.items()},
     )
+
+
+def calibration_error(probabilities: Sequence[float], right: Sequence[bool], *, bins: int = 10) -> float:
+    """Expected calibration error: over equal-width confidence bins, the gap between the mean
+    confidence and the rate of right results, weighted by the bin's share."""
+    total = 0.0
+    for number in range(bins):
+        low, high = number / bins, (number + 1) / bins
+        inside = [(p, r) for p, r in zip(probabilities, right) if low <= p < high or (number == bins - 1 and p == 1.0)]
+        if inside:
+            mean = sum(p for p, _ in inside) / len(inside)
+            rate = sum(r for _, r in inside) / len(inside)
+            total += len(inside) / len(probabilities) * abs(mean - rate)
+    return total
+
+
+def confidence_quality(probabilities: Sequence[float], right: Sequence[bool]) -> dict[str, float]:
+    """How good a confidence is: normalised cross entropy (NCE, as NIST's scoring tools report
+    for recogniser word confidences: 1 - H(truth | confidence) / H(truth), 1 perfect, 0 no
+    better than the base rate, below 0 worse), expected calibration error and Brier score."""
+    count = len(probabilities)
+    share = sum(right) / count
+    clipped = [min(1 - 1e-6, max(1e-6, p)) for p in probabilities]
+    prior = -(share * math.log2(share) + (1 - share) * math.log2(1 - share)) * count if 0 < share < 1 else 0.0
+    given = -sum(math.log2(p) if r else math.log2(1 - p) for p, r in zip(clipped, right))
+    return {"nce": (prior - given) / prior if prior else 0.0,
+            "ece": calibration_error(probabilities, right),
+            "brier": sum((p - r) ** 2 for p, r in zip(probabilities, right)) / count}
 
 
 def format_table(summary: Summary, *, title: str = "") -> str:
@@ -198,9 +265,15 @@ def format_table(summary: Summary, *, title: str = "") -> str:
     rows += [(f"decision {d}", f"{summary.decisions[d]:.1%}") for d in DECISIONS]
     rows += [
         ("asked back (confirm + reprompt)", f"{summary.clarify_rate:.1%}"),
-        ("wrong accepts (entity ids differ)", f"{summary.wrong_accept_rate:.1%}"),
+        ("  by the safety rule (policy)", f"{summary.asked_policy:.1%}"),
+        ("  from doubt", f"{summary.asked_doubt:.1%}"),
+        ("wrong accepts (entity ids differ)", f"{summary.wrong_accept_rate:.1%} ({summary.wrong_accepts} of "
+                                              f"{summary.accepted} accepted)"),
         ("accepted with a word error", f"{summary.accepted_with_word_error:.1%}"),
     ]
+    if summary.quality:
+        q = summary.quality
+        rows.append(("confidence NCE / ECE / Brier", f"{q['nce']:.3f} / {q['ece']:.3f} / {q['brier']:.3f}"))
     for stage, values in summary.stage_latency_us.items():
         rows.append((f"latency {stage} p50 / p99", f"{values['p50']:.0f} / {values['p99']:.0f} us"))
     rows.append(("latency total p50 / p99", f"{summary.latency_us['p50']:.0f} / {summary.latency_us['p99']:.0f} us"))

@@ -23,11 +23,11 @@ import numpy as np
 from relay.core.config import build_chain
 from relay.workbench.corpus import read_corpus
 from relay.workbench.defaults import default_config
-from relay.workbench.evaluate import run_corpus
+from relay.workbench.evaluate import calibration_error, run_corpus
 from relay.workbench.variants import config_from_dict, with_overrides
 from stages.gate.confidence import SIGNS, ConfidenceModel, confidence, fit_model
 
-__all__ = ["TRANSFERABLE", "Row", "calibration_error", "fit_default", "record", "transfer"]
+__all__ = ["TRANSFERABLE", "Row", "fit_default", "record", "transfer"]
 
 # Features whose scale means the same in any domain and for any recogniser. The in-domain LM's
 # absolute per-word scores are left out (their scale is the domain's: text_lm_relative carries
@@ -78,20 +78,6 @@ def record(folders: Iterable[Path], corpora: Sequence[str], *, cache_dir: Path) 
 def fit_default(rows: Sequence[Row]) -> ConfidenceModel:
     """The recipe's model fitted on ``rows``."""
     return fit_model([r.values for r in rows], [r.right for r in rows], signs=SIGNS, features=TRANSFERABLE)
-
-
-def calibration_error(probabilities: Sequence[float], right: Sequence[bool], *, bins: int = 10) -> float:
-    """Expected calibration error: the share-weighted gap between mean confidence and the rate of
-    right results, over equal-width confidence bins."""
-    p = np.asarray(probabilities, dtype=float)
-    y = np.asarray(right, dtype=float)
-    total = 0.0
-    edges = np.linspace(0.0, 1.0, bins + 1)
-    for number, (low, high) in enumerate(zip(edges[:-1], edges[1:])):
-        inside = (p >= low) & ((p < high) if number < bins - 1 else (p <= high))
-        if inside.any():
-            total += inside.mean() * abs(p[inside].mean() - y[inside].mean())
-    return float(total)
 
 
 def transfer(model: ConfidenceModel, rows: Sequence[Row], *, accept: float) -> dict[str, float]:

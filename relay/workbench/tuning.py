@@ -21,7 +21,7 @@ import numpy as np
 
 from relay.workbench.evaluate import Outcome, Summary, summarize
 from relay.workbench.variants import Overrides
-from stages.gate.confidence import confidence, fit_model
+from stages.gate.confidence import SIGNS, confidence, fit_model
 from stages.gate.rules import FeatureView, Thresholds, decide, threshold_rules
 from stages.gate.settings import GateSettings
 
@@ -118,6 +118,7 @@ class RecordedFeatures:
         self.correction = np.array([np.inf if not g.corrected else (g.correction_score or 0.0) for g in gates])
         self.lm = np.array([np.inf if g.lm_per_word is None else g.lm_per_word for g in gates])
         self.blocked = np.array([g.empty or g.safety_rule is not None for g in gates])
+        self.safety = np.array([g.safety_rule is not None for g in gates])  # asked back by policy
         self.values = [g.values() for g in gates]
         self.ok = np.array([o.entity_ok for o in outcomes])
         self.errors = np.array([o.errors_relay for o in outcomes])
@@ -206,17 +207,20 @@ def fit(recorded: Sequence[RecordedFeatures], index: np.ndarray, *, max_clarify:
     for setting, features in enumerate(recorded):
         errors = float(features.errors[index].sum() / max(1, features.words[index].sum()))
         ok = features.ok[index]
+        # The budget bounds what the gate asks back from doubt; the safety rule's asks are policy,
+        # the same for every candidate, and come on top.
+        budget = max_clarify + float(features.safety[index].mean())
         for min_lm in _lm_grid(features, index):
-            row, (over, wrong, clarify) = _best_row(gate_accepts(features, grid, min_lm)[:, index], ok, max_clarify)
+            row, (over, wrong, clarify) = _best_row(gate_accepts(features, grid, min_lm)[:, index], ok, budget)
             gate = _thresholds(grid[row]) | {"min_lm_per_word": min_lm, "confidence": None}
             consider((over, wrong, errors, clarify), setting, gate)
         if not learn:
             continue
-        model = fit_model([features.values[i] for i in index], ok.tolist())
+        model = fit_model([features.values[i] for i in index], ok.tolist(), signs=SIGNS)
         sure = np.array([confidence(features.values[i], model) for i in index])
         thresholds = np.unique(np.r_[np.percentile(sure, _CONFIDENCE_STEPS), 0.0])
         accept = confidence_accepts(features, sure, thresholds, index)
-        row, (over, wrong, clarify) = _best_row(accept, ok, max_clarify)
+        row, (over, wrong, clarify) = _best_row(accept, ok, budget)
         gate = _thresholds(_OPEN_ROW) | {
             "min_lm_per_word": None, "confidence": model.model_dump(), "accept_confidence": float(thresholds[row])}
         consider((over, wrong, errors, clarify), setting, gate)

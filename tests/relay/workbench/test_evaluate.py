@@ -97,7 +97,10 @@ def test_eval_json_has_exactly_the_documented_keys(tmp_path: Path, capsys: pytes
     assert code == 0
     data = json.loads(out.read_text())
     assert set(data) == {"utterances", "wer_first", "wer_oracle", "wer_relay", "entity_recall",
-                         "entity_precision", "decisions", "wrong_accept_rate", "latency_us"}
+                         "entity_precision", "decisions", "wrong_accept_rate", "accepted", "wrong_accepts",
+                         "asked_policy", "asked_doubt", "confidence_quality", "latency_us"}
+    assert data["asked_policy"] + data["asked_doubt"] == pytest.approx(
+        data["decisions"]["confirm"] + data["decisions"]["reprompt"])
     assert set(data["decisions"]) == {"accept", "confirm", "reprompt"}
     assert set(data["latency_us"]) == {"p50", "p99"}
     assert data["utterances"] == 40
@@ -188,3 +191,18 @@ def test_corpus_messages_go_through_the_relays_field_map(tmp_path: Path) -> None
     field_map = FieldMap(id="utt", nbest="result.alts", text="transcript")
     [item] = read_corpus(corpus, field_map=field_map)
     assert item.utterance().nbest[0].text == "book the lathe"
+
+
+def test_confidence_quality_on_a_worked_example() -> None:
+    # Worked by hand from the definition in NIST's SCTK scoring tools (sclite, "normalized cross
+    # entropy"): four results, three right, confidences 0.9, 0.8, 0.7 (right) and 0.2 (wrong).
+    # H_max = -(3 log2 0.75 + log2 0.25) = 3.2451; H = -(log2 0.9 + log2 0.8 + log2 0.7 + log2 0.8)
+    # = 0.1520 + 0.3219 + 0.5146 + 0.3219 = 1.3104; NCE = (3.2451 - 1.3104) / 3.2451 = 0.5962.
+    from relay.workbench.evaluate import confidence_quality
+
+    quality = confidence_quality([0.9, 0.8, 0.7, 0.2], [True, True, True, False])
+    assert quality["nce"] == pytest.approx(0.5962, abs=1e-3)
+    assert quality["brier"] == pytest.approx((0.01 + 0.04 + 0.09 + 0.04) / 4)
+    # ECE by hand: bins [0.2,0.3) 0.2 vs 0 right; [0.7,0.8) 0.7 vs 1; [0.8,0.9) 0.8 vs 1; [0.9,1] 0.9 vs 1.
+    assert quality["ece"] == pytest.approx((0.2 + 0.3 + 0.2 + 0.1) / 4)
+    assert confidence_quality([0.75] * 4, [True, True, True, False])["nce"] == pytest.approx(0.0, abs=1e-9)

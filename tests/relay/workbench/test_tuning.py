@@ -127,7 +127,10 @@ def test_fit_keeps_within_the_clarification_budget_and_cuts_wrong_accepts() -> N
     baseline = held_out_summary([outcomes], [_result(everything, train)], GateSettings(safety_words=[]))
     choice = fit(recorded, train, max_clarify=0.4)
     tuned = held_out_summary([outcomes], [_result(choice, train)], GateSettings())
-    assert tuned.clarify_rate <= 0.4 + 1e-9
+    # The budget bounds what the gate asks from doubt; the safety rule's share comes on top.
+    assert tuned.asked_doubt <= 0.4 + 1e-9
+    assert tuned.asked_policy == pytest.approx(sum(o.gate.safety_rule is not None for o in outcomes  # type: ignore[union-attr]
+                                                   if o.gate is not None) / len(outcomes))
     assert tuned.wrong_accept_rate < baseline.wrong_accept_rate - 0.05
 
 
