@@ -1,0 +1,60 @@
+"""The gate's default confidence fitted on one example scenario and judged on the other, both ways.
+
+The recipe is the one that makes the shipped model (scripts/fit_default_gate.py): every corpus
+of the fitting scenario (both recognisers, every noise part), the transferable features, each
+held to its known direction. Reported on the other scenario, for Whisper's clean + 20-25 dB part
+and for the speech nobody could act on (10 dB parts, and pocketsphinx at 15 dB):
+
+    python benchmarks/gate_transfer.py [--accept 0.8]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import tempfile
+from pathlib import Path
+
+from relay.workbench.gate_model import Row, fit_default, record, transfer
+
+ROOT = Path(__file__).resolve().parents[1]
+CORPORA = ("corpus.jsonl", "corpus-whisper.jsonl", "corpus-10db-pocketsphinx.jsonl", "corpus-10db-whisper.jsonl")
+SCENARIOS = ("workshop", "boatyard")
+
+
+def parts(rows: list[Row]) -> dict[str, list[Row]]:
+    whisper_main = [r for r in rows if r.corpus == "corpus-whisper.jsonl" and r.snr_db in (None, 20, 25)]
+    unusable = [r for r in rows if r.snr_db == 10 or (r.corpus == "corpus.jsonl" and r.snr_db == 15)]
+    return {"whisper clean+20-25 dB": whisper_main, "10 dB + pocketsphinx 15 dB": unusable}
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--accept", type=float, default=0.8, help="accept_confidence to judge at (default 0.8)")
+    parser.add_argument("--json", type=Path)
+    args = parser.parse_args(argv)
+    with tempfile.TemporaryDirectory() as cache:
+        rows = {s: record([ROOT / "examples" / s], CORPORA, cache_dir=Path(cache)) for s in SCENARIOS}
+    table = []
+    for fitted in SCENARIOS:
+        model = fit_default(rows[fitted])
+        for judged in SCENARIOS:
+            if judged == fitted:
+                continue
+            for part, subset in parts(rows[judged]).items():
+                table.append({"fitted_on": fitted, "judged_on": judged, "part": part}
+                             | transfer(model, subset, accept=args.accept))
+    print(f"{'fitted on':9} {'judged on':9} {'part':27} {'n':>4} {'right':>6} {'AUC':>5} {'ECE':>5} {'Brier':>5} "
+          f"{'accept':>6} {'doubt':>6} {'policy':>6} {'wrongA':>6} {'wA/all':>6}")
+    for r in table:
+        print(f"{r['fitted_on']:9} {r['judged_on']:9} {r['part']:27} {r['utterances']:4.0f} {r['right']:6.1%} "
+              f"{r['auc']:5.3f} {r['ece']:5.3f} {r['brier']:5.3f} {r['accepted']:6.1%} {r['asked_doubt']:6.1%} "
+              f"{r['asked_policy']:6.1%} {r['wrong_accepts']:6.1%} {r['wrong_accepts_of_all']:6.1%}")
+    if args.json is not None:
+        args.json.write_text(json.dumps(table, indent=1))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
