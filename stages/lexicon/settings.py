@@ -36,6 +36,8 @@ class MatchSettings(_Group):
     align_floor: float = Field(0.4, ge=0, le=1, description="least unit-cost phone similarity for a pair to be "
                                "aligned at all (a cheap screen before the feature alignment)")
     pair_floor: float = Field(0.45, ge=0, le=1, description="span/entry pairs scoring less are ignored")
+    costs: Path | None = Field(None, description="phone confusion costs learned from the recogniser's output "
+                               "(`rehear learn-costs`); default: the hand-set feature costs")
 
     @model_validator(mode="after")
     def _weights_present(self) -> MatchSettings:
