@@ -102,8 +102,8 @@ def test_keeping_voicing_and_nasality_costs_least_as_in_the_table() -> None:
 
 @pytest.mark.xfail(strict=True, reason="the hand costs price a voicing-only change (P/B, S/Z: 0.2) no higher than "
                    "a place-only change (mean 0.21), where the table finds voicing-only pairs confused about a sixth "
-                   "as often; left as it is until measured on recogniser output (stages/lexicon/README.md, "
-                   "'Learned costs')")
+                   "as often; left so because both example recognisers confuse voicing-only pairs most "
+                   "(stages/lexicon/README.md, 'Against a published consonant confusion table')")
 def test_a_voicing_only_change_costs_more_than_a_place_only_change() -> None:
     table = confusions()
     voicing = [symmetric(HAND, p) for p in table if kind(p) == "voicing only"]
