@@ -41,6 +41,8 @@ class MatchSettings(_Group):
     broad_candidates: int = Field(3, ge=0, le=50, description="entries also taken per span from an index of "
                                   "broad phone classes (vowels as one, voicing ignored); 0: none")
     broad_min_retrieval: float = Field(0.2, ge=0, le=1, description="least broad-class n-gram Dice score")
+    costs: Path | None = Field(None, description="phone confusion costs learned from the recogniser's output "
+                               "(`rehear learn-costs`); default: the hand-set feature costs")
 
     @model_validator(mode="after")
     def _weights_present(self) -> MatchSettings:

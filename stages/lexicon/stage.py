@@ -28,6 +28,7 @@ from stages.lexicon.data import read_speakers
 from stages.lexicon.general import GeneralSearch
 from stages.lexicon.rewrite import rewrite
 from stages.lexicon.settings import LexiconSettings
+from stages.lexicon.sound.costfile import read_costs
 from stages.lexicon.sound.phonetics import CostModel
 from stages.lexicon.sound.pronounce import Pronouncer, common_words
 from stages.lm.model import shared_model
@@ -66,8 +67,10 @@ class LexiconStage:
         weighed = s.context.gain_weight or s.context.loss_weight
         self.lm_path = context.domain_file("language_model", s.context.language_model) if weighed else None
         self.carrier_path = context.domain_file("text", s.carrier.text)
+        self.costs_path = context.resolve(s.match.costs) if s.match.costs is not None else None
         self.files = {"lexicon": self.lexicon_path, "speakers": self.speakers_path,
-                     "language model": self.lm_path, "carrier phrases": self.carrier_path}
+                     "language model": self.lm_path, "carrier phrases": self.carrier_path,
+                     "phone costs": self.costs_path}
         self.compiled: CompiledLexicon | None = None
         self.loaded_from_cache = False
         self.lm: Any = None  # the in-domain language model (kenlm), shared with lm_rescore
@@ -84,7 +87,8 @@ class LexiconStage:
     def load(self) -> None:
         s = self.settings
         self.pronouncer = Pronouncer()
-        self.costs = CostModel.features()
+        # Learned costs only when asked for: the hand costs stay the default (see README, "Learned costs").
+        self.costs = read_costs(self.costs_path) if self.costs_path is not None else CostModel.features()
         self.compiled, self.loaded_from_cache = load_compiled(
             self.lexicon_path, self.context.cache_dir, self.pronouncer,
             progress=self.context.progress, max_postings=s.match.max_postings)

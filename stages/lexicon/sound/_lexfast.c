@@ -252,16 +252,18 @@ done:
 }
 
 PyDoc_STRVAR(align_doc,
-"alignment_costs(a, b, substitution, indel, stride, char_base, out) -> None\n\n"
+"alignment_costs(a, b, substitution, insertion, deletion, stride, char_base, out) -> None\n\n"
 "Least total cost of turning a[i] into b[i] for every i, written to the float32 buffer out.\n"
-"substitution is a float32 stride x stride matrix and indel a float32 vector of stride costs,\n"
-"indexed by phone code; the arithmetic is float32 in the order of the numpy batch version.");
+"substitution is a float32 stride x stride matrix (row: phone of a, column: phone of b);\n"
+"insertion (a phone of a left over) and deletion (a phone of b left over) are float32 vectors\n"
+"of stride costs, indexed by phone code; the arithmetic is float32 in the order of the numpy\n"
+"batch version.");
 
 static PyObject *alignment_costs(PyObject *self, PyObject *args) {
     PyObject *a, *b;
-    Py_buffer sub_b, indel_b, out_b;
+    Py_buffer sub_b, ins_b, del_b, out_b;
     int stride, char_base;
-    if (!PyArg_ParseTuple(args, "OOy*y*iiw*", &a, &b, &sub_b, &indel_b, &stride, &char_base, &out_b))
+    if (!PyArg_ParseTuple(args, "OOy*y*y*iiw*", &a, &b, &sub_b, &ins_b, &del_b, &stride, &char_base, &out_b))
         return NULL;
     PyObject *result = NULL, *fast_a = NULL, *fast_b = NULL;
     int32_t *xs = NULL, *ys = NULL;
@@ -274,9 +276,10 @@ static PyObject *alignment_costs(PyObject *self, PyObject *args) {
         goto done;
     }
     if (check_size(&sub_b, (Py_ssize_t)stride * stride, 4, "substitution") < 0 ||
-        check_size(&indel_b, stride, 4, "indel") < 0 || check_size(&out_b, count_a, 4, "out") < 0)
+        check_size(&ins_b, stride, 4, "insertion") < 0 || check_size(&del_b, stride, 4, "deletion") < 0 ||
+        check_size(&out_b, count_a, 4, "out") < 0)
         goto done;
-    const float *sub = sub_b.buf, *indel = indel_b.buf;
+    const float *sub = sub_b.buf, *inserted = ins_b.buf, *deleted = del_b.buf;
     float *out = out_b.buf;
     xs = malloc(sizeof(int32_t) * (size_t)(longest_a + 1));
     ys = malloc(sizeof(int32_t) * (size_t)(longest_b + 1));
@@ -292,13 +295,13 @@ static PyObject *alignment_costs(PyObject *self, PyObject *args) {
         Py_ssize_t n = PyUnicode_GET_LENGTH(items_a[p]), m = PyUnicode_GET_LENGTH(items_b[p]);
         if (read_codes(items_a[p], xs, n, char_base, stride) < 0 || read_codes(items_b[p], ys, m, char_base, stride) < 0)
             goto done;
-        /* cum[j]: cost of inserting the first j phones of b, summed left to right in float32 */
+        /* cum[j]: cost of leaving the first j phones of b unmatched, summed left to right in float32 */
         cum[0] = 0.0f;
         for (Py_ssize_t j = 0; j < m; j++)
-            cum[j + 1] = cum[j] + indel[ys[j]];
+            cum[j + 1] = cum[j] + deleted[ys[j]];
         memcpy(row, cum, sizeof(float) * (size_t)(m + 1));
         for (Py_ssize_t i = 0; i < n; i++) {
-            const float drop = indel[xs[i]];
+            const float drop = inserted[xs[i]];
             const float *costs = sub + (Py_ssize_t)xs[i] * stride;
             /* Fill from the row above (delete or substitute), then resolve insertions along the
                row by a running minimum of (value - cum), as the vectorised version does. */
@@ -330,7 +333,8 @@ done:
     Py_XDECREF(fast_a);
     Py_XDECREF(fast_b);
     PyBuffer_Release(&sub_b);
-    PyBuffer_Release(&indel_b);
+    PyBuffer_Release(&ins_b);
+    PyBuffer_Release(&del_b);
     PyBuffer_Release(&out_b);
     return result;
 }
@@ -856,6 +860,16 @@ static struct PyModuleDef module = {
     PyModuleDef_HEAD_INIT, "_lexfast", "Compiled kernels of the lexicon stage (see _lexfast.c).", -1, methods,
 };
 
+/* Raised when a kernel's arguments change, so stages/lexicon/sound/kernels.py can tell a module
+   built from an older _lexfast.c (and fall back to numpy) instead of calling it wrongly.
+   2: alignment_costs takes separate insertion and deletion costs. */
+#define KERNELS_VERSION 2
+
 PyMODINIT_FUNC PyInit__lexfast(void) {
-    return PyModule_Create(&module);
+    PyObject *m = PyModule_Create(&module);
+    if (m != NULL && PyModule_AddIntConstant(m, "version", KERNELS_VERSION) < 0) {
+        Py_DECREF(m);
+        return NULL;
+    }
+    return m;
 }

@@ -7,9 +7,11 @@ def search(
     touched: Buffer, least_size: float, k: int, min_score: float, out_query: Buffer, out_item: Buffer,
     out_score: Buffer, char_base: int, phones: int, base: int, offset4: int, /,
 ) -> int: ...
+version: int
+
 def alignment_costs(
-    a: Sequence[str], b: Sequence[str], substitution: Buffer, indel: Buffer, stride: int, char_base: int,
-    out: Buffer, /,
+    a: Sequence[str], b: Sequence[str], substitution: Buffer, insertion: Buffer, deletion: Buffer, stride: int,
+    char_base: int, out: Buffer, /,
 ) -> None: ...
 def g2p_decode(
     letters: str, arcs: Buffer, states: Buffer, ids: Buffer, at: Buffer, vocab: int, start: int, eos: int,

@@ -3,7 +3,8 @@
 ``pip install`` compiles them where a C compiler and the Python headers exist; elsewhere the
 numpy versions of the same computations run instead, with the same results. Setting
 ``REHEAR_NO_COMPILED=1`` uses the numpy versions even when the module is built, and so does a
-module built from an older source that lacks one of the kernels.
+module built from an older source that lacks one of the kernels or takes other arguments
+(its ``version`` is below ``VERSION``).
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ from types import ModuleType
 __all__ = ["compiled"]
 
 FUNCTIONS = ("search", "alignment_costs", "g2p_decode", "word_spans")
+VERSION = 2  # KERNELS_VERSION in _lexfast.c: 2 since alignment_costs takes insertion and deletion costs apart
 
 
 def _load() -> ModuleType | None:
@@ -23,7 +25,7 @@ def _load() -> ModuleType | None:
         from stages.lexicon.sound import _lexfast
     except ImportError:
         return None
-    if not all(hasattr(_lexfast, name) for name in FUNCTIONS):
+    if not all(hasattr(_lexfast, name) for name in FUNCTIONS) or getattr(_lexfast, "version", 1) < VERSION:
         return None  # built from an older _lexfast.c: numpy stands in until it is rebuilt
     return _lexfast
 

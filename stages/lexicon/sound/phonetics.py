@@ -128,56 +128,67 @@ def _indel(phone: str) -> float:
 
 @dataclass(frozen=True, slots=True)
 class CostModel:
-    """Substitution and insertion/deletion costs indexed by phone number (see ``encode``)."""
+    """Costs of aligning a heard phone string with a said one, indexed by phone number (see ``encode``).
+
+    The aligners take the heard string first (``a``: a span of the N-best) and the said one
+    second (``b``: a lexicon form). ``substitution[x][y]`` is the cost of heard phone x standing
+    for said phone y, ``insertion[x]`` of a heard phone x that stands for nothing said, and
+    ``deletion[y]`` of a said phone y that was not heard. The hand costs (``features``) are
+    symmetric; costs learned from a recogniser (``stages.lexicon.sound.costfile``) need not be.
+    """
 
     substitution: tuple[tuple[float, ...], ...]
-    indel: tuple[float, ...]
+    insertion: tuple[float, ...]
+    deletion: tuple[float, ...]
     # The same costs as arrays with one extra padding phone (index len(PHONES)) that costs nothing.
     sub_array: npt.NDArray[np.float32] = field(init=False, repr=False, compare=False)
-    indel_array: npt.NDArray[np.float32] = field(init=False, repr=False, compare=False)
+    insertion_array: npt.NDArray[np.float32] = field(init=False, repr=False, compare=False)
+    deletion_array: npt.NDArray[np.float32] = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         size = len(PHONES) + 1
         sub = np.zeros((size, size), dtype=np.float32)
         sub[:-1, :-1] = np.asarray(self.substitution, dtype=np.float32)
-        indel = np.zeros(size, dtype=np.float32)
-        indel[:-1] = np.asarray(self.indel, dtype=np.float32)
         object.__setattr__(self, "sub_array", sub)
-        object.__setattr__(self, "indel_array", indel)
+        for name, values in (("insertion_array", self.insertion), ("deletion_array", self.deletion)):
+            padded = np.zeros(size, dtype=np.float32)
+            padded[:-1] = np.asarray(values, dtype=np.float32)
+            object.__setattr__(self, name, padded)
 
     @classmethod
     def features(cls) -> CostModel:
-        return cls(tuple(tuple(_substitution(a, b) for b in PHONES) for a in PHONES),
-                   tuple(_indel(p) for p in PHONES))
+        indel = tuple(_indel(p) for p in PHONES)
+        return cls(tuple(tuple(_substitution(a, b) for b in PHONES) for a in PHONES), indel, indel)
 
     @classmethod
     def unit(cls) -> CostModel:
         """Levenshtein costs: 1 for any edit. Used to check the aligner against reference tools."""
-        return cls(tuple(tuple(float(a != b) for b in PHONES) for a in PHONES),
-                   tuple(1.0 for _ in PHONES))
+        ones = tuple(1.0 for _ in PHONES)
+        return cls(tuple(tuple(float(a != b) for b in PHONES) for a in PHONES), ones, ones)
 
-    def cost(self, a: str, b: str) -> float:
-        return self.substitution[_INDEX[strip_stress(a)]][_INDEX[strip_stress(b)]]
+    def cost(self, heard: str, said: str) -> float:
+        return self.substitution[_INDEX[strip_stress(heard)]][_INDEX[strip_stress(said)]]
 
 
 def alignment_cost(a: str, b: str, model: CostModel) -> float:
-    """Least total cost of turning encoded phone string ``a`` into ``b`` (weighted edit distance)."""
-    sub, indel = model.substitution, model.indel
+    """Least total cost of turning encoded phone string ``a`` (heard) into ``b`` (said): a weighted
+    edit distance, ``a``'s phones left over costing ``model.insertion``, ``b``'s ``model.deletion``."""
+    sub, inserted, deleted = model.substitution, model.insertion, model.deletion
     xs = [ord(ch) - _CHAR_BASE for ch in a]
     ys = [ord(ch) - _CHAR_BASE for ch in b]
     previous = [0.0]
     for y in ys:
-        previous.append(previous[-1] + indel[y])
+        previous.append(previous[-1] + deleted[y])
     for x in xs:
         row_sub = sub[x]
-        drop = indel[x]
+        drop = inserted[x]
         current = [previous[0] + drop]
         left = current[0]
         for j, y in enumerate(ys):
             best = previous[j] + row_sub[y]
             up = previous[j + 1] + drop
             best = min(best, up)
-            side = left + indel[y]
+            side = left + deleted[y]
             best = min(best, side)
             current.append(best)
             left = best
@@ -221,7 +232,8 @@ def _batch_alignment_cost_compiled(a: Sequence[str], b: Sequence[str], model: Co
     if len(a) != len(b):
         raise ValueError("batch_alignment_cost needs as many strings in a as in b")
     out = np.empty(len(a), dtype=np.float32)
-    compiled.alignment_costs(a, b, model.sub_array, model.indel_array, len(PHONES) + 1, _CHAR_BASE, out)
+    compiled.alignment_costs(a, b, model.sub_array, model.insertion_array, model.deletion_array, len(PHONES) + 1,
+                             _CHAR_BASE, out)
     return out
 
 
@@ -243,11 +255,11 @@ def _batch_alignment_cost_numpy(a: Sequence[str], b: Sequence[str], model: CostM
     order = np.argsort(-x_len, kind="stable")
     xs, x_len, ys, y_len = xs[order], x_len[order], ys[order], y_len[order]
     pairs, columns = ys.shape
-    ins = model.indel_array[ys]  # pairs x columns
+    ins = model.deletion_array[ys]  # pairs x columns: a said phone left unheard
     cum_ins = np.concatenate([np.zeros((pairs, 1), np.float32), np.cumsum(ins, axis=1)], axis=1)
     row = cum_ins.copy()
     out = np.where(x_len == 0, row[np.arange(pairs), y_len], 0.0).astype(np.float32)
-    drops = model.indel_array[xs]
+    drops = model.insertion_array[xs]  # a heard phone standing for nothing said
     # running[i]: how many pairs have more than i phones in a (a prefix of the sorted pairs)
     running = np.searchsorted(-x_len, -np.arange(1, xs.shape[1] + 2), side="right").tolist()
     through = np.empty_like(row)
@@ -255,7 +267,7 @@ def _batch_alignment_cost_numpy(a: Sequence[str], b: Sequence[str], model: CostM
     for i in range(xs.shape[1]):
         n = running[i]
         r, t, drop = row[:n], through[:n], drops[:n, i, None]
-        np.add(r, drop, out=t)  # delete the phone of a
+        np.add(r, drop, out=t)  # leave the phone of a unmatched
         if columns:
             np.add(r[:, :-1], model.sub_array[xs[:n, i, None], ys[:n]], out=step[:n])
             np.minimum(step[:n], t[:, 1:], out=t[:, 1:])

@@ -206,6 +206,8 @@ def test_a_compiled_module_built_from_older_source_is_not_used(monkeypatch: pyte
     older.g2p_decode = lambda *args: ()  # type: ignore[attr-defined]
     assert kernels._load() is None  # nor one that predates the word-span kernel
     older.word_spans = lambda *args: ([], [], [], [])  # type: ignore[attr-defined]
+    assert kernels._load() is None  # nor one whose alignment takes a single insertion/deletion vector
+    older.version = kernels.VERSION  # type: ignore[attr-defined]
     assert kernels._load() is older
 
 

@@ -15,6 +15,7 @@ import jiwer
 import numpy as np
 import pytest
 
+from relay.workbench.phone_channel import PhonePair, fit_channel, to_costs
 from stages.lexicon.match import Spans, _word_spans_python
 from stages.lexicon.sound.kernels import compiled
 from stages.lexicon.sound.phone_index import Hits, PhoneIndex
@@ -45,7 +46,32 @@ def same_hits(a: Hits, b: Hits) -> bool:
     return same_bits(a.query, b.query) and same_bits(a.item, b.item) and same_bits(a.score, b.score)
 
 
-@pytest.mark.parametrize("model", [CostModel.features(), CostModel.unit()], ids=["features", "unit"])
+def learned_model() -> CostModel:
+    """Costs as `rehear learn-costs` makes them: EM over a channel with a few strong, one-way
+    confusions, so substitution is asymmetric and insertion differs from deletion."""
+    rng = random.Random(9)
+    number = {phone: i for i, phone in enumerate(PHONES)}
+    swaps = {"T": "D", "M": "N", "IY": "IH", "S": "Z"}
+    pairs = []
+    for _ in range(200):
+        said = [number[p] for p in rng.choices(PHONES, k=rng.randint(2, 6))]
+        heard = [number[swaps[PHONES[s]]] if PHONES[s] in swaps and rng.random() < 0.4 else s
+                 for s in said if rng.random() > 0.05]
+        pairs.append(PhonePair(tuple(said), tuple(heard + ([number["AH"]] if rng.random() < 0.2 else []))))
+    fit = fit_channel(pairs, prior=CostModel.features(), prior_weight=5.0, iterations=3, scale=8.0)
+    return to_costs(fit.channel, fit.scale)
+
+
+LEARNED = learned_model()
+
+
+def test_the_learned_model_is_what_the_kernels_must_handle() -> None:
+    # Guards the next test's point: the learned costs are one-way, unlike the hand ones.
+    assert LEARNED.substitution != tuple(zip(*LEARNED.substitution))
+    assert LEARNED.insertion != LEARNED.deletion
+
+
+@pytest.mark.parametrize("model", [CostModel.features(), CostModel.unit(), LEARNED], ids=["features", "unit", "learned"])
 def test_alignment_costs_are_the_same_bits(model: CostModel) -> None:
     rng = random.Random(21)
     # Empty strings, one-phone strings and long spans (a run of words) all occur in practice.

@@ -90,11 +90,29 @@ def test_similarity_bounds() -> None:
     assert 0.0 <= similarity(phones("K ER F"), phones("S IY M L IH S"), FEATURES) < 0.5
 
 
+def one_way_model(rng: random.Random) -> CostModel:
+    """Learned costs need not be symmetric: each direction, insertion and deletion its own value."""
+    size = len(PHONES)
+    sub = tuple(tuple(0.0 if i == j else rng.uniform(0.05, 1.0) for j in range(size)) for i in range(size))
+    return CostModel(sub, tuple(rng.uniform(0.1, 1.0) for _ in range(size)),
+                     tuple(rng.uniform(0.1, 1.0) for _ in range(size)))
+
+
+def test_heard_phones_come_first_and_leftovers_cost_by_side() -> None:
+    model = one_way_model(random.Random(2))
+    p, b, s = (PHONES.index(x) for x in ("P", "B", "S"))
+    assert alignment_cost(phones("B AE T"), phones("P AE T"), model) == pytest.approx(model.substitution[b][p])
+    assert alignment_cost(phones("P AE T"), phones("B AE T"), model) == pytest.approx(model.substitution[p][b])
+    # A heard phone with nothing said costs its insertion; a said phone not heard, its deletion.
+    assert alignment_cost(phones("K AE T S"), phones("K AE T"), model) == pytest.approx(model.insertion[s])
+    assert alignment_cost(phones("K AE T"), phones("K AE T S"), model) == pytest.approx(model.deletion[s])
+
+
 def test_batch_matches_scalar_alignment() -> None:
     rng = random.Random(11)
     a = [encode(rng.choices(PHONES, k=rng.randint(0, 12))) for _ in range(300)]
     b = [encode(rng.choices(PHONES, k=rng.randint(0, 12))) for _ in range(300)]
-    for model in (FEATURES, UNIT):
+    for model in (FEATURES, UNIT, one_way_model(rng)):
         batch = batch_alignment_cost(a, b, model)
         scalar = np.array([alignment_cost(x, y, model) for x, y in zip(a, b)])
         np.testing.assert_allclose(batch, scalar, atol=1e-5)
