@@ -63,7 +63,7 @@ class LmRescoreStage:
         self._model: Any = None
 
     def load(self) -> None:
-        self._model = shared_model(self.model_path)
+        self._model = shared_model(self.model_path, stage=self.name)
 
     def score(self, tokens: Sequence[str]) -> LmScore:
         if self._model is None:
@@ -76,6 +76,7 @@ class LmRescoreStage:
         lm_scores: list[float] = []
         oovs: list[int] = []
         for hypothesis in utterance.nbest:
+            utterance.check_deadline()
             lm = self.score(hypothesis.tokens)
             asr = hypothesis.scores.get(ASR_SCORE)
             if asr is None:
