@@ -143,12 +143,15 @@ class Relay:
         return time.monotonic() - self._waiting_since
 
     def health(self) -> tuple[bool, str]:
-        if not self.connected:
-            return False, f"broker not connected: {self._problem}"
+        problems = []
         stall = self.ack_stall()
         limit = self.active.loaded.config.limits.stall_s
         if stall > limit:
-            return False, f"acknowledgements stalled: input has waited {stall:.0f} s (limits.stall_s {limit:g})"
+            problems.append(f"acknowledgements stalled: input has waited {stall:.0f} s (limits.stall_s {limit:g})")
+        if not self.connected:
+            problems.append(f"broker not connected: {self._problem}")
+        if problems:
+            return False, "; ".join(problems)
         return True, f"ok: chain {' -> '.join(self.active.chain.names)}, config {self.active.loaded.hash}"
 
     def request_stop(self) -> None:
@@ -451,12 +454,15 @@ class Relay:
         if from_topic is None:
             return
         claimed = utterance.payload.get("source")
-        if claimed is not None and claimed != from_topic:
+        if claimed == from_topic:
+            return
+        if claimed is not None:
             if topics.source_mismatch == "refuse":
                 raise InputError("source_mismatch", f"topic {topic}: field source {str(claimed)[:80]!r} is not the "
                                                     f"topic's source {from_topic!r}")
-            utterance.payload = dict(utterance.payload, source=from_topic)
             relay["claimed_source"] = claimed
+        # FORMATS section 1: source defaults to the topic; the cleaned message says which it was
+        utterance.payload = dict(utterance.payload, source=from_topic)
         utterance.source = from_topic
 
     async def _run_chain(
