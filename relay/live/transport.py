@@ -114,7 +114,7 @@ def _code(reason: Any) -> tuple[int, str]:
     return int(reason), str(reason)
 
 
-def _connect_failure(exc: aiomqtt.MqttError, settings: BrokerSettings) -> TransportError:
+def _connect_failure(exc: aiomqtt.MqttError, settings: BrokerSettings, tls_error: ssl.SSLError | None) -> TransportError:
     where = f"{settings.host}:{settings.port}"
     if isinstance(exc, MqttConnectError):
         value, name = _code(exc.rc)
@@ -122,7 +122,7 @@ def _connect_failure(exc: aiomqtt.MqttError, settings: BrokerSettings) -> Transp
                               kind="refused")
     # aiomqtt re-raises paho's socket errors as MqttError(str(exc)) from None; the original is
     # still its __context__.
-    cause = exc.__context__
+    cause = exc.__context__ if isinstance(exc.__context__, ssl.SSLError) else tls_error
     if isinstance(cause, ssl.SSLError):
         return TransportError(f"TLS handshake with broker {where} failed: {cause}", kind="tls")
     return TransportError(f"cannot connect to broker {where}: {exc}", kind="network")
@@ -164,6 +164,7 @@ class Session:
         else:
             options["protocol"] = aiomqtt.ProtocolVersion.V311
             options["clean_session"] = False
+        self._tls = tls_context(settings.tls, base_dir)
         socket_options = [(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)] if settings.tcp_nodelay else []
         self.client = aiomqtt.Client(
             settings.host,
@@ -173,7 +174,7 @@ class Session:
             password=broker_password(settings, base_dir),
             keepalive=settings.keepalive_s,
             socket_options=socket_options,
-            tls_context=tls_context(settings.tls, base_dir),
+            tls_context=self._tls,
             logger=self._logger,
             **options,
         )
@@ -188,6 +189,9 @@ class Session:
         # A PUBACK handled before publish() has registered its future (paho may call back from
         # inside its publish) is kept here for publish() to find.
         self._early: dict[int, tuple[int, str]] = {}
+        # A TLS alert from the broker after the handshake (TLS 1.3 sends "certificate required"
+        # then) surfaces in paho only as a log line; kept here to name the failure.
+        self.tls_error: ssl.SSLError | None = None
         self._chain_callbacks()
 
     def _chain_callbacks(self) -> None:
@@ -207,10 +211,26 @@ class Session:
         def on_disconnect(client: Any, userdata: Any, flags: Any, reason_code: Any, properties: Any = None) -> None:
             self.disconnect_code, self.disconnect_reason = _code(reason_code)
             self._fail_waiting(f"disconnected ({self.disconnect_reason})")
+            connected = self.client._connected
+            if not connected.done():
+                # Closed before CONNACK (a TLS alert, a broker that hangs up): aiomqtt would wait
+                # out its whole timeout before saying so.
+                connected.set_exception(aiomqtt.MqttError(f"connection closed before CONNACK ({self.disconnect_reason})"))
             aiomqtt_on_disconnect(client, userdata, flags, reason_code, properties)
 
         self._paho.on_publish = on_publish
         self._paho.on_disconnect = on_disconnect
+        paho_receive = self._paho._sock_recv
+
+        def receive(size: int) -> bytes:
+            try:
+                data: bytes = paho_receive(size)
+            except ssl.SSLError as exc:  # SSLWantRead/Write reach paho as BlockingIOError, not here
+                self.tls_error = exc
+                raise
+            return data
+
+        self._paho._sock_recv = receive  # type: ignore[method-assign,assignment]
 
     def _fail_waiting(self, why: str) -> None:
         waiting, self._waiting = self._waiting, {}
@@ -228,7 +248,9 @@ class Session:
         try:
             await self.client.__aenter__()
         except aiomqtt.MqttError as exc:
-            raise _connect_failure(exc, self.settings) from None
+            if self._tls is not None:
+                self._tls.close_failed()
+            raise _connect_failure(exc, self.settings, self.tls_error) from None
         try:
             if self.subscriptions:
                 granted = await self.client.subscribe(list(self.subscriptions))
