@@ -52,6 +52,10 @@ _log = logging.getLogger("rehear.service")
 # that the input goes back to the broker soon when it does not.
 _RETRY_FIRST_S = 0.2
 _RETRY_MAX_S = 5.0
+# Three connections in a row that the broker closes within 5 s of connecting look like two
+# instances with one client id knocking each other off.
+_SHORT_SESSION_S = 5.0
+_SHORT_SESSIONS_SUSPECT = 3
 
 
 @dataclass(frozen=True, slots=True)
@@ -112,6 +116,8 @@ class Relay:
         self._worker = ChainWorker()
         self._generation = 0
         self._session: Session | None = None
+        self._connected_at = 0.0
+        self._short_sessions = 0
         self._problem = "not connected yet"
         # Since when input has waited with no acknowledgement going out; None while none waits.
         # Kept across reconnects: an input the broker redelivers again and again is one stall.
@@ -249,11 +255,21 @@ class Relay:
 
     def _connection_lost(self, exc: aiomqtt.MqttError) -> None:
         session = self._session
+        client_id = self.active.loaded.config.broker.client_id
+        short = session is not None and time.monotonic() - self._connected_at < _SHORT_SESSION_S
+        self._short_sessions = self._short_sessions + 1 if short else 0
         if session is not None and session.taken_over:
-            client_id = self.active.loaded.config.broker.client_id
             self._problem = f"session taken over by another client with client_id {client_id!r}"
             _log.error("the broker closed the session because another client connected with the same "
                        "client_id %r (reason code 0x8e); every instance needs its own client_id", client_id)
+            return
+        if self._short_sessions >= _SHORT_SESSIONS_SUSPECT:
+            # mosquitto 2.0 closes the older of two connections with one client id without a
+            # DISCONNECT reason code, so the pattern is all there is to go by.
+            self._problem = f"connection closed {self._short_sessions} times in a row right after connecting"
+            _log.error("the broker closed the connection %d times in a row within %g s of connecting: probably "
+                       "another client connected with the same client_id %r; every instance needs its own "
+                       "client_id", self._short_sessions, _SHORT_SESSION_S, client_id)
             return
         reason = f" (reason: {session.disconnect_reason})" if session is not None and session.disconnect_reason else ""
         self._problem = f"connection lost: {exc}{reason}"
@@ -267,6 +283,7 @@ class Relay:
                           receive_maximum=config.limits.max_in_flight, generation=generation)
         self._session = session
         async with session:
+            self._connected_at = time.monotonic()
             self.connected = True
             self.metrics.broker_connected.set(1)
             self._broken.clear()

@@ -7,6 +7,10 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import os
+import socket
+import subprocess
+import sys
 import threading
 from pathlib import Path
 from typing import Any, ClassVar
@@ -345,3 +349,82 @@ def test_7_overlapping_reloads_run_one_at_a_time_and_the_last_wins(broker: Any, 
         assert relay.metric("rehear_reloads_total", result="superseded") == 1
 
     asyncio.run(scenario())
+
+
+# ---- 9: the smaller findings -----------------------------------------------------------------
+
+def test_9_an_oversize_input_is_dead_lettered_capped_with_its_size(broker: Any, tmp_path: Path) -> None:
+    path, prefix = make_config(tmp_path, broker, limits={"max_payload_bytes": 4096, "dead_letter_max_bytes": 1024})
+    big = orjson.dumps(message("big", "a" * 10_000))
+
+    async def scenario() -> None:
+        async with running_relay(load(path)) as relay, Collector(broker, [f"{prefix}/dead"]) as down:
+            await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest", [big])
+            await down.wait_for(lambda items: len(items) >= 1)
+            await relay.wait_handled(1)
+        [dead] = down.received
+        assert dead.payload == big[:1024]  # not republished whole
+        assert dead.properties["size"] == str(len(big)) and dead.properties["truncated"] == "true"
+        assert dead.properties["reason"] == "oversize"
+
+    asyncio.run(scenario())
+
+
+def test_9_two_relays_with_one_client_id_say_so(broker: Any, tmp_path: Path, caplog: pytest.LogCaptureFixture) -> None:
+    path, _prefix = make_config(tmp_path, broker)
+
+    def taken_over() -> list[str]:
+        return [r.getMessage() for r in caplog.records if "connected with the same client_id" in r.getMessage()]
+
+    async def scenario() -> None:
+        async with running_relay(load(path)), running_relay(load(path), connect=False):
+            # The broker closes the older connection whenever the other one connects (MQTT 5.0
+            # section 3.1.4; mosquitto 2.0 sends no DISCONNECT 0x8E, it just closes)
+            await eventually(lambda: bool(taken_over()), timeout=20, what="the takeover logged")
+        assert f"client_id '{yaml.safe_load(path.read_text())['broker']['client_id']}'" in taken_over()[0]
+
+    asyncio.run(scenario())
+
+
+class Sleeper(_TestStage):
+    """Holds the chain 20 ms per message, like a slow stage in Python would."""
+
+    name: ClassVar[str] = "sleeper"
+
+    def process(self, utterance: Utterance) -> Utterance:
+        threading.Event().wait(0.02)  # the stage's work under test: 20 ms on the chain's thread
+        return utterance
+
+
+def test_9_processing_time_leaves_out_the_wait_in_the_queue(broker: Any, tmp_path: Path) -> None:
+    path, prefix = make_config(tmp_path, broker, stages=["normalize", "sleeper"], limits={"deadline_ms": 5000})
+    burst = [orjson.dumps(message(f"b-{n:02d}", "words")) for n in range(20)]
+
+    async def scenario() -> None:
+        async with running_relay(load(path, _registry(Sleeper))) as relay, \
+                Collector(broker, [f"{prefix}/nlu/#"]) as down:
+            await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest", burst)
+            await down.wait_for(lambda items: len(items) >= len(burst))
+            await relay.wait_handled(len(burst))
+        processing = relay.metric("rehear_processing_seconds_sum")
+        waiting = relay.metric("rehear_queue_wait_seconds_sum")
+        assert relay.metric("rehear_processing_seconds_count") == len(burst)
+        # 20 messages x 20 ms of chain: at least 0.4 s of processing; queued one behind the other,
+        # the later ones waited for all before them (about 0.4 s x 19 / 2 in total)
+        assert 0.4 <= processing < 1.2
+        assert waiting > processing
+
+    asyncio.run(scenario())
+
+
+def test_9_a_metrics_port_in_use_is_an_error_message_not_a_traceback(broker: Any, tmp_path: Path) -> None:
+    with socket.socket() as taken:
+        taken.bind(("127.0.0.1", 0))
+        taken.listen()
+        port = taken.getsockname()[1]
+        path, _prefix = make_config(tmp_path, broker, metrics={"port": port})
+        result = subprocess.run([sys.executable, "-m", "relay.cli.run", str(path)], cwd=ROOT, capture_output=True,
+                                text=True, timeout=60, env=dict(os.environ, PYTHONPATH=str(ROOT)))
+    assert result.returncode == 2
+    assert f"cannot serve metrics on 127.0.0.1:{port}" in result.stderr
+    assert "Traceback" not in result.stderr
