@@ -6,6 +6,9 @@ payload or topic, so it is cleaned here to what MQTT and brokers accept. MQTT 5.
 the control characters U+0001-U+001F, U+007F-U+009F or non-characters. mosquitto (2.0,
 ``mosquitto_validate_utf8`` in lib/utf8_mosq.c) enforces all of that: a PUBLISH whose topic or
 user property holds any of them is a malformed packet, and the broker drops the connection.
+Header values also lose U+FEFF: paho-mqtt (2.2, ``readUTF`` in properties.py) refuses it in a
+property and drops the connection, so a downstream consumer on paho would stall on a dead letter
+whose headers carry one (the relay's own fuzz run found it).
 """
 
 from __future__ import annotations
@@ -24,7 +27,7 @@ _PLACEHOLDER = re.compile(r"\{(source|speaker|decision)\}")
 # U+FDD0-U+FDEF and the last two code points of each of the 17 planes.
 _NONCHARACTERS = "".join(f"{chr(plane * 0x10000 + 0xFFFE)}{chr(plane * 0x10000 + 0xFFFF)}" for plane in range(17))
 _BROKER_REFUSES = "\x00-\x1f\x7f-\x9f\ud800-\udfff\ufdd0-\ufdef" + re.escape(_NONCHARACTERS)
-_UNSAFE_TEXT = re.compile(f"[{_BROKER_REFUSES}]")
+_UNSAFE_TEXT = re.compile(f"[{_BROKER_REFUSES}\ufeff]")
 # In a topic level also the wildcards and the level separator: a value must never add a level
 # or turn a publish topic into a filter.
 _UNSAFE_LEVEL = re.compile(f"[+#/{_BROKER_REFUSES}]")
