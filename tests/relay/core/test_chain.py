@@ -79,14 +79,19 @@ def test_a_stage_that_checks_is_stopped_inside_when_the_deadline_passes() -> Non
     assert _Looping.rounds >= 1 and time.monotonic() - began < 5  # stopped, not run forever
 
 
-def test_normalize_and_lm_rescore_stop_between_hypotheses_once_late() -> None:
+def test_normalize_lm_rescore_and_gate_stop_inside_once_late() -> None:
     from stages.lm.rescore import LmRescoreSettings, LmRescoreStage
     from tests.paths import ROOT
 
     context = StageContext(ROOT / "tests/data", ROOT / "tests/data")
+    from stages.gate.settings import GateSettings
+    from stages.gate.stage import GateStage
+
     lm = LmRescoreStage(LmRescoreSettings(model=Path("lm_domain.o3.arpa")), context=context)
     lm.load()
-    for stage in (NormalizeStage(NormalizeSettings(), context=context), lm):
+    gate = GateStage(GateSettings(), context=context)
+    gate.load()
+    for stage in (NormalizeStage(NormalizeSettings(), context=context), lm, gate):
         utt = Chain([NormalizeStage(NormalizeSettings(), context=context)]).process(parse_message(
             b'{"id": "a", "nbest": [{"text": "one"}, {"text": "two"}]}', topic="t"))
         utt.deadline = time.monotonic() - 1  # already late: the first hypothesis is not even started
