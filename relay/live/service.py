@@ -33,12 +33,14 @@ import aiomqtt
 
 from relay.core.chain import Chain
 from relay.core.config import LoadedConfig, build_chain, load_config
-from relay.core.errors import DeadlineExceeded, InputError, PublishRefused, RehearError, TransportError
+from relay.core.errors import DeadlineExceeded, InputError, PublishRefused, TransportError
 from relay.core.settings import LimitSettings, TopicSettings
 from relay.core.utterance import Utterance
+from relay.live.diagnosis import ConnectionDiagnosis
 from relay.live.heap import freeze_loaded, refreeze_when_gone
 from relay.live.messages import parse_message, word_load
 from relay.live.metrics import OUTCOMES, Metrics
+from relay.live.reload import SerialReloads
 from relay.live.routing import Outgoing, cleaned, dead_letter, is_final, partial, passthrough
 from relay.live.topics import source_from_topic
 from relay.live.transport import Delivery, Session
@@ -52,10 +54,6 @@ _log = logging.getLogger("rehear.service")
 # that the input goes back to the broker soon when it does not.
 _RETRY_FIRST_S = 0.2
 _RETRY_MAX_S = 5.0
-# Three connections in a row that the broker closes within 5 s of connecting look like two
-# instances with one client id knocking each other off.
-_SHORT_SESSION_S = 5.0
-_SHORT_SESSIONS_SUSPECT = 3
 
 
 @dataclass(frozen=True, slots=True)
@@ -105,7 +103,6 @@ class Relay:
 
             def reloader() -> Active:
                 return load_active(path)
-        self._reloader = reloader
         limits = active.loaded.config.limits
         self._slots = asyncio.Semaphore(limits.max_in_flight)
         self._tasks: set[asyncio.Task[None]] = set()
@@ -116,16 +113,11 @@ class Relay:
         self._worker = ChainWorker()
         self._generation = 0
         self._session: Session | None = None
-        self._connected_at = 0.0
-        self._short_sessions = 0
-        self._problem = "not connected yet"
+        self._diagnosis = ConnectionDiagnosis(metrics, active.loaded.config.broker.client_id)
         # Since when input has waited with no acknowledgement going out; None while none waits.
         # Kept across reconnects: an input the broker redelivers again and again is one stall.
         self._waiting_since: float | None = None
-        self._reload_lock = asyncio.Lock()
-        self._reload_requests = 0
-        self._reload_done = 0
-        self._reload_result = False
+        self._reloads = SerialReloads(reloader, self._swap, counted=self._count_reload) if reloader else None
         self.connected = False
         self.metrics.chain_loaded.set(1)
         self.metrics.max_in_flight.set(limits.max_in_flight)
@@ -155,7 +147,7 @@ class Relay:
         if stall > limit:
             problems.append(f"acknowledgements stalled: input has waited {stall:.0f} s (limits.stall_s {limit:g})")
         if not self.connected:
-            problems.append(f"broker not connected: {self._problem}")
+            problems.append(f"broker not connected: {self._diagnosis.problem}")
         if problems:
             return False, "; ".join(problems)
         return True, f"ok: chain {' -> '.join(self.active.chain.names)}, config {self.active.loaded.hash}"
@@ -166,33 +158,13 @@ class Relay:
     async def reload(self) -> bool:
         """Build and load the new configuration off the loop, then swap it in between messages.
 
-        One reload runs at a time, and the last request wins: a request made while another
-        reload is loading makes that one's result stale (the file may have changed since it was
-        read), so it is dropped and the file read again. True once a configuration read after
-        this request is serving; False when it could not be loaded.
+        One reload at a time, the last request winning (relay.live.reload). True once a
+        configuration read after this request is serving; False when it could not be loaded.
         """
-        if self._reloader is None:
-            return False
-        self._reload_requests += 1
-        mine = self._reload_requests
-        async with self._reload_lock:
-            while self._reload_done < mine:
-                target = self._reload_requests
-                try:
-                    new = await asyncio.get_running_loop().run_in_executor(None, self._reloader)
-                except RehearError as exc:
-                    if self._reload_requests == target:
-                        self._reload_done, self._reload_result = target, False
-                    self.metrics.reloads.labels(result="failed").inc()
-                    _log.error("reload failed; the current chain keeps running\n%s", exc)
-                    continue
-                if self._reload_requests != target:
-                    self.metrics.reloads.labels(result="superseded").inc()
-                    _log.info("reload superseded by a newer request; reading the file again")
-                    continue
-                self._swap(new)
-                self._reload_done, self._reload_result = target, True
-            return self._reload_result
+        return await self._reloads.request() if self._reloads is not None else False
+
+    def _count_reload(self, result: str) -> None:
+        self.metrics.reloads.labels(result=result).inc()
 
     def _swap(self, new: Active) -> None:
         old = self.active.loaded.config
@@ -206,7 +178,6 @@ class Relay:
             self._background.add(refreeze)
             refreeze.add_done_callback(self._background.discard)
         del replaced
-        self.metrics.reloads.labels(result="ok").inc()
         _log.info("configuration reloaded", extra={"fields": {"config_hash": new.loaded.hash,
                                                               "stages": ",".join(new.chain.names)}})
 
@@ -227,7 +198,7 @@ class Relay:
                     await self._connection(self._generation)
                     delay = broker.reconnect_min_s
                 except TransportError as exc:
-                    self._connection_failed(exc)
+                    self._diagnosis.failed(exc)
                 except aiomqtt.MqttError as exc:
                     self._connection_lost(exc)
                 if self._stopping.is_set():
@@ -240,40 +211,10 @@ class Relay:
         finally:
             self._worker.shutdown()
 
-    def _connection_failed(self, exc: TransportError) -> None:
-        self._problem = str(exc)
-        if exc.kind in ("tls", "refused"):
-            # Not a network blip: retrying alone will not fix it, so it is logged as an error each
-            # time (with backoff up to broker.reconnect_max_s) and counted by cause.
-            self.metrics.connect_failures.labels(reason=exc.kind).inc()
-            _log.error("cannot connect: %s", exc)
-        elif exc.kind == "network":
-            self.metrics.connect_failures.labels(reason="network").inc()
-            _log.warning("broker connection refused or unreachable", extra={"fields": {"error": str(exc)}})
-        else:
-            _log.warning("reconnecting after a failure", extra={"fields": {"error": str(exc)}})
-
     def _connection_lost(self, exc: aiomqtt.MqttError) -> None:
         session = self._session
-        client_id = self.active.loaded.config.broker.client_id
-        short = session is not None and time.monotonic() - self._connected_at < _SHORT_SESSION_S
-        self._short_sessions = self._short_sessions + 1 if short else 0
-        if session is not None and session.taken_over:
-            self._problem = f"session taken over by another client with client_id {client_id!r}"
-            _log.error("the broker closed the session because another client connected with the same "
-                       "client_id %r (reason code 0x8e); every instance needs its own client_id", client_id)
-            return
-        if self._short_sessions >= _SHORT_SESSIONS_SUSPECT:
-            # mosquitto 2.0 closes the older of two connections with one client id without a
-            # DISCONNECT reason code, so the pattern is all there is to go by.
-            self._problem = f"connection closed {self._short_sessions} times in a row right after connecting"
-            _log.error("the broker closed the connection %d times in a row within %g s of connecting: probably "
-                       "another client connected with the same client_id %r; every instance needs its own "
-                       "client_id", self._short_sessions, _SHORT_SESSION_S, client_id)
-            return
-        reason = f" (reason: {session.disconnect_reason})" if session is not None and session.disconnect_reason else ""
-        self._problem = f"connection lost: {exc}{reason}"
-        _log.warning("broker connection lost", extra={"fields": {"error": str(exc) + reason}})
+        self._diagnosis.lost(exc, taken_over=session is not None and session.taken_over,
+                             reason=session.disconnect_reason if session is not None else "")
 
     async def _connection(self, generation: int) -> None:
         loaded = self.active.loaded
@@ -283,7 +224,7 @@ class Relay:
                           receive_maximum=config.limits.max_in_flight, generation=generation)
         self._session = session
         async with session:
-            self._connected_at = time.monotonic()
+            self._diagnosis.connected()
             self.connected = True
             self.metrics.broker_connected.set(1)
             self._broken.clear()
