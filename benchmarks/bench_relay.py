@@ -128,7 +128,7 @@ def _bench_active(port: int, args: argparse.Namespace) -> Any:
     """The configured chain (plus the busy stage) with broker, topics and limits set for the bench."""
     from relay.core.config import StageSpec, build_chain, load_config
     from relay.core.registry import Registry
-    from relay.live.service import Active
+    from relay.live.active import Active
 
     if args.config:
         loaded = load_config(args.config)

@@ -10,11 +10,13 @@ from __future__ import annotations
 
 import os
 import shutil
+import signal
 import socket
 import subprocess
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Any
 
 import pytest
 from hypothesis import settings
@@ -41,7 +43,10 @@ class MosquittoBroker:
 
     host = "127.0.0.1"
 
-    def __init__(self, workdir: Path, binary: str) -> None:
+    def __init__(self, workdir: Path, binary: str, *, listener: str = "", extra: str = "",
+                 allow_anonymous: bool = True) -> None:
+        """``listener``: options for the listener (TLS files); ``extra``: more configuration lines
+        (an ACL or password file)."""
         self.workdir = workdir
         self.binary = binary
         self.port = free_port()
@@ -53,14 +58,19 @@ class MosquittoBroker:
         # persistence: sessions and queued QoS 1 messages survive a broker restart.
         self.config_path.write_text(
             f"listener {self.port} 127.0.0.1\n"
-            "allow_anonymous true\n"
-            "set_tcp_nodelay true\n"
+            + listener
+            + f"allow_anonymous {'true' if allow_anonymous else 'false'}\n"
+            + extra
+            # Started as root, mosquitto drops to its own user, which cannot open the test's private
+            # temporary folder: no log, no persistence file, no ACL or certificates. Stay root.
+            + ("user root\n" if hasattr(os, "geteuid") and os.geteuid() == 0 else "")
+            + "set_tcp_nodelay true\n"
             "persistence true\n"
             f"persistence_location {workdir / 'data'}/\n"
             "autosave_interval 1\n"
             "max_queued_messages 10000\n"
             f"log_dest file {self.log_path}\n"
-            "log_type error\nlog_type warning\n"
+            "log_type error\nlog_type warning\nlog_type notice\n"
         )
 
     @property
@@ -75,6 +85,8 @@ class MosquittoBroker:
         while time.monotonic() < end:
             if self.process.poll() is not None:
                 stderr = self.process.stderr.read().decode(errors="replace") if self.process.stderr else ""
+                if self.process.stderr:
+                    self.process.stderr.close()
                 raise RuntimeError(f"mosquitto exited with {self.process.returncode}: {stderr.strip()}")
             try:
                 with socket.create_connection((self.host, self.port), timeout=0.2):
@@ -100,6 +112,14 @@ class MosquittoBroker:
         self.stop()
         self.start()
 
+    def reload(self) -> None:
+        """SIGHUP: mosquitto reads its ACL and password files again (mosquitto.conf(5))."""
+        if self.process is not None:
+            self.process.send_signal(signal.SIGHUP)
+
+    def log(self) -> str:
+        return self.log_path.read_text(errors="replace") if self.log_path.exists() else ""
+
 
 def _unavailable(message: str) -> None:
     if os.environ.get("CI", "").lower() == "true":
@@ -119,6 +139,28 @@ def mosquitto(tmp_path_factory: pytest.TempPathFactory) -> Iterator[MosquittoBro
         _unavailable(str(exc))
     yield broker
     broker.stop()
+
+
+@pytest.fixture
+def make_broker(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Callable[..., MosquittoBroker]]:
+    """Start a broker of the test's own (ACL, password file, TLS listener); stopped after the test."""
+    binary = MOSQUITTO if os.path.exists(MOSQUITTO) else shutil.which("mosquitto")
+    started: list[MosquittoBroker] = []
+
+    def start(**options: Any) -> MosquittoBroker:
+        if not binary:
+            _unavailable(f"{MOSQUITTO} not found")
+        broker = MosquittoBroker(tmp_path_factory.mktemp("mosquitto"), str(binary), **options)
+        try:
+            broker.start()
+        except (OSError, RuntimeError) as exc:
+            _unavailable(str(exc))
+        started.append(broker)
+        return broker
+
+    yield start
+    for broker in started:
+        broker.stop()
 
 
 @pytest.fixture

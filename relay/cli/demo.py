@@ -8,8 +8,8 @@ from pathlib import Path
 from typing import Any
 
 from relay.core.errors import RehearError
+from relay.live.active import load_active
 from relay.live.serve import run_coroutine
-from relay.live.service import load_active
 from relay.workbench.demo import DemoOptions, play
 
 __all__ = ["add_parser", "run"]

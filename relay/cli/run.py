@@ -9,9 +9,9 @@ from typing import Any
 
 from relay import __version__
 from relay.core.errors import RehearError
+from relay.live.active import load_active
 from relay.live.logs import setup_logging
 from relay.live.serve import EVENT_LOOPS, run_coroutine, serve
-from relay.live.service import load_active
 
 __all__ = ["add_parser", "main", "run"]
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import time
 from collections.abc import Sequence
 
-from relay.core.errors import DeadlineExceeded
+from relay.core.errors import DeadlineExceeded, StageError
 from relay.core.stage import Stage, check_order
 from relay.core.utterance import TraceEntry, Utterance
 
@@ -25,11 +25,20 @@ class Chain:
 
     def load(self) -> None:
         for stage in self.stages:
-            stage.load()
+            try:
+                stage.load()
+            except StageError as exc:
+                if exc.stage == stage.name:
+                    raise
+                # A helper shared between stages (the language model loader) names the stage it
+                # was written for; the problem is this stage's, and so is the setting to fix.
+                raise StageError(stage.name, exc.detail) from None
 
     def process(self, utterance: Utterance, *, deadline: float | None = None) -> Utterance:
-        """Run every stage; ``deadline`` is a time.monotonic() value checked between stages."""
+        """Run every stage; ``deadline`` is a time.monotonic() value checked between stages and
+        inside the stages that call ``Utterance.check_deadline``."""
         start = time.monotonic()
+        utterance.deadline = deadline
         for stage in self.stages:
             if deadline is not None and time.monotonic() > deadline:
                 raise DeadlineExceeded(stage.name, (time.monotonic() - start) * 1000)

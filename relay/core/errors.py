@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-__all__ = ["ConfigError", "DeadlineExceeded", "InputError", "RehearError", "StageError", "TransportError"]
+__all__ = ["ConfigError", "DeadlineExceeded", "InputError", "PublishRefused", "RehearError", "StageError",
+           "TransportError"]
 
 
 class RehearError(Exception):
@@ -51,13 +52,36 @@ class StageError(RehearError):
 
 
 class TransportError(RehearError):
-    """Raised when the broker connection cannot be set up as configured."""
+    """Raised when the broker connection cannot be set up as configured, or breaks.
+
+    ``kind`` is a short, bounded label (``network``, ``tls``, ``refused``, ``publish``) used as a
+    metric label.
+    """
+
+    def __init__(self, message: str, *, kind: str = "network") -> None:
+        self.kind = kind
+        super().__init__(message)
+
+
+class PublishRefused(TransportError):
+    """Raised when the broker answers a publish with a failure reason code (MQTT 5 PUBACK >= 0x80).
+
+    ``code`` is the reason code (0x87: not authorised), ``reason`` its name from the specification.
+    """
+
+    def __init__(self, topic: str, code: int, reason: str) -> None:
+        self.topic = topic
+        self.code = code
+        self.reason = reason
+        super().__init__(f"broker refused the publish on {topic!r}: reason code {code:#04x} ({reason})",
+                         kind="publish")
 
 
 class DeadlineExceeded(RehearError):
-    """Raised between stages when a message has used up its processing deadline."""
+    """Raised between stages, or inside one that checks, when a message has used up its deadline."""
 
-    def __init__(self, stage: str, elapsed_ms: float) -> None:
+    def __init__(self, stage: str, elapsed_ms: float, *, inside: bool = False) -> None:
         self.stage = stage
         self.elapsed_ms = elapsed_ms
-        super().__init__(f"deadline passed before stage {stage} ({elapsed_ms:.1f} ms spent)")
+        where = "inside" if inside else "before"
+        super().__init__(f"deadline passed {where} stage {stage} ({elapsed_ms:.1f} ms spent)")

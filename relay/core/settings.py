@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import re
+from pathlib import Path
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, SecretStr, field_validator
+from pydantic import BaseModel, ConfigDict, Field, SecretStr, field_validator, model_validator
 
-__all__ = ["BrokerSettings", "LimitSettings", "LogSettings", "MetricsSettings", "Qos", "TopicSettings"]
+__all__ = ["BrokerSettings", "LimitSettings", "LogSettings", "MetricsSettings", "Qos", "TlsSettings", "TopicSettings",
+           "source_level_of"]
 
 Qos = Literal[0, 1, 2]
 _TEMPLATE_FIELDS = ("source", "speaker", "decision")
@@ -18,6 +20,34 @@ class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
 
+class TlsSettings(_Strict):
+    """TLS to the broker; off unless ``enabled`` (or any file is given)."""
+
+    enabled: bool = False
+    ca_file: Path | None = Field(None, description="CA certificates that signed the broker's certificate; "
+                                 "default: the system's trust store")
+    cert_file: Path | None = Field(None, description="client certificate, for brokers that require one")
+    key_file: Path | None = Field(None, description="the client certificate's private key")
+    check_hostname: bool = Field(True, description="the broker's certificate must name broker.host")
+    min_version: Literal["1.2", "1.3"] = "1.2"
+    max_version: Literal["1.2", "1.3"] | None = None
+
+    @model_validator(mode="after")
+    def _consistent(self) -> TlsSettings:
+        if self.ca_file or self.cert_file or self.key_file:
+            self.enabled = True
+        if (self.cert_file is None) != (self.key_file is None):
+            raise ValueError("cert_file and key_file go together")
+        if self.max_version is not None and float(self.max_version) < float(self.min_version):
+            raise ValueError(f"max_version {self.max_version} is below min_version {self.min_version}")
+        return self
+
+    @field_validator("min_version", "max_version", mode="before")
+    @classmethod
+    def _version_as_text(cls, value: Any) -> Any:
+        return f"{value:.1f}" if isinstance(value, float) else value
+
+
 class BrokerSettings(_Strict):
     host: str = "127.0.0.1"
     port: int = Field(1883, ge=1, le=65535)
@@ -25,11 +55,20 @@ class BrokerSettings(_Strict):
     client_id: str = Field("rehear", min_length=1, max_length=64)
     username: str | None = None
     password: SecretStr | None = None
+    password_file: Path | None = Field(None, description="read the password from this file (first line); "
+                                       "for an environment variable write password: ${NAME}")
     keepalive_s: int = Field(30, ge=5, le=3600)
     session_expiry_s: int = Field(3600, ge=0, description="how long the broker keeps queued input while the relay is away")
     tcp_nodelay: bool = True
     reconnect_min_s: float = Field(0.5, gt=0)
     reconnect_max_s: float = Field(30.0, gt=0)
+    tls: TlsSettings = TlsSettings()
+
+    @model_validator(mode="after")
+    def _one_password(self) -> BrokerSettings:
+        if self.password is not None and self.password_file is not None:
+            raise ValueError("give password or password_file, not both")
+        return self
 
     @field_validator("protocol", mode="before")
     @classmethod
@@ -58,6 +97,16 @@ class TopicSettings(_Strict):
     prompt_qos: Qos = 1
     dead_letter_qos: Qos = 1
     forward_unsure: bool = Field(True, description="send confirm/reprompt results to the output topic too")
+    source_level: int | Literal["auto", "none"] = Field(
+        "auto",
+        description="which level of the input topic names the source (0 = first): a recogniser may then only "
+        "write into its own device's topics. auto: the first + of the input filter that matched, none: "
+        "the payload's source",
+    )
+    source_mismatch: Literal["refuse", "ignore"] = Field(
+        "refuse", description="a payload source that disagrees with the topic: refuse (dead letter) or "
+        "ignore (the topic's source is used)",
+    )
 
     _templates = field_validator("output", "prompt", "dead_letter")(_check_template)
 
@@ -72,10 +121,45 @@ class TopicSettings(_Strict):
                 raise ValueError(f"{topic!r}: # may only be the last level")
         return value
 
+    @field_validator("source_level")
+    @classmethod
+    def _level(cls, value: int | str) -> int | str:
+        if isinstance(value, int) and value < 0:
+            raise ValueError("a topic level counts from 0")
+        return value
+
+
+def source_level_of(topic_filter: str, setting: int | str) -> int | None:
+    """The level of topics matching ``topic_filter`` that names the source, or None.
+
+    ``$share/GROUP/`` is the broker's, not part of the topics that arrive, so it is skipped.
+    """
+    if setting == "none":
+        return None
+    levels = topic_filter.split("/")
+    if levels[0] == "$share" and len(levels) > 2:
+        levels = levels[2:]
+    if isinstance(setting, int):
+        return setting
+    return levels.index("+") if "+" in levels else None
+
 
 class LimitSettings(_Strict):
     max_payload_bytes: int = Field(262_144, ge=256)
     max_hypotheses: int = Field(50, ge=1, le=50)
+    max_words_per_hypothesis: int = Field(
+        60, ge=1, description="more words in one hypothesis: the original goes on uncleaned, flagged too_long")
+    max_words: int = Field(
+        300, ge=1, description="more words over all hypotheses: the original goes on uncleaned, flagged too_long")
+    max_word_chars: int = Field(
+        40, ge=1, description="a longer word (no spaces) counts as one word per this many characters")
+    dead_letter_max_bytes: int = Field(
+        16_384, ge=0, description="dead letters carry at most this much of the input; the original size is recorded")
+    publish_attempts: int = Field(
+        4, ge=1, le=20, description="tries for a publish the broker refuses (MQTT 5 reason code), with backoff, "
+        "before the input is left unacknowledged for redelivery")
+    stall_s: float = Field(
+        30.0, gt=0, description="/healthz turns 503 when the oldest unacknowledged input is older than this")
     max_in_flight: int = Field(64, ge=1, le=10_000)
     deadline_ms: float = Field(250.0, gt=0)
     drain_s: float = Field(10.0, ge=0, description="on shutdown, how long in-flight messages may take to finish")

@@ -132,6 +132,12 @@ class _WatchedUtterance(Utterance):
         with watch.silent():  # what a property reads inside is the property's business
             return object.__getattribute__(self, name)
 
+    def note(self, **scores: Any) -> None:
+        # Recorded unchecked, so run_checked reports a bad trace value beside every other broken
+        # promise; Utterance.note itself raises StageError at the first one.
+        if self.trace:
+            self.trace[-1].scores.update(scores)
+
 
 def _watched(utterance: Utterance, watch: _Watch) -> Utterance:
     nbest: list[Hypothesis] = []

@@ -8,9 +8,14 @@ message. Stages are pure, synchronous CPU code; they never touch the network.
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
+
+import orjson
+
+from relay.core.errors import DeadlineExceeded, StageError
 
 __all__ = ["SCORE_KEYS", "Correction", "Decision", "Entity", "Hypothesis", "TraceEntry", "Utterance", "score_key",
            "softmax"]
@@ -97,6 +102,8 @@ class Utterance:
     decision: Decision | None = None
     prompt: str | None = None
     chosen_text: str | None = None  # set by a stage that rewrites the output text
+    # time.monotonic() past which the work is wasted (the chain sets it); None: no deadline
+    deadline: float | None = None
 
     @property
     def best(self) -> Hypothesis:
@@ -113,9 +120,43 @@ class Utterance:
         return sorted(self.nbest, key=lambda h: (-h.posterior, h.rank))
 
     def note(self, **scores: Any) -> None:
-        """Record key scores in the trace entry of the stage now running."""
-        if self.trace:
-            self.trace[-1].scores.update(scores)
+        """Record key scores in the trace entry of the stage now running.
+
+        The values must be what the cleaned message can carry (JSON: numbers, strings, lists,
+        dicts; numpy numbers and arrays too). Anything else raises StageError here, naming the
+        stage and the key, rather than later when the result is rendered and nobody knows who
+        wrote it. orjson checks it in about a microsecond for a typical note.
+        """
+        if not self.trace:
+            return
+        try:
+            orjson.dumps(scores, option=_TRACE_OPTIONS)
+        except (TypeError, orjson.JSONEncodeError):
+            stage = self.trace[-1].stage
+            for key, value in scores.items():
+                try:
+                    orjson.dumps(value, option=_TRACE_OPTIONS)
+                except (TypeError, orjson.JSONEncodeError) as exc:
+                    raise StageError(stage, f"trace value {key!r} cannot be serialised "
+                                            f"({type(value).__name__}: {exc})") from None
+            raise StageError(stage, "trace values cannot be serialised") from None  # pragma: no cover
+        self.trace[-1].scores.update(scores)
+
+    def check_deadline(self) -> None:
+        """Raise DeadlineExceeded once the deadline has passed; cheap (one clock read).
+
+        Stages call it inside loops whose length grows with the message (per hypothesis, per
+        span), so work on a message that is already too late stops there, not only between
+        stages.
+        """
+        if self.deadline is not None and time.monotonic() > self.deadline:
+            stage = self.trace[-1].stage if self.trace else "chain"
+            raise DeadlineExceeded(stage, 0.0, inside=True)
+
+
+# The options the relay renders the cleaned message with (relay.live.messages.dump): numpy
+# numbers and arrays come from numeric stages.
+_TRACE_OPTIONS = orjson.OPT_SERIALIZE_NUMPY
 
 
 def softmax(log_scores: Sequence[float]) -> list[float]:

@@ -24,9 +24,14 @@ __all__ = [
     "parse_message",
     "render_cleaned",
     "render_passthrough",
+    "word_load",
 ]
 
 MAX_HYPOTHESES = 50  # FORMATS section 1: 1..50 items
+# orjson reads JSON nested 1024 levels deep but writes at most 254 (its recursion limit), so a
+# deeper message would parse and then fail when its result is rendered. Refused at parse time.
+MAX_NESTING = 200
+_DIGITS = "0123456789"
 
 
 class NbestEntry(BaseModel):
@@ -123,6 +128,10 @@ def parse_message(
         raise InputError("invalid_json", f"topic {topic}: {exc}") from None
     if not isinstance(data, dict):
         raise InputError("schema", f"topic {topic}: expected a JSON object, got {type(data).__name__}")
+    # Nesting cannot be deeper than the number of brackets: two C scans rule it out for almost
+    # every message, and only a bracket-heavy one pays for the walk.
+    if payload.count(b"[") + payload.count(b"{") > MAX_NESTING and _depth(data) > MAX_NESTING:
+        raise InputError("too_deep", f"topic {topic}: nested more than {MAX_NESTING} levels deep")
     if field_map is not None and not field_map.is_identity:
         data = field_map.apply(data, topic=topic)
     nbest = data.get("nbest")
@@ -148,6 +157,44 @@ def parse_message(
         payload=data,
         nbest=hypotheses,
     )
+
+
+def _depth(value: Any) -> int:
+    """How deeply lists and objects nest in ``value``, without recursion (its depth is the question)."""
+    deepest = 0
+    stack: list[tuple[Any, int]] = [(value, 1)]
+    while stack:
+        item, level = stack.pop()
+        if isinstance(item, dict):
+            children: Any = item.values()
+        elif isinstance(item, list):
+            children = item
+        else:
+            continue
+        deepest = max(deepest, level)
+        if deepest > MAX_NESTING:
+            return deepest
+        stack.extend((child, level + 1) for child in children if isinstance(child, (dict, list)))
+    return deepest
+
+
+def word_load(texts: list[str], *, max_word_chars: int) -> tuple[int, int]:
+    """(most words in one text, words in all texts), counted from the raw text before tokenising.
+
+    What the chain costs grows with the words it sees after tokenising, so the count leans that
+    way: each digit counts as a word too (numbers are spelled out, "20000" is "twenty thousand",
+    a long digit run one word per digit), and a word longer than ``max_word_chars`` counts once
+    per that many characters (an unknown word is pronounced letter by letter).
+    """
+    most = total = 0
+    for text in texts:
+        words = text.split()
+        count = len(words) + sum(map(text.count, _DIGITS))
+        if words and len(text) > max_word_chars and max(map(len, words)) > max_word_chars:
+            count += sum(len(word) // max_word_chars for word in words if len(word) > max_word_chars)
+        most = max(most, count)
+        total += count
+    return most, total
 
 
 def render_cleaned(utterance: Utterance, *, relay: dict[str, Any]) -> dict[str, Any]:

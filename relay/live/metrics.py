@@ -9,7 +9,8 @@ from __future__ import annotations
 
 from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram
 
-__all__ = ["LATENCY_BUCKETS", "OUTCOMES", "Metrics"]
+__all__ = ["CONNECT_FAILURES", "DEAD_LETTER_REASONS", "LATENCY_BUCKETS", "LOOP_LAG_BUCKETS", "OUTCOMES",
+           "PUBLISH_KINDS", "Metrics"]
 
 # From 100 us (a pass-through stage) to 1 s (far past any sane deadline).
 LATENCY_BUCKETS = (
@@ -21,11 +22,20 @@ OUTCOMES = (
     "partial",  # a non-final result, forwarded untouched
     "deadline",  # the deadline passed; the original went on, flagged
     "stage_error",  # a stage raised; the original went on, flagged
+    "too_long",  # more words than limits allow; the original went on, flagged, without the chain
+    "internal_error",  # the relay itself failed after receipt; the original went on, flagged
     "dead_letter",  # unusable input, sent to the dead-letter topic
     "publish_failed",  # the result could not be published; the broker will redeliver
+    "publish_refused",  # the broker refused a publish (MQTT 5 reason code); the broker will redeliver
 )
 
-DEAD_LETTER_REASONS = ("oversize", "not_utf8", "invalid_json", "schema", "too_many_hypotheses")
+DEAD_LETTER_REASONS = ("oversize", "not_utf8", "invalid_json", "schema", "too_many_hypotheses", "too_deep",
+                       "source_mismatch", "internal_error")
+PUBLISH_KINDS = ("output", "prompt", "dead_letter")
+CONNECT_FAILURES = ("network", "tls", "refused")
+# How late the event loop runs a timer: 1 ms and below is healthy, 100 ms means a message's whole
+# budget is gone before the relay even looks at it.
+LOOP_LAG_BUCKETS = (0.0005, 0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5)
 DECISIONS = ("accept", "confirm", "reprompt", "none")
 
 
@@ -44,8 +54,34 @@ class Metrics:
         )
         self.processing = Histogram(
             "rehear_processing_seconds",
-            "Time the relay itself added per message: parse, chain and render, without the broker.",
+            "Time the relay worked on a message: parse, chain and render, without waiting and the broker.",
             buckets=LATENCY_BUCKETS, registry=registry,
+        )
+        self.queue_wait = Histogram(
+            "rehear_queue_wait_seconds",
+            "Time a message waited after receipt for its turn in the chain (behind earlier messages).",
+            buckets=LATENCY_BUCKETS, registry=registry,
+        )
+        self.loop_lag = Histogram(
+            "rehear_event_loop_lag_seconds",
+            "How late the relay's event loop ran a periodic timer (the chain holding the interpreter shows here).",
+            buckets=LOOP_LAG_BUCKETS, registry=registry,
+        )
+        self.ack_stall = Gauge(
+            "rehear_ack_stall_seconds",
+            "How long input has waited without any acknowledgement going out; 0 when none waits.",
+            registry=registry,
+        )
+        self.max_in_flight = Gauge(
+            "rehear_max_in_flight", "limits.max_in_flight: the most messages held unacknowledged.", registry=registry
+        )
+        self.publish_refused = Counter(
+            "rehear_publish_refused_total",
+            "Publishes the broker refused with an MQTT 5 reason code, by what was published and the code.",
+            ["kind", "code"], registry=registry,
+        )
+        self.connect_failures = Counter(
+            "rehear_connect_failures_total", "Failed connection attempts, by cause.", ["reason"], registry=registry
         )
         self.stage_latency = Histogram(
             "rehear_stage_latency_seconds", "Time spent in each stage per message.", ["stage"],
@@ -90,8 +126,10 @@ class Metrics:
             self.dead_letters.labels(reason=reason)
         for decision in DECISIONS:
             self.decisions.labels(decision=decision)
-        for result in ("ok", "failed"):
+        for result in ("ok", "failed", "superseded"):
             self.reloads.labels(result=result)
+        for reason in CONNECT_FAILURES:
+            self.connect_failures.labels(reason=reason)
 
     def declare_stages(self, names: list[str]) -> None:
         """Create the per-stage series for a chain, so they exist before the first message."""

@@ -15,7 +15,7 @@ from relay.core.errors import InputError
 from relay.core.settings import TopicSettings
 from relay.core.utterance import Utterance
 from relay.live.messages import dump, render_cleaned, render_passthrough
-from relay.live.transport import render_topic
+from relay.live.topics import clean_text, render_topic
 
 __all__ = ["Outgoing", "cleaned", "dead_letter", "is_final", "partial", "passthrough"]
 
@@ -24,12 +24,14 @@ _BOOL = TypeAdapter(bool)
 
 @dataclass(frozen=True, slots=True)
 class Outgoing:
-    """One message to publish; ``properties`` become MQTT 5 user properties."""
+    """One message to publish; ``properties`` become MQTT 5 user properties; ``kind`` says
+    which configured topic it goes to (output, prompt, dead_letter)."""
 
     topic: str
     payload: bytes
     qos: int
     properties: dict[str, str] | None = None
+    kind: str = "output"
 
 
 def _values(utterance: Utterance) -> dict[str, object]:
@@ -42,17 +44,23 @@ def is_final(utterance: Utterance) -> bool:
     return raw if isinstance(raw, bool) else _BOOL.validate_python(raw)
 
 
-def dead_letter(topic: str, payload: bytes, error: InputError, topics: TopicSettings, *, v5: bool) -> Outgoing:
-    """The input unchanged, with why it was refused.
+def dead_letter(topic: str, payload: bytes, error: InputError, topics: TopicSettings, *, v5: bool,
+                max_bytes: int = 16_384) -> Outgoing:
+    """The input, with why it was refused.
 
-    MQTT 5 carries the reason in user properties beside the untouched payload; 3.1.1 has no
-    properties, so there the payload travels base64-encoded inside a JSON envelope.
+    MQTT 5 carries the reason in user properties beside the payload; 3.1.1 has no properties,
+    so there the payload travels base64-encoded inside a JSON envelope. At most ``max_bytes``
+    of the input travel (an oversize input must not be republished whole); ``size`` records
+    the input's own size and ``truncated`` says whether it was cut. The header values come from
+    untrusted input, so they are cleaned to what a broker accepts in a UTF-8 string.
     """
-    headers = {"reason": error.reason, "detail": error.detail, "topic": topic}
+    kept = payload[:max_bytes]
+    headers = {"reason": error.reason, "detail": clean_text(error.detail), "topic": clean_text(topic),
+               "size": str(len(payload)), "truncated": "true" if len(kept) < len(payload) else "false"}
     if v5:
-        return Outgoing(topics.dead_letter, payload, topics.dead_letter_qos, headers)
-    envelope = dict(headers, payload_b64=base64.b64encode(payload).decode("ascii"))
-    return Outgoing(topics.dead_letter, dump(envelope), topics.dead_letter_qos)
+        return Outgoing(topics.dead_letter, kept, topics.dead_letter_qos, headers, kind="dead_letter")
+    envelope = dict(headers, payload_b64=base64.b64encode(kept).decode("ascii"))
+    return Outgoing(topics.dead_letter, dump(envelope), topics.dead_letter_qos, kind="dead_letter")
 
 
 def partial(utterance: Utterance, payload: bytes, topics: TopicSettings) -> Outgoing:
@@ -74,7 +82,7 @@ def cleaned(utterance: Utterance, topics: TopicSettings, relay: dict[str, Any]) 
             "decision": utterance.decision, "prompt": utterance.prompt, "text": utterance.text,
             "relay": relay,
         }
-        out.append(Outgoing(render_topic(topics.prompt, values), dump(prompt), topics.prompt_qos))
+        out.append(Outgoing(render_topic(topics.prompt, values), dump(prompt), topics.prompt_qos, kind="prompt"))
     return out
 
 

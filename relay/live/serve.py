@@ -13,9 +13,11 @@ from prometheus_client import CollectorRegistry
 
 from relay import __version__
 from relay.core.errors import RehearError
+from relay.live.active import Active
 from relay.live.health import HealthServer
+from relay.live.looplag import watch_loop_lag
 from relay.live.metrics import Metrics
-from relay.live.service import Active, Relay
+from relay.live.service import Relay
 
 __all__ = ["EVENT_LOOPS", "event_loop_runner", "run_coroutine", "serve"]
 
@@ -31,19 +33,25 @@ async def serve(
     on_ready: Callable[[Relay, HealthServer | None], Awaitable[None] | None] | None = None,
     signals: bool = True,
     freeze_heap: bool = False,
+    reloader: Callable[[], Active] | None = None,
 ) -> Relay:
     """Run the relay and its HTTP endpoint until a stop is requested and the drain is over.
 
     ``freeze_heap`` keeps the loaded chain out of the garbage collector's walks (relay.heap):
     right for a process that runs nothing else, as `rehear run` is."""
     registry = registry or CollectorRegistry()
-    relay = Relay(active, Metrics(registry), config_path=config_path, version=__version__, freeze_heap=freeze_heap)
+    relay = Relay(active, Metrics(registry), config_path=config_path, reloader=reloader, version=__version__,
+                  freeze_heap=freeze_heap)
     settings = active.loaded.config.metrics
     health = None
     if settings.enabled:
         port = settings.port if metrics_port is None else metrics_port
         health = HealthServer(registry, relay.health, host=settings.host, port=port)
-        await health.start()
+        try:
+            await health.start()
+        except OSError as exc:
+            raise RehearError(f"cannot serve metrics on {settings.host}:{port}: {exc.strerror or exc} "
+                              "(set metrics.port, or --metrics-port 0 for any free port)") from None
         _log.info("metrics at " + health.address + "/metrics")
     loop = asyncio.get_running_loop()
     installed: list[signal.Signals] = []
@@ -60,6 +68,7 @@ async def serve(
             with contextlib.suppress(NotImplementedError, RuntimeError, ValueError):
                 loop.add_signal_handler(number, action)
                 installed.append(number)
+    lag = asyncio.create_task(watch_loop_lag(relay.metrics.loop_lag))
     try:
         if on_ready is not None:
             result = on_ready(relay, health)
@@ -67,6 +76,7 @@ async def serve(
                 await result
         await relay.run()
     finally:
+        lag.cancel()
         for number in installed:
             loop.remove_signal_handler(number)
         if health is not None:

@@ -4,11 +4,17 @@ Guarantees, in order of importance:
 
 - at-least-once: an input is acknowledged only after everything it produced was accepted by
   the broker; whatever is not acknowledged comes back from the persistent session;
-- nothing unusable stops the relay: bad input goes to the dead-letter topic, a stage that
-  raises or overruns the deadline makes the original go on flagged;
-- bounded work: at most ``limits.max_in_flight`` messages are between receipt and ack;
+- every input is acknowledged exactly once whatever happens after receipt: bad input goes to
+  the dead-letter topic; a stage that raises, a message too long to clean, a deadline passed or
+  a fault of the relay itself makes the original go on, flagged. Only a publish that fails or
+  that the broker refuses leaves an input unacknowledged, for the broker to deliver again;
+- acknowledgements that stop advancing are visible: /healthz turns 503 and
+  ``rehear_ack_stall_seconds`` grows;
+- bounded work: at most ``limits.max_in_flight`` messages are between receipt and ack, and at
+  most ``limits.max_words`` words reach the chain per message;
 - reload (SIGHUP) builds and loads the new chain beside the old one and swaps it between
-  messages; stop (SIGTERM) stops reading, finishes what is in flight, then disconnects.
+  messages, one reload at a time, the last request winning; stop (SIGTERM) stops reading,
+  finishes what is in flight, then disconnects.
 """
 
 from __future__ import annotations
@@ -19,42 +25,30 @@ import logging
 import random
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
 import aiomqtt
 
-from relay.core.chain import Chain
-from relay.core.config import LoadedConfig, build_chain, load_config
-from relay.core.errors import DeadlineExceeded, InputError, RehearError, TransportError
-from relay.core.utterance import Utterance
+from relay.core.errors import PublishRefused, TransportError
+from relay.core.settings import LimitSettings
+from relay.live.active import Active, load_active
+from relay.live.diagnosis import ConnectionDiagnosis
+from relay.live.handling import MessageHandler
 from relay.live.heap import freeze_loaded, refreeze_when_gone
-from relay.live.messages import parse_message
 from relay.live.metrics import OUTCOMES, Metrics
-from relay.live.routing import Outgoing, cleaned, dead_letter, is_final, partial, passthrough
+from relay.live.reload import SerialReloads
+from relay.live.routing import Outgoing
 from relay.live.transport import Delivery, Session
 from relay.live.worker import ChainWorker
 
-__all__ = ["Active", "Relay", "load_active"]
+__all__ = ["Relay"]
 
 _log = logging.getLogger("rehear.service")
-
-
-@dataclass(frozen=True, slots=True)
-class Active:
-    """A configuration with its loaded chain; replaced as a whole on reload."""
-
-    loaded: LoadedConfig
-    chain: Chain
-
-
-def load_active(path: str | Path, *, progress: bool = False) -> Active:
-    """Read, validate, build and load; slow (stages load models), so run it off the loop."""
-    loaded = load_config(path)
-    chain = build_chain(loaded, progress=progress)
-    chain.load()
-    return Active(loaded, chain)
+# A refused publish is tried again after 0.2, 0.4, 0.8 ... s (at most 5 s): long enough for an
+# operator's ACL fix or a broker's transient refusal (0x97 quota exceeded) to pass, short enough
+# that the input goes back to the broker soon when it does not.
+_RETRY_FIRST_S = 0.2
+_RETRY_MAX_S = 5.0
 
 
 class Relay:
@@ -78,7 +72,6 @@ class Relay:
 
             def reloader() -> Active:
                 return load_active(path)
-        self._reloader = reloader
         limits = active.loaded.config.limits
         self._slots = asyncio.Semaphore(limits.max_in_flight)
         self._tasks: set[asyncio.Task[None]] = set()
@@ -88,35 +81,59 @@ class Relay:
         self._broken = asyncio.Event()
         self._worker = ChainWorker()
         self._generation = 0
+        self._session: Session | None = None
+        self._diagnosis = ConnectionDiagnosis(metrics, active.loaded.config.broker.client_id)
+        # Since when input has waited with no acknowledgement going out; None while none waits.
+        # Kept across reconnects: an input the broker redelivers again and again is one stall.
+        self._waiting_since: float | None = None
+        self._reloads = SerialReloads(reloader, self._swap, counted=self._count_reload) if reloader else None
         self.connected = False
         self.metrics.chain_loaded.set(1)
+        self.metrics.max_in_flight.set(limits.max_in_flight)
+        self.metrics.ack_stall.set_function(self.ack_stall)
         # labels() takes a lock and a dict lookup; the per-message paths use the children directly
         self._outcomes = {outcome: metrics.messages.labels(outcome=outcome) for outcome in OUTCOMES}
-        self._stage_latency: dict[str, Any] = {}
-        self._corrections: dict[str, Any] = {}
-        self._decisions: dict[str, Any] = {}
+        self._handler = MessageHandler(metrics, version=version, worker=self._worker)
         self.metrics.declare_stages(active.chain.names)
 
     # ---- control -------------------------------------------------------------------------
 
+    def ack_stall(self) -> float:
+        """Seconds input has waited without any acknowledgement going out; 0 when none waits."""
+        if self._waiting_since is None:
+            return 0.0
+        if self.connected and not self._tasks and (self._session is None or not self._session.acks.pending):
+            self._waiting_since = None  # everything that waited was acknowledged or went back
+            return 0.0
+        return time.monotonic() - self._waiting_since
+
     def health(self) -> tuple[bool, str]:
+        problems = []
+        stall = self.ack_stall()
+        limit = self.active.loaded.config.limits.stall_s
+        if stall > limit:
+            problems.append(f"acknowledgements stalled: input has waited {stall:.0f} s (limits.stall_s {limit:g})")
         if not self.connected:
-            return False, "broker not connected"
+            problems.append(f"broker not connected: {self._diagnosis.problem}")
+        if problems:
+            return False, "; ".join(problems)
         return True, f"ok: chain {' -> '.join(self.active.chain.names)}, config {self.active.loaded.hash}"
 
     def request_stop(self) -> None:
         self._stopping.set()
 
     async def reload(self) -> bool:
-        """Build and load the new configuration off the loop, then swap it in between messages."""
-        if self._reloader is None:
-            return False
-        try:
-            new = await asyncio.get_running_loop().run_in_executor(None, self._reloader)
-        except RehearError as exc:
-            self.metrics.reloads.labels(result="failed").inc()
-            _log.error("reload failed; the current chain keeps running\n%s", exc)
-            return False
+        """Build and load the new configuration off the loop, then swap it in between messages.
+
+        One reload at a time, the last request winning (relay.live.reload). True once a
+        configuration read after this request is serving; False when it could not be loaded.
+        """
+        return await self._reloads.request() if self._reloads is not None else False
+
+    def _count_reload(self, result: str) -> None:
+        self.metrics.reloads.labels(result=result).inc()
+
+    def _swap(self, new: Active) -> None:
         old = self.active.loaded.config
         if new.loaded.config.broker != old.broker or new.loaded.config.topics.inputs != old.topics.inputs:
             _log.warning("broker settings and input topics change only on restart")
@@ -128,10 +145,8 @@ class Relay:
             self._background.add(refreeze)
             refreeze.add_done_callback(self._background.discard)
         del replaced
-        self.metrics.reloads.labels(result="ok").inc()
         _log.info("configuration reloaded", extra={"fields": {"config_hash": new.loaded.hash,
                                                               "stages": ",".join(new.chain.names)}})
-        return True
 
     # ---- connection loop -----------------------------------------------------------------
 
@@ -147,10 +162,12 @@ class Relay:
                 if self._generation > 1:
                     self.metrics.reconnects.inc()
                 try:
-                    await self._session(self._generation)
+                    await self._connection(self._generation)
                     delay = broker.reconnect_min_s
-                except (TransportError, aiomqtt.MqttError) as exc:
-                    _log.warning("broker connection lost or refused", extra={"fields": {"error": str(exc)}})
+                except TransportError as exc:
+                    self._diagnosis.failed(exc)
+                except aiomqtt.MqttError as exc:
+                    self._connection_lost(exc)
                 if self._stopping.is_set():
                     break
                 wait = delay * random.uniform(0.8, 1.2)  # jitter: instances must not reconnect in step
@@ -161,17 +178,26 @@ class Relay:
         finally:
             self._worker.shutdown()
 
-    async def _session(self, generation: int) -> None:
-        config = self.active.loaded.config
+    def _connection_lost(self, exc: aiomqtt.MqttError) -> None:
+        session = self._session
+        self._diagnosis.lost(exc, taken_over=session is not None and session.taken_over,
+                             reason=session.disconnect_reason if session is not None else "")
+
+    async def _connection(self, generation: int) -> None:
+        loaded = self.active.loaded
+        config = loaded.config
         subscriptions = [(topic, config.topics.input_qos) for topic in config.topics.inputs]
-        session = Session(config.broker, subscriptions=subscriptions,
+        session = Session(config.broker, subscriptions=subscriptions, base_dir=loaded.base_dir,
                           receive_maximum=config.limits.max_in_flight, generation=generation)
+        self._session = session
         async with session:
+            self._diagnosis.connected()
             self.connected = True
             self.metrics.broker_connected.set(1)
             self._broken.clear()
             _log.info("connected", extra={"fields": {"broker": f"{config.broker.host}:{config.broker.port}",
                                                      "protocol": config.broker.protocol,
+                                                     "tls": config.broker.tls.enabled,
                                                      "inputs": ",".join(config.topics.inputs)}})
             try:
                 await self._consume(session)
@@ -197,7 +223,8 @@ class Relay:
         if not reader.cancelled() and reader.done() and reader.exception() is not None:
             raise reader.exception()  # type: ignore[misc]
         if self._broken.is_set() and not self._stopping.is_set():
-            raise TransportError("a publish failed; reconnecting so the broker resends unacknowledged input")
+            raise TransportError("a publish failed or was refused; reconnecting so the broker resends "
+                                 "unacknowledged input", kind="publish")
 
     async def _drain(self) -> None:
         if not self._tasks:
@@ -213,6 +240,8 @@ class Relay:
 
     async def _read(self, session: Session) -> None:
         async for delivery in session.deliveries():
+            if self._waiting_since is None:
+                self._waiting_since = delivery.received
             await self._slots.acquire()
             task = asyncio.create_task(self._handle(session, delivery))
             self._tasks.add(task)
@@ -221,16 +250,26 @@ class Relay:
     # ---- one message ---------------------------------------------------------------------
 
     async def _handle(self, session: Session, delivery: Delivery) -> None:
-        received = time.monotonic()
         self.metrics.in_flight.inc()
+        active = self.active
         try:
-            outcome, outgoing = await self._process(self.active, delivery, received, session.v5)
+            try:
+                outcome, outgoing = await self._handler.process(active, delivery, session.v5)
+            except Exception as exc:  # noqa: BLE001 - whatever went wrong, the input must not stay unacknowledged
+                outcome, outgoing = self._handler.internal_error(active, delivery, exc, session.v5)
             for message in outgoing:
-                await session.publish(message.topic, message.payload, qos=message.qos,
-                                      properties=message.properties)
-            session.ack(delivery)
+                await self._publish(session, message, active.loaded.config.limits)
+            if session.ack(delivery) or not session.acks.pending:
+                # acknowledgements advanced: whatever still waits has waited from now
+                self._waiting_since = time.monotonic() if session.acks.pending else None
             self._outcomes[outcome].inc()
-            self.metrics.latency.observe(time.monotonic() - received)
+            self.metrics.latency.observe(time.monotonic() - delivery.received)
+        except PublishRefused as exc:
+            self._outcomes["publish_refused"].inc()
+            _log.error("the broker refused a publish; the input stays unacknowledged and will be delivered again",
+                       extra={"fields": {"topic": exc.topic, "code": f"{exc.code:#04x}", "reason": exc.reason,
+                                         "input_topic": delivery.topic}})
+            self._broken.set()
         except aiomqtt.MqttError as exc:
             self._outcomes["publish_failed"].inc()
             _log.warning("publish failed", extra={"fields": {"topic": delivery.topic, "error": str(exc)}})
@@ -239,71 +278,21 @@ class Relay:
             self.metrics.in_flight.dec()
             self._slots.release()
 
-    async def _process(
-        self, active: Active, delivery: Delivery, received: float, v5: bool
-    ) -> tuple[str, list[Outgoing]]:
-        config = active.loaded.config
-        topics = config.topics
-        try:
-            utterance = parse_message(
-                delivery.payload, topic=delivery.topic, field_map=config.fields,
-                max_payload_bytes=config.limits.max_payload_bytes, max_hypotheses=config.limits.max_hypotheses,
-            )
-        except Exception as exc:  # noqa: BLE001 - whatever the payload, the relay goes on
-            if not isinstance(exc, InputError):
-                exc = InputError("schema", f"topic {delivery.topic}: unreadable message ({type(exc).__name__})")
-            self.metrics.dead_letters.labels(reason=exc.reason).inc()
-            _log.info("dead letter", extra={"fields": {"reason": exc.reason, "detail": exc.detail}})
-            return "dead_letter", [dead_letter(delivery.topic, delivery.payload, exc, topics, v5=v5)]
-        if not is_final(utterance):
-            return "partial", [partial(utterance, delivery.payload, topics)]
-        relay = {"version": self.version, "config_hash": active.loaded.hash,
-                 "received_at": time.time() - (time.monotonic() - received)}
-        deadline = received + config.limits.deadline_ms / 1000
-        try:
-            utterance = await self._run_chain(active, utterance, deadline, config.limits.chain_runner)
-            if time.monotonic() > deadline:  # the last stage overran: the result is too late
-                raise DeadlineExceeded(utterance.trace[-1].stage if utterance.trace else "chain",
-                                       (time.monotonic() - received) * 1000)
-        except (TimeoutError, DeadlineExceeded):
-            _log.warning("deadline passed; forwarding the original",
-                         extra={"fields": {"id": utterance.id, "deadline_ms": config.limits.deadline_ms}})
-            return "deadline", [passthrough(utterance, topics, relay, "deadline")]
-        except Exception as exc:  # noqa: BLE001 - a stage bug must not stop the relay
-            return self._stage_failed(utterance, exc, topics, relay)
-        self._observe(utterance)
-        self.metrics.processing.observe(time.monotonic() - received)
-        return "cleaned", cleaned(utterance, topics, relay)
+    async def _publish(self, session: Session, message: Outgoing, limits: LimitSettings) -> None:
+        """Publish, trying again with backoff while the broker refuses; PublishRefused after
+        ``limits.publish_attempts`` refusals."""
+        pause = _RETRY_FIRST_S
+        for attempt in range(1, limits.publish_attempts + 1):
+            try:
+                await session.publish(message.topic, message.payload, qos=message.qos, properties=message.properties)
+                return
+            except PublishRefused as exc:
+                self.metrics.publish_refused.labels(kind=message.kind, code=f"{exc.code:#04x}").inc()
+                if attempt == limits.publish_attempts:
+                    raise
+                _log.warning("the broker refused a publish; trying again",
+                             extra={"fields": {"topic": exc.topic, "code": f"{exc.code:#04x}", "reason": exc.reason,
+                                               "attempt": attempt, "in_s": pause}})
+                await asyncio.sleep(pause)
+                pause = min(pause * 2, _RETRY_MAX_S)
 
-    async def _run_chain(self, active: Active, utterance: Utterance, deadline: float, runner: str) -> Utterance:
-        if runner == "loop":
-            return active.chain.process(utterance, deadline=deadline)
-        chain = active.chain
-        result: Utterance = await self._worker.run(lambda: chain.process(utterance, deadline=deadline), deadline)
-        return result
-
-    def _stage_failed(
-        self, utterance: Utterance, exc: BaseException, topics: Any, relay: dict[str, Any]
-    ) -> tuple[str, list[Outgoing]]:
-        stage = utterance.trace[-1].stage if utterance.trace else "chain"
-        self.metrics.stage_errors.labels(stage=stage).inc()
-        _log.error("stage failed; forwarding the original", exc_info=exc,
-                   extra={"fields": {"stage": stage, "id": utterance.id}})
-        return "stage_error", [passthrough(utterance, topics, relay, "stage_error")]
-
-    def _observe(self, utterance: Utterance) -> None:
-        for entry in utterance.trace:
-            child = self._stage_latency.get(entry.stage)
-            if child is None:
-                child = self._stage_latency[entry.stage] = self.metrics.stage_latency.labels(stage=entry.stage)
-            child.observe(entry.elapsed_us / 1e6)
-        for correction in utterance.corrections:
-            counter = self._corrections.get(correction.stage)
-            if counter is None:
-                counter = self._corrections[correction.stage] = self.metrics.corrections.labels(stage=correction.stage)
-            counter.inc()
-        decision = utterance.decision or "none"
-        counter = self._decisions.get(decision)
-        if counter is None:
-            counter = self._decisions[decision] = self.metrics.decisions.labels(decision=decision)
-        counter.inc()

@@ -5,62 +5,45 @@ What the relay needs beyond a plain aiomqtt client:
 - a persistent session (MQTT 5: clean start off plus a session expiry; 3.1.1: clean session
   off), so input published while the relay is away waits at the broker;
 - acknowledgement only after the result is published, in the order the input arrived;
+- the broker's verdict on every publish: under MQTT 5 a PUBACK carries a reason code, and
+  0x80 and above (0x87: not authorised) means the message was not taken;
 - TCP_NODELAY on the client socket, because Nagle's algorithm costs about 5 ms per hop;
-- publish topics rendered from templates whose values can never form a wildcard, an empty
-  level, an extra level or a NUL.
+- TLS, and why a connection failed (network, TLS, refused by the broker), for the log and metrics.
+
+aiomqtt 2.5 covers neither manual acknowledgement nor PUBACK reason codes (its publish() drops
+the code), so both go through the paho client underneath (``client._client``). That reaches into
+aiomqtt's internals: pyproject.toml pins the aiomqtt and paho-mqtt versions this was tested with.
 """
 
 from __future__ import annotations
 
+import asyncio
 import collections
 import logging
-import re
 import socket
+import ssl
+import time
 from collections.abc import AsyncIterator, Mapping, Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import aiomqtt
+import paho.mqtt.client as paho
+from aiomqtt.exceptions import MqttConnectError
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
-from relay.core.errors import TransportError
+from relay.core.errors import PublishRefused, TransportError
 from relay.core.settings import BrokerSettings
+from relay.live.tls import broker_password, tls_context
+from relay.live.topics import MISSING_VALUE, render_topic, sanitize_level
 
-__all__ = ["AckQueue", "Delivery", "Session", "render_topic", "sanitize_level"]
+__all__ = ["MISSING_VALUE", "AckQueue", "Delivery", "Session", "render_topic", "sanitize_level"]
 
-_PLACEHOLDER = re.compile(r"\{(source|speaker|decision)\}")
-# Characters that would change the meaning of a topic: wildcards, level separator, NUL.
-# Other control characters are replaced too, so a topic always prints on one line.
-_UNSAFE = re.compile(r"[+#/\x00-\x1f\x7f]")
-_MAX_LEVEL_CHARS = 128
-MISSING_VALUE = "_"
-
-
-def sanitize_level(value: object) -> str:
-    """One topic level made from an untrusted value.
-
-    Wildcards, '/', NUL and control characters become '_'; an empty or missing value becomes
-    '_'; a leading '$' (reserved for broker topics) becomes '_'; the level is cut to 128 chars;
-    text that UTF-8 cannot encode (lone surrogates) is replaced.
-    """
-    if value is None:
-        return MISSING_VALUE
-    text = str(value)
-    text = text.encode("utf-8", "replace").decode("utf-8", "replace")
-    text = _UNSAFE.sub("_", text)[:_MAX_LEVEL_CHARS]
-    if text.startswith("$"):
-        text = "_" + text[1:]
-    return text or MISSING_VALUE
-
-
-def render_topic(template: str, values: Mapping[str, object]) -> str:
-    """Fill ``{source}``, ``{speaker}`` and ``{decision}`` with sanitised values.
-
-    The template itself is checked when the configuration loads (no wildcards, no empty level),
-    so with sanitised values the result is always a valid publish topic.
-    """
-    return _PLACEHOLDER.sub(lambda m: sanitize_level(values.get(m.group(1))), template)
+# MQTT 5.0 section 3.14.2.1: the broker closes a connection with 0x8E when another client
+# connects with the same client identifier.
+SESSION_TAKEN_OVER = 0x8E
 
 
 @dataclass(eq=False, slots=True)
@@ -73,6 +56,7 @@ class Delivery:
     mid: int
     generation: int
     done: bool = False
+    received: float = field(default_factory=time.monotonic)
 
 
 @dataclass(slots=True)
@@ -97,6 +81,12 @@ class AckQueue:
             ready.append(self.pending.popleft())
         return ready
 
+    def oldest_age(self, now: float | None = None) -> float:
+        """Seconds the oldest unacknowledged delivery has waited; 0 when none waits."""
+        if not self.pending:
+            return 0.0
+        return (time.monotonic() if now is None else now) - self.pending[0].received
+
     def clear(self) -> None:
         self.pending.clear()
 
@@ -117,6 +107,27 @@ def user_properties(pairs: Mapping[str, str]) -> Properties:
     return properties
 
 
+def _code(reason: Any) -> tuple[int, str]:
+    """A paho reason code (ReasonCode object or plain int) as (value, name)."""
+    if hasattr(reason, "value"):
+        return int(reason.value), str(getattr(reason, "getName", lambda: reason)())
+    return int(reason), str(reason)
+
+
+def _connect_failure(exc: aiomqtt.MqttError, settings: BrokerSettings, tls_error: ssl.SSLError | None) -> TransportError:
+    where = f"{settings.host}:{settings.port}"
+    if isinstance(exc, MqttConnectError):
+        value, name = _code(exc.rc)
+        return TransportError(f"broker {where} refused the connection: reason code {value:#04x} ({name})",
+                              kind="refused")
+    # aiomqtt re-raises paho's socket errors as MqttError(str(exc)) from None; the original is
+    # still its __context__.
+    cause = exc.__context__ if isinstance(exc.__context__, ssl.SSLError) else tls_error
+    if isinstance(cause, ssl.SSLError):
+        return TransportError(f"TLS handshake with broker {where} failed: {cause}", kind="tls")
+    return TransportError(f"cannot connect to broker {where}: {exc}", kind="network")
+
+
 class Session:
     """An ``async with`` block around one broker connection.
 
@@ -131,6 +142,7 @@ class Session:
         subscriptions: Sequence[tuple[str, int]],
         receive_maximum: int,
         generation: int,
+        base_dir: Path | None = None,
         logger: logging.Logger | None = None,
     ) -> None:
         self.settings = settings
@@ -138,7 +150,10 @@ class Session:
         self.generation = generation
         self.v5 = settings.protocol == "5"
         self.acks = AckQueue()
+        self.disconnect_code: int | None = None
+        self.disconnect_reason = ""
         self._logger = logger or logging.getLogger("rehear.transport")
+        base_dir = base_dir or Path.cwd()
         options: dict[str, Any] = {}
         if self.v5:
             options["protocol"] = aiomqtt.ProtocolVersion.V5
@@ -149,15 +164,17 @@ class Session:
         else:
             options["protocol"] = aiomqtt.ProtocolVersion.V311
             options["clean_session"] = False
+        self._tls = tls_context(settings.tls, base_dir)
         socket_options = [(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)] if settings.tcp_nodelay else []
         self.client = aiomqtt.Client(
             settings.host,
             settings.port,
             identifier=settings.client_id,
             username=settings.username,
-            password=settings.password.get_secret_value() if settings.password else None,
+            password=broker_password(settings, base_dir),
             keepalive=settings.keepalive_s,
             socket_options=socket_options,
+            tls_context=self._tls,
             logger=self._logger,
             **options,
         )
@@ -168,14 +185,72 @@ class Session:
         self.client.pending_calls_threshold = 3 * receive_maximum + 10
         self._paho = self.client._client
         self._paho.manual_ack_set(True)
+        self._waiting: dict[int, asyncio.Future[tuple[int, str]]] = {}
+        # A PUBACK handled before publish() has registered its future (paho may call back from
+        # inside its publish) is kept here for publish() to find.
+        self._early: dict[int, tuple[int, str]] = {}
+        # A TLS alert from the broker after the handshake (TLS 1.3 sends "certificate required"
+        # then) surfaces in paho only as a log line; kept here to name the failure.
+        self.tls_error: ssl.SSLError | None = None
+        self._chain_callbacks()
+
+    def _chain_callbacks(self) -> None:
+        """Put our own PUBACK and DISCONNECT handling in front of aiomqtt's."""
+        aiomqtt_on_publish: Any = self._paho.on_publish
+        aiomqtt_on_disconnect: Any = self._paho.on_disconnect
+
+        def on_publish(client: Any, userdata: Any, mid: int, reason_code: Any, properties: Any) -> None:
+            verdict = _code(reason_code)
+            future = self._waiting.pop(mid, None)
+            if future is None:
+                self._early[mid] = verdict
+            elif not future.done():
+                future.set_result(verdict)
+            aiomqtt_on_publish(client, userdata, mid, reason_code, properties)
+
+        def on_disconnect(client: Any, userdata: Any, flags: Any, reason_code: Any, properties: Any = None) -> None:
+            self.disconnect_code, self.disconnect_reason = _code(reason_code)
+            self._fail_waiting(f"disconnected ({self.disconnect_reason})")
+            connected = self.client._connected
+            if not connected.done():
+                # Closed before CONNACK (a TLS alert, a broker that hangs up): aiomqtt would wait
+                # out its whole timeout before saying so.
+                connected.set_exception(aiomqtt.MqttError(f"connection closed before CONNACK ({self.disconnect_reason})"))
+            aiomqtt_on_disconnect(client, userdata, flags, reason_code, properties)
+
+        self._paho.on_publish = on_publish
+        self._paho.on_disconnect = on_disconnect
+        paho_receive = self._paho._sock_recv
+
+        def receive(size: int) -> bytes:
+            try:
+                data: bytes = paho_receive(size)
+            except ssl.SSLError as exc:  # SSLWantRead/Write reach paho as BlockingIOError, not here
+                self.tls_error = exc
+                raise
+            return data
+
+        self._paho._sock_recv = receive  # type: ignore[method-assign,assignment]
+
+    def _fail_waiting(self, why: str) -> None:
+        waiting, self._waiting = self._waiting, {}
+        for future in waiting.values():
+            if not future.done():
+                future.set_exception(aiomqtt.MqttError(f"publish not confirmed: {why}"))
+        self._early.clear()
+
+    @property
+    def taken_over(self) -> bool:
+        """Whether the broker closed this session because another client took its client id."""
+        return self.disconnect_code == SESSION_TAKEN_OVER
 
     async def __aenter__(self) -> Session:
         try:
             await self.client.__aenter__()
         except aiomqtt.MqttError as exc:
-            raise TransportError(
-                f"cannot connect to broker {self.settings.host}:{self.settings.port}: {exc}"
-            ) from None
+            if self._tls is not None:
+                self._tls.close_failed()
+            raise _connect_failure(exc, self.settings, self.tls_error) from None
         try:
             if self.subscriptions:
                 granted = await self.client.subscribe(list(self.subscriptions))
@@ -189,10 +264,12 @@ class Session:
         for (topic, _qos), code in zip(self.subscriptions, granted):
             value = code.value if hasattr(code, "value") else int(code)
             if value >= 0x80:
-                raise TransportError(f"broker refused subscription {topic!r} (reason code {value:#x})")
+                raise TransportError(f"broker refused subscription {topic!r} (reason code {value:#x})",
+                                     kind="refused")
 
     async def __aexit__(self, *exc_info: object) -> None:
         self.acks.clear()
+        self._fail_waiting("session closed")
         try:
             await self.client.__aexit__(None, None, None)  # aiomqtt ignores the exception details
         except aiomqtt.MqttError as exc:
@@ -215,15 +292,41 @@ class Session:
     async def publish(
         self, topic: str, payload: bytes, *, qos: int, properties: Mapping[str, str] | None = None
     ) -> None:
-        """Publish and, for QoS > 0, wait until the broker has taken the message."""
-        props = user_properties(properties) if properties and self.v5 else None
-        await self.client.publish(topic, payload, qos=qos, properties=props)
+        """Publish and, for QoS > 0, wait until the broker has taken the message.
 
-    def ack(self, delivery: Delivery) -> None:
-        """Mark ``delivery`` finished; send the acknowledgements that are now in order."""
+        PublishRefused when the broker answers with a failure reason code (MQTT 5); MqttError
+        when the connection breaks or no answer comes within the client's timeout.
+        """
+        props = user_properties(properties) if properties and self.v5 else None
+        info = self._paho.publish(topic, payload, qos, False, props)
+        if info.rc != paho.MQTT_ERR_SUCCESS:
+            raise aiomqtt.MqttCodeError(info.rc, f"could not publish on {topic!r}")
+        if qos == 0:
+            return
+        verdict = self._early.pop(info.mid, None)
+        if verdict is None:
+            future: asyncio.Future[tuple[int, str]] = asyncio.get_running_loop().create_future()
+            self._waiting[info.mid] = future
+            try:
+                verdict = await asyncio.wait_for(future, timeout=self.client.timeout)
+            except TimeoutError:
+                raise aiomqtt.MqttError(f"no PUBACK for {topic!r} within {self.client.timeout} s") from None
+            finally:
+                if self._waiting.get(info.mid) is future:
+                    del self._waiting[info.mid]
+        code, reason = verdict
+        # MQTT 5.0 section 3.4.2.1: 0x80 and above is a failure; 0x10 (no matching
+        # subscribers) is a success. Under 3.1.1 a PUBACK has no code and paho reports 0.
+        if code >= 0x80:
+            raise PublishRefused(topic, code, reason)
+
+    def ack(self, delivery: Delivery) -> int:
+        """Mark ``delivery`` finished; send the acknowledgements that are now in order; how many."""
         if delivery.qos == 0 or delivery.generation != self.generation:
             # A delivery from an earlier connection: its packet id may be reused by now, and
             # the broker resends it on this session anyway.
-            return
-        for ready in self.acks.finish(delivery):
-            self._paho.ack(ready.mid, ready.qos)
+            return 0
+        ready = self.acks.finish(delivery)
+        for item in ready:
+            self._paho.ack(item.mid, item.qos)
+        return len(ready)

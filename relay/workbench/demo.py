@@ -21,10 +21,12 @@ import aiomqtt
 import orjson
 from prometheus_client import CollectorRegistry
 
+from relay.live.active import Active
 from relay.live.embedded_broker import EmbeddedBroker
 from relay.live.health import HealthServer
 from relay.live.serve import serve
-from relay.live.service import Active, Relay
+from relay.live.service import Relay
+from relay.live.topics import sanitize_level
 from stages.normalize.tokens import tokenize
 
 __all__ = ["DemoOptions", "play"]
@@ -66,6 +68,15 @@ def _items(args: DemoOptions) -> list[_Item]:
     if args.messages.exists():
         items += [_Item(line.encode("utf-8")) for line in args.messages.read_text("utf-8").splitlines() if line.strip()]
     return items
+
+
+def _source(payload: bytes) -> str | None:
+    try:
+        message = orjson.loads(payload)
+    except orjson.JSONDecodeError:
+        return None
+    source = message.get("source") if isinstance(message, dict) else None
+    return source if isinstance(source, str) else None
 
 
 def _heard(payload: bytes) -> str:
@@ -174,14 +185,17 @@ async def play(args: DemoOptions, active: Active, out: Any) -> int:
                 if relay.connected:
                     break
                 await asyncio.sleep(0.05)
-            input_topic = _subscription(topics.inputs[0]).replace("+", "kiosk").replace("#", "demo")
+            input_filter = _subscription(topics.inputs[0])
             for number, item in enumerate(items, 1):
                 print(f"[{number}] " + (f"said:    \"{item.said}\"\n    " if item.said else "")
                       + f"heard:   \"{_heard(item.payload)}\"", file=out)
                 if item.said is not None and tokenize(_heard(item.payload)) == tokenize(item.said):
                     first_right += 1
                 sent = time.monotonic()
-                await client.publish(input_topic, item.payload, qos=1)
+                # Each device publishes on its own topic, as the broker's ACL would have it; the
+                # relay takes the source from there (topics.source_level).
+                level = sanitize_level(_source(item.payload) or "kiosk")
+                await client.publish(input_filter.replace("+", level).replace("#", level), item.payload, qos=1)
                 try:
                     async with asyncio.timeout(args.timeout):
                         got = await _results(client, topics)

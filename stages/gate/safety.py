@@ -45,6 +45,7 @@ class SafetyRule:
         texts += [(h.text, tuple(replace_runs(tokenize(h.text), names))) for h in utterance.ranked()
                   if h.posterior >= self._min_posterior]
         for text, words in texts:
+            utterance.check_deadline()
             found = [(order, phrase) for i, word in enumerate(words) for order, phrase in self._starting.get(word, ())
                      if words[i:i + len(phrase)] == phrase]
             if found:

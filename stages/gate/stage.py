@@ -77,7 +77,7 @@ class GateStage:
 
     def load(self) -> None:
         if self.lm_path is not None:
-            self.lm = shared_model(self.lm_path)
+            self.lm = shared_model(self.lm_path, stage=self.name)
         if self.text_path is not None:
             self.carriers = CarrierPhrases.from_files(self.text_path, self.lexicon_path)
             self.lines = NearestLine(tokens for _, tokens in self.carriers.lines)
@@ -98,13 +98,17 @@ class GateStage:
             if self.line_lm is not None:
                 mean, spread = self.line_lm
                 text_lm["text_lm_relative"] = (text_lm["text_lm_per_word"] - mean) / spread
+        # Between the steps whose cost grows with the text: a late message stops here.
+        utterance.check_deadline()
         marked = marked_tokens(utterance)
         in_domain: dict[str, Any] = {}
         if self.carriers is not None:
             empty = self.carriers.unfilled(marked)
             in_domain = {"unfilled_slots": int(empty is not None), "unfilled_type": empty and empty.type}
+            utterance.check_deadline()
         if self.lines is not None:
             in_domain["line_edits"] = self.lines.edits(marked)
+            utterance.check_deadline()
         return GateFeatures(
             posterior=top,
             margin=top - runner_up,

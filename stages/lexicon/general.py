@@ -53,7 +53,9 @@ class GeneralSearch:
         lexicon = self.lexicon
         longest = s.max_span_words or lexicon.max_words + 1
         spans = find_spans(utterance.nbest, longest, self.pronouncer)
+        utterance.check_deadline()  # each step's cost grows with the message: a late one stops here
         pairs = score_spans(spans, lexicon, self.weights, self.costs)
+        utterance.check_deadline()
         posteriors = [h.posterior for h in utterance.nbest]
         evidence = pool(spans, pairs, lexicon, posteriors)
         # Entries too weak to be corrected or traced are not carried any further.

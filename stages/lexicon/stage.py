@@ -135,9 +135,11 @@ class LexiconStage:
             context = ContextScorer(self.lm, tokens, cap=self.settings.context.cap)
         choices = [general.choose(e, utterance, top, context) for e in strong]
         placed, blocked = general.place(choices, tokens, utterance.nbest)
+        utterance.check_deadline()
         if self.anchored is not None:
             placed += self.anchored.recall(utterance, top, placed, blocked, context)
         carrier: list[dict[str, Any]] = []
+        utterance.check_deadline()
         if self.carrier is not None:
             found, carrier = self.carrier.recall(utterance, top, placed, context)
             placed += found

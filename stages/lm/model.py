@@ -29,24 +29,24 @@ class LmScore:
         return self.total / (self.words + 1)
 
 
-def load_model(path: Path) -> Any:
-    """Open an ARPA or kenlm binary model with kenlm; StageError when it cannot."""
+def load_model(path: Path, *, stage: str = "lm_rescore") -> Any:
+    """Open an ARPA or kenlm binary model with kenlm; StageError naming ``stage`` when it cannot."""
     import kenlm  # imported here so listing stages does not load the extension
 
     if not path.is_file():
-        raise StageError("lm_rescore", f"model file {path} not found")
+        raise StageError(stage, f"model file {path} not found")
     config = kenlm.Config()
     config.show_progress = False  # kenlm otherwise draws a bar on stderr for every load and reload
     try:
         return kenlm.Model(str(path), config)
     except (OSError, RuntimeError, ValueError) as exc:
-        raise StageError("lm_rescore", f"cannot load model {path}: {exc}") from None
+        raise StageError(stage, f"cannot load model {path}: {exc}") from None
 
 
 _MODELS: dict[tuple[str, int, int], Any] = {}
 
 
-def shared_model(path: Path) -> Any:
+def shared_model(path: Path, *, stage: str = "lm_rescore") -> Any:
     """A kenlm model for ``path``, loaded once while the file stays the same.
 
     Keyed by (path, size, modification time): every stage naming the same file shares one copy,
@@ -57,7 +57,7 @@ def shared_model(path: Path) -> Any:
     key = (str(resolved), stat.st_size if stat else -1, stat.st_mtime_ns if stat else -1)
     model = _MODELS.get(key)
     if model is None:
-        model = load_model(resolved)  # raises StageError naming the file when it cannot be read
+        model = load_model(resolved, stage=stage)  # StageError naming the stage and the file
         for old in [k for k in _MODELS if k[0] == key[0]]:
             del _MODELS[old]
         _MODELS[key] = model

@@ -63,7 +63,7 @@ class LmRescoreStage:
         self._model: Any = None
 
     def load(self) -> None:
-        self._model = shared_model(self.model_path)
+        self._model = shared_model(self.model_path, stage=self.name)
 
     def score(self, tokens: Sequence[str]) -> LmScore:
         if self._model is None:
@@ -77,6 +77,7 @@ class LmRescoreStage:
         oovs: list[int] = []
         chosen = 0
         for hypothesis in utterance.nbest:
+            utterance.check_deadline()
             lm = self.score(hypothesis.tokens)
             for other in hypothesis.readings:
                 # The reading the in-domain text makes likeliest ("seven thirty" or "seven point three zero").

@@ -66,6 +66,7 @@ class NormalizeStage:
         probabilities = softmax(log_scores)
         merged: dict[tuple[str, ...], Hypothesis] = {}
         for hypothesis, probability in zip(nbest, probabilities):
+            utterance.check_deadline()
             tokens, *others = readings(hypothesis.text)
             key = tuple(tokens)
             kept = merged.get(key)

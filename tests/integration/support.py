@@ -8,6 +8,8 @@ import contextlib
 import queue
 import threading
 import time
+import urllib.error
+import urllib.request
 import uuid
 from collections.abc import AsyncIterator, Callable
 from dataclasses import dataclass, field
@@ -15,18 +17,20 @@ from pathlib import Path
 from typing import IO, Any
 
 import aiomqtt
+import orjson
 import yaml
 from prometheus_client import CollectorRegistry
 
 from relay.core.config import build_chain, load_config
 from relay.core.registry import Registry
+from relay.live.active import Active
 from relay.live.health import HealthServer
 from relay.live.metrics import OUTCOMES
 from relay.live.serve import serve
-from relay.live.service import Active, Relay
+from relay.live.service import Relay
 
-__all__ = ["Collector", "LogLines", "Received", "RunningRelay", "eventually", "load", "make_config", "message",
-           "publish_all", "running_relay"]
+__all__ = ["Collector", "LogLines", "Received", "RunningRelay", "edit_config", "eventually", "healthz", "ids", "load",
+           "make_config", "message", "publish_all", "running_relay"]
 
 
 async def eventually(condition: Callable[[], bool], *, timeout: float = 5, what: str = "the condition") -> None:
@@ -43,10 +47,10 @@ async def eventually(condition: Callable[[], bool], *, timeout: float = 5, what:
         await asyncio.sleep(0.01)
 
 
-def make_config(tmp_path: Path, broker: Any, *, protocol: str = "5", stages: list[Any] | None = None,
-                name: str | None = None, **sections: dict[str, Any]) -> tuple[Path, str]:
+def make_config(tmp_path: Path, broker: Any, /, *, protocol: str = "5", stages: list[Any] | None = None,
+                name: str | None = None, prefix: str | None = None, **sections: dict[str, Any]) -> tuple[Path, str]:
     """A relay configuration on topics no other test uses; returns (path, topic prefix)."""
-    prefix = f"t{uuid.uuid4().hex[:10]}"
+    prefix = prefix or f"t{uuid.uuid4().hex[:10]}"
     config: dict[str, Any] = {
         "broker": {"host": broker.host, "port": broker.port, "protocol": protocol,
                    "client_id": f"rehear-{prefix}", "reconnect_min_s": 0.1, "reconnect_max_s": 0.5},
@@ -60,6 +64,28 @@ def make_config(tmp_path: Path, broker: Any, *, protocol: str = "5", stages: lis
     path = tmp_path / (name or f"relay-{prefix}.yaml")
     path.write_text(yaml.safe_dump(config, sort_keys=False))
     return path, prefix
+
+
+def edit_config(path: Path, change: Callable[[dict[str, Any]], None]) -> Path:
+    """Change a configuration file written by make_config in place."""
+    config = yaml.safe_load(path.read_text())
+    change(config)
+    path.write_text(yaml.safe_dump(config, sort_keys=False))
+    return path
+
+
+def healthz(address: str) -> tuple[int, str]:
+    """GET /healthz: (status, body). Blocking: call it through asyncio.to_thread."""
+    try:
+        with urllib.request.urlopen(address + "/healthz", timeout=5) as response:
+            return int(response.status), response.read().decode()
+    except urllib.error.HTTPError as exc:
+        return int(exc.code), exc.read().decode()
+
+
+def ids(items: list[Received]) -> list[str]:
+    """The ``id`` of every received JSON message, duplicates kept."""
+    return [orjson.loads(item.payload)["id"] for item in items]
 
 
 def message(ident: str, *texts: str, **extra: Any) -> dict[str, Any]:
@@ -112,11 +138,15 @@ class RunningRelay:
 
 
 @contextlib.asynccontextmanager
-async def running_relay(active: Active, *, config_path: Path | None = None) -> AsyncIterator[RunningRelay]:
+async def running_relay(active: Active, *, config_path: Path | None = None, connect: bool = True,
+                        reloader: Callable[[], Active] | None = None) -> AsyncIterator[RunningRelay]:
+    """The relay on this event loop; ``connect=False`` does not wait for the broker connection
+    (for tests where it must fail)."""
     ready: asyncio.Future[tuple[Relay, HealthServer | None]] = asyncio.get_running_loop().create_future()
     registry = CollectorRegistry()
+    options: dict[str, Any] = {"reloader": reloader} if reloader is not None else {}
     task = asyncio.create_task(serve(active, config_path=str(config_path) if config_path else None,
-                                     registry=registry, signals=False,
+                                     registry=registry, signals=False, **options,
                                      on_ready=lambda relay, health: ready.set_result((relay, health))))
     # serve() calls on_ready once its endpoint is up; if it fails before that, its error is the news.
     either: set[asyncio.Future[Any]] = {ready, task}
@@ -129,7 +159,8 @@ async def running_relay(active: Active, *, config_path: Path | None = None) -> A
         raise TimeoutError("relay not ready within 10 s")
     relay, health = ready.result()
     handle = RunningRelay(relay, health, registry, task)
-    await handle.wait_connected()
+    if connect:
+        await handle.wait_connected()
     try:
         yield handle
     finally:
@@ -147,9 +178,12 @@ class Received:
 class Collector:
     """A downstream client (MQTT 5, persistent session) gathering everything on ``filters``."""
 
-    def __init__(self, broker: Any, filters: list[str], *, identifier: str | None = None) -> None:
+    def __init__(self, broker: Any, filters: list[str], *, identifier: str | None = None,
+                 **client_options: Any) -> None:
+        """``client_options`` go to aiomqtt.Client (username, password, tls_context)."""
         self.broker = broker
         self.filters = filters
+        self.client_options = client_options
         self.identifier = identifier or f"collector-{uuid.uuid4().hex[:10]}"
         self.received: list[Received] = []
         self._arrived = asyncio.Condition()
@@ -165,7 +199,7 @@ class Collector:
             try:
                 async with aiomqtt.Client(self.broker.host, self.broker.port, identifier=self.identifier,
                                           protocol=aiomqtt.ProtocolVersion.V5, clean_start=False,
-                                          properties=properties) as client:
+                                          properties=properties, **self.client_options) as client:
                     await client.subscribe([(topic, 1) for topic in self.filters])
                     self.connected.set()
                     async for item in client.messages:
@@ -205,13 +239,16 @@ class Collector:
         return [item for item in self.received if item.topic.startswith(topic_prefix)]
 
 
-async def publish_all(broker: Any, topic: str, payloads: list[bytes], *, qos: int = 1, gap_s: float = 0.0) -> None:
+async def publish_all(broker: Any, topic: str, payloads: list[bytes], *, qos: int = 1, gap_s: float = 0.0,
+                      **client_options: Any) -> None:
     """Publish in order; at QoS 1 each publish returns once the broker has acknowledged it.
 
     ``gap_s`` paces the stream, so that an event a test causes (a kill, a reload) lands while
     the relay is still working through it: the pause is the stream's shape, not a wait.
+    ``client_options`` go to aiomqtt.Client (username, password, tls_context).
     """
-    async with aiomqtt.Client(broker.host, broker.port, identifier=f"pub-{uuid.uuid4().hex[:10]}") as client:
+    async with aiomqtt.Client(broker.host, broker.port, identifier=f"pub-{uuid.uuid4().hex[:10]}",
+                              **client_options) as client:
         for payload in payloads:
             await client.publish(topic, payload, qos=qos)
             if gap_s:

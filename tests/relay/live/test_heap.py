@@ -12,9 +12,10 @@ import pytest
 from prometheus_client import CollectorRegistry
 
 from relay.core.config import build_chain
+from relay.live.active import Active
 from relay.live.heap import freeze_loaded, refreeze_when_gone
 from relay.live.metrics import Metrics
-from relay.live.service import Active, Relay
+from relay.live.service import Relay
 from relay.workbench.variants import config_from_dict
 
 

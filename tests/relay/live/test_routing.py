@@ -21,12 +21,26 @@ def test_dead_letter_keeps_the_payload_and_says_why() -> None:
     error = InputError("schema", "topic asr/k/nbest: field id: missing")
     v5 = dead_letter("asr/k/nbest", b"\xff raw", error, TOPICS, v5=True)
     assert (v5.topic, v5.payload) == ("dead", b"\xff raw")
-    assert v5.properties == {"reason": "schema", "detail": error.detail, "topic": "asr/k/nbest"}
+    assert v5.properties == {"reason": "schema", "detail": error.detail, "topic": "asr/k/nbest", "size": "5",
+                             "truncated": "false"}
     v311 = dead_letter("asr/k/nbest", b"\xff raw", error, TOPICS, v5=False)
     envelope = orjson.loads(v311.payload)
     assert v311.properties is None
     assert envelope["reason"] == "schema" and envelope["topic"] == "asr/k/nbest"
     assert base64.b64decode(envelope["payload_b64"]) == b"\xff raw"
+
+
+def test_dead_letters_are_capped_and_their_headers_cleaned() -> None:
+    error = InputError("oversize", "topic asr/k/nbest: got \x85 and \uffff\ufeff")
+    big = dead_letter("asr/k/nbest", b"x" * 5000, error, TOPICS, v5=True, max_bytes=1000)
+    assert big.payload == b"x" * 1000
+    assert big.properties is not None
+    assert (big.properties["size"], big.properties["truncated"]) == ("5000", "true")
+    # U+0085 and U+FFFF in a user property make mosquitto drop the connection (malformed UTF-8)
+    # and U+FEFF makes paho-mqtt's property reader (readUTF) drop the downstream connection
+    assert big.properties["detail"] == "topic asr/k/nbest: got ? and ??"
+    envelope = orjson.loads(dead_letter("asr/k/nbest", b"x" * 5000, error, TOPICS, v5=False, max_bytes=10).payload)
+    assert base64.b64decode(envelope["payload_b64"]) == b"x" * 10 and envelope["size"] == "5000"
 
 
 def test_cleaned_goes_to_output_and_prompt_only_when_unsure() -> None:

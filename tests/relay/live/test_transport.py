@@ -3,6 +3,7 @@ from __future__ import annotations
 from hypothesis import given
 from hypothesis import strategies as st
 
+from relay.live.topics import source_from_topic
 from relay.live.transport import AckQueue, Delivery, render_topic, sanitize_level
 
 
@@ -27,7 +28,32 @@ def test_sanitize_level_examples() -> None:
     assert sanitize_level("$SYS") == "_SYS"
     assert sanitize_level("x\x00y") == "x_y"
     assert len(sanitize_level("x" * 500)) == 128
-    assert sanitize_level("\ud800") == "?"
+    assert sanitize_level("\ud800") == "_"
+    # MQTT 5.0 section 1.5.4 and mosquitto's mosquitto_validate_utf8: C1 controls and
+    # non-characters make a malformed packet
+    assert sanitize_level("a\x85b\x9f") == "a_b_"
+    assert sanitize_level("\ufdd0\ufdef\ufffe\uffff\U0001fffe\U0010ffff") == "______"
+    assert sanitize_level("\x7f") == "_"
+    assert sanitize_level("caf\u00e9 \u00a0\u4e2d") == "caf\u00e9 \u00a0\u4e2d"  # ordinary text stays
+
+
+def _broker_accepts(text: str) -> bool:
+    """mosquitto 2.0's mosquitto_validate_utf8 (lib/utf8_mosq.c), restated: well-formed UTF-8 with
+    no U+0000-U+001F, U+007F-U+009F, surrogates, U+FDD0-U+FDEF or U+xFFFE/U+xFFFF."""
+    for char in text:
+        point = ord(char)
+        if point <= 0x1F or 0x7F <= point <= 0x9F or 0xD800 <= point <= 0xDFFF or 0xFDD0 <= point <= 0xFDEF:
+            return False
+        if point & 0xFFFF in (0xFFFE, 0xFFFF):
+            return False
+    return True
+
+
+@given(st.text(alphabet=st.characters(codec=None), max_size=300))
+def test_a_sanitised_level_is_always_one_level_the_broker_accepts(value: str) -> None:
+    level = sanitize_level(value)
+    assert _broker_accepts(level) and not set("+#/") & set(level)
+    assert 1 <= len(level) <= 128 and len(level.encode("utf-8")) <= 512
 
 
 def test_render_topic_fills_every_placeholder() -> None:
@@ -48,3 +74,26 @@ def test_ack_queue_releases_in_arrival_order() -> None:
     assert queue.finish(first) == [first]
     assert queue.finish(second) == [second, third]
     assert not queue.pending
+
+
+def test_the_source_comes_from_the_level_the_filter_leaves_open() -> None:
+    filters = ["workshop/+/asr", "$share/relays/site/+/+/asr"]
+    assert source_from_topic("workshop/bench-1/asr", filters, "auto") == "bench-1"
+    assert source_from_topic("site/hall/kiosk-2/asr", filters, "auto") == "hall"  # the first +, $share skipped
+    assert source_from_topic("site/hall/kiosk-2/asr", filters, 2) == "kiosk-2"
+    assert source_from_topic("workshop/bench-1/asr", filters, "none") is None
+    assert source_from_topic("other/bench-1/asr", filters, "auto") is None
+    assert source_from_topic("fixed/asr", ["fixed/asr"], "auto") is None  # no wildcard: the payload says
+
+
+def test_the_oldest_unacknowledged_delivery_sets_the_age() -> None:
+    queue = AckQueue()
+    first, second = _delivery(1), _delivery(2)
+    first.received, second.received = 100.0, 105.0
+    queue.add(first)
+    queue.add(second)
+    assert queue.oldest_age(now=110.0) == 10.0
+    queue.finish(first)
+    assert queue.oldest_age(now=110.0) == 5.0
+    queue.finish(second)
+    assert queue.oldest_age(now=110.0) == 0.0

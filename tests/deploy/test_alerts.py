@@ -1,0 +1,64 @@
+"""The Prometheus rules: valid, and firing when the relay is down or stalled (promtool's own unit
+tests, deploy/prometheus/rules_test.yaml); every metric they read is one the relay exports."""
+
+from __future__ import annotations
+
+import os
+import re
+import shutil
+import subprocess
+
+import pytest
+import yaml
+from prometheus_client import CollectorRegistry
+
+from relay.live.metrics import Metrics
+from tests.paths import ROOT
+
+RULES = ROOT / "deploy/prometheus"
+
+
+def _promtool() -> str:
+    found = shutil.which("promtool")
+    if found is None:
+        if os.environ.get("CI", "").lower() == "true":
+            pytest.fail("promtool not found (Debian package prometheus; .ci/run installs it)")
+        pytest.skip("promtool not found (apt-get install prometheus)")
+    return found
+
+
+def test_the_rules_are_valid_and_fire_when_the_relay_is_down_or_stalled() -> None:
+    promtool = _promtool()
+    checked = subprocess.run([promtool, "check", "rules", "alerts.yaml"], cwd=RULES, capture_output=True, text=True,
+                             timeout=60)
+    assert checked.returncode == 0, checked.stdout + checked.stderr
+    tested = subprocess.run([promtool, "test", "rules", "rules_test.yaml"], cwd=RULES, capture_output=True, text=True,
+                            timeout=60)
+    assert tested.returncode == 0, tested.stdout + tested.stderr
+
+
+def _served() -> dict[str, str]:
+    """The relay's metric names as /metrics shows them (counters with _total), with their types."""
+    families = Metrics(CollectorRegistry()).registry.collect()
+    return {(f.name + "_total" if f.type == "counter" else f.name): f.type for f in families}
+
+
+def test_every_metric_the_rules_read_is_exported() -> None:
+    names = set()
+    for name, kind in _served().items():
+        names.add(name)
+        if kind == "histogram":
+            names |= {f"{name}_bucket", f"{name}_sum", f"{name}_count"}
+    rules = yaml.safe_load((RULES / "alerts.yaml").read_text())
+    used = {name for group in rules["groups"] for rule in group["rules"]
+            for name in re.findall(r"\b(rehear_\w+)", rule["expr"])}
+    assert used and used <= names, sorted(used - names)
+
+
+def test_the_readme_metrics_table_is_what_the_relay_serves() -> None:
+    readme = (ROOT / "README.md").read_text()
+    table = readme[readme.index("| metric | labels | meaning |"):]
+    table = table[:table.index("\n\n")]
+    listed = set(re.findall(r"`(rehear_\w+)`", table))
+    served = set(_served())
+    assert listed == served, (sorted(served - listed), sorted(listed - served))
