@@ -6,13 +6,11 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-import yaml
 from pydantic import BaseModel, ValidationError
 from pydantic.fields import FieldInfo
 
 from relay.core.setting_names import setting_fields
 from stages.lexicon.settings import OLD_NAMES, LexiconSettings
-from tests.paths import WORKSHOP
 
 # The settings that kept their place at the top when the rest moved into groups.
 UNMOVED = {"lexicon", "speakers", "max_span_words", "trace_top"}
@@ -131,10 +129,16 @@ def test_every_setting_has_a_description() -> None:
     assert [name for name, field in setting_fields(LexiconSettings) if not field.description] == []
 
 
-def test_the_workshop_configuration_builds_the_settings_its_flat_form_did() -> None:
-    raw = yaml.safe_load((WORKSHOP / "relay.yaml").read_text())
-    [written] = [item["lexicon"] for item in raw["stages"] if isinstance(item, dict) and "lexicon" in item]
-    nested = LexiconSettings.model_validate(written)
+def test_a_configuration_written_before_the_groups_builds_the_same_settings_as_its_grouped_form() -> None:
+    # The workshop example's lexicon section as it stood before and after the settings were grouped.
+    grouped = {
+        "hints": WORKSHOP_FLAT["type_hints"],
+        "general": {"min_score": 0.6, "short_penalty": 0.3},
+        "context": {"gain_weight": 0.0, "loss_weight": 0.06},
+        "anchored": {"types": ["person", "machine"], "hints": {"machine": ["the", "in", "on", "of"]},
+                     "floors": {"machine": 0.72}, "min_phone": 0.68, "min_gain": 8.0, "min_pooled": 0.0},
+    }
+    nested = LexiconSettings.model_validate(grouped)
     assert nested.old_names_given == ()
     flat = LexiconSettings.model_validate(WORKSHOP_FLAT)
     assert set(flat.old_names_given) == set(WORKSHOP_FLAT)
