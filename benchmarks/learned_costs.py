@@ -41,7 +41,7 @@ from relay.workbench.corpus import CorpusItem, read_corpus  # noqa: E402
 from relay.workbench.evaluate import Outcome, run_corpus  # noqa: E402
 from stages.lexicon.data import read_lexicon  # noqa: E402
 from stages.lexicon.sound.costfile import write_costs  # noqa: E402
-from stages.lexicon.sound.phonetics import _CONSONANTS, PHONES, CostModel, batch_similarity  # noqa: E402
+from stages.lexicon.sound.phonetics import PHONES, CostModel, batch_similarity, contrast  # noqa: E402
 from stages.lexicon.sound.pronounce import Pronouncer  # noqa: E402
 from stages.normalize.tokens import tokenize  # noqa: E402
 
@@ -116,13 +116,8 @@ def rank(values: Sequence[float]) -> np.ndarray:
 
 
 def kind(a: str, b: str) -> str:
-    """What a consonant pair changes, by the project's feature table (as tests/stages/lexicon/sound/test_miller_nicely.py)."""
-    (place_a, manner_a, voiced_a), (place_b, manner_b, voiced_b) = _CONSONANTS[a], _CONSONANTS[b]
-    if (manner_a == "nasal") != (manner_b == "nasal"):
-        return "nasality"
-    if voiced_a != voiced_b:
-        return "voicing only" if (place_a, manner_a) == (place_b, manner_b) else "voicing"
-    return "place only" if manner_a == manner_b else "place and manner"
+    """What a consonant pair changes (stages.lexicon.sound.phonetics.contrast)."""
+    return contrast(a, b)
 
 
 def miller_nicely_table() -> dict[frozenset[str], float]:

@@ -26,6 +26,7 @@ __all__ = [
     "batch_alignment_cost",
     "batch_similarity",
     "broad",
+    "contrast",
     "decode",
     "encode",
     "is_phone",
@@ -116,6 +117,17 @@ def _substitution(a: str, b: str) -> float:
             cost += 0.3 if frozenset({ma, mb}) in _NEAR_MANNERS else 0.55
         return min(max(cost, 0.15), 1.0)
     return _CROSS.get(frozenset({a, b}), 1.0)
+
+
+def contrast(a: str, b: str) -> str:
+    """What tells two consonants apart, by the feature table: nasality, voicing only, voicing (and
+    more), place only, or place and manner; the classes of published consonant confusion tables."""
+    (place_a, manner_a, voiced_a), (place_b, manner_b, voiced_b) = _CONSONANTS[a], _CONSONANTS[b]
+    if (manner_a == "nasal") != (manner_b == "nasal"):
+        return "nasality"
+    if voiced_a != voiced_b:
+        return "voicing only" if (place_a, manner_a) == (place_b, manner_b) else "voicing"
+    return "place only" if manner_a == manner_b else "place and manner"
 
 
 def _indel(phone: str) -> float:

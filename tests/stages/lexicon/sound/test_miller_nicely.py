@@ -8,7 +8,7 @@ finding, in its abstract: voicing and nasality survive noise, place of articulat
 feature most often lost.
 
 The table can show an ordering of pairs, not a cost scale, so the checks compare ranks and
-class means. Pairs are classed by the project's own feature table (phonetics._CONSONANTS).
+class means. Pairs are classed by the project's own feature table (phonetics.contrast).
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ import csv
 import numpy as np
 import pytest
 
-from stages.lexicon.sound.phonetics import _CONSONANTS, CostModel
+from stages.lexicon.sound.phonetics import CostModel, contrast
 from tests.paths import DATA
 
 TABLE = DATA / "miller_nicely_1955.csv"
@@ -47,13 +47,7 @@ def ranks(values: list[float]) -> np.ndarray:
 
 
 def kind(pair: frozenset[str]) -> str:
-    a, b = sorted(pair)
-    (place_a, manner_a, voiced_a), (place_b, manner_b, voiced_b) = _CONSONANTS[a], _CONSONANTS[b]
-    if (manner_a == "nasal") != (manner_b == "nasal"):
-        return "nasality"
-    if voiced_a != voiced_b:
-        return "voicing only" if (place_a, manner_a) == (place_b, manner_b) else "voicing"
-    return "place only" if manner_a == manner_b else "place and manner"
+    return contrast(*sorted(pair))
 
 
 def symmetric(model: CostModel, pair: frozenset[str]) -> float:
