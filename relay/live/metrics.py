@@ -115,6 +115,14 @@ class Metrics:
         self.reloads = Counter(
             "rehear_reloads_total", "Configuration reloads, by result.", ["result"], registry=registry
         )
+        self.capture_records = Counter(
+            "rehear_capture_records_total", "Records written by capture (an input with what was published for it).",
+            registry=registry,
+        )
+        self.capture_dropped = Counter(
+            "rehear_capture_dropped_total",
+            "Capture records dropped: the writer's queue was full or the disk refused them.", registry=registry,
+        )
         self.chain_loaded = Gauge(
             "rehear_chain_loaded", "1 once a stage chain is loaded and serving.", registry=registry
         )

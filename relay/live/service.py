@@ -32,6 +32,7 @@ import aiomqtt
 from relay.core.errors import PublishRefused, TransportError
 from relay.core.settings import LimitSettings
 from relay.live.active import Active, load_active
+from relay.live.capture import CaptureWriter
 from relay.live.diagnosis import ConnectionDiagnosis
 from relay.live.handling import MessageHandler
 from relay.live.heap import freeze_loaded, refreeze_when_gone
@@ -61,6 +62,7 @@ class Relay:
         reloader: Callable[[], Active] | None = None,
         version: str = "0",
         freeze_heap: bool = False,
+        capture: CaptureWriter | None = None,
     ) -> None:
         """``freeze_heap``: keep the loaded chain out of the garbage collector's walks (relay.heap);
         for a process that runs one relay, as `rehear run` does."""
@@ -77,6 +79,7 @@ class Relay:
         self._tasks: set[asyncio.Task[None]] = set()
         self._background: set[asyncio.Task[bool]] = set()
         self._freeze_heap = freeze_heap
+        self._capture = capture
         self._stopping = asyncio.Event()
         self._broken = asyncio.Event()
         self._worker = ChainWorker()
@@ -264,6 +267,8 @@ class Relay:
                 self._waiting_since = time.monotonic() if session.acks.pending else None
             self._outcomes[outcome].inc()
             self.metrics.latency.observe(time.monotonic() - delivery.received)
+            if self._capture is not None:
+                self._capture.record(time.time(), delivery.topic, delivery.payload, outcome, outgoing)
         except PublishRefused as exc:
             self._outcomes["publish_refused"].inc()
             _log.error("the broker refused a publish; the input stays unacknowledged and will be delivered again",

@@ -48,5 +48,5 @@ def test_by_tag_splits_the_summary_by_each_condition_and_skips_id_like_tags() ->
         outcome.tags = {"snr_db": snr, "recording": f"r{i}"}
         outcomes.append(outcome)
     rows = by_tag(outcomes)
-    assert [(tag, value, s.utterances) for tag, value, s in rows] == [("snr_db", "15", 2), ("snr_db", "None", 3)]
+    assert [(tag, value, s.utterances) for tag, value, s in rows] == [("snr_db", "15", 2), ("snr_db", "null", 3)]
     assert rows[0][2].wrong_accept_rate == 1.0 and rows[1][2].wrong_accept_rate == 0.0
