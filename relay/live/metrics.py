@@ -72,6 +72,10 @@ class Metrics:
             "How long input has waited without any acknowledgement going out; 0 when none waits.",
             registry=registry,
         )
+        self.stall_limit = Gauge(
+            "rehear_stall_limit_seconds", "limits.stall_s: how long input may wait unacknowledged before /healthz "
+            "turns 503.", registry=registry,
+        )
         self.max_in_flight = Gauge(
             "rehear_max_in_flight", "limits.max_in_flight: the most messages held unacknowledged.", registry=registry
         )

@@ -93,6 +93,7 @@ class Relay:
         self.connected = False
         self.metrics.chain_loaded.set(1)
         self.metrics.max_in_flight.set(limits.max_in_flight)
+        self.metrics.stall_limit.set(limits.stall_s)
         self.metrics.ack_stall.set_function(self.ack_stall)
         # labels() takes a lock and a dict lookup; the per-message paths use the children directly
         self._outcomes = {outcome: metrics.messages.labels(outcome=outcome) for outcome in OUTCOMES}
@@ -141,6 +142,7 @@ class Relay:
         if new.loaded.config.broker != old.broker or new.loaded.config.topics.inputs != old.topics.inputs:
             _log.warning("broker settings and input topics change only on restart")
         self.metrics.declare_stages(new.chain.names)
+        self.metrics.stall_limit.set(new.loaded.config.limits.stall_s)
         replaced = self.active.chain
         self.active = new  # messages already running keep the chain they started with
         if self._freeze_heap:
