@@ -13,6 +13,7 @@ import logging
 import queue
 import re
 import threading
+import time
 from collections.abc import Sequence
 from pathlib import Path
 from typing import IO, Any
@@ -31,6 +32,7 @@ _STOP = None
 # hold one huge line per hostile message, so only the size is written.
 _MAX_PAYLOAD = 256 * 1024
 _CLOSE_TIMEOUT_S = 10.0
+_BATCH_S = 0.05
 
 _Record = tuple[float, str, bytes, str, Sequence[Outgoing]]
 
@@ -113,26 +115,41 @@ class CaptureWriter:
         try:
             while True:
                 item = self._queue.get()
+                if item is not _STOP:
+                    # Let records gather, then write them in one go: the thread takes the
+                    # interpreter lock once per batch instead of once per message, so it seldom
+                    # competes with the event loop and the chain's worker; a record is in the
+                    # file at most this long after its message was acknowledged.
+                    time.sleep(_BATCH_S)
+                while item is not _STOP:
+                    self._write_one(item)
+                    try:
+                        item = self._queue.get_nowait()
+                    except queue.Empty:
+                        break
+                if self._handle is not None:
+                    self._handle.flush()
                 if item is _STOP:
                     return
-                try:
-                    self._write(encode_record(*item))
-                except OSError as exc:  # a full or read-only disk: the relay goes on, the log says why
-                    self.dropped += 1
-                    if self._on_drop is not None:
-                        self._on_drop()
-                    _log.error("cannot write a capture record", extra={"fields": {"error": str(exc)}})
         finally:
             if self._handle is not None:
                 self._handle.close()
                 self._handle = None
+
+    def _write_one(self, item: _Record) -> None:
+        try:
+            self._write(encode_record(*item))
+        except OSError as exc:  # a full or read-only disk: the relay goes on, the log says why
+            self.dropped += 1
+            if self._on_drop is not None:
+                self._on_drop()
+            _log.error("cannot write a capture record", extra={"fields": {"error": str(exc)}})
 
     def _write(self, line: bytes) -> None:
         handle = self._handle
         if handle is None or (self._size and self._size + len(line) > self.settings.max_file_bytes):
             handle = self._rotate()
         handle.write(line)
-        handle.flush()  # a record is in the file as soon as it is written: label may read it now
         self._size += len(line)
         self.written += 1
         if self._on_write is not None:

@@ -136,7 +136,7 @@ class MessageHandler:
                 raise InputError("source_mismatch", f"topic {topic}: field source {str(claimed)[:80]!r} is not the "
                                                     f"topic's source {from_topic!r}")
             relay["claimed_source"] = claimed
-        # docs/formats.md section 1: source defaults to the topic; the cleaned message says which it was
+        # FORMATS section 1: source defaults to the topic; the cleaned message says which it was
         utterance.payload = dict(utterance.payload, source=from_topic)
         utterance.source = from_topic
 

@@ -36,7 +36,7 @@ from relay.workbench.tuning import (
 from relay.workbench.written import write_atomically
 from stages.gate.confidence import ConfidenceModel, confidence
 
-__all__ = ["ReportHeader", "by_tag", "entity_type", "reliability", "tradeoff_curve", "write_report"]
+__all__ = ["ReportHeader", "by_tag", "entity_type", "reliability", "render_report", "tradeoff_curve", "write_report"]
 
 _TOP = 15
 _BINS = 10
@@ -51,7 +51,8 @@ td.num{text-align:right;font-variant-numeric:tabular-nums}
 table.about th{background:none;font-weight:600;border:none}
 table.about td{border:none}
 img{display:block;width:100%;height:auto;max-width:100%}
-ol.nbest{margin:0;padding-left:1.4em;font-size:90%}
+ol.nbest{margin:0;padding-left:1.4em;font-size:90%;min-width:16em}
+table.results{font-size:92%}
 .null{color:#888}
 </style>"""
 

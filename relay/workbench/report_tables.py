@@ -63,23 +63,24 @@ def _nbest(outcome: Outcome) -> str:
 
 
 def _entities(ids: frozenset[str] | set[str]) -> str:
-    return html.escape(", ".join(sorted(ids))) or "<span class='null'>none</span>"
+    """One id a line: ids do not break inside, and the column stays narrow."""
+    return "<br>".join(html.escape(i) for i in sorted(ids)) or "<span class='null'>none</span>"
 
 
 def _table(outcomes: Sequence[Outcome]) -> str:
-    head = ("id", "said", "heard (first hypothesis)", "sent", "N-best (posterior)", "expected", "found",
-            "decision", "rule", "confidence")
+    head = ("id", "said", "heard (first hypothesis)", "sent", "N-best (posterior)", "entities expected",
+            "entities found", "decision, rule, confidence")
     rows = []
     for o in outcomes[:_LISTED]:
         confidence = _null(None) if o.confidence is None else f"{o.confidence:.0%}"
         cells = [f"<td class='id'>{html.escape(o.id)}</td>", f"<td>{html.escape(o.reference)}</td>",
                  f"<td>{html.escape(o.first)}</td>", f"<td>{html.escape(o.text)}</td>", f"<td>{_nbest(o)}</td>",
-                 f"<td>{_entities(o.reference_ids)}</td>", f"<td>{_entities(set(o.found))}</td>",
-                 f"<td class='nowrap'>{_null(o.decision)}</td>", f"<td class='nowrap'>{_null(o.rule)}</td>",
-                 f"<td class='num'>{confidence}</td>"]
+                 f"<td class='id'>{_entities(o.reference_ids)}</td>", f"<td class='id'>{_entities(set(o.found))}</td>",
+                 f"<td class='nowrap'>{_null(o.decision)}<br>{_null(o.rule)}<br>{confidence}</td>"]
         rows.append("<tr>" + "".join(cells) + "</tr>")
     more = f"<p>{len(outcomes) - _LISTED} more not listed.</p>" if len(outcomes) > _LISTED else ""
-    return "<table><tr>" + "".join(f"<th>{h}</th>" for h in head) + "</tr>" + "".join(rows) + "</table>" + more
+    return ("<table class='results'><tr>" + "".join(f"<th>{h}</th>" for h in head) + "</tr>" + "".join(rows)
+            + "</table>" + more)
 
 
 def result_lists(outcomes: Sequence[Outcome]) -> str:
