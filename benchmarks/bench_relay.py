@@ -14,6 +14,9 @@ The chain is the one in --config (default: [normalize]) plus, for each --stage-c
 above 0, a benchmark-only stage that busy-waits that long per message: it stands in for stages
 not written yet (the lexicon). Runs are interleaved --repeat times; the table shows medians.
 
+--capture adds, beside each chain case, the same chain with capture on (relay/live/capture.py,
+writing into a temporary directory), to show what recording every message costs.
+
 Targets (DESIGN.md): chain >= 50% of pass-through throughput; added p99 <= 3 ms.
 
     PYTHONPATH=. python benchmarks/bench_relay.py
@@ -150,6 +153,8 @@ def _bench_active(port: int, args: argparse.Namespace) -> Any:
             "dead_letter": "bench/dead", "input_qos": 1, "output_qos": 1, "forward_unsure": True}),
         "limits": config.limits.model_copy(update={"chain_runner": args.runner, "max_in_flight": WINDOW}),
         "metrics": config.metrics.model_copy(update={"enabled": False}),  # still counted, not served
+        "capture": config.capture.model_copy(update={"enabled": bool(args.capture_dir),
+                                                     "directory": Path(args.capture_dir or "capture")}),
         "stages": stages,
     })
     loaded = dataclasses.replace(loaded, config=config)
@@ -280,6 +285,8 @@ def main() -> int:
     parser.add_argument("--runner", choices=["thread", "loop"], default="thread", help=argparse.SUPPRESS)
     parser.add_argument("--cost-us", type=float, default=0.0, help=argparse.SUPPRESS)
     parser.add_argument("--port", type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--capture", action="store_true", help="also run each chain case with capture on")
+    parser.add_argument("--capture-dir", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.serve == "passthrough":
         _run(_serve_passthrough(args.port, args.protocol), args.event_loop)
@@ -295,6 +302,8 @@ def main() -> int:
             if args.config:
                 serve += ["--config", args.config]
             cases[f"{runner} +{cost:g} us"] = serve
+            if args.capture:
+                cases[f"{runner} +{cost:g} us cap"] = [*serve, "--capture-dir", tempfile.mkdtemp(prefix="rehear-cap-")]
     port = _free_port()
     workdir = Path(tempfile.mkdtemp(prefix="rehear-bench-"))
     (workdir / "mosquitto.conf").write_text(

@@ -23,3 +23,15 @@ def test_relative_links_resolve() -> None:
             if not path.exists():
                 broken.append(f"{page.relative_to(ROOT)} -> {target}")
     assert not broken, "\n".join(broken)
+
+
+def test_the_readme_states_the_english_only_scope_with_files_that_exist() -> None:
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = readme[readme.index("### English only"):]
+    section = section[:section.index("\n## ")]
+    for word in ("CMUdict", "number", "safety_words", "prompts", "common", "another language"):
+        assert word in section, word
+    paths = re.findall(r"`((?:stages|scripts)/[^`]+)`", section)
+    assert len(paths) >= 5
+    missing = [path for path in paths if not (ROOT / path).exists()]
+    assert not missing, missing

@@ -5,14 +5,16 @@ from __future__ import annotations
 
 import argparse
 import csv
+import io
 from collections import Counter
 from pathlib import Path
 
 import orjson
 
-from relay.core.errors import InputError
-from relay.workbench.corpus import read_corpus
+from relay.cli.common import output_file
+from relay.workbench.corpus import check_entity_ids, read_corpus
 from relay.workbench.nearmiss import alias_suggestions, find_near_misses, training_examples
+from relay.workbench.written import write_atomically
 from stages.lexicon.data import read_lexicon
 
 HELP = "turn near misses in a labelled corpus into extra NLU training data"
@@ -30,10 +32,12 @@ lexicon's aliases (an alias is taken as an exact match, so add only unambiguous 
 def add_parser(subparsers: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     parser = subparsers.add_parser("augment", help=HELP, description=DESCRIPTION,
                                    formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("corpus", type=Path, help="labelled corpus, JSON Lines (entities with their text)")
+    parser.add_argument("corpus", type=Path,
+                        help="labelled corpus, JSON Lines (docs/formats.md section 5; entities with their text)")
     parser.add_argument("--lexicon", type=Path, required=True, help="lexicon giving each id its type and name")
-    parser.add_argument("-o", "--output", type=Path, required=True, help="training examples to write (JSON Lines)")
-    parser.add_argument("--aliases", type=Path, help="also write alias suggestions (CSV)")
+    parser.add_argument("-o", "--output", type=output_file, required=True,
+                        help="training examples to write (JSON Lines)")
+    parser.add_argument("--aliases", type=output_file, help="also write alias suggestions (CSV)")
     parser.add_argument("--depth", type=int, default=3, help="distinct hypotheses looked at per utterance (default 3)")
     parser.add_argument("--max-context-error", type=float, default=0.25,
                         help="largest word error rate allowed outside the entities (default 0.25)")
@@ -41,21 +45,13 @@ def add_parser(subparsers: argparse._SubParsersAction[argparse.ArgumentParser]) 
     parser.set_defaults(handler=run)
 
 
-def _write_atomically(path: Path, data: bytes) -> None:
-    partial = path.with_name(path.name + ".partial")
-    partial.write_bytes(data)
-    partial.replace(path)
-
-
 def run(args: argparse.Namespace) -> int:
     lexicon = {entry.id: entry for entry in read_lexicon(args.lexicon)}
     items = read_corpus(args.corpus)
-    unknown = sorted({eid for item in items for eid, _ in item.entity_texts} - set(lexicon))
-    if unknown:
-        raise InputError("corpus", f"{args.corpus}: entity ids not in {args.lexicon}: {', '.join(unknown[:5])}")
+    check_entity_ids(items, set(lexicon), args.lexicon)
     misses, examples = find_near_misses(items, depth=args.depth, max_context_error=args.max_context_error)
     records = training_examples(examples, lexicon)
-    _write_atomically(args.output, b"".join(orjson.dumps(r) + b"\n" for r in records))
+    write_atomically(args.output, b"".join(orjson.dumps(r) + b"\n" for r in records))
     print(f"{len(misses)} near misses in {len({m.utterance for m in misses})} of {len(items)} utterances; "
           f"wrote {len(records)} training examples to {args.output}")
     by_entity = Counter(miss.entity for miss in misses)
@@ -65,9 +61,10 @@ def run(args: argparse.Namespace) -> int:
         print(f"  {entity:<32} {count:>3}  e.g. {shown}")
     if args.aliases is not None:
         rows = alias_suggestions(misses, min_count=args.min_count)
-        with args.aliases.open("w", newline="", encoding="utf-8") as handle:
-            writer = csv.writer(handle)
-            writer.writerow(["id", "heard", "count"])
-            writer.writerows(rows)
+        table = io.StringIO(newline="")
+        writer = csv.writer(table)
+        writer.writerow(["id", "heard", "count"])
+        writer.writerows(rows)
+        write_atomically(args.aliases, table.getvalue().encode("utf-8"))
         print(f"wrote {len(rows)} alias suggestions to {args.aliases}")
     return 0

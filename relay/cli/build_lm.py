@@ -3,14 +3,16 @@
 from __future__ import annotations
 
 import argparse
+import shutil
 import sys
 import time
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from relay.core.errors import InputError, RehearError
-from relay.workbench.build_lm import build_model
+from relay.cli.common import delegate, output_file
+from relay.core.errors import ConfigError
+from relay.workbench.build_lm import build_model, write_binary
 from stages.indomain.text import TextOptions
 from stages.lm.kneser_ney import DEFAULT_FALLBACK
 
@@ -26,8 +28,10 @@ from the --lexicon entries of that type (names and aliases); a line expands to a
 --max-expansions combinations, picked with a fixed --seed. Text goes through the same
 tokeniser as the recogniser's hypotheses at run time, unless --raw.
 
-The model is written to a temporary file and renamed, so a failed run leaves nothing behind.
-Errors name the file and line; the exit status is 2 for bad input, 0 on success.
+The model is written to a temporary file and renamed, so a failed run leaves nothing behind,
+with the permissions of the process's umask (a relay running as another user can read it).
+--binary also writes kenlm's binary form, which loads several times faster than ARPA; it needs
+kenlm's build_binary program (built with kenlm from its source; the pip package has none).
 """
 
 
@@ -48,8 +52,12 @@ def _positive(value: str) -> int:
 
 def _configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("text", nargs="+", type=Path, metavar="TEXT", help="in-domain text files")
-    parser.add_argument("-o", "--output", required=True, type=Path, metavar="MODEL.arpa",
+    parser.add_argument("-o", "--output", required=True, type=output_file, metavar="MODEL.arpa",
                         help="where to write the ARPA model")
+    parser.add_argument("--binary", type=output_file, metavar="MODEL.bin",
+                        help="also write kenlm's binary form here (name it in domain.language_model)")
+    parser.add_argument("--build-binary", default="build_binary", metavar="PROGRAM",
+                        help="kenlm's build_binary program, for --binary (default: %(default)s, found on PATH)")
     parser.add_argument("--order", type=_order, default=3, metavar="N",
                         help="n-gram order (default: 3; in-domain command text rarely gains from more)")
     parser.add_argument("--lexicon", type=Path, metavar="L",
@@ -85,24 +93,23 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Build the model; print errors without a traceback and return 2 on bad input."""
+    """Build the model (and its binary form); errors raise and `rehear` prints them."""
+    builder = None
+    if args.binary is not None:
+        builder = shutil.which(args.build_binary)
+        if builder is None:
+            raise ConfigError(f"--binary needs kenlm's build_binary program; {args.build_binary!r} is not found "
+                              "(build kenlm from its source with cmake, then give --build-binary PATH)")
     began = time.perf_counter()
     options = TextOptions(
         raw=args.raw, text_format=args.text_format, max_line_chars=args.max_line_chars,
         max_expansions=args.max_expansions, seed=args.seed, progress=args.progress,
     )
-    try:
-        model = build_model(train=args.text, output=args.output, lexicon=args.lexicon, order=args.order,
-                            options=options, fallback=args.fallback_discounts)
-    except InputError as exc:
-        print(f"error: {exc.detail}", file=sys.stderr)  # the detail names file and line
-        return 2
-    except RehearError as exc:
-        print(f"error: {exc}", file=sys.stderr)
-        return 2
-    except OSError as exc:
-        print(f"error: {exc.filename or args.output}: {exc.strerror or exc}", file=sys.stderr)
-        return 2
+    model = build_model(train=args.text, output=args.output, lexicon=args.lexicon, order=args.order,
+                        options=options, fallback=args.fallback_discounts)
+    if builder is not None:
+        write_binary(args.output, args.binary, builder=builder)
+        print(f"wrote {args.binary} (kenlm binary form)", file=sys.stderr)
     sizes = ", ".join(f"{len(level)} {k + 1}-grams" for k, level in enumerate(model.counts))
     print(f"wrote {args.output}: order {model.order}, {sizes} ({time.perf_counter() - began:.1f} s)",
           file=sys.stderr)
@@ -110,10 +117,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="rehear build-lm", description=_DESCRIPTION,
-                                     formatter_class=argparse.RawDescriptionHelpFormatter)
-    _configure(parser)
-    return run(parser.parse_args(argv))
+    return delegate("build-lm", None if argv is None else list(argv))
 
 
 if __name__ == "__main__":

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 import time
 
 from relay.core.chain import Chain
@@ -16,7 +17,8 @@ HELP = "validate a configuration, load every stage and print the chain"
 
 def add_parser(subparsers: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     parser = subparsers.add_parser(
-        "check", help=HELP, description=HELP + ". Exits 2 on any problem, naming file, line and field."
+        "check", help=HELP, description=HELP + ".\nEvery problem is named with its file, line and field.\n"
+        "--no-load still finds files the stages would read that do not exist."
     )
     parser.add_argument("config", help="relay configuration (YAML)")
     parser.add_argument("--no-load", action="store_true", help="validate only; do not load models and lexicons")
@@ -44,7 +46,7 @@ def _old_names(chain: Chain) -> list[str]:
 
 def run(args: argparse.Namespace) -> int:
     loaded = load_config(args.config)
-    chain = build_chain(loaded, progress=True)
+    chain = build_chain(loaded, progress=sys.stderr.isatty())
     missing = _missing(chain)
     if missing:
         raise ConfigError(f"Invalid configuration {args.config}", missing)

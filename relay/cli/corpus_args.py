@@ -3,16 +3,17 @@
 from __future__ import annotations
 
 import argparse
-import sys
 from pathlib import Path
 
-from relay.core.config import LoadedConfig, load_config
-from relay.core.errors import ConfigError, RehearError
-from relay.workbench.corpus import CorpusItem, TagFilter, parse_filter, read_corpus
+from relay.core.config import LoadedConfig, build_chain, load_config
+from relay.core.errors import ConfigError
+from relay.core.stage import files_used
+from relay.workbench.corpus import CorpusItem, TagFilter, check_entity_ids, parse_filter, read_corpus
 from relay.workbench.defaults import default_config
 from relay.workbench.variants import config_from_dict
+from stages.lexicon.data import read_lexicon
 
-__all__ = ["add_corpus_arguments", "chosen_config", "report_error", "selected_items"]
+__all__ = ["add_corpus_arguments", "chosen_config", "selected_items"]
 
 
 def _filter(text: str) -> TagFilter:
@@ -30,7 +31,7 @@ def _exclusion(text: str) -> TagFilter:
 
 
 def add_corpus_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("corpus", type=Path, metavar="CORPUS", help="labelled corpus, JSON Lines (FORMATS section 5)")
+    parser.add_argument("corpus", type=Path, metavar="CORPUS", help="labelled corpus, JSON Lines (docs/formats.md section 5)")
     chain = parser.add_argument_group("the chain (either --config, or --lexicon with --train for the default chain)")
     chain.add_argument("--config", type=Path, help="relay configuration YAML; its stages: list is the chain")
     chain.add_argument("--lexicon", type=Path, help="lexicon CSV/YAML/JSON; builds normalize -> lm_rescore -> lexicon -> gate")
@@ -42,7 +43,8 @@ def add_corpus_arguments(parser: argparse.ArgumentParser) -> None:
                       "comma-separated (snr_db=null,25); repeat to require several")
     part.add_argument("--exclude-tag", type=_exclusion, action="append", default=[], metavar="TAG=V",
                       help="leave out lines with this tag value, e.g. snr_db=15 (same as --where snr_db!=15)")
-    parser.add_argument("--no-progress", action="store_true", help="no progress bar")
+    parser.add_argument("--no-progress", action="store_true",
+                        help="no progress bar (there is none anyway when stderr is not a terminal)")
 
 
 def selected_items(args: argparse.Namespace, loaded: LoadedConfig) -> tuple[list[CorpusItem], str]:
@@ -53,7 +55,19 @@ def selected_items(args: argparse.Namespace, loaded: LoadedConfig) -> tuple[list
     described = " and ".join(str(f) for f in filters) or "all lines"
     if not kept:
         raise ConfigError(f"No corpus line of {args.corpus} matches {described}")
+    lexicon = _lexicon_of(loaded)
+    if lexicon is not None and lexicon.is_file():
+        check_entity_ids(kept, {entry.id for entry in read_lexicon(lexicon)}, lexicon)
     return kept, described
+
+
+def _lexicon_of(loaded: LoadedConfig) -> Path | None:
+    """The lexicon the chain matches against (the stages are constructed, not loaded)."""
+    for stage in build_chain(loaded).stages:
+        path = files_used(stage).get("lexicon")
+        if path is not None:
+            return path
+    return loaded.domain.lexicon
 
 
 def chosen_config(args: argparse.Namespace) -> LoadedConfig:
@@ -67,7 +81,3 @@ def chosen_config(args: argparse.Namespace) -> LoadedConfig:
     raw = default_config(lexicon=args.lexicon, train=args.train, speakers=args.speakers)
     return config_from_dict(raw, base_dir=Path.cwd(), label="<default chain>")
 
-
-def report_error(error: RehearError) -> int:
-    print(f"rehear: {error}", file=sys.stderr)
-    return 2 if isinstance(error, ConfigError) else 1

@@ -7,7 +7,8 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from relay.core.errors import RehearError
+from relay.cli.common import delegate
+from relay.core.errors import ConfigError, WorkFailed
 from relay.live.active import load_active
 from relay.live.serve import run_coroutine
 from relay.workbench.demo import DemoOptions, play
@@ -23,14 +24,17 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "demo",
         help="run broker, relay, recogniser and NLU stand-ins on this machine and show what happens",
         description=(
-            "Start an embedded MQTT broker (or use --broker), the relay with the example configuration, "
-            "replay example recogniser messages and print, per utterance, what was heard, what was sent "
-            "on and the decision. Ends with a summary."
+            "Start an embedded MQTT broker (or use --broker), the relay with the example configuration,\n"
+            "replay recorded recogniser messages and print, per utterance, what was said and heard, what\n"
+            "was sent on, the decision with the rule and the confidence behind it, and whether the\n"
+            "entities sent on are the ones said. Ends with a summary. The default corpus is the workshop\n"
+            "scenario as Whisper (tiny.en) heard it; --corpus examples/workshop/corpus.jsonl replays\n"
+            "pocketsphinx's far noisier output."
         ),
     )
     parser.add_argument("--broker", metavar="HOST:PORT", help="use this broker instead of the embedded one")
     parser.add_argument("--config", type=Path, default=_WORKSHOP / "relay.yaml", help="relay configuration")
-    parser.add_argument("--corpus", type=Path, default=_WORKSHOP / "corpus.jsonl",
+    parser.add_argument("--corpus", type=Path, default=_WORKSHOP / "corpus-whisper.jsonl",
                         help="labelled corpus whose recorded recogniser messages are replayed")
     parser.add_argument("--count", type=int, default=20,
                         help="corpus utterances to replay, spread over the file (default 20; 0 for none)")
@@ -46,27 +50,19 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 
 def run(args: argparse.Namespace) -> int:
-    try:
-        active = load_active(args.config)
-    except RehearError as exc:
-        print(exc, file=sys.stderr)
-        return 2
-    except FileNotFoundError as exc:
-        print(f"demo file missing: {exc.filename}", file=sys.stderr)
-        return 2
     if not args.messages.exists() and not args.corpus.exists():
-        print(f"demo messages missing: {args.messages} and {args.corpus}", file=sys.stderr)
-        return 2
+        raise ConfigError(f"nothing to replay: neither {args.messages} nor {args.corpus} exists")
+    active = load_active(args.config)
     options = DemoOptions(corpus=args.corpus, messages=args.messages, count=args.count, interval=args.interval,
                           timeout=args.timeout, linger=args.linger, broker=args.broker)
     result: int = run_coroutine(play(options, active, sys.stdout))
+    if result != 0:
+        raise WorkFailed("some messages got no result within --timeout (listed above)")
     return result
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="rehear")
-    add_parser(parser.add_subparsers(dest="command", required=True))
-    return run(parser.parse_args(["demo", *(sys.argv[1:] if argv is None else argv)]))
+    return delegate("demo", argv)
 
 
 if __name__ == "__main__":

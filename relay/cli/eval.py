@@ -5,16 +5,16 @@ from __future__ import annotations
 
 import argparse
 import sys
-from pathlib import Path
 from typing import Any
 
 import orjson
 
-from relay.cli.corpus_args import add_corpus_arguments, chosen_config, report_error, selected_items
+from relay.cli.common import delegate, output_file, require_extra, show_progress
+from relay.cli.corpus_args import add_corpus_arguments, chosen_config, selected_items
 from relay.core.config import build_chain
-from relay.core.errors import RehearError
 from relay.core.stage import deciding_stage
 from relay.workbench.evaluate import format_table, result_line, run_corpus, summarize
+from relay.workbench.written import write_atomically
 from stages.gate.confidence import ConfidenceModel
 
 __all__ = ["add_parser", "run"]
@@ -30,13 +30,14 @@ from the reference); the share of accepted results with any word error; latency 
 
 def _configure(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
     add_corpus_arguments(parser)
-    parser.add_argument("--json", type=Path, metavar="OUT", help="also write the main numbers as JSON (with the "
+    parser.add_argument("--json", type=output_file, metavar="OUT", help="also write the main numbers as JSON (with the "
                         "counts of accepted results and wrong accepts, and the confidence's NCE, ECE and Brier score)")
-    parser.add_argument("--results", type=Path, metavar="OUT.jsonl",
+    parser.add_argument("--results", type=output_file, metavar="OUT.jsonl",
                         help="also write one line per utterance: id, reference, first hypothesis, text sent on, "
                         "entities found and expected, decision, rule, confidence, right")
-    parser.add_argument("--report", type=Path, metavar="OUT.html",
-                        help="also write an HTML report with plots (needs matplotlib)")
+    parser.add_argument("--report", type=output_file, metavar="OUT.html",
+                        help="also write an HTML report with plots (needs the report extra: "
+                        "pip install 'rehear[report]')")
     return parser
 
 
@@ -54,33 +55,33 @@ def _model_of(gate: object) -> ConfidenceModel | None:
 
 
 def run(args: argparse.Namespace) -> int:
-    try:
-        loaded = chosen_config(args)
-        items, described = selected_items(args, loaded)
-        chain = build_chain(loaded, progress=not args.no_progress)
-        chain.load()
-        outcomes = run_corpus(chain, items, progress=not args.no_progress)
-    except RehearError as exc:
-        return report_error(exc)
+    if args.report is not None:
+        require_extra("matplotlib", extra="report", feature="--report")
+    progress = show_progress(args)
+    loaded = chosen_config(args)
+    items, described = selected_items(args, loaded)
+    chain = build_chain(loaded, progress=progress)
+    chain.load()
+    outcomes = run_corpus(chain, items, progress=progress)
     summary = summarize(outcomes)
     print(format_table(summary, title=f"{args.corpus} ({described}), chain: {' -> '.join(chain.names)}"))
     if args.json is not None:
-        args.json.write_bytes(orjson.dumps(summary.to_json(), option=orjson.OPT_INDENT_2) + b"\n")
+        write_atomically(args.json, orjson.dumps(summary.to_json(), option=orjson.OPT_INDENT_2) + b"\n")
     if args.results is not None:
-        args.results.write_bytes(b"".join(orjson.dumps(result_line(o)) + b"\n" for o in outcomes))
+        write_atomically(args.results, b"".join(orjson.dumps(result_line(o)) + b"\n" for o in outcomes))
     if args.report is not None:
-        from relay.workbench.report import write_report  # matplotlib loads only when a report is asked for
+        from relay.workbench.report import ReportHeader, write_report  # matplotlib loads only for a report
 
         gate = deciding_stage(chain.stages)
-        write_report(args.report, outcomes, summary, title=f"rehear evaluation: {args.corpus.name} ({described})",
-                     confidence_model=_model_of(gate))
+        configuration = str(args.config) if args.config else f"the default chain from {args.lexicon}"
+        about = ReportHeader(configuration=configuration, config_hash=loaded.hash, corpus=str(args.corpus),
+                             selection=described, chain=tuple(chain.names))
+        write_report(args.report, outcomes, summary, about=about, confidence_model=_model_of(gate))
     return 0
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = _configure(argparse.ArgumentParser(prog="rehear eval", description=DESCRIPTION,
-                                                formatter_class=argparse.RawDescriptionHelpFormatter))
-    return run(parser.parse_args(argv))
+    return delegate("eval", argv)
 
 
 if __name__ == "__main__":

@@ -10,9 +10,11 @@ from pathlib import Path
 from typing import Any
 
 from relay import __version__
+from relay.cli.common import output_file
 from relay.core.errors import InputError
 from relay.workbench.confusions import LearnOptions, confusion_summary, counts_table, learn
 from relay.workbench.corpus import TagFilter, parse_filter, read_corpus
+from relay.workbench.written import apply_umask
 from stages.lexicon.data import read_lexicon
 from stages.lexicon.sound.costfile import write_costs
 
@@ -20,8 +22,8 @@ __all__ = ["add_parser", "run"]
 
 HELP = "learn the recogniser's phone confusions from a labelled corpus (phone costs for the lexicon stage)"
 DESCRIPTION = """\
-Learn how a recogniser mishears phones, from a labelled corpus of its output (FORMATS section
-5: reference, entities with their text, the recogniser's N-best), and write phone costs that
+Learn how a recogniser mishears phones, from a labelled corpus of its output (docs/formats.md
+section 5: reference, entities with their text, the recogniser's N-best), and write phone costs that
 the lexicon stage uses instead of its hand-set ones when its setting match.costs names the file:
 
     stages:
@@ -73,10 +75,11 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser: argparse.ArgumentParser = subparsers.add_parser(
         "learn-costs", help=HELP, description=DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("corpus", nargs="+", type=Path, metavar="CORPUS",
-                        help="labelled corpus files, JSON Lines (FORMATS section 5), all from one recogniser")
+                        help="labelled corpus files, JSON Lines (docs/formats.md section 5), all from one recogniser")
     parser.add_argument("--lexicon", type=Path, required=True, metavar="L",
                         help="the lexicon the stage will use: entity words are pronounced as its forms")
-    parser.add_argument("-o", "--output", type=Path, required=True, metavar="COSTS.json", help="phone cost file to write")
+    parser.add_argument("-o", "--output", type=output_file, required=True, metavar="COSTS.json",
+                        help="phone cost file to write")
     parser.add_argument("--where", type=_filter, action="append", default=[], metavar="TAG=V|TAG!=V",
                         help="keep corpus lines whose tag matches, e.g. recogniser=whisper or split=seen (repeatable)")
     parser.add_argument("--hypotheses", type=_positive_int, default=defaults.hypotheses, metavar="N",
@@ -127,6 +130,7 @@ def run(args: argparse.Namespace) -> int:
     }
     try:
         write_costs(args.output, learned.model, provenance)
+        apply_umask(args.output)
     except OSError as exc:
         raise InputError("output", f"{args.output}: cannot write ({exc.strerror or exc})") from None
     named = f"recogniser {recogniser}" if recogniser else "a recogniser the corpus does not name (no recogniser tag)"

@@ -8,7 +8,7 @@ import sys
 from typing import Any
 
 from relay import __version__
-from relay.core.errors import RehearError
+from relay.cli.common import delegate
 from relay.live.active import load_active
 from relay.live.logs import setup_logging
 from relay.live.serve import EVENT_LOOPS, run_coroutine, serve
@@ -23,10 +23,11 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "run",
         help="relay recogniser messages from MQTT through the stage chain",
         description=(
-            "Subscribe to the recogniser's topics, clean every N-best list with the configured "
-            "stage chain and publish the result. Serves /metrics and /healthz. "
-            "SIGHUP reloads the configuration without dropping a message; SIGTERM or Ctrl-C "
-            "finishes the messages in flight, then stops."
+            "Subscribe to the recogniser's topics, clean every N-best list with the configured\n"
+            "stage chain and publish the result. Serves /metrics and /healthz.\n"
+            "SIGHUP reloads the configuration without dropping a message; SIGTERM or Ctrl-C\n"
+            "finishes the messages in flight, then stops. With a capture: section the relay also\n"
+            "records what it receives and sends (for `rehear label`)."
         ),
     )
     parser.add_argument("config", help="relay configuration (YAML)")
@@ -42,31 +43,20 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 
 def run(args: argparse.Namespace) -> int:
-    try:
-        active = load_active(args.config, progress=sys.stderr.isatty())
-    except RehearError as exc:
-        print(exc, file=sys.stderr)
-        return 2
+    active = load_active(args.config, progress=sys.stderr.isatty())
     logging_settings = active.loaded.config.logging
     setup_logging(args.log_format or logging_settings.format, args.log_level or logging_settings.level)
     _log.info("starting", extra={"fields": {"version": __version__, "config": args.config,
                                             "config_hash": active.loaded.hash,
                                             "stages": ",".join(active.chain.names)}})
-    try:
-        run_coroutine(serve(active, config_path=args.config, metrics_port=args.metrics_port, freeze_heap=True),
-                      event_loop=args.event_loop)
-    except RehearError as exc:
-        print(exc, file=sys.stderr)
-        return 2
+    run_coroutine(serve(active, config_path=args.config, metrics_port=args.metrics_port, freeze_heap=True),
+                  event_loop=args.event_loop)
     _log.info("stopped")
     return 0
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="rehear")
-    add_parser(parser.add_subparsers(dest="command", required=True))
-    args = parser.parse_args(["run", *(sys.argv[1:] if argv is None else argv)])
-    return run(args)
+    return delegate("run", argv)
 
 
 if __name__ == "__main__":

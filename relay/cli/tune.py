@@ -10,12 +10,15 @@ from typing import Any
 
 import orjson
 import yaml
+from ruamel.yaml.comments import CommentedMap
 
-from relay.cli.corpus_args import add_corpus_arguments, chosen_config, report_error, selected_items
-from relay.core.errors import ConfigError, RehearError
+from relay.cli.common import delegate, output_file, show_progress
+from relay.cli.corpus_args import add_corpus_arguments, chosen_config, selected_items
+from relay.core.errors import ConfigError
 from relay.core.yamlsource import load_yaml
 from relay.workbench.evaluate import format_table
 from relay.workbench.tune import tune
+from relay.workbench.written import dump_yaml, load_commented, merge_in_place, rebase_paths, write_atomically
 
 __all__ = ["add_parser", "run"]
 
@@ -51,11 +54,13 @@ def _share(text: str) -> float:
 
 def _configure(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
     add_corpus_arguments(parser)
-    parser.add_argument("-o", "--output", type=Path, required=True, metavar="TUNED.yaml", help="configuration to write")
+    parser.add_argument("-o", "--output", type=output_file, required=True, metavar="TUNED.yaml",
+                        help="configuration to write: the input configuration with its comments, the tuned "
+                        "values in place, file paths relative to this file")
     parser.add_argument("--max-clarify", type=_share, default=0.25, metavar="SHARE",
                         help="most utterances the gate may ask back from doubt, confirm + reprompt, not counting "
                         "the safety rule's (default %(default)s)")
-    parser.add_argument("--json", type=Path, metavar="OUT",
+    parser.add_argument("--json", type=output_file, metavar="OUT",
                         help="also write the held-out numbers (pooled and per fold) as JSON")
     parser.add_argument("--folds", type=int, default=5, help="cross-validation folds (default %(default)s)")
     parser.add_argument("--seed", type=int, default=20261202, help="seed for folds and sampling (default %(default)s)")
@@ -74,21 +79,22 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 
 def run(args: argparse.Namespace) -> int:
+    loaded = chosen_config(args)
+    items, described = selected_items(args, loaded)
+    space = None
+    if args.space is not None:
+        space = load_yaml(args.space).value
+        if not isinstance(space, dict) or not all(isinstance(v, dict) for v in space.values()):
+            raise ConfigError(f"Invalid search space {args.space}", ["write stage: {parameter: [values, ...]}"])
+    # The configuration as the user wrote it: ${VARIABLES} stay unexpanded, so no secret from
+    # the environment ends up in the tuned file.
+    document = load_commented(args.config) if args.config else None
+    written = yaml.safe_load(args.config.read_text(encoding="utf-8")) if args.config else dict(loaded.source.value)
     try:
-        loaded = chosen_config(args)
-        items, described = selected_items(args, loaded)
-        space = None
-        if args.space is not None:
-            space = load_yaml(args.space).value
-            if not isinstance(space, dict) or not all(isinstance(v, dict) for v in space.values()):
-                raise ConfigError(f"Invalid search space {args.space}", ["write stage: {parameter: [values, ...]}"])
-        # The configuration as the user wrote it: ${VARIABLES} stay unexpanded, so no secret from
-        # the environment ends up in the tuned file.
-        written = yaml.safe_load(args.config.read_text(encoding="utf-8")) if args.config else dict(loaded.source.value)
         result = tune(loaded, items, written=written, space=space, max_clarify=args.max_clarify, folds=args.folds,
-                      seed=args.seed, max_settings=args.max_settings, progress=not args.no_progress)
-    except (RehearError, ValueError) as exc:
-        return report_error(exc if isinstance(exc, RehearError) else ConfigError(str(exc)))
+                      seed=args.seed, max_settings=args.max_settings, progress=show_progress(args))
+    except ValueError as exc:
+        raise ConfigError(str(exc)) from None
     space_text = ", ".join(f"{s}.{p}" for s in result.space for p in result.space[s]) or "none"
     print(f"{len(result.settings)} stage setting(s) tried over {space_text}")
     for fold in result.folds:
@@ -101,19 +107,56 @@ def run(args: argparse.Namespace) -> int:
               f"WER {held_out.wer_relay:.1%}, wrong accepts {held_out.wrong_accept_rate:.1%}, "
               f"asked back {held_out.clarify_rate:.1%}, {held_out.asked_doubt:.1%} from doubt "
               f"(budget {args.max_clarify:.0%})\n")
-    args.output.write_text(header + yaml.safe_dump(result.config, sort_keys=False), encoding="utf-8")
+    if document is None:
+        document = result.config
+    else:
+        _set_stages(document, result.stages)
+    rebase_paths(document, base_dir=loaded.base_dir, out_dir=args.output.parent, absolute=args.config is None)
+    write_atomically(args.output, dump_yaml(document, header=header).encode("utf-8"))
     if args.json is not None:
-        document = {"held_out": held_out.to_json(), "folds": [fold.score.to_json() for fold in result.folds],
-                    "max_clarify": args.max_clarify, "settings_tried": len(result.settings)}
-        args.json.write_bytes(orjson.dumps(document, option=orjson.OPT_INDENT_2) + b"\n")
+        numbers = {"held_out": held_out.to_json(), "folds": [fold.score.to_json() for fold in result.folds],
+                   "max_clarify": args.max_clarify, "settings_tried": len(result.settings)}
+        write_atomically(args.json, orjson.dumps(numbers, option=orjson.OPT_INDENT_2) + b"\n")
     print(f"wrote {args.output}")
     return 0
 
 
+def _set_stages(document: Any, stages: list[Any]) -> None:
+    """The tuned ``stages:`` list written into the round-trip tree, comments kept."""
+    if not isinstance(document, dict):
+        raise ConfigError("the configuration's top level must be a mapping")
+    if not isinstance(document.get("stages"), list):
+        document["stages"] = stages
+        return
+    written = document["stages"]
+    for index, item in enumerate(stages):
+        name, params = (item, {}) if isinstance(item, str) else next(iter(item.items()))
+        if index >= len(written):
+            written.append(item)
+        elif isinstance(written[index], dict):
+            old = written[index]
+            key = next(iter(old))
+            merged = merge_in_place(old[key], params or {})
+            if merged:
+                old[key] = merged
+            else:
+                written[index] = name
+        elif params:
+            written[index] = _as_mapping(written, index, name, params)
+
+
+def _as_mapping(sequence: Any, index: int, name: str, params: dict[str, Any]) -> Any:
+    """``- name: {params}`` replacing ``- name``, the comment that followed the name kept beside it."""
+    mapping = CommentedMap({name: params})
+    comment = getattr(sequence, "ca", None) and sequence.ca.items.pop(index, None)
+    token = comment[0] if comment else None
+    if token is not None and token.value.strip().startswith("#"):
+        mapping.yaml_add_eol_comment(token.value.strip()[1:].strip(), name)
+    return mapping
+
+
 def main(argv: list[str] | None = None) -> int:
-    parser = _configure(argparse.ArgumentParser(prog="rehear tune", description=DESCRIPTION,
-                                                formatter_class=argparse.RawDescriptionHelpFormatter))
-    return run(parser.parse_args(argv))
+    return delegate("tune", argv)
 
 
 if __name__ == "__main__":

@@ -22,6 +22,7 @@ from relay.core.registry import Registry
 from relay.core.setting_names import OldNameConflict, old_names_of
 from relay.core.settings import (
     BrokerSettings,
+    CaptureSettings,
     LimitSettings,
     LogSettings,
     MetricsSettings,
@@ -48,6 +49,7 @@ class RelayConfig(_Strict):
     limits: LimitSettings = LimitSettings()
     metrics: MetricsSettings = MetricsSettings()
     logging: LogSettings = LogSettings()
+    capture: CaptureSettings = CaptureSettings()
     fields: FieldMap = Field(default_factory=FieldMap)
     domain: DomainSettings = DomainSettings()
     cache_dir: str = ".rehear-cache"
@@ -81,8 +83,21 @@ def _shown(value: Any) -> str:
     return text if len(text) <= 60 else text[:57] + "..."
 
 
+def _valid_names(model: type[BaseModel] | None, loc: tuple[Any, ...]) -> list[str]:
+    """The settings a model accepts at ``loc`` (a group's inside the group), for "unknown setting"."""
+    for part in loc:
+        field = model.model_fields.get(str(part)) if model is not None else None
+        annotation = field.annotation if field is not None else None
+        if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+            model = annotation
+        elif field is not None:
+            return []  # inside a mapping of free keys: no list to give
+    return sorted(model.model_fields) if model is not None else []
+
+
 def _pydantic_problems(error: ValidationError, source: Located, prefix: tuple[str | int, ...], label: str,
-                       *, written: Mapping[tuple[str, ...], str] | None = None) -> list[str]:
+                       *, written: Mapping[tuple[str, ...], str] | None = None,
+                       model: type[BaseModel] | None = None) -> list[str]:
     """One line per problem, at the line of the value. ``written`` maps the dotted place of a
     setting given under its old name to that name, so its problems point at what was written."""
     problems = []
@@ -101,9 +116,12 @@ def _pydantic_problems(error: ValidationError, source: Located, prefix: tuple[st
                 break
         got = "" if item["type"] == "missing" else f", got {_shown(item.get('input'))}"
         message = item["msg"].removeprefix("Value error, ")
+        valid = ""
         if item["type"] == "extra_forbidden":
             message = "unknown setting"
-        problems.append(f"{source.where(prefix + loc)} {label}{field}: {message}{got}")
+            names = _valid_names(model, tuple(item["loc"])[:-1])
+            valid = f" (valid: {', '.join(names)})" if names else ""
+        problems.append(f"{source.where(prefix + loc)} {label}{field}: {message}{got}{valid}")
     return problems
 
 
@@ -140,7 +158,7 @@ def parse_config(source: Located, *, base_dir: Path) -> LoadedConfig:
     try:
         config = RelayConfig.model_validate({**raw, "stages": specs})
     except ValidationError as exc:
-        problems += _pydantic_problems(exc, source, (), "")
+        problems += _pydantic_problems(exc, source, (), "", model=RelayConfig)
         config = None
     if problems or config is None:
         raise ConfigError(f"Invalid configuration {source.file}", problems)
@@ -173,7 +191,8 @@ def build_chain(loaded: LoadedConfig, *, registry: Registry | None = None, progr
         except ValidationError as exc:
             written = {tuple(new.split(".")): old for old, new in old_names_of(cls.Settings).items()
                        if old in spec.params}
-            problems += _pydantic_problems(exc, source, ("stages", spec.index, spec.name), label, written=written)
+            problems += _pydantic_problems(exc, source, ("stages", spec.index, spec.name), label, written=written,
+                                           model=cls.Settings)
             continue
         try:
             stages.append(cls(settings, context=context))

@@ -27,8 +27,8 @@ class DomainSettings(BaseModel):
 
     model_config = ConfigDict(extra="forbid")
 
-    lexicon: Path | None = Field(None, description="lexicon CSV/YAML/JSON (FORMATS section 3)")
-    text: Path | None = Field(None, description="in-domain text with {type} slots (FORMATS section 4)")
+    lexicon: Path | None = Field(None, description="lexicon CSV/YAML/JSON (docs/formats.md section 3)")
+    text: Path | None = Field(None, description="in-domain text with {type} slots (docs/formats.md section 4)")
     language_model: Path | None = Field(None, description="ARPA or kenlm binary model (rehear build-lm)")
     speakers: Path | None = Field(None, description="speaker,id,affinity CSV: personal priors")
 

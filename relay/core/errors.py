@@ -2,12 +2,20 @@
 
 from __future__ import annotations
 
+from typing import ClassVar
+
 __all__ = ["ConfigError", "DeadlineExceeded", "InputError", "PublishRefused", "RehearError", "StageError",
-           "TransportError"]
+           "TransportError", "WorkFailed"]
 
 
 class RehearError(Exception):
-    """Raised for any problem rehear reports to its user; the base of all others."""
+    """Raised for any problem rehear reports to its user; the base of all others.
+
+    ``exit_status`` is what a command exits with when this error ends it: 2 for bad input
+    (arguments, configuration, data files), 1 for work that failed on good input.
+    """
+
+    exit_status: ClassVar[int] = 2
 
 
 class ConfigError(RehearError):
@@ -58,6 +66,8 @@ class TransportError(RehearError):
     metric label.
     """
 
+    exit_status: ClassVar[int] = 1
+
     def __init__(self, message: str, *, kind: str = "network") -> None:
         self.kind = kind
         super().__init__(message)
@@ -80,8 +90,16 @@ class PublishRefused(TransportError):
 class DeadlineExceeded(RehearError):
     """Raised between stages, or inside one that checks, when a message has used up its deadline."""
 
+    exit_status: ClassVar[int] = 1
+
     def __init__(self, stage: str, elapsed_ms: float, *, inside: bool = False) -> None:
         self.stage = stage
         self.elapsed_ms = elapsed_ms
         where = "inside" if inside else "before"
         super().__init__(f"deadline passed {where} stage {stage} ({elapsed_ms:.1f} ms spent)")
+
+
+class WorkFailed(RehearError):
+    """Raised when a command's work fails on good input (a port taken, a result that never came)."""
+
+    exit_status: ClassVar[int] = 1

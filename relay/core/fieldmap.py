@@ -38,7 +38,7 @@ def _lookup(data: Any, parts: tuple[str, ...]) -> Any:
 
 
 class FieldMap(BaseModel):
-    """Where each field of FORMATS section 1 sits in the recogniser's own message."""
+    """Where each field of docs/formats.md section 1 sits in the recogniser's own message."""
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 

@@ -8,7 +8,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, SecretStr, field_validator, model_validator
 
-__all__ = ["BrokerSettings", "LimitSettings", "LogSettings", "MetricsSettings", "Qos", "TlsSettings", "TopicSettings",
+__all__ = ["BrokerSettings", "CaptureSettings", "LimitSettings", "LogSettings", "MetricsSettings", "Qos", "TlsSettings", "TopicSettings",
            "source_level_of"]
 
 Qos = Literal[0, 1, 2]
@@ -175,6 +175,18 @@ class MetricsSettings(_Strict):
     enabled: bool = True
     host: str = "127.0.0.1"
     port: int = Field(9464, ge=0, le=65535)
+
+
+class CaptureSettings(_Strict):
+    """What the relay receives and sends, recorded for `rehear label`; off by default."""
+
+    enabled: bool = Field(False, description="record every input and what was published for it")
+    directory: Path = Field(Path("capture"), description="where the JSON Lines files go (relative to the "
+                            "configuration file)")
+    max_file_bytes: int = Field(8 * 1024 * 1024, ge=4096, description="a new file is begun past this size")
+    max_files: int = Field(8, ge=1, le=10_000, description="the oldest file is removed past this many")
+    queue: int = Field(10_000, ge=1, description="records waiting for the writer thread; past this they are "
+                       "dropped and counted (rehear_capture_dropped_total), never delaying a message")
 
 
 class LogSettings(_Strict):

@@ -27,7 +27,7 @@ __all__ = [
     "word_load",
 ]
 
-MAX_HYPOTHESES = 50  # FORMATS section 1: 1..50 items
+MAX_HYPOTHESES = 50  # docs/formats.md section 1: 1..50 items
 # orjson reads JSON nested 1024 levels deep but writes at most 254 (its recursion limit), so a
 # deeper message would parse and then fail when its result is rendered. Refused at parse time.
 MAX_NESTING = 200
@@ -43,7 +43,7 @@ class NbestEntry(BaseModel):
 
 
 class RecogniserMessage(BaseModel):
-    """FORMATS section 1. Unknown fields are kept and passed through."""
+    """docs/formats.md section 1. Unknown fields are kept and passed through."""
 
     model_config = ConfigDict(extra="allow")
 
@@ -87,7 +87,7 @@ class RelayInfo(BaseModel):
 
 
 class CleanedMessage(RecogniserMessage):
-    """FORMATS section 2: everything in the input, plus what the relay decided."""
+    """docs/formats.md section 2: everything in the input, plus what the relay decided."""
 
     text: str
     entities: list[EntityOut] = []
@@ -198,7 +198,7 @@ def word_load(texts: list[str], *, max_word_chars: int) -> tuple[int, int]:
 
 
 def render_cleaned(utterance: Utterance, *, relay: dict[str, Any]) -> dict[str, Any]:
-    """The cleaned message (FORMATS section 2) as a plain dict."""
+    """The cleaned message (docs/formats.md section 2) as a plain dict."""
     out = dict(utterance.payload)
     out["text"] = utterance.text
     nbest = []

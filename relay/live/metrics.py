@@ -72,6 +72,10 @@ class Metrics:
             "How long input has waited without any acknowledgement going out; 0 when none waits.",
             registry=registry,
         )
+        self.stall_limit = Gauge(
+            "rehear_stall_limit_seconds", "limits.stall_s: how long input may wait unacknowledged before /healthz "
+            "turns 503.", registry=registry,
+        )
         self.max_in_flight = Gauge(
             "rehear_max_in_flight", "limits.max_in_flight: the most messages held unacknowledged.", registry=registry
         )
@@ -114,6 +118,14 @@ class Metrics:
         )
         self.reloads = Counter(
             "rehear_reloads_total", "Configuration reloads, by result.", ["result"], registry=registry
+        )
+        self.capture_records = Counter(
+            "rehear_capture_records_total", "Records written by capture (an input with what was published for it).",
+            registry=registry,
+        )
+        self.capture_dropped = Counter(
+            "rehear_capture_dropped_total",
+            "Capture records dropped: the writer's queue was full or the disk refused them.", registry=registry,
         )
         self.chain_loaded = Gauge(
             "rehear_chain_loaded", "1 once a stage chain is loaded and serving.", registry=registry

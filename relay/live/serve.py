@@ -12,8 +12,9 @@ from typing import Any
 from prometheus_client import CollectorRegistry
 
 from relay import __version__
-from relay.core.errors import RehearError
+from relay.core.errors import RehearError, WorkFailed
 from relay.live.active import Active
+from relay.live.capture import CaptureWriter
 from relay.live.health import HealthServer
 from relay.live.looplag import watch_loop_lag
 from relay.live.metrics import Metrics
@@ -40,8 +41,17 @@ async def serve(
     ``freeze_heap`` keeps the loaded chain out of the garbage collector's walks (relay.heap):
     right for a process that runs nothing else, as `rehear run` is."""
     registry = registry or CollectorRegistry()
-    relay = Relay(active, Metrics(registry), config_path=config_path, reloader=reloader, version=__version__,
-                  freeze_heap=freeze_heap)
+    metrics = Metrics(registry)
+    capture = None
+    if active.loaded.config.capture.enabled:
+        capture = CaptureWriter(active.loaded.config.capture, active.loaded.base_dir,
+                                on_drop=metrics.capture_dropped.inc, on_write=metrics.capture_records.inc)
+        try:
+            capture.start()
+        except OSError as exc:
+            raise WorkFailed(f"cannot capture into {capture.directory}: {exc.strerror or exc}") from None
+    relay = Relay(active, metrics, config_path=config_path, reloader=reloader, version=__version__,
+                  freeze_heap=freeze_heap, capture=capture)
     settings = active.loaded.config.metrics
     health = None
     if settings.enabled:
@@ -50,7 +60,9 @@ async def serve(
         try:
             await health.start()
         except OSError as exc:
-            raise RehearError(f"cannot serve metrics on {settings.host}:{port}: {exc.strerror or exc} "
+            if capture is not None:
+                capture.close()
+            raise WorkFailed(f"cannot serve metrics on {settings.host}:{port}: {exc.strerror or exc} "
                               "(set metrics.port, or --metrics-port 0 for any free port)") from None
         _log.info("metrics at " + health.address + "/metrics")
     loop = asyncio.get_running_loop()
@@ -81,6 +93,8 @@ async def serve(
             loop.remove_signal_handler(number)
         if health is not None:
             await health.stop()
+        if capture is not None:
+            await asyncio.to_thread(capture.close)
     return relay
 
 

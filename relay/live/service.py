@@ -32,6 +32,7 @@ import aiomqtt
 from relay.core.errors import PublishRefused, TransportError
 from relay.core.settings import LimitSettings
 from relay.live.active import Active, load_active
+from relay.live.capture import CaptureWriter
 from relay.live.diagnosis import ConnectionDiagnosis
 from relay.live.handling import MessageHandler
 from relay.live.heap import freeze_loaded, refreeze_when_gone
@@ -61,6 +62,7 @@ class Relay:
         reloader: Callable[[], Active] | None = None,
         version: str = "0",
         freeze_heap: bool = False,
+        capture: CaptureWriter | None = None,
     ) -> None:
         """``freeze_heap``: keep the loaded chain out of the garbage collector's walks (relay.heap);
         for a process that runs one relay, as `rehear run` does."""
@@ -77,6 +79,7 @@ class Relay:
         self._tasks: set[asyncio.Task[None]] = set()
         self._background: set[asyncio.Task[bool]] = set()
         self._freeze_heap = freeze_heap
+        self._capture = capture
         self._stopping = asyncio.Event()
         self._broken = asyncio.Event()
         self._worker = ChainWorker()
@@ -90,6 +93,7 @@ class Relay:
         self.connected = False
         self.metrics.chain_loaded.set(1)
         self.metrics.max_in_flight.set(limits.max_in_flight)
+        self.metrics.stall_limit.set(limits.stall_s)
         self.metrics.ack_stall.set_function(self.ack_stall)
         # labels() takes a lock and a dict lookup; the per-message paths use the children directly
         self._outcomes = {outcome: metrics.messages.labels(outcome=outcome) for outcome in OUTCOMES}
@@ -138,6 +142,7 @@ class Relay:
         if new.loaded.config.broker != old.broker or new.loaded.config.topics.inputs != old.topics.inputs:
             _log.warning("broker settings and input topics change only on restart")
         self.metrics.declare_stages(new.chain.names)
+        self.metrics.stall_limit.set(new.loaded.config.limits.stall_s)
         replaced = self.active.chain
         self.active = new  # messages already running keep the chain they started with
         if self._freeze_heap:
@@ -264,6 +269,8 @@ class Relay:
                 self._waiting_since = time.monotonic() if session.acks.pending else None
             self._outcomes[outcome].inc()
             self.metrics.latency.observe(time.monotonic() - delivery.received)
+            if self._capture is not None:
+                self._capture.record(time.time(), delivery.topic, delivery.payload, outcome, outgoing)
         except PublishRefused as exc:
             self._outcomes["publish_refused"].inc()
             _log.error("the broker refused a publish; the input stays unacknowledged and will be delivered again",

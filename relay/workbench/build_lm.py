@@ -2,16 +2,25 @@
 
 from __future__ import annotations
 
+import os
+import subprocess
 import sys
+import tempfile
 import warnings
 from collections.abc import Sequence
 from pathlib import Path
 
+from relay.core.errors import WorkFailed
+from relay.workbench.written import apply_umask
 from stages.indomain.text import TextOptions, read_sentences, read_slot_values
 from stages.lm.arpa import write_arpa
 from stages.lm.kneser_ney import DEFAULT_FALLBACK, DiscountFallbackWarning, KneserNeyModel, estimate
 
-__all__ = ["build_model"]
+__all__ = ["build_model", "write_binary"]
+
+# build_binary reads the ARPA once and writes a probing hash table; a 5 MB model takes about a
+# second, so a minute is far past any sane run.
+_BINARY_TIMEOUT_S = 600
 
 
 def build_model(
@@ -36,4 +45,24 @@ def build_model(
     for warning in caught:
         print(f"warning: {warning.message}", file=sys.stderr)
     write_arpa(model, output)
+    apply_umask(output)  # written through a 0600 temporary file; readable as any other file
     return model
+
+
+def write_binary(arpa: Path, output: Path, *, builder: str) -> None:
+    """kenlm's binary form of ``arpa``, written by its ``build_binary`` program, atomically."""
+    descriptor, temporary = tempfile.mkstemp(dir=output.parent, prefix=f".{output.name}.", suffix=".part")
+    os.close(descriptor)
+    Path(temporary).unlink()  # build_binary creates the file itself; the name is reserved enough
+    try:
+        done = subprocess.run([builder, str(arpa), temporary], capture_output=True, text=True,
+                              timeout=_BINARY_TIMEOUT_S, check=False)
+        if done.returncode != 0 or not Path(temporary).is_file():
+            last = (done.stderr or done.stdout).strip().splitlines()[-1:] or ["no output"]
+            raise WorkFailed(f"{builder} failed on {arpa} (exit {done.returncode}): {last[0]}")
+        apply_umask(Path(temporary))
+        Path(temporary).replace(output)
+    except subprocess.TimeoutExpired:
+        raise WorkFailed(f"{builder} did not finish within {_BINARY_TIMEOUT_S} s") from None
+    finally:
+        Path(temporary).unlink(missing_ok=True)

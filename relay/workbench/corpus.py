@@ -1,4 +1,4 @@
-"""The labelled corpus (FORMATS section 5): reading, validating and filtering by tags.
+"""The labelled corpus (docs/formats.md section 5): reading, validating and filtering by tags.
 
 Every problem names the file and the line. The recogniser message inside each line is
 validated by the same reader the live relay uses, so a corpus the evaluation accepts is one
@@ -20,7 +20,7 @@ from relay.core.fieldmap import FieldMap
 from relay.core.utterance import Utterance
 from relay.live.messages import parse_message
 
-__all__ = ["CorpusItem", "TagFilter", "parse_filter", "read_corpus"]
+__all__ = ["CorpusItem", "TagFilter", "check_entity_ids", "parse_filter", "read_corpus", "tag_text"]
 
 
 class ReferenceEntity(BaseModel):
@@ -79,6 +79,11 @@ def read_corpus(path: str | Path, *, field_map: FieldMap | None = None) -> list[
         if not line.strip():
             continue
         try:
+            line.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise InputError("corpus", f"{where}: not UTF-8 text (byte {exc.start + 1} of the line is "
+                                       f"{line[exc.start]:#04x}); save the file as UTF-8") from None
+        try:
             data = orjson.loads(line)
         except orjson.JSONDecodeError as exc:
             raise InputError("corpus", f"{where}: not valid JSON ({exc})") from None
@@ -111,6 +116,20 @@ def read_corpus(path: str | Path, *, field_map: FieldMap | None = None) -> list[
     return items
 
 
+def check_entity_ids(items: list[CorpusItem], known: set[str], lexicon: str | Path) -> None:
+    """InputError at the first line whose entity ids the lexicon lacks: no chain could ever find
+    them, so every one would count as a miss."""
+    unknown = [(item.where, eid) for item in items for eid in sorted(item.entity_ids - known)]
+    if not unknown:
+        return
+    (where, first), rest = unknown[0], unknown[1:]
+    more = ""
+    if rest:
+        shown = ", ".join(f"{eid} ({w.rsplit(':', 1)[-1]})" for w, eid in rest[:4])
+        more = f"; {len(rest)} more: {shown}" + (", ..." if len(rest) > 4 else "") + " (ids with their lines)"
+    raise InputError("corpus", f"{where}: entity id {first!r} is not in the lexicon {lexicon}{more}")
+
+
 _CONDITION = re.compile(r"^\s*([A-Za-z_][\w.]*)\s*(==|=|!=)\s*(.*?)\s*$")
 
 
@@ -126,13 +145,14 @@ class TagFilter:
     values: frozenset[str]
 
     def __call__(self, item: CorpusItem) -> bool:
-        return (_as_text(item.tags.get(self.tag)) in self.values) == self.keep
+        return (tag_text(item.tags.get(self.tag)) in self.values) == self.keep
 
     def __str__(self) -> str:
         return f"{self.tag}{'=' if self.keep else '!='}{','.join(sorted(self.values))}"
 
 
-def _as_text(value: Any) -> str:
+def tag_text(value: Any) -> str:
+    """A tag value as filters and reports write it: null, true/false, 15 for 15.0."""
     if value is None:
         return "null"
     if isinstance(value, bool):

@@ -2,7 +2,10 @@
 
 Starts an embedded MQTT broker on a free loopback port (or uses a given one), the relay with
 the example configuration, a publisher replaying recorded recogniser messages and a downstream
-subscriber that prints, per utterance, what was heard, what was sent on and the decision.
+subscriber that prints, per utterance, what was heard, what was sent on, the decision with the
+rule and confidence behind it, and whether the entities sent on are the ones said. The gate is
+about entities, so that is what the summary scores: an exact transcript matters less than the
+right machine, person or place.
 """
 
 from __future__ import annotations
@@ -55,6 +58,7 @@ def _subscription(template: str) -> str:
 class _Item:
     payload: bytes
     said: str | None = None  # the reference, when the line comes from a labelled corpus
+    entities: frozenset[str] | None = None  # the entity ids said, from the same line
 
 
 def _items(args: DemoOptions) -> list[_Item]:
@@ -64,7 +68,8 @@ def _items(args: DemoOptions) -> list[_Item]:
         lines = [orjson.loads(line) for line in args.corpus.read_bytes().splitlines() if line.strip()]
         step = max(1, len(lines) // args.count)
         for line in lines[::step][: args.count]:
-            items.append(_Item(orjson.dumps(line["message"]), said=line.get("reference")))
+            said = frozenset(e["id"] for e in line.get("entities", []))
+            items.append(_Item(orjson.dumps(line["message"]), said=line.get("reference"), entities=said))
     if args.messages.exists():
         items += [_Item(line.encode("utf-8")) for line in args.messages.read_text("utf-8").splitlines() if line.strip()]
     return items
@@ -136,14 +141,29 @@ def _print_result(item: _Item, got: list[tuple[str, str, dict[str, Any] | None, 
             print(f"    asks back on {topic}: \"{body['prompt']}\"", file=out)
         elif body is not None:
             decision = body.get("decision") or "none (no gate in this chain)"
-            print(f"    sent on: \"{body.get('text')}\"  [{decision}]", file=out)
+            print(f"    sent on: \"{body.get('text')}\"  [{decision}{_why(body)}]", file=out)
             for fix in body.get("corrections", []):
                 print(f"      fixed: \"{fix['before']}\" -> \"{fix['after']}\" ({fix['score']:.2f})", file=out)
-            if item.said is not None:
-                right = tokenize(body.get("text", "")) == tokenize(item.said)
-                kind = "right" if right else "wrong"
-                kind = f"{decision}:{kind}"
+            if item.entities is not None:
+                found = frozenset(e["id"] for e in body.get("entities", []))
+                right = found == item.entities
+                shown = ", ".join(sorted(found)) or "none"
+                verdict = "right" if right else f"wrong, said {', '.join(sorted(item.entities)) or 'none'}"
+                print(f"      entities: {shown} ({verdict})", file=out)
+                exact = item.said is not None and tokenize(body.get("text", "")) == tokenize(item.said)
+                kind = f"{decision}:{'right' if right else 'wrong'}:{'exact' if exact else 'inexact'}"
     return kind
+
+
+def _why(body: dict[str, Any]) -> str:
+    """The gate's rule and confidence, from its trace entry in the cleaned message."""
+    for entry in reversed(body.get("trace") or []):
+        scores = entry.get("scores") or {}
+        if "rule" in scores:
+            confidence = scores.get("confidence")
+            sure = f", confidence {confidence:.0%}" if isinstance(confidence, float) else ""
+            return f" by {scores['rule']}{sure}"
+    return ""
 
 
 async def play(args: DemoOptions, active: Active, out: Any) -> int:
@@ -223,17 +243,21 @@ async def play(args: DemoOptions, active: Active, out: Any) -> int:
 
 
 def _summary(kinds: Counter[str], latencies: list[float], first_right: int, total: int, out: Any) -> None:
-    labelled = {k: n for k, n in kinds.items() if ":" in k}
+    labelled = {k: n for k, n in kinds.items() if k.count(":") == 2}
     print(f"\nsummary of {total} messages:", file=out)
     if labelled:
         count = sum(labelled.values())
-        right = sum(n for k, n in labelled.items() if k.endswith(":right"))
-        print(f"  recorded utterances: {count}; recogniser's first hypothesis right {first_right}, "
-              f"rehear's text right {right}", file=out)
+        right = sum(n for k, n in labelled.items() if ":right:" in k)
+        exact = sum(n for k, n in labelled.items() if k.endswith(":exact"))
+        print(f"  recorded utterances: {count}; the entities sent on are the ones said in {right}; the text "
+              f"is word for word right in {exact} (the recogniser's first hypothesis: {first_right})", file=out)
         for decision in ("accept", "confirm", "reprompt"):
-            ok, bad = labelled.get(f"{decision}:right", 0), labelled.get(f"{decision}:wrong", 0)
+            ok = sum(n for k, n in labelled.items() if k.startswith(f"{decision}:right:"))
+            bad = sum(n for k, n in labelled.items() if k.startswith(f"{decision}:wrong:"))
             if ok or bad:
-                print(f"    {decision:<9} {ok + bad:>3}  ({ok} with the text exactly as said)", file=out)
+                print(f"    {decision:<9} {ok + bad:>3}  ({ok} with the right entities, {bad} wrong)", file=out)
+        wrong_accepts = sum(n for k, n in labelled.items() if k.startswith("accept:wrong:"))
+        print(f"  wrong accepts (accepted with the wrong entities): {wrong_accepts}", file=out)
     others = {k: n for k, n in kinds.items() if ":" not in k}
     if others:
         print("  other messages: " + ", ".join(f"{n} {k.replace('_', ' ')}" for k, n in sorted(others.items())), file=out)

@@ -62,6 +62,7 @@ class Outcome:
     confidence: float | None = None  # the gate's confidence that the entities are right, when it has one
     rule: str | None = None  # the gate's rule behind the decision
     corrections: list[tuple[str, str]] = field(default_factory=list)
+    nbest: list[tuple[str, float]] = field(default_factory=list)  # the final N-best: text, posterior, best first
 
     @property
     def entity_ok(self) -> bool:
@@ -118,6 +119,7 @@ def run_corpus(chain: Chain, items: Iterable[CorpusItem], *, progress: bool = Fa
             confidence=_traced(utterance, gate, "confidence"),
             rule=_traced(utterance, gate, "rule"),
             corrections=[(c.before, c.after) for c in utterance.corrections],
+            nbest=[(h.text, h.posterior) for h in sorted(utterance.nbest, key=lambda h: -h.posterior)],
         ))
     return outcomes
 

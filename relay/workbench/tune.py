@@ -10,7 +10,6 @@ from __future__ import annotations
 import sys
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -36,7 +35,7 @@ from relay.workbench.tuning import (
 from relay.workbench.variants import Overrides, VariantBuilder, config_from_dict, with_overrides
 from stages.gate.settings import GateSettings
 
-__all__ = ["TuneResult", "deciding_spec", "portable", "tune", "usable_space", "with_gate"]
+__all__ = ["TuneResult", "deciding_spec", "tune", "usable_space", "with_gate"]
 
 Space = dict[str, dict[str, list[Any]]]
 
@@ -86,30 +85,6 @@ def usable_space(space: Space, builder: VariantBuilder, *, gate: str, warn: Call
     return usable
 
 
-def _absolute(params: dict[str, Any], base_dir: Path) -> dict[str, Any]:
-    """Stage parameters with relative paths of existing files made absolute, in groups too."""
-    return {k: _absolute(v, base_dir) if isinstance(v, dict)
-            else str((base_dir / v).resolve()) if isinstance(v, str) and not Path(v).is_absolute()
-            and (base_dir / v).exists() else v for k, v in params.items()}
-
-
-def portable(raw: dict[str, Any], base_dir: Path) -> dict[str, Any]:
-    """Relative file paths made absolute, so the written file works from any folder."""
-    out = dict(raw)
-    if not Path(str(out.get("cache_dir", ".rehear-cache"))).is_absolute():
-        out["cache_dir"] = str((base_dir / str(out.get("cache_dir", ".rehear-cache"))).resolve())
-    if isinstance(out.get("domain"), dict):
-        out["domain"] = _absolute(out["domain"], base_dir)
-    stages = []
-    for item in out.get("stages") or []:
-        if isinstance(item, dict):
-            name, params = next(iter(item.items()))
-            item = {name: _absolute(params or {}, base_dir)}
-        stages.append(item)
-    out["stages"] = stages
-    return out
-
-
 @dataclass
 class TuneResult:
     """What a tune run found: the held-out numbers and the configuration to write."""
@@ -119,6 +94,7 @@ class TuneResult:
     folds: list[FoldResult[Summary]]
     held_out: Summary
     config: dict[str, Any]  # the written form, with the final choice (fitted on every utterance)
+    stages: list[Any]  # the written stages: list with the tuned parameters (and the gate, when it was added)
 
 
 def tune(loaded: LoadedConfig, items: Sequence[CorpusItem], *, written: dict[str, Any],
@@ -157,5 +133,6 @@ def tune(loaded: LoadedConfig, items: Sequence[CorpusItem], *, written: dict[str
     if not any((item if isinstance(item, str) else next(iter(item))) == gate_spec.name for item in stages):
         stages.append(gate_spec.name)
     overrides = {**settings[final.setting], gate_spec.name: gate_params}
-    config = portable(with_overrides({**written, "stages": stages}, overrides), loaded.base_dir)
-    return TuneResult(settings=settings, space=usable, folds=results, held_out=held_out, config=config)
+    config = with_overrides({**written, "stages": stages}, overrides)
+    return TuneResult(settings=settings, space=usable, folds=results, held_out=held_out, config=config,
+                      stages=config["stages"])

@@ -46,15 +46,30 @@ class LexiconEntry:
         return tuple(seen)
 
 
-def _records_csv(text: str) -> list[tuple[int, dict[str, Any]]]:
+def _records_csv(text: str, path: Path) -> list[tuple[int, dict[str, Any]]]:
+    """The rows as records; a header problem is the file's, reported once at line 1."""
     reader = csv.DictReader(io.StringIO(text))
+    header = reader.fieldnames
+    if header is None:
+        return []
+    unknown = [str(name) for name in header if name not in COLUMNS]
+    missing = [name for name in _REQUIRED if name not in header]
+    if unknown or missing:
+        problems = [f"{path}:1: header: unknown column(s) {', '.join(unknown)}"] if unknown else []
+        problems += [f"{path}:1: header: missing required column(s) {', '.join(missing)}"] if missing else []
+        raise ConfigError(f"Lexicon {path} is invalid", [*problems, f"{path}:1: valid columns: {', '.join(COLUMNS)}"])
     records = []
+    extra: list[str] = []
     for row in reader:
         if not any((value or "").strip() for value in row.values() if isinstance(value, str)):
             continue  # blank lines carry no record
+        if None in row:  # csv puts fields past the header's under the key None
+            extra.append(f"{path}:{reader.line_num}: {len(row[None])} field(s) more than the header's "
+                         f"{len(header)} columns (a name with a comma needs \"quotes\")")
+            continue
         records.append((reader.line_num, dict(row)))
-    if reader.fieldnames is None:
-        return []
+    if extra:
+        raise ConfigError(f"Lexicon {path} is invalid", extra)
     return records
 
 
@@ -141,7 +156,7 @@ def read_lexicon(path: Path) -> list[LexiconEntry]:
         raise ConfigError(f"Lexicon {path} cannot be read", [f"{path}: {exc}"]) from None
     suffix = path.suffix.lower()
     if suffix == ".csv":
-        records = _records_csv(text)
+        records = _records_csv(text, path)
     elif suffix in (".yaml", ".yml", ".json"):
         if suffix == ".json":
             try:

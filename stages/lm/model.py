@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -13,6 +14,17 @@ from relay.core.errors import StageError
 __all__ = ["LmScore", "load_model", "score_tokens", "shared_model"]
 
 LN10 = math.log(10.0)
+_log = logging.getLogger("rehear.lm")
+
+
+def _is_arpa(path: Path) -> bool:
+    """ARPA text starts with a blank line or ``\\data\\``; kenlm's binary form with its own magic."""
+    try:
+        with path.open("rb") as handle:
+            start = handle.read(64)
+    except OSError:
+        return False
+    return start.lstrip().startswith(b"\\data\\")
 
 
 @dataclass(frozen=True, slots=True)
@@ -37,6 +49,12 @@ def load_model(path: Path, *, stage: str = "lm_rescore") -> Any:
         raise StageError(stage, f"model file {path} not found")
     config = kenlm.Config()
     config.show_progress = False  # kenlm otherwise draws a bar on stderr for every load and reload
+    # kenlm writes its "faster if you build a binary file" notice straight to stderr, past the
+    # log format; the same advice goes to the log instead.
+    config.arpa_complain = kenlm.ARPALoadComplain.NONE
+    if _is_arpa(path):
+        _log.info("loading an ARPA language model; its binary form loads faster (rehear build-lm --binary)",
+                  extra={"fields": {"model": str(path)}})
     try:
         return kenlm.Model(str(path), config)
     except (OSError, RuntimeError, ValueError) as exc:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import asyncio
 import json
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -100,6 +101,12 @@ def test_demo_runs_end_to_end_on_the_embedded_broker() -> None:
     assert f"summary of {len(lines) + 8} messages" in result.stdout
     assert "recorded utterances: 8;" in result.stdout
     assert result.stdout.count("said:") == 8  # the recorded corpus is replayed with its references
+    # Each decision with the rule and confidence behind it; entities scored against what was said.
+    assert re.search(r"sent on: \".*\"  \[(accept|confirm|reprompt) by [a-z_:]+, confidence \d+%\]", result.stdout)
+    assert result.stdout.count("      entities: ") == 8
+    assert re.search(r"the entities sent on are the ones said in \d+; the text is word for word right in \d+ "
+                     r"\(the recogniser's first hypothesis: \d+\)", result.stdout)
+    assert "wrong accepts (accepted with the wrong entities): " in result.stdout
     assert "dead letter (too_many_hypotheses)" in result.stdout
     assert "dead letter (invalid_json)" in result.stdout
     assert "partial result, forwarded untouched" in result.stdout

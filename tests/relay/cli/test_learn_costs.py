@@ -54,7 +54,6 @@ def test_a_run_writes_a_cost_file_the_stage_reads(tmp_path: Path, capsys: pytest
     (LINES + [line(4, "call tamsin", ["call tamsin"], [], recogniser="other")], "", [],
      "several recognisers (example, other); learn one at a time, e.g. --where recogniser=example"),
     (LINES, "", ["--where", "recogniser=nobody"], "matches recogniser=nobody"),
-    (LINES, "", ["-o", "missing-folder/sounds.json"], "missing-folder/sounds.json: cannot write"),
 ])
 def test_bad_input_is_refused_cleanly(tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch,
                                       lines: list[dict[str, Any]], extra: str, args: list[str], expected: str) -> None:
@@ -65,6 +64,18 @@ def test_bad_input_is_refused_cleanly(tmp_path: Path, capsys: pytest.CaptureFixt
     err = capsys.readouterr().err
     assert expected in err and "Traceback" not in err
     assert not (tmp_path / "sounds.json").exists()
+
+
+def test_an_output_path_that_cannot_be_written_is_refused_before_any_work(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    corpus, lexicon = write(tmp_path, LINES)
+    with pytest.raises(SystemExit) as stopped:
+        main(["learn-costs", str(corpus), "--lexicon", str(lexicon), "-o", "missing-folder/sounds.json"])
+    assert stopped.value.code == 2
+    err = capsys.readouterr().err
+    assert "rehear learn-costs: argument -o/--output: cannot write missing-folder/sounds.json: " \
+           "no directory missing-folder" in err and "Traceback" not in err
 
 
 def test_missing_files_are_named(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:

@@ -71,6 +71,17 @@ def test_stage_parameter_error_has_stage_location(tmp_path: Path) -> None:
     assert "relay.yaml:4 stages[0] (normalize) -> colour: unknown setting, got 'blue'" in message
 
 
+def test_an_unknown_setting_lists_the_valid_ones_where_it_was_written(tmp_path: Path) -> None:
+    message = _problems(tmp_path, "stages:\n  - normalize:\n      colour: blue\n", chain=True)
+    assert "colour: unknown setting, got 'blue' (valid: logprob_scale, prefer, rank_decay)" in message
+    # inside a group: the group's own settings
+    message = _problems(tmp_path, "stages:\n  - normalize\n  - lexicon:\n      lexicon: x.csv\n"
+                        "      general: {min_scor: 0.7}\n", chain=True)
+    assert "general.min_scor: unknown setting, got 0.7 (valid: " in message and " min_score, " in message
+    assert "broker.hots: unknown setting, got 'x' (valid: client_id, host, " in _problems(
+        tmp_path, "broker:\n  hots: x\nstages: [normalize]\n")
+
+
 def test_unknown_stage_lists_valid_names(tmp_path: Path) -> None:
     message = _problems(tmp_path, "stages:\n  - normalize\n  - spellcheck\n", chain=True)
     assert "relay.yaml:3 stages[1]: Unknown stage 'spellcheck'" in message

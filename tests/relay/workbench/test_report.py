@@ -1,9 +1,19 @@
 from __future__ import annotations
 
+import re
 from itertools import pairwise
 
-from relay.workbench.evaluate import Outcome
-from relay.workbench.report import by_tag, entity_type, tradeoff_curve
+import pytest
+
+from relay.workbench.evaluate import Outcome, summarize
+from relay.workbench.report import (
+    ReportHeader,
+    by_tag,
+    entity_type,
+    reliability,
+    render_report,
+    tradeoff_curve,
+)
 from stages.gate.confidence import ConfidenceModel, FeatureWeight
 from stages.gate.features import GateFeatures
 
@@ -48,5 +58,45 @@ def test_by_tag_splits_the_summary_by_each_condition_and_skips_id_like_tags() ->
         outcome.tags = {"snr_db": snr, "recording": f"r{i}"}
         outcomes.append(outcome)
     rows = by_tag(outcomes)
-    assert [(tag, value, s.utterances) for tag, value, s in rows] == [("snr_db", "15", 2), ("snr_db", "None", 3)]
+    assert [(tag, value, s.utterances) for tag, value, s in rows] == [("snr_db", "15", 2), ("snr_db", "null", 3)]
     assert rows[0][2].wrong_accept_rate == 1.0 and rows[1][2].wrong_accept_rate == 0.0
+
+
+def _listed(ident: str, *, decision: str, right: bool, confidence: float | None, rule: str | None) -> Outcome:
+    outcome = _outcome(0.5, right)
+    outcome.id, outcome.decision, outcome.confidence, outcome.rule = ident, decision, confidence, rule  # type: ignore[assignment]
+    outcome.reference, outcome.first, outcome.text = "book the lathe", "book the late", "book the lathe"
+    outcome.nbest = [("book the lathe", 0.7), ("book the late", 0.3)]
+    return outcome
+
+
+def test_the_report_says_what_was_run_in_percent_with_null_and_lists_the_results_to_read() -> None:
+    outcomes = [_listed("ws-0001-a-long-identifier", decision="accept", right=False, confidence=0.9, rule="scores"),
+                _listed("ws-0002", decision="confirm", right=True, confidence=None, rule=None),
+                _listed("ws-0003", decision="accept", right=True, confidence=0.8, rule="scores")]
+    about = ReportHeader(configuration="examples/workshop/relay.yaml", config_hash="abc123",
+                         corpus="examples/workshop/corpus-whisper.jsonl", selection="snr_db!=15",
+                         chain=("normalize", "gate"), version="9.9.9", created="2026-12-02 10:00 UTC")
+    page = render_report(outcomes, summarize(outcomes), about=about)
+    for expected in ("<th>configuration</th><td>examples/workshop/relay.yaml (hash abc123)</td>",
+                     "<th>chain</th><td>normalize -&gt; gate</td>", "<th>rehear</th><td>9.9.9</td>",
+                     "<th>date</th><td>2026-12-02 10:00 UTC</td>",
+                     "corpus-whisper.jsonl: 3 utterances (snr_db!=15)"):
+        assert expected in page, expected
+    assert "None" not in page and "<span class='null'>null</span>" in page  # the missing rule
+    # shares in percent, the split of what was asked back, latency in one unit
+    assert "<th>wrong accepts, % of accepted (entity ids differ)</th><td class='num'>50.0% (1 of 2)</td>" in page
+    assert "by the safety rule (policy)" in page and "from the gate's doubt" in page
+    assert "0.9" not in re.sub(r"data:image/png;base64,[^']+", "", page).replace("9.9.9", "")  # no raw fractions
+    # the lists: each wrong accept and each right result asked back, with the N-best
+    assert "<h2>Wrong accepts (1)</h2>" in page and "<h2>Asked back, but right (1)</h2>" in page
+    assert "<td class='id'>ws-0001-a-long-identifier</td>" in page and ".id,.nowrap{white-space:nowrap}" in page
+    assert "<li>book the late <span class='null'>(30%)</span></li>" in page
+    assert "img{display:block;width:100%" in page
+
+
+def test_the_reliability_bins_put_each_confidence_with_how_often_it_was_right() -> None:
+    outcomes = [_outcome(0.5, True) for _ in range(4)] + [_outcome(0.5, False) for _ in range(4)]
+    for outcome, confidence in zip(outcomes, [0.95, 0.92, 0.15, 0.12, 0.97, 0.18, 0.11, 0.14]):
+        outcome.confidence = confidence
+    assert reliability(outcomes) == [(0.1, pytest.approx(0.14), 0.4, 5), (0.9, pytest.approx(0.9466666), 2 / 3, 3)]

@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 import dataclasses
+import os
 import random
 from pathlib import Path
 from typing import Any, ClassVar
@@ -377,3 +378,35 @@ def test_a_search_space_may_use_dotted_top_level_and_old_names(tmp_path: Path,
     err = capsys.readouterr().err
     # A misspelt name is reported with the valid ones, dotted names among them.
     assert "stage lexicon has no setting general.min_scor (has: " in err and " general.min_score, " in err
+
+
+def test_tune_keeps_comments_writes_paths_relative_to_its_output_and_obeys_the_umask(tmp_path: Path) -> None:
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 40)
+    (tmp_path / "conf").mkdir()
+    (tmp_path / "conf/words.txt").write_text("book the lathe\n")
+    config = tmp_path / "conf/relay.yaml"
+    config.write_text("# the workshop's relay\nlogging:\n  level: info   # quiet enough\n"
+                      "domain:\n  text: words.txt   # the NLU's lines\n"
+                      "stages:\n  - normalize:   # first\n      prefer: conf\n  - gate   # decides\n")
+    (tmp_path / "out").mkdir()
+    out = tmp_path / "out/tuned.yaml"
+    old = os.umask(0o027)
+    try:
+        assert tune_command.main([str(corpus), "--config", str(config), "-o", str(out), "--no-progress"]) == 0
+    finally:
+        os.umask(old)
+    written = out.read_text()
+    assert written.startswith("# rehear tune on ")
+    for comment in ("# the workshop's relay", "level: info   # quiet enough", "# the NLU's lines", "# first",
+                    "# decides"):
+        assert comment in written, comment
+    body = written.split("\n", 1)[1]  # below the header, which names the corpus as given
+    assert "text: ../conf/words.txt" in body and str(tmp_path) not in body
+    assert "cache_dir: ../conf/.rehear-cache" in written  # the cache the configuration used stays in use
+    assert out.stat().st_mode & 0o777 == 0o640
+    tuned = load_config(out)
+    assert tuned.domain.text == (tmp_path / "out/../conf/words.txt")
+    assert tuned.config.stages[1].name == "gate" and "accept_posterior" in tuned.config.stages[1].params
+    # Tuned again, the file keeps one header, not two.
+    assert tune_command.main([str(corpus), "--config", str(out), "-o", str(out), "--no-progress"]) == 0
+    assert out.read_text().count("# rehear tune on ") == 1

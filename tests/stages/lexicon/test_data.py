@@ -93,11 +93,33 @@ def test_broken_json_names_its_line(tmp_path: Path) -> None:
     assert re.match(rf"{re.escape(str(path))}:3: ", problems(exc)[0])
 
 
-def test_unknown_column_lists_the_valid_ones(tmp_path: Path) -> None:
-    path = write(tmp_path, "lex.csv", "id,type,name,colour\na,t,alpha,red\n")
+def test_a_misspelt_header_is_one_problem_at_line_1_with_the_valid_columns(tmp_path: Path) -> None:
+    rows = "".join(f"a{i},t,alpha {i},1\n" for i in range(50))
+    path = write(tmp_path, "lex.csv", "id,type,name,wieght\n" + rows)
     with pytest.raises(ConfigError) as exc:
         read_lexicon(path)
-    assert problems(exc) == [f"{path}:2: unknown column(s) colour (valid: id, type, name, aliases, say, weight)"]
+    assert problems(exc) == [f"{path}:1: header: unknown column(s) wieght",
+                             f"{path}:1: valid columns: id, type, name, aliases, say, weight"]
+    path = write(tmp_path, "lex2.csv", "id,type,label\n" + rows)
+    with pytest.raises(ConfigError) as exc:
+        read_lexicon(path)
+    assert problems(exc)[:2] == [f"{path}:1: header: unknown column(s) label",
+                                 f"{path}:1: header: missing required column(s) name"]
+
+
+def test_a_row_with_more_fields_than_the_header_says_so(tmp_path: Path) -> None:
+    path = write(tmp_path, "lex.csv", "id,type,name\na,t,alpha\nb,t,smith, jo\n")
+    with pytest.raises(ConfigError) as exc:
+        read_lexicon(path)
+    assert problems(exc) == [f'{path}:3: 1 field(s) more than the header\'s 3 columns (a name with a comma needs '
+                             '"quotes")']
+
+
+def test_an_unknown_key_in_a_yaml_record_lists_the_valid_ones(tmp_path: Path) -> None:
+    path = write(tmp_path, "lex.yaml", "- {id: a, type: t, name: alpha, colour: red}\n")
+    with pytest.raises(ConfigError) as exc:
+        read_lexicon(path)
+    assert problems(exc) == [f"{path}:1: unknown column(s) colour (valid: id, type, name, aliases, say, weight)"]
 
 
 def test_speakers_file(tmp_path: Path) -> None:
