@@ -13,7 +13,7 @@ from relay.core.errors import RehearError
 __all__ = ["main"]
 
 # Subcommand modules under relay.cli, in the order --help lists them.
-_COMMANDS = ("run", "check", "stages", "demo", "build_lm", "eval", "tune", "learn_costs", "augment")
+_COMMANDS = ("run", "check", "stages", "demo", "build_lm", "eval", "tune", "learn_costs", "augment", "bench")
 
 _DESCRIPTION = """\
 rehear cleans a speech recogniser's N-best lists before they reach NLU: it rescores them
