@@ -246,7 +246,7 @@ def run_bench(workload: Workload, options: BenchOptions, *, log: Any = None) -> 
                         runs[name].append(endtoend.measure_relay(
                             found, serve, sample, messages=300 if quick else options.messages,
                             latency_messages=100 if quick else options.latency_messages, rate=options.rate,
-                            event_loop=options.event_loop))
+                            event_loop=options.event_loop, messages_file=messages_file))
                         say(f"  round {round_ + 1} {name}: {runs[name][-1].msg_s:,.0f} msg/s")
             result |= _end_to_end(runs, runners, found)
         say("the lexicon stage over generated lexicons ...")

@@ -154,6 +154,17 @@ def bench_active(config: Path, port: int, protocol: str, runner: str | None) -> 
     return Active(loaded, chain)
 
 
+def _warm(active: Any, messages: Path) -> None:
+    """Every message through the chain once, before serving: the word caches (pronunciations,
+    phonetic keys) filled as in a relay that has run a while, in this process and so in the
+    workers it forks; otherwise the first pass pays for every new word (see relay/live/README.md)."""
+    from relay.live.messages import parse_message
+    from relay.workbench.benchdata import read_messages
+
+    for payload in read_messages(messages):
+        active.chain.process(parse_message(payload, topic=_IN, field_map=active.loaded.config.fields))
+
+
 # ---- the driver -------------------------------------------------------------------------------
 
 def _stamped(payloads: Sequence[bytes], count: int) -> list[tuple[str, bytes]]:
@@ -240,10 +251,14 @@ def _percentile(values: Sequence[float], q: float) -> float:
 
 
 def measure_relay(found: Broker, serve: list[str], payloads: Sequence[bytes], *, messages: int,
-                  latency_messages: int, rate: float, event_loop: str) -> RelayRun:
-    """Start one relay under test (``serve``: passthrough, or relay CONFIG RUNNER), measure it, stop it."""
+                  latency_messages: int, rate: float, event_loop: str, messages_file: Path | None = None
+                  ) -> RelayRun:
+    """Start one relay under test (``serve``: passthrough, or relay CONFIG RUNNER, which first runs
+    the chain once over ``messages_file``), measure it, stop it."""
+    extra = [str(messages_file)] if serve[0] == "relay" and messages_file is not None else []
     child = subprocess.Popen([sys.executable, "-m", "relay.workbench.endtoend", *serve, str(found.port),
-                              found.protocol, event_loop], stdout=subprocess.PIPE, stderr=subprocess.DEVNULL)
+                              found.protocol, event_loop, *extra], stdout=subprocess.PIPE,
+                             stderr=subprocess.DEVNULL)
     try:
         ready = child.stdout.readline() if child.stdout is not None else b""
         if not ready.startswith(b"ready"):
@@ -272,7 +287,7 @@ def measure_relay(found: Broker, serve: list[str], payloads: Sequence[bytes], *,
 
 def main(argv: list[str] | None = None) -> int:
     """The processes under test: ``broker PORT``, ``passthrough PORT PROTOCOL LOOP``,
-    ``relay CONFIG RUNNER PORT PROTOCOL LOOP`` (RUNNER ``-`` keeps the configured one)."""
+    ``relay CONFIG RUNNER PORT PROTOCOL LOOP MESSAGES`` (RUNNER ``-`` keeps the configured one)."""
     from relay.live.serve import run_coroutine
 
     parser = argparse.ArgumentParser(prog="python -m relay.workbench.endtoend")
@@ -295,8 +310,9 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     from relay.live.serve import serve
 
-    config, runner, port, protocol, loop = args.rest
+    config, runner, port, protocol, loop, messages = args.rest
     active = bench_active(Path(config), int(port), protocol, None if runner == "-" else runner)
+    _warm(active, Path(messages))
     print("ready", flush=True)
     run_coroutine(serve(active, freeze_heap=True), event_loop=loop)
     return 0
