@@ -903,17 +903,98 @@ static Py_ssize_t common_subsequence(const int32_t *a, Py_ssize_t n, const int32
     return row[m];
 }
 
+/* Bit masks of where each character stands in a string of at most 64 (Hyyrö's bit-parallel
+   algorithms), in a small open-addressing table: any code point, one probe for most. */
+typedef struct {
+    int32_t key[128];
+    uint64_t mask[128];
+} Positions;
+
+static inline Py_ssize_t positions_slot(const Positions *t, int32_t c) {
+    Py_ssize_t at = (Py_ssize_t)(((uint32_t)c * 2654435761u) >> 25);
+    while (t->key[at] != -1 && t->key[at] != c)
+        at = (at + 1) & 127;
+    return at;
+}
+
+static void positions_of(Positions *t, const int32_t *a, Py_ssize_t n) {
+    memset(t->key, 0xff, sizeof t->key);
+    for (Py_ssize_t i = 0; i < n; i++) {
+        Py_ssize_t at = positions_slot(t, a[i]);
+        if (t->key[at] == -1) {
+            t->key[at] = a[i];
+            t->mask[at] = 0;
+        }
+        t->mask[at] |= 1ull << i;
+    }
+}
+
+static inline uint64_t positions_get(const Positions *t, int32_t c) {
+    Py_ssize_t at = positions_slot(t, c);
+    return t->key[at] == -1 ? 0 : t->mask[at];
+}
+
+/* Edit distance, a no longer than 64: Hyyrö's bit-vector form of Myers' algorithm. */
+static Py_ssize_t edit_distance_bits(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m) {
+    Positions t;
+    positions_of(&t, a, n);
+    uint64_t vp = n == 64 ? ~0ull : (1ull << n) - 1, vn = 0, last = 1ull << (n - 1);
+    Py_ssize_t distance = n;
+    for (Py_ssize_t j = 0; j < m; j++) {
+        uint64_t x = positions_get(&t, b[j]) | vn;
+        uint64_t d0 = (((x & vp) + vp) ^ vp) | x;
+        uint64_t hn = vp & d0, hp = vn | ~(vp | d0);
+        if (hp & last)
+            distance++;
+        else if (hn & last)
+            distance--;
+        x = (hp << 1) | 1;
+        vn = x & d0;
+        vp = (hn << 1) | ~(x | d0);
+    }
+    return distance;
+}
+
+/* Longest common subsequence, a no longer than 64: the bit-parallel form (Hyyrö 2004). */
+static Py_ssize_t common_subsequence_bits(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m) {
+    Positions t;
+    positions_of(&t, a, n);
+    uint64_t s = ~0ull;
+    for (Py_ssize_t j = 0; j < m; j++) {
+        uint64_t u = s & positions_get(&t, b[j]);
+        s = (s + u) | (s - u);
+    }
+    uint64_t used = n == 64 ? ~0ull : (1ull << n) - 1;
+    return (Py_ssize_t)__builtin_popcountll(~s & used);
+}
+
 /* rapidfuzz's Levenshtein.normalized_similarity: 1 - distance / longer length (1 for two empties). */
 static double edit_similarity(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m, Py_ssize_t *row) {
-    Py_ssize_t maximum = n > m ? n : m;
-    double distance = maximum ? (double)edit_distance(a, n, b, m, row) / (double)maximum : 0.0;
+    Py_ssize_t maximum = n > m ? n : m, edits;
+    if (n == 0 || m == 0)
+        edits = maximum;
+    else if (n <= 64)
+        edits = edit_distance_bits(a, n, b, m);
+    else if (m <= 64)
+        edits = edit_distance_bits(b, m, a, n);
+    else
+        edits = edit_distance(a, n, b, m, row);
+    double distance = maximum ? (double)edits / (double)maximum : 0.0;
     return 1.0 - distance;
 }
 
 /* rapidfuzz's fuzz.ratio: 100 (1 - Indel distance / summed lengths), Indel distance = sum - 2 LCS. */
 static double indel_ratio(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m, Py_ssize_t *row) {
-    Py_ssize_t maximum = n + m;
-    double distance = maximum ? (double)(maximum - 2 * common_subsequence(a, n, b, m, row)) / (double)maximum : 0.0;
+    Py_ssize_t maximum = n + m, common;
+    if (n == 0 || m == 0)
+        common = 0;
+    else if (n <= 64)
+        common = common_subsequence_bits(a, n, b, m);
+    else if (m <= 64)
+        common = common_subsequence_bits(b, m, a, n);
+    else
+        common = common_subsequence(a, n, b, m, row);
+    double distance = maximum ? (double)(maximum - 2 * common) / (double)maximum : 0.0;
     return (1.0 - distance) * 100.0;
 }
 

@@ -232,8 +232,10 @@ def test_compiled_pair_scoring_gives_the_array_paths_pairs_bit_for_bit(monkeypat
 def test_pair_terms_are_rapidfuzz_s_similarities_to_the_bit() -> None:
     rng = random.Random(5)
     alphabet = "ab cdé\u0101\u0102 "
-    texts = ["", " ", "a", "ab c", "x" * 30] + ["".join(rng.choices(alphabet, k=rng.randint(0, 12))) for _ in range(300)]
-    keys = [("",), ("A",), ("AB", "AP"), ("KLM",), ("TMSN", "TMSM")] + [
+    texts = ["", " ", "a", "ab c", "x" * 30, "ab" * 40, "b" * 64, "a" * 65] + [  # past 64: the row-by-row path
+        "".join(rng.choices(alphabet, k=rng.randint(0, 12) if n % 10 else rng.randint(50, 140))) for n in range(300)]
+    keys = [("",), ("A",), ("AB", "AP"), ("KLM",), ("TMSN", "TMSM"), ("K" * 70, "KL" * 40), ("P" * 64,),
+            ("S" * 100,)] + [
         tuple("".join(rng.choices("ABKLMNPST", k=rng.randint(0, 6))) for _ in range(rng.randint(1, 2)))
         for _ in range(300)]
 
