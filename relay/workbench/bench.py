@@ -269,7 +269,7 @@ def _end_to_end(runs: dict[str, list[Any]], runners: Sequence[str], found: Any) 
                                         round(max(r.msg_s for r in runs[name]), 1)],
                        "cpu_us_per_msg": round(median(name, "cpu_us"), 1),
                        "p50_ms": round(median(name, "p50_ms"), 3), "p99_ms": round(median(name, "p99_ms"), 3),
-                       "forwarded": int(median(name, "forwarded"))}
+                       "forwarded": int(median(name, "forwarded")), "pss_mb": round(median(name, "pss_mb"), 1)}
     first = runners[0]
     return {"passthrough_msgs_s": table["passthrough"]["msgs_s"], "chain_msgs_s": table[first]["msgs_s"],
             "throughput_ratio": round(median(first, "msg_s") / base["msg_s"], 3),
@@ -289,13 +289,14 @@ def format_table(result: dict[str, Any]) -> str:
         lines.append(f"{'':31}p50 {q['p50']:>9,.0f}   p99 {q['p99']:>9,.0f}  {name}")
     if "runners" in result:
         lines += ["", f"end to end ({result['broker']['kind']}, MQTT {result['broker']['protocol']})"
-                      "       msg/s        range  % of pass  CPU us/msg   p50 ms   p99 ms",]
+                      "       msg/s        range  % of pass  CPU us/msg   p50 ms   p99 ms   PSS MB",]
         base = result["runners"]["passthrough"]["msgs_s"]
         for name, row in result["runners"].items():
             low, high = row["msgs_s_range"]
             label = name if name == "passthrough" else f"chain, runner {name}"
             lines.append(f"  {label:<36}{row['msgs_s']:>9,.0f} {low:>6,.0f}-{high:<6,.0f}{100 * row['msgs_s'] / base:>8.0f}%"
-                         f"{row['cpu_us_per_msg']:>12,.0f}{row['p50_ms']:>9.2f}{row['p99_ms']:>9.2f}")
+                         f"{row['cpu_us_per_msg']:>12,.0f}{row['p50_ms']:>9.2f}{row['p99_ms']:>9.2f}"
+                         f"{row['pss_mb']:>9.0f}")
         added = result["added_us"]
         lines.append(f"  added latency at the fixed rate: p50 {added['p50']:+,.0f} us, p99 {added['p99']:+,.0f} us")
     lines += ["", "lexicon stage alone, generated lexicon   p50 us    p99 us   cold build s   RSS MB"]

@@ -32,7 +32,7 @@ from typing import Any
 import aiomqtt
 import orjson
 
-__all__ = ["Broker", "RelayRun", "broker", "measure_relay"]
+__all__ = ["NODELAY", "WINDOW", "Broker", "RelayRun", "bench_active", "broker", "measure_relay", "serve_passthrough"]
 
 NODELAY = [(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)]
 WINDOW = 64  # in-flight messages in every relay under test (limits.max_in_flight)
@@ -55,6 +55,7 @@ class RelayRun:
     p50_ms: float
     p99_ms: float
     forwarded: int  # results of the throughput run that went on uncleaned (deadline, errors)
+    pss_mb: float  # proportional set size of the relay and its workers (shared pages counted once)
 
 
 def _free_port() -> int:
@@ -105,7 +106,7 @@ def broker(*, mosquitto: str | None = None, embedded: bool = False) -> Iterator[
 
 # ---- the relays under test (each in a process of its own) -----------------------------------
 
-async def _serve_passthrough(port: int, protocol: str) -> None:
+async def serve_passthrough(port: int, protocol: str) -> None:
     """The baseline: subscribe, publish each payload on from its own task, QoS 1."""
     slots = asyncio.Semaphore(WINDOW)
     version = aiomqtt.ProtocolVersion.V5 if protocol == "5" else aiomqtt.ProtocolVersion.V311
@@ -230,10 +231,9 @@ async def _drive(port: int, protocol: str, inputs: list[tuple[str, bytes]], rate
     return len(inputs) / elapsed, latencies, forwarded
 
 
-def _cpu_seconds(pid: int) -> float:
-    """User + system CPU of ``pid`` and of its children still running (the chain's workers)."""
-    tick = os.sysconf("SC_CLK_TCK")
-    total = 0.0
+def _family(pid: int) -> list[int]:
+    """``pid`` and its children (the chain's worker processes)."""
+    found = []
     for entry in os.listdir("/proc"):
         if not entry.isdigit():
             continue
@@ -242,8 +242,32 @@ def _cpu_seconds(pid: int) -> float:
         except OSError:
             continue
         if int(entry) == pid or int(fields[1]) == pid:
-            total += (int(fields[11]) + int(fields[12])) / tick
+            found.append(int(entry))
+    return found
+
+
+def _cpu_seconds(pid: int) -> float:
+    """User + system CPU of ``pid`` and of its children still running."""
+    tick = os.sysconf("SC_CLK_TCK")
+    total = 0.0
+    for member in _family(pid):
+        try:
+            fields = Path(f"/proc/{member}/stat").read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        total += (int(fields[11]) + int(fields[12])) / tick
     return total
+
+
+def _pss_mb(pid: int) -> float:
+    total = 0
+    for member in _family(pid):
+        try:
+            lines = Path(f"/proc/{member}/smaps_rollup").read_text().splitlines()
+        except OSError:
+            continue
+        total += sum(int(line.split()[1]) for line in lines if line.startswith("Pss:"))
+    return round(total / 1024, 1)
 
 
 def _percentile(values: Sequence[float], q: float) -> float:
@@ -270,6 +294,7 @@ def measure_relay(found: Broker, serve: list[str], payloads: Sequence[bytes], *,
         throughput, _, forwarded = asyncio.run(_drive(found.port, found.protocol, _stamped(payloads, messages),
                                                       None, 60 + messages / 50))
         cpu = _cpu_seconds(child.pid) - cpu
+        pss = _pss_mb(child.pid)
         _, latencies, _ = asyncio.run(_drive(found.port, found.protocol, _stamped(payloads, latency_messages),
                                              rate, 60 + latency_messages / rate))
     finally:
@@ -282,7 +307,7 @@ def measure_relay(found: Broker, serve: list[str], payloads: Sequence[bytes], *,
         if child.stdout is not None:
             child.stdout.close()
     return RelayRun(throughput, 1e6 * cpu / messages, statistics.median(latencies), _percentile(latencies, 0.99),
-                    forwarded)
+                    forwarded, pss)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -306,7 +331,7 @@ def main(argv: list[str] | None = None) -> int:
     if args.what == "passthrough":
         port, protocol, loop = args.rest
         print("ready", flush=True)
-        run_coroutine(_serve_passthrough(int(port), protocol), event_loop=loop)
+        run_coroutine(serve_passthrough(int(port), protocol), event_loop=loop)
         return 0
     from relay.live.serve import serve
 
