@@ -11,7 +11,7 @@ from typing import Any
 
 from relay.core.errors import RehearError
 from relay.live.serve import EVENT_LOOPS
-from relay.workbench.bench import BenchOptions, format_table, run_bench
+from relay.workbench.bench import BenchOptions, format_markdown, format_table, run_bench
 from relay.workbench.benchdata import configured, example
 
 __all__ = ["add_parser", "run"]
@@ -46,6 +46,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
                         "(a labelled corpus works too); default with --config: 10-best lists generated "
                         "around the configured lexicon's names")
     parser.add_argument("--json", type=Path, metavar="OUT", help="also write the results as JSON")
+    parser.add_argument("--markdown", action="store_true", help="also print the results as Markdown table rows")
     parser.add_argument("--quick", action="store_true", help="a short run with few messages and the 1k "
                         "lexicon only: checks that everything works; not numbers to compare")
     parser.add_argument("--runner", type=_runners, default=(), metavar="RUNNER[,RUNNER]",
@@ -80,6 +81,8 @@ def run(args: argparse.Namespace) -> int:
             print(f"rehear bench: {exc}", file=sys.stderr)
             return 2
     print(format_table(result))
+    if args.markdown:
+        print("\n" + format_markdown(result))
     if args.json is not None:
         args.json.write_text(json.dumps(result, indent=1) + "\n")
     return 0

@@ -38,7 +38,7 @@ import orjson
 
 from relay.workbench.benchdata import Workload, read_messages
 
-__all__ = ["BenchOptions", "format_table", "in_process", "lexicon_scaling", "run_bench", "startup"]
+__all__ = ["BenchOptions", "format_markdown", "format_table", "in_process", "lexicon_scaling", "run_bench", "startup"]
 
 SIZES = (1000, 10000, 100000)
 
@@ -209,7 +209,7 @@ def _texts(messages: Sequence[bytes], count: int) -> list[list[str]]:
 
 def _context(workload: Workload, options: BenchOptions) -> dict[str, Any]:
     load = os.getloadavg()
-    return {"date": datetime.datetime.now(datetime.UTC).strftime("%Y-%m-%d %H:%M UTC"),
+    return {"date": datetime.datetime.now(datetime.UTC).strftime("%Y-%m-%d %H:%M UTC"), "rate": options.rate,
             "cpus": len(os.sched_getaffinity(0)), "load_before": [round(v, 2) for v in load],
             "workload": workload.description, "quick": options.quick, "python": sys.version.split()[0]}
 
@@ -310,6 +310,38 @@ def format_table(result: dict[str, Any]) -> str:
     lines += ["", f"start-up: cold {start['cold']:.2f} s, warm {start['warm']:.2f} s; RSS {result['rss_mb']:.0f} MB "
                   f"(peak {result['peak_rss_mb']:.0f} MB)"]
     return "\n".join(lines)
+
+
+def format_markdown(result: dict[str, Any]) -> str:
+    """The result as the rows of the README's table ("Speed on your device")."""
+    context = result["context"]
+    rows = ["| what | measured |", "|---|---|"]
+    chain = result["chain_us"]
+    rows.append(f"| chain in process, per message | p50 {chain['p50'] / 1000:.2f} ms, p99 {chain['p99'] / 1000:.2f} ms |")
+    for name, q in result["stage_us"].items():
+        rows.append(f"| stage `{name}` | p50 {q['p50'] / 1000:.2f} ms, p99 {q['p99'] / 1000:.2f} ms |")
+    if "runners" in result:
+        base = result["runners"]["passthrough"]
+        rows.append(f"| pass-through relay ({result['broker']['kind']}, MQTT {result['broker']['protocol']}) | "
+                    f"{base['msgs_s']:,.0f} msg/s, {base['cpu_us_per_msg']:,.0f} us CPU per message, "
+                    f"p50 / p99 {base['p50_ms']:.2f} / {base['p99_ms']:.2f} ms at {context.get('rate', 200):g} msg/s |")
+        for name, row in result["runners"].items():
+            if name == "passthrough":
+                continue
+            rows.append(f"| relay with the chain, `chain_runner: {name}` | {row['msgs_s']:,.0f} msg/s "
+                        f"({100 * row['msgs_s'] / base['msgs_s']:.0f}% of pass-through), "
+                        f"{row['cpu_us_per_msg']:,.0f} us CPU per message, p50 / p99 {row['p50_ms']:.2f} / "
+                        f"{row['p99_ms']:.2f} ms, PSS {row['pss_mb']:.0f} MB |")
+        added = result["added_us"]
+        rows.append(f"| latency the chain adds (first runner) | p50 {added['p50'] / 1000:+.2f} ms, "
+                    f"p99 {added['p99'] / 1000:+.2f} ms |")
+    for size, row in result["lexicon"].items():
+        if row is not None:
+            rows.append(f"| lexicon stage alone, {int(size):,} generated entries | p50 {row['p50_us'] / 1000:.2f} ms, "
+                        f"p99 {row['p99_us'] / 1000:.2f} ms, cold build {row['build_s']:.1f} s, RSS {row['rss_mb']:.0f} MB |")
+    start = result["startup_s"]
+    rows.append(f"| start-up, cold / warm; RSS | {start['cold']:.2f} / {start['warm']:.2f} s; {result['rss_mb']:.0f} MB |")
+    return "\n".join(rows)
 
 
 def main(argv: list[str] | None = None) -> int:
