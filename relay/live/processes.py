@@ -13,6 +13,8 @@ pages shared), reads pickled utterances from a pipe, runs the chain and sends th
   is already late when it reads it, and a late result is dropped.
 - A worker that dies (killed, a crash in compiled code) fails the jobs it held with StageError:
   their originals go on flagged ``stage_error``, none is lost, and a new worker is forked.
+- Balance: a message goes to the worker holding the fewest; one stuck on a message keeps it
+  (late or not) in its count, so the others take the new ones.
 - Reload: workers serve the chain they were forked with. The first message on a new chain
   forks workers for it; the old chain's workers exit once their last job is back.
 """
@@ -76,12 +78,15 @@ class _Results(asyncio.Protocol):
 
 
 class _Worker:
-    __slots__ = ("jobs", "pending", "pid")
+    __slots__ = ("held", "jobs", "pending", "pid")
 
     def __init__(self, pid: int) -> None:
         self.pid = pid
         self.jobs: asyncio.WriteTransport | None = None
         self.pending: dict[int, asyncio.Future[tuple[Utterance, float, float]]] = {}
+        # Jobs sent and not answered yet, late ones included: a worker stuck on a message keeps
+        # its count, so new messages go to the others.
+        self.held = 0
 
 
 class _Pool:
@@ -91,7 +96,6 @@ class _Pool:
         self.chain: Chain | None = chain
         self.processes = processes
         self.workers: list[_Worker] = []
-        self.retiring = False
         self.closed = False
         self._numbers: Iterator[int] = itertools.count()
         self._ready: asyncio.Task[None] | None = None
@@ -107,7 +111,8 @@ class _Pool:
             self._replace()
             if self._spawning:
                 await asyncio.wait(set(self._spawning))
-        worker = min(self.workers, key=lambda w: len(w.pending))
+        worker = min(self.workers, key=lambda w: w.held)
+        worker.held += 1
         number = next(self._numbers)
         loop = asyncio.get_running_loop()
         future: asyncio.Future[tuple[Utterance, float, float]] = loop.create_future()
@@ -121,8 +126,6 @@ class _Pool:
         finally:
             timer.cancel()
             worker.pending.pop(number, None)
-            if self.retiring and not any(w.pending for w in self.workers):
-                self.close()
 
     async def _start(self) -> None:
         for _ in range(self.processes):
@@ -131,7 +134,7 @@ class _Pool:
 
     def _replace(self) -> None:
         """Fork workers until there are ``processes`` of them, counting those being started."""
-        while not self.closed and not self.retiring and len(self.workers) + len(self._spawning) < self.processes:
+        while not self.closed and len(self.workers) + len(self._spawning) < self.processes:
             task = asyncio.ensure_future(self._spawn())
             self._spawning.add(task)
             task.add_done_callback(self._spawning.discard)
@@ -161,6 +164,7 @@ class _Pool:
 
     def deliver(self, worker: _Worker, frame: bytes) -> None:
         number, status, value, started, ended = pickle.loads(frame)
+        worker.held -= 1
         future = worker.pending.pop(number, None)
         if future is None or future.done():
             return  # its deadline passed meanwhile: the original has gone on
@@ -181,23 +185,18 @@ class _Pool:
         code = _reap(worker.pid, within_s=0.05)
         if code is None:
             _reap_soon(worker.pid)
-        if worker.pending or not self.closed:
+        if worker.held or not self.closed:
             _log.error("a chain worker process exited; its messages go on flagged, a new worker takes its place",
-                       extra={"fields": {"pid": worker.pid, "exit": code, "messages": len(worker.pending)}})
+                       extra={"fields": {"pid": worker.pid, "exit": code, "messages": worker.held}})
         for future in worker.pending.values():
             if not future.done():
                 future.set_exception(StageError("chain", f"the worker process {worker.pid} running it exited ({code})"))
         worker.pending.clear()
         self._replace()
 
-    def retire(self) -> None:
-        """Close once the jobs already sent are back."""
-        self.retiring = True
-        if not any(w.pending for w in self.workers):
-            self.close()
-
     def close(self) -> None:
-        """No more jobs: each worker finishes what it holds, reads the end of its pipe and exits."""
+        """No more jobs: each worker finishes the jobs sent to it (the pipe keeps them), reads the
+        end of its pipe and exits; their results still come back."""
         self.closed = True
         self.chain = None  # the replaced chain can be freed here (relay.live.heap waits for that)
         for worker in self.workers:
@@ -224,7 +223,7 @@ class ProcessRunner:
             # No await between the relay reading its active chain and this call: a chain seen here
             # that is not the current one is always the newer one (a reload swapped it in).
             if pool is not None:
-                pool.retire()
+                pool.close()
                 self._retired.append(pool)
             self._retired = [p for p in self._retired if not p.closed or p.workers]
             pool = self._current = _Pool(chain, processes or default_processes())

@@ -105,6 +105,30 @@ def test_results_stage_errors_and_deadlines_from_worker_processes(broker: Any, t
     asyncio.run(scenario())
 
 
+def test_messages_go_to_the_worker_that_is_not_stuck(broker: Any, tmp_path: Path) -> None:
+    path, prefix = make_config(tmp_path, broker, stages=["normalize", {"marker": {"sleep_s": 2.0}}],
+                               limits={"deadline_ms": 150, "chain_runner": "process", "chain_processes": 2})
+    topic = f"{prefix}/asr/kiosk-1/nbest"
+
+    async def scenario() -> None:
+        async with running_relay(load(path, _registry())) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
+            await publish_all(broker, topic, [orjson.dumps(message("s-0", "warm up"))])
+            await down.wait_for(lambda items: len(items) >= 1)
+            await publish_all(broker, topic, [orjson.dumps(message("s-1", "a slow one"))])
+            await down.wait_for(lambda items: len(items) >= 2)  # s-1 went on at its deadline
+            # s-1's worker is still asleep: every message from now on must go to the other one
+            await publish_all(broker, topic, [orjson.dumps(message(f"s-{n}", "plain words")) for n in range(2, 6)],
+                              gap_s=0.05)
+            await down.wait_for(lambda items: len(items) >= 6)
+            await relay.wait_handled(6)
+        out = _out(down.received)
+        assert out["s-1"]["relay"]["passthrough"] == "deadline"
+        assert [out[f"s-{n}"]["relay"].get("passthrough") for n in range(2, 6)] == [None] * 4
+        assert len({_pid(out[f"s-{n}"]) for n in range(2, 6)}) == 1
+
+    asyncio.run(scenario())
+
+
 def test_a_killed_worker_loses_no_input_and_is_replaced(broker: Any, tmp_path: Path) -> None:
     path, prefix = make_config(tmp_path, broker, stages=["normalize", {"marker": {"step_s": 0.01}}],
                                limits={"deadline_ms": 5000, "chain_runner": "process", "chain_processes": 2})
