@@ -111,14 +111,14 @@ class _Pool:
             self._replace()
             if self._spawning:
                 await asyncio.wait(set(self._spawning))
-        worker = min(self.workers, key=lambda w: w.held)
-        worker.held += 1
         number = next(self._numbers)
+        data = pickle.dumps((number, deadline, utterance), protocol=pickle.HIGHEST_PROTOCOL)
+        worker = min(self.workers, key=lambda w: w.held)
         loop = asyncio.get_running_loop()
         future: asyncio.Future[tuple[Utterance, float, float]] = loop.create_future()
         worker.pending[number] = future
-        data = pickle.dumps((number, deadline, utterance), protocol=pickle.HIGHEST_PROTOCOL)
         if worker.jobs is not None:
+            worker.held += 1
             worker.jobs.write(_HEADER.pack(len(data)) + data)
         timer = loop.call_later(max(0.0, deadline - time.monotonic()), _expire, future)
         try:
@@ -161,6 +161,8 @@ class _Pool:
         worker.jobs = transport
         await loop.connect_read_pipe(lambda: _Results(self, worker), os.fdopen(results_read, "rb", buffering=0))
         self.workers.append(worker)
+        if self.closed:  # closed while this one was starting: it ends at once
+            transport.close()
 
     def deliver(self, worker: _Worker, frame: bytes) -> None:
         number, status, value, started, ended = pickle.loads(frame)
@@ -314,7 +316,11 @@ def _serve(chain: Chain, jobs: int, results: int) -> None:
                 stage = getattr(exc, "stage", None) or (utterance.trace[-1].stage if utterance.trace else "chain")
                 detail = "".join(traceback.format_exception(exc)).strip()
                 reply = (number, "error", (stage, detail), started, time.monotonic())
-        data = pickle.dumps(reply, protocol=pickle.HIGHEST_PROTOCOL)
+        try:
+            data = pickle.dumps(reply, protocol=pickle.HIGHEST_PROTOCOL)
+        except Exception as exc:  # noqa: BLE001 - a value a stage left that cannot cross the pipe
+            detail = f"the result cannot be sent back from the worker ({type(exc).__name__}: {exc})"
+            data = pickle.dumps((number, "error", ("chain", detail), started, time.monotonic()))
         _write_all(results, _HEADER.pack(len(data)) + data)
 
 

@@ -7,6 +7,7 @@ from __future__ import annotations
 import asyncio
 import os
 import signal
+import threading
 import time
 from pathlib import Path
 from typing import Any, ClassVar
@@ -48,6 +49,8 @@ class MarkerStage:
     def process(self, utterance: Utterance) -> Utterance:
         if "explode" in utterance.text:
             raise ZeroDivisionError("a bug in a stage")
+        if "unsendable" in utterance.text:
+            utterance.payload = dict(utterance.payload, hook=threading.Lock())  # cannot be pickled
         if "slow" in utterance.text:
             time.sleep(self.settings.sleep_s)
         if self.settings.step_s:
@@ -125,6 +128,26 @@ def test_messages_go_to_the_worker_that_is_not_stuck(broker: Any, tmp_path: Path
         assert out["s-1"]["relay"]["passthrough"] == "deadline"
         assert [out[f"s-{n}"]["relay"].get("passthrough") for n in range(2, 6)] == [None] * 4
         assert len({_pid(out[f"s-{n}"]) for n in range(2, 6)}) == 1
+
+    asyncio.run(scenario())
+
+
+def test_a_result_that_cannot_be_sent_back_goes_on_flagged_and_the_worker_stays(broker: Any, tmp_path: Path) -> None:
+    path, prefix = make_config(tmp_path, broker, stages=["normalize", "marker"],
+                               limits={"chain_runner": "process", "chain_processes": 1})
+    topic = f"{prefix}/asr/kiosk-1/nbest"
+
+    async def scenario() -> None:
+        async with running_relay(load(path, _registry())) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
+            await publish_all(broker, topic, [orjson.dumps(message(ident, text)) for ident, text in (
+                ("u-0", "Plain words"), ("u-1", "an unsendable one"), ("u-2", "Plain words"))])
+            await down.wait_for(lambda items: len(items) >= 3)
+            await relay.wait_handled(3)
+            assert relay.metric("rehear_stage_errors_total", stage="chain") == 1
+        out = _out(down.received)
+        assert out["u-1"]["relay"]["passthrough"] == "stage_error" and out["u-1"]["text"] == "an unsendable one"
+        assert "passthrough" not in out["u-2"]["relay"]
+        assert _pid(out["u-0"]) == _pid(out["u-2"])  # the same worker: it did not die on u-1
 
     asyncio.run(scenario())
 
