@@ -24,20 +24,13 @@ import numpy as np
 import psutil
 from tqdm import tqdm
 
-from relay.workbench.synthetic import make_lexicon, make_messages
+from relay.workbench.bench import build_lexicon
+from relay.workbench.synthetic import make_messages
 
 
 def build(size: int, folder: Path, seed: int) -> dict[str, float]:
     """Write the lexicon and compile it cold into the folder's cache."""
-    from relay.core.stage import StageContext
-    from stages.lexicon.settings import LexiconSettings
-    from stages.lexicon.stage import LexiconStage
-
-    make_lexicon(size, folder / "lexicon.csv", seed)
-    context = StageContext(base_dir=folder, cache_dir=folder / "cache")
-    began = time.perf_counter()
-    LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv")), context=context).load()
-    return {"build_s": round(time.perf_counter() - began, 2)}
+    return {"build_s": round(build_lexicon(folder, size, seed), 2)}
 
 
 def corpus_messages(path: Path, count: int) -> list[tuple[int, list[str]]]:

@@ -45,8 +45,10 @@ import orjson
 from pydantic import BaseModel, ConfigDict, Field
 
 ROOT = Path(__file__).resolve().parents[1]
-NODELAY = [(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)]
-WINDOW = 64  # in-flight messages in every relay under test (the relay's limits.max_in_flight)
+sys.path.insert(0, str(ROOT))
+
+from relay.workbench.endtoend import NODELAY, WINDOW, serve_passthrough  # noqa: E402 - after the path
+
 DEFAULT_CHAIN = "stages: [normalize]\n"
 
 
@@ -102,29 +104,6 @@ class BusyStage:
         while time.perf_counter_ns() < end:
             pass
         return utterance
-
-
-async def _serve_passthrough(port: int, protocol: str) -> None:
-    """The baseline: subscribe, publish each payload on from its own task, QoS 1."""
-    slots = asyncio.Semaphore(WINDOW)
-    version = aiomqtt.ProtocolVersion.V5 if protocol == "5" else aiomqtt.ProtocolVersion.V311
-    async with aiomqtt.Client("127.0.0.1", port, identifier=f"bench-pass-{time.time_ns()}", protocol=version,
-                              socket_options=NODELAY) as client:
-        client.pending_calls_threshold = 1000
-        await client.subscribe("bench/in/#", qos=1)
-        tasks: set[asyncio.Task[None]] = set()
-
-        async def forward(payload: bytes) -> None:
-            try:
-                await client.publish("bench/out/kiosk-1", payload, qos=1)
-            finally:
-                slots.release()
-
-        async for message in client.messages:
-            await slots.acquire()
-            task = asyncio.create_task(forward(bytes(message.payload)))
-            tasks.add(task)
-            task.add_done_callback(tasks.discard)
 
 
 def _bench_active(port: int, args: argparse.Namespace) -> Any:
@@ -289,7 +268,7 @@ def main() -> int:
     parser.add_argument("--capture-dir", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.serve == "passthrough":
-        _run(_serve_passthrough(args.port, args.protocol), args.event_loop)
+        _run(serve_passthrough(args.port, args.protocol), args.event_loop)
         return 0
     if args.serve == "chain":
         _serve_chain(args.port, args)

@@ -15,7 +15,7 @@ __all__ = ["build_parser", "main"]
 
 # Subcommand modules under relay.cli, in the order --help lists them.
 _COMMANDS = ("run", "check", "stages", "demo", "starter", "build_lm", "label", "eval", "tune", "learn_costs",
-             "augment")
+             "augment", "bench")
 
 _DESCRIPTION = """\
 rehear cleans a speech recogniser's N-best lists before they reach NLU: it rescores them

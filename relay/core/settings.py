@@ -163,12 +163,15 @@ class LimitSettings(_Strict):
     max_in_flight: int = Field(64, ge=1, le=10_000)
     deadline_ms: float = Field(250.0, gt=0)
     drain_s: float = Field(10.0, ge=0, description="on shutdown, how long in-flight messages may take to finish")
-    chain_runner: Literal["thread", "loop"] = Field(
+    chain_runner: Literal["thread", "loop", "process"] = Field(
         "thread",
         description="thread: stages run on one worker thread, so a slow stage cannot stall the broker "
         "connection and the deadline is enforced even mid-stage; loop: on the event loop, "
-        "deadline checked between stages only (no cheaper: measured in relay/live/README.md)",
+        "deadline checked between stages only (no cheaper: measured in relay/live/README.md); "
+        "process: in worker processes forked with the loaded chain, every core used",
     )
+    chain_processes: int | None = Field(
+        None, ge=1, le=64, description="worker processes of chain_runner process; default one per core")
 
 
 class MetricsSettings(_Strict):

@@ -9,11 +9,12 @@ import time
 from typing import Any
 
 from relay.core.errors import DeadlineExceeded, InputError
-from relay.core.settings import TopicSettings
+from relay.core.settings import LimitSettings, TopicSettings
 from relay.core.utterance import Utterance
 from relay.live.active import Active
 from relay.live.messages import parse_message, word_load
 from relay.live.metrics import Metrics
+from relay.live.processes import ProcessRunner
 from relay.live.routing import Outgoing, cleaned, dead_letter, is_final, partial, passthrough
 from relay.live.topics import source_from_topic
 from relay.live.transport import Delivery
@@ -41,6 +42,7 @@ class MessageHandler:
         self.metrics = metrics
         self.version = version
         self._worker = worker
+        self._processes = ProcessRunner()  # forks workers only when chain_runner is process
         # labels() takes a lock and a dict lookup; the per-message paths use the children directly
         self._stage_latency: dict[str, Any] = {}
         self._corrections: dict[str, Any] = {}
@@ -93,7 +95,7 @@ class MessageHandler:
         deadline = delivery.received + limits.deadline_ms / 1000
         timing = _Timing()
         try:
-            utterance = await self._run_chain(active, utterance, deadline, limits.chain_runner, timing)
+            utterance = await self._run_chain(active, utterance, deadline, limits, timing)
             if time.monotonic() > deadline:  # the last stage overran: the result is too late
                 raise DeadlineExceeded(utterance.trace[-1].stage if utterance.trace else "chain",
                                        (time.monotonic() - delivery.received) * 1000)
@@ -140,10 +142,20 @@ class MessageHandler:
         utterance.payload = dict(utterance.payload, source=from_topic)
         utterance.source = from_topic
 
+    def shutdown(self) -> None:
+        """Stop the chain's worker thread and worker processes."""
+        self._worker.shutdown()
+        self._processes.shutdown()
+
     async def _run_chain(
-        self, active: Active, utterance: Utterance, deadline: float, runner: str, timing: _Timing
+        self, active: Active, utterance: Utterance, deadline: float, limits: LimitSettings, timing: _Timing
     ) -> Utterance:
         chain = active.chain
+        runner = limits.chain_runner
+        if runner == "process":
+            done, timing.started, timing.ended = await self._processes.run(
+                chain, utterance, deadline, processes=limits.chain_processes)
+            return done
 
         def job() -> Utterance:
             timing.started = time.monotonic()

@@ -181,7 +181,7 @@ class Relay:
                     await asyncio.wait_for(self._stopping.wait(), timeout=wait)
                 delay = min(delay * 2, broker.reconnect_max_s)
         finally:
-            self._worker.shutdown()
+            self._handler.shutdown()
 
     def _connection_lost(self, exc: aiomqtt.MqttError) -> None:
         session = self._session

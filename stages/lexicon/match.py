@@ -26,7 +26,7 @@ from rapidfuzz.process import cpdist
 from relay.core.utterance import Hypothesis
 from stages.lexicon.compile import CompiledLexicon, Form, word_run_keys
 from stages.lexicon.sound.kernels import compiled
-from stages.lexicon.sound.phonetics import CostModel, batch_similarity, broad
+from stages.lexicon.sound.phonetics import _CHAR_BASE, PHONES, CostModel, batch_similarity, broad
 from stages.lexicon.sound.pronounce import Pronouncer
 
 __all__ = ["Evidence", "Sighting", "Spans", "Weights", "best_entries", "find_spans", "pool", "score_spans"]
@@ -141,6 +141,8 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
         queries += [q for q, _ in extra]
         items += [f for _, f in extra]
     forms = lexicon.forms
+    if compiled is not None:
+        return _score_pairs_compiled(spans, forms, queries, items, exact_pairs, weights, costs, pairs)
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment; see stages/lexicon/README.md for how the threshold was chosen.
     screen = weights.align_floor
@@ -178,6 +180,43 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     for (q, f), value in zip(chosen, score.tolist()):
         if value >= floor:
             pairs.append((q, f, value / total, False))
+    return pairs
+
+
+def _score_pairs_compiled(spans: Spans, forms: list[Form], queries: list[int], items: list[int],
+                          exact_pairs: set[tuple[int, int]], weights: Weights, costs: CostModel,
+                          pairs: list[tuple[int, int, float, bool]]) -> list[tuple[int, int, float, bool]]:
+    """The rest of ``score_spans`` pair by pair in C (stages/lexicon/sound/_lexfast.c): the screen,
+    the alignment and the phone floors, then the spelling and key terms of the pairs left; the
+    same floats in the same order as the array code below it, so the same pairs and scores."""
+    if compiled is None:
+        raise RuntimeError("the compiled kernels are not built")
+    if exact_pairs:
+        kept = [(q, f) for q, f in zip(queries, items) if (q, f) not in exact_pairs]
+        queries, items = [q for q, _ in kept], [f for _, f in kept]
+    count = len(queries)
+    if not count:
+        return pairs
+    total = weights.phone + weights.spelling + weights.keys
+    floor = weights.pair_floor * total
+    chosen_query = np.empty(count, dtype=np.int32)
+    chosen_item = np.empty(count, dtype=np.int32)
+    score = np.empty(count, dtype=np.float64)
+    found = compiled.pair_screen(
+        spans.phones, forms, np.asarray(queries, dtype=np.int32), np.asarray(items, dtype=np.int32),
+        weights.align_floor, costs.sub_array, costs.insertion_array, costs.deletion_array, len(PHONES) + 1,
+        _CHAR_BASE, weights.phone, weights.spelling, weights.keys, weights.min_phone, floor,
+        chosen_query, chosen_item, score)
+    if not found:
+        return pairs
+    span_keys: list[tuple[str, ...] | None] | None = None
+    if weights.keys:
+        span_keys = [None] * len(spans)
+        words = spans.words
+        for q in dict.fromkeys(chosen_query[:found].tolist()):
+            span_keys[q] = _span_keys(words[q])
+    compiled.pair_finish(spans.texts, span_keys, forms, chosen_query, chosen_item, score, found, weights.spelling,
+                         weights.keys, floor, total, pairs)
     return pairs
 
 

@@ -848,11 +848,463 @@ done:
     return result;
 }
 
+/* ---- pair scoring: the screen, the phone alignment, spelling and key terms of span/form pairs ---- */
+
+/* Code points of a str into out (its length); with skip_spaces, U+0020 is left out. */
+static Py_ssize_t read_points(PyObject *text, int32_t *out, int skip_spaces) {
+    int kind = PyUnicode_KIND(text);
+    const void *data = PyUnicode_DATA(text);
+    Py_ssize_t length = PyUnicode_GET_LENGTH(text), made = 0;
+    for (Py_ssize_t i = 0; i < length; i++) {
+        Py_UCS4 point = PyUnicode_READ(kind, data, i);
+        if (skip_spaces && point == ' ')
+            continue;
+        out[made++] = (int32_t)point;
+    }
+    return made;
+}
+
+/* Unit-cost edit distance (Levenshtein), one row of work space of m + 1. */
+static Py_ssize_t edit_distance(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m, Py_ssize_t *row) {
+    for (Py_ssize_t j = 0; j <= m; j++)
+        row[j] = j;
+    for (Py_ssize_t i = 1; i <= n; i++) {
+        Py_ssize_t diagonal = row[0];
+        row[0] = i;
+        for (Py_ssize_t j = 1; j <= m; j++) {
+            Py_ssize_t above = row[j];
+            Py_ssize_t best = diagonal + (a[i - 1] != b[j - 1]);
+            if (above + 1 < best)
+                best = above + 1;
+            if (row[j - 1] + 1 < best)
+                best = row[j - 1] + 1;
+            row[j] = best;
+            diagonal = above;
+        }
+    }
+    return row[m];
+}
+
+/* Longest common subsequence, one row of work space of m + 1. */
+static Py_ssize_t common_subsequence(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m, Py_ssize_t *row) {
+    for (Py_ssize_t j = 0; j <= m; j++)
+        row[j] = 0;
+    for (Py_ssize_t i = 1; i <= n; i++) {
+        Py_ssize_t diagonal = 0;
+        for (Py_ssize_t j = 1; j <= m; j++) {
+            Py_ssize_t above = row[j];
+            if (a[i - 1] == b[j - 1])
+                row[j] = diagonal + 1;
+            else if (row[j - 1] > above)
+                row[j] = row[j - 1];
+            diagonal = above;
+        }
+    }
+    return row[m];
+}
+
+/* Bit masks of where each character stands in a string of at most 64 (Hyyrö's bit-parallel
+   algorithms), in a small open-addressing table: any code point, one probe for most. */
+typedef struct {
+    int32_t key[128];
+    uint64_t mask[128];
+} Positions;
+
+static inline Py_ssize_t positions_slot(const Positions *t, int32_t c) {
+    Py_ssize_t at = (Py_ssize_t)(((uint32_t)c * 2654435761u) >> 25);
+    while (t->key[at] != -1 && t->key[at] != c)
+        at = (at + 1) & 127;
+    return at;
+}
+
+static void positions_of(Positions *t, const int32_t *a, Py_ssize_t n) {
+    memset(t->key, 0xff, sizeof t->key);
+    for (Py_ssize_t i = 0; i < n; i++) {
+        Py_ssize_t at = positions_slot(t, a[i]);
+        if (t->key[at] == -1) {
+            t->key[at] = a[i];
+            t->mask[at] = 0;
+        }
+        t->mask[at] |= 1ull << i;
+    }
+}
+
+static inline uint64_t positions_get(const Positions *t, int32_t c) {
+    Py_ssize_t at = positions_slot(t, c);
+    return t->key[at] == -1 ? 0 : t->mask[at];
+}
+
+/* Edit distance, a no longer than 64: Hyyrö's bit-vector form of Myers' algorithm. */
+static Py_ssize_t edit_distance_bits(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m) {
+    Positions t;
+    positions_of(&t, a, n);
+    uint64_t vp = n == 64 ? ~0ull : (1ull << n) - 1, vn = 0, last = 1ull << (n - 1);
+    Py_ssize_t distance = n;
+    for (Py_ssize_t j = 0; j < m; j++) {
+        uint64_t x = positions_get(&t, b[j]) | vn;
+        uint64_t d0 = (((x & vp) + vp) ^ vp) | x;
+        uint64_t hn = vp & d0, hp = vn | ~(vp | d0);
+        if (hp & last)
+            distance++;
+        else if (hn & last)
+            distance--;
+        x = (hp << 1) | 1;
+        vn = x & d0;
+        vp = (hn << 1) | ~(x | d0);
+    }
+    return distance;
+}
+
+/* Longest common subsequence, a no longer than 64: the bit-parallel form (Hyyrö 2004). */
+static Py_ssize_t common_subsequence_bits(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m) {
+    Positions t;
+    positions_of(&t, a, n);
+    uint64_t s = ~0ull;
+    for (Py_ssize_t j = 0; j < m; j++) {
+        uint64_t u = s & positions_get(&t, b[j]);
+        s = (s + u) | (s - u);
+    }
+    uint64_t used = n == 64 ? ~0ull : (1ull << n) - 1;
+    return (Py_ssize_t)__builtin_popcountll(~s & used);
+}
+
+/* rapidfuzz's Levenshtein.normalized_similarity: 1 - distance / longer length (1 for two empties). */
+static double edit_similarity(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m, Py_ssize_t *row) {
+    Py_ssize_t maximum = n > m ? n : m, edits;
+    if (n == 0 || m == 0)
+        edits = maximum;
+    else if (n <= 64)
+        edits = edit_distance_bits(a, n, b, m);
+    else if (m <= 64)
+        edits = edit_distance_bits(b, m, a, n);
+    else
+        edits = edit_distance(a, n, b, m, row);
+    double distance = maximum ? (double)edits / (double)maximum : 0.0;
+    return 1.0 - distance;
+}
+
+/* rapidfuzz's fuzz.ratio: 100 (1 - Indel distance / summed lengths), Indel distance = sum - 2 LCS. */
+static double indel_ratio(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_ssize_t m, Py_ssize_t *row) {
+    Py_ssize_t maximum = n + m, common;
+    if (n == 0 || m == 0)
+        common = 0;
+    else if (n <= 64)
+        common = common_subsequence_bits(a, n, b, m);
+    else if (m <= 64)
+        common = common_subsequence_bits(b, m, a, n);
+    else
+        common = common_subsequence(a, n, b, m, row);
+    double distance = maximum ? (double)(maximum - 2 * common) / (double)maximum : 0.0;
+    return (1.0 - distance) * 100.0;
+}
+
+/* The least cost of the feature-weighted alignment of codes xs (n) with ys (m), float32 as
+   alignment_costs computes it; cum, row and next hold m + 1 floats each. */
+static float align_codes(const int32_t *xs, Py_ssize_t n, const int32_t *ys, Py_ssize_t m, const float *sub,
+                         const float *inserted, const float *deleted, Py_ssize_t stride, float *cum, float *row,
+                         float *next) {
+    cum[0] = 0.0f;
+    for (Py_ssize_t j = 0; j < m; j++)
+        cum[j + 1] = cum[j] + deleted[ys[j]];
+    memcpy(row, cum, sizeof(float) * (size_t)(m + 1));
+    for (Py_ssize_t i = 0; i < n; i++) {
+        const float drop = inserted[xs[i]];
+        const float *costs = sub + (Py_ssize_t)xs[i] * stride;
+        float running = (row[0] + drop) - cum[0];
+        next[0] = running + cum[0];
+        for (Py_ssize_t j = 1; j <= m; j++) {
+            float gone = row[j] + drop;
+            float substituted = row[j - 1] + costs[ys[j - 1]];
+            float value = substituted < gone ? substituted : gone;
+            float lowered = value - cum[j];
+            if (lowered < running)
+                running = lowered;
+            next[j] = running + cum[j];
+        }
+        float *swap = row;
+        row = next;
+        next = swap;
+    }
+    return row[m];
+}
+
+static PyObject *attr_phones, *attr_text, *attr_keys; /* interned names of the Form fields read */
+
+/* A str attribute of a form (new reference), checked. */
+static PyObject *form_str(PyObject *forms, Py_ssize_t at, PyObject *name) {
+    if (at < 0 || at >= PyList_GET_SIZE(forms)) {
+        PyErr_SetString(PyExc_IndexError, "pair scoring: form number outside the lexicon");
+        return NULL;
+    }
+    PyObject *value = PyObject_GetAttr(PyList_GET_ITEM(forms, at), name);
+    if (value != NULL && !PyUnicode_Check(value)) {
+        PyErr_SetString(PyExc_TypeError, "pair scoring: a form's phones and text must be str");
+        Py_CLEAR(value);
+    }
+    return value;
+}
+
+typedef struct {
+    int32_t *a, *b;
+    Py_ssize_t *row;
+    float *cum, *frow, *fnext;
+    Py_ssize_t size;
+} Work;
+
+static int work_fit(Work *w, Py_ssize_t length) {
+    if (length < w->size)
+        return 0;
+    Py_ssize_t size = 2 * length + 16;
+    int32_t *a = realloc(w->a, sizeof(int32_t) * (size_t)size);
+    if (a) w->a = a;
+    int32_t *b = realloc(w->b, sizeof(int32_t) * (size_t)size);
+    if (b) w->b = b;
+    Py_ssize_t *row = realloc(w->row, sizeof(Py_ssize_t) * (size_t)size);
+    if (row) w->row = row;
+    float *cum = realloc(w->cum, sizeof(float) * (size_t)size);
+    if (cum) w->cum = cum;
+    float *frow = realloc(w->frow, sizeof(float) * (size_t)size);
+    if (frow) w->frow = frow;
+    float *fnext = realloc(w->fnext, sizeof(float) * (size_t)size);
+    if (fnext) w->fnext = fnext;
+    if (!a || !b || !row || !cum || !frow || !fnext) {
+        PyErr_NoMemory();
+        return -1;
+    }
+    w->size = size;
+    return 0;
+}
+
+static void work_free(Work *w) {
+    free(w->a);
+    free(w->b);
+    free(w->row);
+    free(w->cum);
+    free(w->frow);
+    free(w->fnext);
+}
+
+PyDoc_STRVAR(screen_doc,
+"pair_screen(span_phones, forms, queries, items, screen, substitution, insertion, deletion, stride,\n"
+"            char_base, phone_weight, spelling_weight, key_weight, min_phone, floor,\n"
+"            out_query, out_item, out_score) -> int\n\n"
+"The pairs (queries[i], items[i]) of span and form (forms[items[i]].phones) that pass the unit-cost\n"
+"screen (similarity >= screen), whose aligned phone similarity reaches min_phone and whose\n"
+"phone term phone_weight x similarity could still reach floor; writes them, in order, with that\n"
+"term (float64) into the out buffers and returns how many. The same floats as score_spans.");
+
+static PyObject *pair_screen(PyObject *self, PyObject *args) {
+    PyObject *span_phones, *forms;
+    Py_buffer q_b, i_b, sub_b, ins_b, del_b, oq_b, oi_b, os_b;
+    double screen, phone_weight, spelling_weight, key_weight, min_phone, floor;
+    int stride, char_base;
+    if (!PyArg_ParseTuple(args, "O!O!y*y*dy*y*y*iidddddw*w*w*", &PyList_Type, &span_phones, &PyList_Type, &forms,
+                          &q_b, &i_b, &screen, &sub_b, &ins_b, &del_b, &stride, &char_base, &phone_weight,
+                          &spelling_weight, &key_weight, &min_phone, &floor, &oq_b, &oi_b, &os_b))
+        return NULL;
+    PyObject *result = NULL;
+    Work w = {0};
+    Py_ssize_t count = q_b.len / 4;
+    if (check_size(&i_b, count, 4, "items") < 0 || check_size(&oq_b, count, 4, "out_query") < 0 ||
+        check_size(&oi_b, count, 4, "out_item") < 0 || check_size(&os_b, count, 8, "out_score") < 0 ||
+        check_size(&sub_b, (Py_ssize_t)stride * stride, 4, "substitution") < 0 ||
+        check_size(&ins_b, stride, 4, "insertion") < 0 || check_size(&del_b, stride, 4, "deletion") < 0)
+        goto done;
+    const int32_t *queries = q_b.buf, *items = i_b.buf;
+    int32_t *out_query = oq_b.buf, *out_item = oi_b.buf;
+    double *out_score = os_b.buf;
+    const float *sub = sub_b.buf, *inserted = ins_b.buf, *deleted = del_b.buf;
+    Py_ssize_t written = 0, spans = PyList_GET_SIZE(span_phones);
+    for (Py_ssize_t p = 0; p < count; p++) {
+        if (queries[p] < 0 || queries[p] >= spans) {
+            PyErr_SetString(PyExc_IndexError, "pair_screen: span number outside the spans");
+            goto done;
+        }
+        PyObject *heard = PyList_GET_ITEM(span_phones, queries[p]);
+        PyObject *said = form_str(forms, items[p], attr_phones);
+        if (said == NULL)
+            goto done;
+        if (!PyUnicode_Check(heard)) {
+            Py_DECREF(said);
+            PyErr_SetString(PyExc_TypeError, "pair_screen: span phones must be str");
+            goto done;
+        }
+        Py_ssize_t longer = PyUnicode_GET_LENGTH(heard) > PyUnicode_GET_LENGTH(said) ? PyUnicode_GET_LENGTH(heard)
+                                                                                     : PyUnicode_GET_LENGTH(said);
+        if (work_fit(&w, longer + 1) < 0) {
+            Py_DECREF(said);
+            goto done;
+        }
+        Py_ssize_t n = read_points(heard, w.a, 0), m = read_points(said, w.b, 0);
+        Py_DECREF(said);
+        if (!(edit_similarity(w.a, n, w.b, m, w.row) >= screen))
+            continue;
+        for (Py_ssize_t i = 0; i < n; i++) {
+            w.a[i] -= char_base;
+            if (w.a[i] < 0 || w.a[i] >= stride)
+                goto not_phones;
+        }
+        for (Py_ssize_t j = 0; j < m; j++) {
+            w.b[j] -= char_base;
+            if (w.b[j] < 0 || w.b[j] >= stride)
+                goto not_phones;
+        }
+        /* batch_similarity in float32: clip(1 - cost / max(longer length, 1), 0, 1) */
+        float cost = align_codes(w.a, n, w.b, m, sub, inserted, deleted, stride, w.cum, w.frow, w.fnext);
+        float longest = (float)(n > m ? n : m);
+        float similarity = 1.0f - cost / (longest > 1.0f ? longest : 1.0f);
+        similarity = similarity < 0.0f ? 0.0f : (similarity > 1.0f ? 1.0f : similarity);
+        double phone = (double)similarity, score = phone_weight * phone;
+        if (phone < min_phone || score + spelling_weight + key_weight < floor)
+            continue;
+        out_query[written] = queries[p];
+        out_item[written] = items[p];
+        out_score[written] = score;
+        written++;
+    }
+    result = PyLong_FromSsize_t(written);
+    goto done;
+not_phones:
+    PyErr_SetString(PyExc_ValueError, "pair_screen: a phone string holds a character that is not an encoded phone");
+done:
+    work_free(&w);
+    PyBuffer_Release(&q_b);
+    PyBuffer_Release(&i_b);
+    PyBuffer_Release(&sub_b);
+    PyBuffer_Release(&ins_b);
+    PyBuffer_Release(&del_b);
+    PyBuffer_Release(&oq_b);
+    PyBuffer_Release(&oi_b);
+    PyBuffer_Release(&os_b);
+    return result;
+}
+
+/* The first or last key (new reference) of a keys tuple. */
+static PyObject *key_of(PyObject *keys, int last) {
+    if (!PyTuple_Check(keys) || PyTuple_GET_SIZE(keys) == 0) {
+        PyErr_SetString(PyExc_TypeError, "pair_finish: keys must be non-empty tuples of str");
+        return NULL;
+    }
+    PyObject *key = PyTuple_GET_ITEM(keys, last ? PyTuple_GET_SIZE(keys) - 1 : 0);
+    if (!PyUnicode_Check(key)) {
+        PyErr_SetString(PyExc_TypeError, "pair_finish: keys must be str");
+        return NULL;
+    }
+    Py_INCREF(key);
+    return key;
+}
+
+PyDoc_STRVAR(finish_doc,
+"pair_finish(span_texts, span_keys, forms, queries, items, scores, count, spelling_weight, key_weight,\n"
+"            floor, total, pairs) -> None\n\n"
+"Adds to the first count phone terms their spelling term (fuzz.ratio of the texts, spaces\n"
+"removed) and key term (the best normalised Levenshtein similarity of the first and last\n"
+"Double Metaphone keys of each side, span_keys[query] and forms[item].keys), and appends\n"
+"(query, item, score / total, False) to the list pairs for each pair reaching floor.");
+
+static PyObject *pair_finish(PyObject *self, PyObject *args) {
+    PyObject *span_texts, *span_keys, *forms, *pairs;
+    Py_buffer q_b, i_b, s_b;
+    Py_ssize_t count;
+    double spelling_weight, key_weight, floor, total;
+    if (!PyArg_ParseTuple(args, "O!OO!y*y*y*nddddO!", &PyList_Type, &span_texts, &span_keys, &PyList_Type, &forms,
+                          &q_b, &i_b, &s_b, &count, &spelling_weight, &key_weight, &floor, &total, &PyList_Type,
+                          &pairs))
+        return NULL;
+    PyObject *result = NULL;
+    Work w = {0};
+    if (count < 0 || check_size(&q_b, count, 4, "queries") < 0 || check_size(&i_b, count, 4, "items") < 0 ||
+        check_size(&s_b, count, 8, "scores") < 0)
+        goto done;
+    if (key_weight != 0.0 && !PyList_Check(span_keys)) {
+        PyErr_SetString(PyExc_TypeError, "pair_finish: span_keys must be a list when key_weight is not 0");
+        goto done;
+    }
+    const int32_t *queries = q_b.buf, *items = i_b.buf;
+    const double *scores = s_b.buf;
+    Py_ssize_t spans = PyList_GET_SIZE(span_texts);
+    for (Py_ssize_t p = 0; p < count; p++) {
+        if (queries[p] < 0 || queries[p] >= spans) {
+            PyErr_SetString(PyExc_IndexError, "pair_finish: span number outside the spans");
+            goto done;
+        }
+        double score = scores[p];
+        if (spelling_weight != 0.0) {
+            PyObject *heard = PyList_GET_ITEM(span_texts, queries[p]);
+            PyObject *said = form_str(forms, items[p], attr_text);
+            if (said == NULL)
+                goto done;
+            if (!PyUnicode_Check(heard) ||
+                work_fit(&w, PyUnicode_GET_LENGTH(heard) + PyUnicode_GET_LENGTH(said) + 1) < 0) {
+                Py_DECREF(said);
+                if (!PyErr_Occurred())
+                    PyErr_SetString(PyExc_TypeError, "pair_finish: span texts must be str");
+                goto done;
+            }
+            Py_ssize_t n = read_points(heard, w.a, 1), m = read_points(said, w.b, 1);
+            Py_DECREF(said);
+            score = score + spelling_weight * indel_ratio(w.a, n, w.b, m, w.row) / 100.0;
+        }
+        if (key_weight != 0.0) {
+            if (queries[p] >= PyList_GET_SIZE(span_keys)) {
+                PyErr_SetString(PyExc_IndexError, "pair_finish: span_keys is shorter than the spans");
+                goto done;
+            }
+            PyObject *form_keys = PyObject_GetAttr(PyList_GET_ITEM(forms, items[p]), attr_keys);
+            if (form_keys == NULL)
+                goto done;
+            PyObject *sides[4] = {key_of(PyList_GET_ITEM(span_keys, queries[p]), 0),
+                                  key_of(PyList_GET_ITEM(span_keys, queries[p]), 1), key_of(form_keys, 0),
+                                  key_of(form_keys, 1)};
+            Py_DECREF(form_keys);
+            double best = 0.0;
+            int failed = !sides[0] || !sides[1] || !sides[2] || !sides[3];
+            /* the four (span key, form key) combinations, as cpdist of first+first+last+last
+               against their first+last+first+last, then the maximum */
+            for (int c = 0; c < 4 && !failed; c++) {
+                PyObject *x = sides[c < 2 ? 0 : 1], *y = sides[2 + (c % 2)];
+                if (work_fit(&w, PyUnicode_GET_LENGTH(x) + PyUnicode_GET_LENGTH(y) + 1) < 0) {
+                    failed = 1;
+                    break;
+                }
+                Py_ssize_t n = read_points(x, w.a, 0), m = read_points(y, w.b, 0);
+                double similar = edit_similarity(w.a, n, w.b, m, w.row);
+                if (c == 0 || similar > best)
+                    best = similar;
+            }
+            for (int c = 0; c < 4; c++)
+                Py_XDECREF(sides[c]);
+            if (failed)
+                goto done;
+            score = score + key_weight * best;
+        }
+        if (score >= floor) {
+            PyObject *pair = Py_BuildValue("(iidO)", queries[p], items[p], score / total, Py_False);
+            if (pair == NULL)
+                goto done;
+            int failed = PyList_Append(pairs, pair) < 0;
+            Py_DECREF(pair);
+            if (failed)
+                goto done;
+        }
+    }
+    Py_INCREF(Py_None);
+    result = Py_None;
+done:
+    work_free(&w);
+    PyBuffer_Release(&q_b);
+    PyBuffer_Release(&i_b);
+    PyBuffer_Release(&s_b);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"search", search, METH_VARARGS, search_doc},
     {"alignment_costs", alignment_costs, METH_VARARGS, align_doc},
     {"g2p_decode", g2p_decode, METH_VARARGS, g2p_doc},
     {"word_spans", word_spans, METH_VARARGS, spans_doc},
+    {"pair_screen", pair_screen, METH_VARARGS, screen_doc},
+    {"pair_finish", pair_finish, METH_VARARGS, finish_doc},
     {NULL, NULL, 0, NULL},
 };
 
@@ -862,10 +1314,15 @@ static struct PyModuleDef module = {
 
 /* Raised when a kernel's arguments change, so stages/lexicon/sound/kernels.py can tell a module
    built from an older _lexfast.c (and fall back to numpy) instead of calling it wrongly.
-   2: alignment_costs takes separate insertion and deletion costs. */
-#define KERNELS_VERSION 2
+   2: alignment_costs takes separate insertion and deletion costs; 3: pair_screen and pair_finish. */
+#define KERNELS_VERSION 3
 
 PyMODINIT_FUNC PyInit__lexfast(void) {
+    attr_phones = PyUnicode_InternFromString("phones");
+    attr_text = PyUnicode_InternFromString("text");
+    attr_keys = PyUnicode_InternFromString("keys");
+    if (!attr_phones || !attr_text || !attr_keys)
+        return NULL;
     PyObject *m = PyModule_Create(&module);
     if (m != NULL && PyModule_AddIntConstant(m, "version", KERNELS_VERSION) < 0) {
         Py_DECREF(m);

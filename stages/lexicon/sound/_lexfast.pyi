@@ -1,4 +1,5 @@
 from collections.abc import Sequence
+from typing import Any
 
 from typing_extensions import Buffer
 
@@ -20,3 +21,13 @@ def g2p_decode(
 def word_spans(
     token_lists: Sequence[Sequence[str]], sound_lists: Sequence[Sequence[str]], longest: int, /,
 ) -> tuple[list[tuple[str, ...]], list[str], list[str], list[list[tuple[int, int, int]]]]: ...
+def pair_screen(
+    span_phones: list[str], forms: list[Any], queries: Buffer, items: Buffer, screen: float, substitution: Buffer,
+    insertion: Buffer, deletion: Buffer, stride: int, char_base: int, phone_weight: float, spelling_weight: float,
+    key_weight: float, min_phone: float, floor: float, out_query: Buffer, out_item: Buffer, out_score: Buffer, /,
+) -> int: ...
+def pair_finish(
+    span_texts: list[str], span_keys: list[tuple[str, ...] | None] | None, forms: list[Any], queries: Buffer,
+    items: Buffer, scores: Buffer, count: int, spelling_weight: float, key_weight: float, floor: float, total: float,
+    pairs: list[tuple[int, int, float, bool]], /,
+) -> None: ...

@@ -14,8 +14,8 @@ from types import ModuleType
 
 __all__ = ["compiled"]
 
-FUNCTIONS = ("search", "alignment_costs", "g2p_decode", "word_spans")
-VERSION = 2  # KERNELS_VERSION in _lexfast.c: 2 since alignment_costs takes insertion and deletion costs apart
+FUNCTIONS = ("search", "alignment_costs", "g2p_decode", "word_spans", "pair_screen", "pair_finish")
+VERSION = 3  # KERNELS_VERSION in _lexfast.c: 3 since pair_screen and pair_finish
 
 
 def _load() -> ModuleType | None:

@@ -207,6 +207,9 @@ def test_a_compiled_module_built_from_older_source_is_not_used(monkeypatch: pyte
     assert kernels._load() is None  # nor one that predates the word-span kernel
     older.word_spans = lambda *args: ([], [], [], [])  # type: ignore[attr-defined]
     assert kernels._load() is None  # nor one whose alignment takes a single insertion/deletion vector
+    older.version = 2  # type: ignore[attr-defined]
+    assert kernels._load() is None  # nor one that predates the pair-scoring kernels
+    older.pair_screen = older.pair_finish = lambda *args: None  # type: ignore[attr-defined]
     older.version = kernels.VERSION  # type: ignore[attr-defined]
     assert kernels._load() is older
 

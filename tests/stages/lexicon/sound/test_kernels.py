@@ -14,9 +14,16 @@ import random
 import jiwer
 import numpy as np
 import pytest
+from rapidfuzz.distance import Levenshtein
+from rapidfuzz.fuzz import ratio
+from rapidfuzz.process import cpdist
 
+from relay.core.utterance import Hypothesis
 from relay.workbench.phone_channel import PhonePair, fit_channel, to_costs
-from stages.lexicon.match import Spans, _word_spans_python
+from stages.lexicon import match
+from stages.lexicon.compile import CompiledLexicon, compile_entries
+from stages.lexicon.data import LexiconEntry
+from stages.lexicon.match import Spans, Weights, _word_spans_python, find_spans, score_spans
 from stages.lexicon.sound.kernels import compiled
 from stages.lexicon.sound.phone_index import Hits, PhoneIndex
 from stages.lexicon.sound.phonetics import (
@@ -26,6 +33,7 @@ from stages.lexicon.sound.phonetics import (
     _batch_alignment_cost_numpy,
     encode,
 )
+from stages.lexicon.sound.pronounce import Pronouncer
 
 if compiled is None:
     if os.environ.get("CI") == "true" and os.environ.get("REHEAR_NO_COMPILED", "") in ("", "0"):
@@ -179,3 +187,77 @@ def test_word_spans_refuse_mismatched_input() -> None:
         compiled.word_spans([["a", 3]], [["x", "y"]], 2)
     with pytest.raises(ValueError, match="at least 1"):
         compiled.word_spans([["a"]], [["x"]], 0)
+
+
+# ---- pair scoring (pair_screen, pair_finish) against score_spans's array path and rapidfuzz ----
+
+def _pair_fixture() -> tuple[CompiledLexicon, list[Spans]]:
+    rng = random.Random(21)
+    pronouncer = Pronouncer()
+    words = ["tamsin", "okara", "band", "saw", "bay", "three", "the", "for", "mezzanine", "reflow", "oven", "kiln",
+             "siobhan", "virtanen", "lock", "call", "ember", "a", "st", "ellis"]
+    names = sorted({" ".join(rng.sample(words, rng.randint(1, 3))) for _ in range(120)})
+    entries = [LexiconEntry(f"e{i}", "thing", name, (name.split()[0],) if " " in name else (), None, 1.0, i + 2)
+               for i, name in enumerate(names)]
+    lexicon = compile_entries(entries, pronouncer, max_postings=60)
+    messages = []
+    for _ in range(30):
+        nbest = []
+        for rank in range(5):
+            tokens = [rng.choice(words) if rng.random() < 0.7 else rng.choice(words)[:-1] + rng.choice("aeiou")
+                      for _ in range(rng.randint(1, 7))]
+            nbest.append(Hypothesis(" ".join(tokens), rank, {}, tokens=tokens, posterior=1.0 / (rank + 2)))
+        messages.append(find_spans(nbest, lexicon.max_words + 1, pronouncer))
+    return lexicon, messages
+
+
+@pytest.mark.parametrize("weights", [
+    Weights(0.6, 0.2, 0.2, 3, 0.2, 0.45, 0.6, 0.4, broad_candidates=4),  # the stage's defaults
+    Weights(0.5, 0.3, 0.2, 8, 0.1, 0.2, 0.3, 0.2),  # looser: more pairs reach every term
+    Weights(0.7, 0.0, 0.3, 5, 0.1, 0.3, 0.4, 0.3),  # no spelling term
+    Weights(0.7, 0.3, 0.0, 5, 0.1, 0.3, 0.4, 0.3),  # no key term
+])
+def test_compiled_pair_scoring_gives_the_array_paths_pairs_bit_for_bit(monkeypatch: pytest.MonkeyPatch,
+                                                                       weights: Weights) -> None:
+    lexicon, messages = _pair_fixture()
+    costs = CostModel.features()
+    compiled_pairs = [score_spans(spans, lexicon, weights, costs) for spans in messages]
+    monkeypatch.setattr(match, "compiled", None)
+    array_pairs = [score_spans(spans, lexicon, weights, costs) for spans in messages]
+    assert sum(len(p) for p in compiled_pairs) > 100
+    for got, expected in zip(compiled_pairs, array_pairs):
+        assert [(q, f, x.hex(), e) for q, f, x, e in got] == [(q, f, x.hex(), e) for q, f, x, e in expected]
+
+
+def test_pair_terms_are_rapidfuzz_s_similarities_to_the_bit() -> None:
+    rng = random.Random(5)
+    alphabet = "ab cdé\u0101\u0102 "
+    texts = ["", " ", "a", "ab c", "x" * 30, "ab" * 40, "b" * 64, "a" * 65] + [  # past 64: the row-by-row path
+        "".join(rng.choices(alphabet, k=rng.randint(0, 12) if n % 10 else rng.randint(50, 140))) for n in range(300)]
+    keys = [("",), ("A",), ("AB", "AP"), ("KLM",), ("TMSN", "TMSM"), ("K" * 70, "KL" * 40), ("P" * 64,),
+            ("S" * 100,)] + [
+        tuple("".join(rng.choices("ABKLMNPST", k=rng.randint(0, 6))) for _ in range(rng.randint(1, 2)))
+        for _ in range(300)]
+
+    class _Form:
+        def __init__(self, text: str, keys: tuple[str, ...]) -> None:
+            self.text, self.keys, self.phones = text, keys, ""
+
+    count = 400
+    queries = np.array([rng.randrange(len(texts)) for _ in range(count)], dtype=np.int32)
+    items = np.array([rng.randrange(len(texts)) for _ in range(count)], dtype=np.int32)
+    forms = [_Form(texts[i], keys[i]) for i in range(len(texts))]
+    span_keys: list[tuple[str, ...] | None] = [keys[i] for i in range(len(texts))]
+    scores = np.array([rng.random() for _ in range(count)], dtype=np.float64)
+    pairs: list[tuple[int, int, float, bool]] = []
+    compiled.pair_finish(texts, span_keys, forms, queries, items, scores, count, 0.3, 0.2, -1.0, 1.0, pairs)
+    spelling = cpdist([texts[q].replace(" ", "") for q in queries.tolist()],
+                      [texts[f].replace(" ", "") for f in items.tolist()], scorer=ratio, dtype=np.float64)
+    first = [keys[q][0] for q in queries.tolist()]
+    last = [keys[q][-1] for q in queries.tolist()]
+    their_first = [keys[f][0] for f in items.tolist()]
+    their_last = [keys[f][-1] for f in items.tolist()]
+    agreement = cpdist(first + first + last + last, their_first + their_last + their_first + their_last,
+                       scorer=Levenshtein.normalized_similarity, dtype=np.float64).reshape(4, count).max(axis=0)
+    expected = (scores + 0.3 * spelling / 100.0) + 0.2 * agreement
+    assert [p[2].hex() for p in pairs] == [(value / 1.0).hex() for value in expected.tolist()]
