@@ -11,7 +11,7 @@ a valve or dose a chemical is never accepted on voice alone.
 
 from __future__ import annotations
 
-from dataclasses import asdict
+from dataclasses import fields
 from typing import Any, ClassVar
 
 from pydantic import BaseModel
@@ -39,6 +39,8 @@ from stages.lm.rescore import lm_per_word
 from stages.normalize.tokens import tokenize
 
 __all__ = ["GateStage"]
+
+_FEATURE_NAMES = tuple(f.name for f in fields(GateFeatures))
 
 
 class GateStage:
@@ -143,5 +145,6 @@ class GateStage:
         decision, rule = decide(features, self.settings, sure=sure)
         utterance.decision = decision
         utterance.prompt = prompt_for(utterance, decision, rule, features, self.settings)
-        utterance.note(rule=rule, decision=decision, **why, **{k: v for k, v in asdict(features).items()})
+        # A shallow copy of the features: dataclasses.asdict deep-copies, 6% of the chain's time.
+        utterance.note(rule=rule, decision=decision, **why, **{k: getattr(features, k) for k in _FEATURE_NAMES})
         return utterance
