@@ -356,13 +356,15 @@ def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatc
 
 
 def test_default_space_names_only_settings_the_stages_have() -> None:
-    fields = {stage: {name for name, _ in setting_fields(settings)} for stage, settings in
+    # A group (lexicon "general") is a setting_fields name too, but tune can only vary a value.
+    fields = {stage: {name for name, field in setting_fields(settings)
+                      if not (isinstance(field.annotation, type) and issubclass(field.annotation, BaseModel))}
+              for stage, settings in
               (("normalize", NormalizeSettings), ("lm_rescore", LmRescoreSettings), ("lexicon", LexiconSettings))}
     for stage, params in DEFAULT_SPACE.items():
         for param, values in params.items():
-            assert param in fields[stage], f"{stage}.{param}"
+            assert param in fields[stage], f"{stage}.{param} is not a setting that holds a value"
             assert values, f"{stage}.{param} has no values"
-    assert "general.min_score" in DEFAULT_SPACE["lexicon"]
 
 
 def test_a_search_space_may_use_dotted_top_level_and_old_names(tmp_path: Path,
