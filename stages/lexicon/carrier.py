@@ -114,6 +114,8 @@ class CarrierSearch:
             return None, note | {"guard": "carrier_phone"}
         if match.phone - match.runner_up < s.margin:
             return None, note | {"guard": "carrier_margin"}
+        if gain < s.min_gain:
+            return None, note | {"guard": "carrier_lm"}
         if s.heard_weight and match.phone < s.min_phone + s.heard_weight * heard_belief(slot_words, nbest, self.zipf):
             return None, note | {"guard": "carrier_heard"}
         if end <= start:

@@ -2,8 +2,12 @@
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 from typing import Any
+
+import kenlm
+import pytest
 
 from relay.core.chain import Chain
 from relay.core.stage import StageContext
@@ -11,6 +15,7 @@ from relay.core.utterance import Hypothesis, Utterance
 from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.stage import LexiconStage
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
+from tests.stages.lexicon.fixtures import lexicon_chain, write_folder
 
 LEXICON = """id,type,name,aliases,say,weight
 place.bay_1,place,bay one,,,1.0
@@ -133,3 +138,28 @@ def test_without_a_match_nothing_is_traced(tmp_path: Path) -> None:
     # "is the {machine} free" empty, which is a match.
     utt = run(make_chain(tmp_path, carrier=CARRIER, general={"heard_weight": 0.0}), "is the lathe free")
     assert "carrier" not in utt.trace[-1].scores
+
+
+def test_a_fill_the_in_domain_lm_finds_much_less_likely_is_refused(tmp_path: Path) -> None:
+    # The in-domain text says "the lights" often: in "turn off the lights" the slot of "turn off
+    # the {machine}" holds words the speaker meant, though they sound like an entry.
+    lexicon = "id,type,name,aliases,say,weight\nmachine.laitner,machine,laitner,,,1.0\n"
+    train = ("turn off the {machine}\nturn the {machine} on\n"
+             + "switch off the lights\nthe lights are on\nturn off the lights please\n" * 8)
+    folder = write_folder(tmp_path, lexicon=lexicon, train=train)
+
+    def chain(min_gain: float) -> Chain:
+        return lexicon_chain(folder, lexicon="lexicon.csv", context={"language_model": "lm.arpa"},
+                             carrier={"text": "train.txt", "min_gain": min_gain})
+
+    # kenlm's own scores (log10) are the reference for how much the fill loses.
+    reference = kenlm.Model(str(folder / "lm.arpa"))
+    loss = (reference.score("turn off the laitner") - reference.score("turn off the lights")) * math.log(10)
+    assert loss < -2.0
+    unguarded = run(chain(-100.0), "turn off the lights")
+    assert unguarded.text == "turn off the laitner"  # sound alone fills the slot
+    utt = run(chain(-2.0), "turn off the lights")
+    assert utt.text == "turn off the lights" and utt.entities == []
+    [carrier] = utt.trace[-1].scores["carrier"]
+    assert carrier["guard"] == "carrier_lm"
+    assert carrier["lm_gain"] == pytest.approx(loss, abs=0.01)
