@@ -134,9 +134,10 @@ def test_the_better_fill_of_a_slot_wins_even_from_a_less_likely_hypothesis(tmp_p
 
 
 def test_without_a_match_nothing_is_traced(tmp_path: Path) -> None:
-    # The heard-as-said guard off: with it, "the lathe" stays as heard and leaves the slot of
-    # "is the {machine} free" empty, which is a match.
-    utt = run(make_chain(tmp_path, carrier=CARRIER, general={"heard_weight": 0.0}), "is the lathe free")
+    # The heard-as-said and kept-words guards off: with either, "the lathe" stays as heard and
+    # leaves the slot of "is the {machine} free" empty, which is a match.
+    utt = run(make_chain(tmp_path, carrier=CARRIER, general={"heard_weight": 0.0, "kept_min_phone": 0.0}),
+              "is the lathe free")
     assert "carrier" not in utt.trace[-1].scores
 
 

@@ -83,3 +83,23 @@ def test_type_hint_demands_more_evidence_without_its_word(tmp_path: Path) -> Non
     assert top(hinted) - top(unhinted) == pytest.approx(0.1, abs=1e-3)
 
 
+
+
+KEPT_LEXICON = """id,type,name,aliases,say,weight
+machine.big_huff_extractor,machine,big huff extractor,big huff,,1.0
+place.bay_2,place,bay two,,,1.0
+"""
+
+
+def test_a_correction_that_keeps_heard_words_is_judged_on_the_words_it_replaces(tmp_path: Path) -> None:
+    # "the extractor" keeps "extractor" of "big huff extractor"; the words it would replace, "the"
+    # for "big huff" (CMUdict: DH AH against B IH G HH AH F), sound nothing alike.
+    heard = "switch on the extractor in bay two"
+    unguarded = run(small_chain(tmp_path, lexicon=KEPT_LEXICON, general={"kept_min_phone": 0.0}), heard, heard)
+    assert unguarded.text == "switch on big huff extractor in bay two"
+    utt = run(small_chain(tmp_path, lexicon=KEPT_LEXICON), heard, heard)
+    assert utt.text == heard
+    assert [(b["heard"], b["guard"]) for b in blocked(utt)] == [("the extractor", "kept_words")]
+    # A word of the name that the recogniser dropped is still put back: nothing heard is replaced.
+    assert run(small_chain(tmp_path, lexicon=KEPT_LEXICON), "switch on a big extractor").text == (
+        "switch on a big huff extractor")
