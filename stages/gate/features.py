@@ -68,10 +68,14 @@ class GateFeatures:
             "unfilled_slots": None if self.unfilled_slots is None else float(self.unfilled_slots),
             "line_edits": None if self.line_edits is None else float(self.line_edits),
             "asr_log_conf": self.asr_log_conf,
-            # Without entities nothing is in doubt: the values a sure entity would have.
-            "weakest_support": 1.0 if self.weakest_support is None else self.weakest_support,
-            "weakest_heard": 1.0 if self.weakest_heard is None else self.weakest_heard,
-            "weakest_lead": 1.0 if self.weakest_lead is None else self.weakest_lead,
+            # Without entities there is no evidence to weigh: unknown (a model counts its training
+            # mean). As 1, the values of a sure entity, a result that found no entity at all (most
+            # often a missed one) pushed these weights the wrong way: fitted on the examples, every
+            # one of them came out against its sign and a correction that no hypothesis heard no
+            # longer lowered the confidence.
+            "weakest_support": self.weakest_support,
+            "weakest_heard": self.weakest_heard,
+            "weakest_lead": self.weakest_lead,
             "invented": float(self.invented),
             "rewritten": self.rewritten,
             "text_lm_relative": self.text_lm_relative,
