@@ -251,6 +251,39 @@ done:
     return result;
 }
 
+/* The least cost of the feature-weighted alignment of codes xs (n) with ys (m) in float32, in the
+   order of the numpy batch version; cum, row and next hold m + 1 floats each. */
+static inline float align_codes(const int32_t *xs, Py_ssize_t n, const int32_t *ys, Py_ssize_t m, const float *sub,
+                                const float *inserted, const float *deleted, Py_ssize_t stride, float *cum,
+                                float *row, float *next) {
+    /* cum[j]: cost of leaving the first j phones of ys unmatched, summed left to right */
+    cum[0] = 0.0f;
+    for (Py_ssize_t j = 0; j < m; j++)
+        cum[j + 1] = cum[j] + deleted[ys[j]];
+    memcpy(row, cum, sizeof(float) * (size_t)(m + 1));
+    for (Py_ssize_t i = 0; i < n; i++) {
+        const float drop = inserted[xs[i]];
+        const float *costs = sub + (Py_ssize_t)xs[i] * stride;
+        /* Fill from the row above (delete or substitute), then resolve insertions along the
+           row by a running minimum of (value - cum), as the vectorised version does. */
+        float running = (row[0] + drop) - cum[0];
+        next[0] = running + cum[0];
+        for (Py_ssize_t j = 1; j <= m; j++) {
+            float gone = row[j] + drop;
+            float substituted = row[j - 1] + costs[ys[j - 1]];
+            float value = substituted < gone ? substituted : gone;
+            float lowered = value - cum[j];
+            if (lowered < running)
+                running = lowered;
+            next[j] = running + cum[j];
+        }
+        float *swap = row;
+        row = next;
+        next = swap;
+    }
+    return row[m];
+}
+
 PyDoc_STRVAR(align_doc,
 "alignment_costs(a, b, substitution, insertion, deletion, stride, char_base, out) -> None\n\n"
 "Least total cost of turning a[i] into b[i] for every i, written to the float32 buffer out.\n"
@@ -295,32 +328,7 @@ static PyObject *alignment_costs(PyObject *self, PyObject *args) {
         Py_ssize_t n = PyUnicode_GET_LENGTH(items_a[p]), m = PyUnicode_GET_LENGTH(items_b[p]);
         if (read_codes(items_a[p], xs, n, char_base, stride) < 0 || read_codes(items_b[p], ys, m, char_base, stride) < 0)
             goto done;
-        /* cum[j]: cost of leaving the first j phones of b unmatched, summed left to right in float32 */
-        cum[0] = 0.0f;
-        for (Py_ssize_t j = 0; j < m; j++)
-            cum[j + 1] = cum[j] + deleted[ys[j]];
-        memcpy(row, cum, sizeof(float) * (size_t)(m + 1));
-        for (Py_ssize_t i = 0; i < n; i++) {
-            const float drop = inserted[xs[i]];
-            const float *costs = sub + (Py_ssize_t)xs[i] * stride;
-            /* Fill from the row above (delete or substitute), then resolve insertions along the
-               row by a running minimum of (value - cum), as the vectorised version does. */
-            float running = (row[0] + drop) - cum[0];
-            next[0] = running + cum[0];
-            for (Py_ssize_t j = 1; j <= m; j++) {
-                float deleted = row[j] + drop;
-                float substituted = row[j - 1] + costs[ys[j - 1]];
-                float value = substituted < deleted ? substituted : deleted;
-                float lowered = value - cum[j];
-                if (lowered < running)
-                    running = lowered;
-                next[j] = running + cum[j];
-            }
-            float *swap = row;
-            row = next;
-            next = swap;
-        }
-        out[p] = row[m];
+        out[p] = align_codes(xs, n, ys, m, sub, inserted, deleted, stride, cum, row, next);
     }
     Py_INCREF(Py_None);
     result = Py_None;
@@ -996,36 +1004,6 @@ static double indel_ratio(const int32_t *a, Py_ssize_t n, const int32_t *b, Py_s
         common = common_subsequence(a, n, b, m, row);
     double distance = maximum ? (double)(maximum - 2 * common) / (double)maximum : 0.0;
     return (1.0 - distance) * 100.0;
-}
-
-/* The least cost of the feature-weighted alignment of codes xs (n) with ys (m), float32 as
-   alignment_costs computes it; cum, row and next hold m + 1 floats each. */
-static float align_codes(const int32_t *xs, Py_ssize_t n, const int32_t *ys, Py_ssize_t m, const float *sub,
-                         const float *inserted, const float *deleted, Py_ssize_t stride, float *cum, float *row,
-                         float *next) {
-    cum[0] = 0.0f;
-    for (Py_ssize_t j = 0; j < m; j++)
-        cum[j + 1] = cum[j] + deleted[ys[j]];
-    memcpy(row, cum, sizeof(float) * (size_t)(m + 1));
-    for (Py_ssize_t i = 0; i < n; i++) {
-        const float drop = inserted[xs[i]];
-        const float *costs = sub + (Py_ssize_t)xs[i] * stride;
-        float running = (row[0] + drop) - cum[0];
-        next[0] = running + cum[0];
-        for (Py_ssize_t j = 1; j <= m; j++) {
-            float gone = row[j] + drop;
-            float substituted = row[j - 1] + costs[ys[j - 1]];
-            float value = substituted < gone ? substituted : gone;
-            float lowered = value - cum[j];
-            if (lowered < running)
-                running = lowered;
-            next[j] = running + cum[j];
-        }
-        float *swap = row;
-        row = next;
-        next = swap;
-    }
-    return row[m];
 }
 
 static PyObject *attr_phones, *attr_text, *attr_keys; /* interned names of the Form fields read */
