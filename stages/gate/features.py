@@ -15,7 +15,7 @@ from stages.indomain.text import read_sentences, read_slot_values
 from stages.lm.model import score_tokens
 
 __all__ = ["ASR_LOG_FLOOR", "GateFeatures", "backing", "judged_text", "line_scores", "marked_tokens",
-           "recogniser_confidence"]
+           "recogniser_confidence", "recogniser_word_confidence"]
 
 # The recogniser's confidence enters as a natural log, floored here: a sentence posterior that
 # underflowed to 0 must not become -inf (pocketsphinx's reach about -30 on noisy workshop audio).
@@ -44,6 +44,7 @@ class GateFeatures:
     unfilled_type: str | None = None  # that slot's entity type
     line_edits: int | None = None  # word edits to the nearest in-domain line; None: no carrier_text
     asr_log_conf: float | None = None  # ln of the highest `conf` the recogniser gave; None: it gave none
+    asr_word_mean: float | None = None  # mean ln of the first hypothesis's `word_probs`; None: not given
     # How the N-best backs the entities (the lexicon stage's evidence); None without entities.
     weakest_support: float | None = None  # least posterior share of hypotheses that hold an entity by sound
     weakest_heard: float | None = None  # least posterior share of hypotheses that hold an entity word for word
@@ -68,6 +69,7 @@ class GateFeatures:
             "unfilled_slots": None if self.unfilled_slots is None else float(self.unfilled_slots),
             "line_edits": None if self.line_edits is None else float(self.line_edits),
             "asr_log_conf": self.asr_log_conf,
+            "asr_word_mean": self.asr_word_mean,
             # Without entities there is no evidence to weigh: unknown (a model counts its training
             # mean). As 1, the values of a sure entity, a result that found no entity at all (most
             # often a missed one) pushed these weights the wrong way: fitted on the examples, every
@@ -93,6 +95,21 @@ def recogniser_confidence(utterance: Utterance) -> float | None:
         return None
     top = max(given)
     return max(math.log(top), ASR_LOG_FLOOR) if top > 0 else ASR_LOG_FLOOR
+
+
+def recogniser_word_confidence(utterance: Utterance) -> float | None:
+    """Mean natural log of the per-word probabilities the recogniser gave its first hypothesis
+    (``word_probs``, an optional list of numbers in [0, 1] beside ``conf``, as the Whisper bridge
+    writes it), each floored at ASR_LOG_FLOOR; None when it gave none or the list is not numbers
+    in [0, 1]."""
+    entries = utterance.payload.get("nbest") or []
+    first = entries[0] if entries and isinstance(entries[0], dict) else {}
+    given = first.get("word_probs")
+    if not isinstance(given, list) or not given:
+        return None
+    if not all(isinstance(p, (int, float)) and not isinstance(p, bool) and 0.0 <= p <= 1.0 for p in given):
+        return None
+    return sum(max(math.log(p), ASR_LOG_FLOOR) if p > 0 else ASR_LOG_FLOOR for p in given) / len(given)
 
 
 def marked_tokens(utterance: Utterance) -> list[str]:

@@ -27,6 +27,7 @@ from stages.gate.features import (
     line_scores,
     marked_tokens,
     recogniser_confidence,
+    recogniser_word_confidence,
 )
 from stages.gate.prompts import prompt_for
 from stages.gate.rules import decide
@@ -124,6 +125,7 @@ class GateStage:
             corrections=len(utterance.corrections),
             words=len(words),
             asr_log_conf=recogniser_confidence(utterance),
+            asr_word_mean=recogniser_word_confidence(utterance),
             **backing(utterance, len(words)),
             **text_lm,
             **in_domain,

@@ -353,6 +353,24 @@ def test_the_recognisers_own_confidence_is_a_feature_as_a_log() -> None:
     assert gate().features(utterance).asr_log_conf == ASR_LOG_FLOOR
 
 
+def test_the_recognisers_word_probabilities_are_a_feature_as_a_mean_log() -> None:
+    utterance = make_utterance([0.6, 0.4], ["tell the front desk", "tell the front desks"])
+    assert gate().features(utterance).asr_word_mean is None  # none given: unknown
+    # Only the first hypothesis as received carries them (FORMATS leaves room for extra fields).
+    utterance.payload = {"nbest": [{"text": "tell the front desk", "word_probs": [0.9, 0.8, 0.5, 0.1]},
+                                   {"text": "tell the front desks", "word_probs": [1.0, 1.0, 1.0, 1.0]}]}
+    features = gate().features(utterance)
+    # ln 0.9 + ln 0.8 + ln 0.5 + ln 0.1 = ln 0.036 (the product), over four words.
+    assert features.asr_word_mean == pytest.approx(math.log(0.036) / 4)
+    assert features.values()["asr_word_mean"] == features.asr_word_mean
+    # A word heard with probability 0 is floored, not -inf; a list that is not probabilities is unknown.
+    utterance.payload = {"nbest": [{"text": "x y", "word_probs": [0.0, 1.0]}]}
+    assert gate().features(utterance).asr_word_mean == pytest.approx(ASR_LOG_FLOOR / 2)
+    for bad in ([], [1.5], ["0.5"], [True], "0.5", None):
+        utterance.payload = {"nbest": [{"text": "x", "word_probs": bad}]}
+        assert gate().features(utterance).asr_word_mean is None, bad
+
+
 def _default_gate() -> GateStage:
     stage = GateStage(GateSettings(), context=CONTEXT)  # the shipped confidence, nothing configured
     stage.load()
