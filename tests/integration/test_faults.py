@@ -18,10 +18,7 @@ from typing import Any, ClassVar
 import orjson
 import pytest
 import yaml
-from pydantic import BaseModel, ConfigDict
 
-from relay.core.registry import Registry
-from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
 from relay.live.active import Active
 from tests.integration.support import (
@@ -37,24 +34,13 @@ from tests.integration.support import (
     running_relay,
 )
 from tests.paths import ROOT
+from tests.plain_stage import PlainStage, registry_of
 
 pytestmark = pytest.mark.broker
 
 
-class _NoSettings(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-
-
-class _TestStage:
-    Settings: ClassVar[type[BaseModel]] = _NoSettings
+class _TestStage(PlainStage):
     needs: ClassVar[frozenset[str]] = frozenset({"tokens"})
-    provides: ClassVar[frozenset[str]] = frozenset()
-
-    def __init__(self, settings: _NoSettings, *, context: StageContext) -> None:
-        pass
-
-    def load(self) -> None:
-        pass
 
 
 class SetTracer(_TestStage):
@@ -81,13 +67,6 @@ class Asker(_TestStage):
         return utterance
 
 
-def _registry(*stages: type) -> Registry:
-    registry = Registry()
-    for stage in stages:
-        registry.register(stage)
-    return registry
-
-
 # ---- 1: one message stops the relay for good --------------------------------------------------
 
 DEEP = (b'{"id":"p","source":"kiosk-1","nbest":[{"text":"call the office"}],"deep":' + b"[" * 300 + b"]" * 300
@@ -101,7 +80,7 @@ def test_1_messages_that_cannot_be_rendered_are_sent_on_and_the_relay_goes_on(br
     payloads = [DEEP, orjson.dumps(message("s", "setme please"))] + [orjson.dumps(message(g, "fine words")) for g in good]
 
     async def scenario() -> None:
-        async with running_relay(load(path, _registry(SetTracer))) as relay, \
+        async with running_relay(load(path, registry_of(SetTracer))) as relay, \
                 Collector(broker, [f"{prefix}/nlu/#", f"{prefix}/dead"]) as down:
             await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest", payloads)
             await down.wait_for(lambda items: len(items) >= len(payloads))
@@ -184,7 +163,7 @@ def test_3_refused_publishes_are_not_acknowledged_and_nothing_is_lost(make_broke
                      orjson.dumps(message(asks[n], "ask me", source="bench-1"))]
 
     async def scenario() -> None:
-        async with running_relay(load(path, _registry(Asker))) as relay, \
+        async with running_relay(load(path, registry_of(Asker))) as relay, \
                 Collector(broker, [f"{prefix}/#"], username="reader") as down:
             await publish_all(broker, f"{prefix}/asr/bench-1/nbest", payloads, username="bench-1")
             # The broker answers the dead letter with PUBACK 0x87: counted, not acknowledged upstream
@@ -401,7 +380,7 @@ def test_9_processing_time_leaves_out_the_wait_in_the_queue(broker: Any, tmp_pat
     burst = [orjson.dumps(message(f"b-{n:02d}", "words")) for n in range(20)]
 
     async def scenario() -> None:
-        async with running_relay(load(path, _registry(Sleeper))) as relay, \
+        async with running_relay(load(path, registry_of(Sleeper))) as relay, \
                 Collector(broker, [f"{prefix}/nlu/#"]) as down:
             await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest", burst)
             await down.wait_for(lambda items: len(items) >= len(burst))

@@ -17,10 +17,9 @@ import pytest
 import yaml
 from pydantic import BaseModel, ConfigDict
 
-from relay.core.registry import Registry
-from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
 from tests.integration.support import Collector, load, make_config, message, publish_all, running_relay
+from tests.plain_stage import PlainStage, registry_of
 
 pytestmark = pytest.mark.broker
 
@@ -32,19 +31,11 @@ class _MarkerSettings(BaseModel):
     tag: str = ""  # noted in the trace: which configuration served a message
 
 
-class MarkerStage:
+class MarkerStage(PlainStage):
     """Raises on "explode", sleeps on "slow", notes the worker's pid on every message."""
 
     name: ClassVar[str] = "marker"
     Settings: ClassVar[type[BaseModel]] = _MarkerSettings
-    needs: ClassVar[frozenset[str]] = frozenset()
-    provides: ClassVar[frozenset[str]] = frozenset()
-
-    def __init__(self, settings: _MarkerSettings, *, context: StageContext) -> None:
-        self.settings = settings
-
-    def load(self) -> None:
-        pass
 
     def process(self, utterance: Utterance) -> Utterance:
         if "explode" in utterance.text:
@@ -57,12 +48,6 @@ class MarkerStage:
             time.sleep(self.settings.step_s)
         utterance.note(pid=os.getpid(), tag=self.settings.tag)
         return utterance
-
-
-def _registry() -> Registry:
-    registry = Registry()
-    registry.register(MarkerStage)
-    return registry
 
 
 def _out(items: list[Any]) -> dict[str, dict[str, Any]]:
@@ -86,7 +71,7 @@ def test_results_stage_errors_and_deadlines_from_worker_processes(broker: Any, t
     inputs = [message("m-1", "please explode now"), message("m-2", "a slow one"), message("m-3", "Plain words")]
 
     async def scenario() -> None:
-        async with running_relay(load(path, _registry())) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
+        async with running_relay(load(path, registry_of(MarkerStage))) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
             await publish_all(broker, f"{prefix}/asr/kiosk-1/nbest", [orjson.dumps(item) for item in inputs])
             await down.wait_for(lambda items: len(items) >= 3)
             await relay.wait_handled(3)
@@ -114,7 +99,7 @@ def test_messages_go_to_the_worker_that_is_not_stuck(broker: Any, tmp_path: Path
     topic = f"{prefix}/asr/kiosk-1/nbest"
 
     async def scenario() -> None:
-        async with running_relay(load(path, _registry())) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
+        async with running_relay(load(path, registry_of(MarkerStage))) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
             await publish_all(broker, topic, [orjson.dumps(message("s-0", "warm up"))])
             await down.wait_for(lambda items: len(items) >= 1)
             await publish_all(broker, topic, [orjson.dumps(message("s-1", "a slow one"))])
@@ -138,7 +123,7 @@ def test_a_result_that_cannot_be_sent_back_goes_on_flagged_and_the_worker_stays(
     topic = f"{prefix}/asr/kiosk-1/nbest"
 
     async def scenario() -> None:
-        async with running_relay(load(path, _registry())) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
+        async with running_relay(load(path, registry_of(MarkerStage))) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
             await publish_all(broker, topic, [orjson.dumps(message(ident, text)) for ident, text in (
                 ("u-0", "Plain words"), ("u-1", "an unsendable one"), ("u-2", "Plain words"))])
             await down.wait_for(lambda items: len(items) >= 3)
@@ -158,7 +143,7 @@ def test_a_killed_worker_loses_no_input_and_is_replaced(broker: Any, tmp_path: P
     wanted = [f"k-{n:03d}" for n in range(120)]
 
     async def scenario() -> None:
-        async with running_relay(load(path, _registry())) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
+        async with running_relay(load(path, registry_of(MarkerStage))) as relay, Collector(broker, [f"{prefix}/nlu/#"]) as down:
             publishing = asyncio.create_task(publish_all(
                 broker, f"{prefix}/asr/kiosk-1/nbest", [orjson.dumps(message(i, "plain words")) for i in wanted],
                 gap_s=0.004))
@@ -188,7 +173,7 @@ def test_reload_forks_workers_with_the_new_chain(broker: Any, tmp_path: Path) ->
     topic = f"{prefix}/asr/kiosk-1/nbest"
 
     async def scenario() -> None:
-        registry = _registry()
+        registry = registry_of(MarkerStage)
         async with running_relay(load(path, registry), reloader=lambda: load(path, registry)) as relay, \
                 Collector(broker, [f"{prefix}/nlu/#"]) as down:
             await publish_all(broker, topic, [orjson.dumps(message("r-1", "Some Words"))])

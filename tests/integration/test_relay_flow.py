@@ -15,8 +15,6 @@ import pytest
 from prometheus_client.parser import text_string_to_metric_families
 from pydantic import BaseModel, ConfigDict
 
-from relay.core.registry import Registry
-from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
 from tests.integration.support import (
     Collector,
@@ -27,6 +25,7 @@ from tests.integration.support import (
     publish_all,
     running_relay,
 )
+from tests.plain_stage import PlainStage, registry_of
 
 pytestmark = pytest.mark.broker
 
@@ -171,20 +170,13 @@ class _FaultySettings(BaseModel):
     sleep_s: float = 0.0
 
 
-class FaultyStage:
+class FaultyStage(PlainStage):
     """Raises on text containing 'explode'; overruns any deadline on text containing 'slow'."""
 
     name: ClassVar[str] = "faulty"
     Settings: ClassVar[type[BaseModel]] = _FaultySettings
     needs: ClassVar[frozenset[str]] = frozenset({"tokens"})
-    provides: ClassVar[frozenset[str]] = frozenset()
     finished_slow: ClassVar[threading.Event]  # set by each test on a subclass of its own
-
-    def __init__(self, settings: _FaultySettings, *, context: StageContext) -> None:
-        self.settings = settings
-
-    def load(self) -> None:
-        pass
 
     def process(self, utterance: Utterance) -> Utterance:
         if "explode" in utterance.text:
@@ -203,8 +195,7 @@ def test_stage_errors_and_deadlines_forward_the_original_flagged(broker: Any, tm
     class Faulty(FaultyStage):
         finished_slow = threading.Event()  # this test's own: no earlier run can have set it
 
-    registry = Registry()
-    registry.register(Faulty)
+    registry = registry_of(Faulty)
     inputs = [message("m-1", "please explode now"), message("m-2", "a slow one"), message("m-3", "Plain words")]
 
     async def scenario() -> None:

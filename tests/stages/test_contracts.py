@@ -11,7 +11,6 @@ from pathlib import Path
 from typing import ClassVar
 
 import pytest
-from pydantic import BaseModel
 
 from relay.core.chain import Chain
 from relay.core.config import build_chain, load_config
@@ -21,6 +20,7 @@ from relay.core.testing import make_utterance, run_checked
 from relay.core.utterance import Utterance
 from relay.workbench.corpus import read_corpus
 from tests.paths import WORKSHOP
+from tests.plain_stage import NoSettings, PlainStage
 
 
 @pytest.fixture(scope="module")
@@ -45,23 +45,11 @@ def test_builtin_stages_keep_their_declared_contract(workshop_chain: Chain) -> N
         assert utterance.decision is not None
 
 
-class _Settings(BaseModel):
-    pass
-
-
-class _Sneaky:
+class _Sneaky(PlainStage):
     """Declares nothing but reads the posterior, writes entities and traces a set."""
 
     name: ClassVar[str] = "sneaky"
-    Settings: ClassVar[type[BaseModel]] = _Settings
     needs: ClassVar[frozenset[str]] = frozenset({"text"})
-    provides: ClassVar[frozenset[str]] = frozenset()
-
-    def __init__(self, settings: _Settings, *, context: StageContext) -> None:
-        pass
-
-    def load(self) -> None:
-        pass
 
     def process(self, utterance: Utterance) -> Utterance:
         utterance.entities = [] if utterance.nbest[0].posterior > 2 else utterance.entities[:0]
@@ -71,7 +59,7 @@ class _Sneaky:
 
 
 def test_run_checked_names_every_broken_promise(tmp_path: Path) -> None:
-    stage = _Sneaky(_Settings(), context=StageContext(base_dir=tmp_path, cache_dir=tmp_path))
+    stage = _Sneaky(NoSettings(), context=StageContext(base_dir=tmp_path, cache_dir=tmp_path))
     with pytest.raises(AssertionError) as caught:
         run_checked(stage, make_utterance(["book the lathe", "look the lathe"]))
     message = str(caught.value)
@@ -85,5 +73,5 @@ def test_a_misspelt_capability_is_refused_when_the_chain_is_built(tmp_path: Path
         provides: ClassVar[frozenset[str]] = frozenset({"entitites"})
 
     with pytest.raises(ConfigError) as caught:
-        Chain([Typo(_Settings(), context=StageContext(base_dir=tmp_path, cache_dir=tmp_path))])
+        Chain([Typo(NoSettings(), context=StageContext(base_dir=tmp_path, cache_dir=tmp_path))])
     assert "provides 'entitites' is not a capability (valid: corrections, decision, entities" in str(caught.value)

@@ -1,31 +1,17 @@
 from typing import ClassVar
 
 import pytest
-from pydantic import BaseModel
 
 from relay.core.errors import ConfigError
 from relay.core.registry import Registry
-from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
 from stages.normalize.stage import NormalizeStage
-
-
-class _Settings(BaseModel):
-    pass
+from tests.plain_stage import PlainStage
 
 
 def _stage(stage_name: str) -> type:
-    class Custom:
+    class Custom(PlainStage):
         name: ClassVar[str] = stage_name
-        Settings: ClassVar[type[BaseModel]] = _Settings
-        needs: ClassVar[frozenset[str]] = frozenset()
-        provides: ClassVar[frozenset[str]] = frozenset()
-
-        def __init__(self, settings: _Settings, *, context: StageContext) -> None:
-            pass
-
-        def load(self) -> None:
-            pass
 
         def process(self, utterance: Utterance) -> Utterance:
             return utterance

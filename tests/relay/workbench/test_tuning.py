@@ -16,7 +16,6 @@ from relay.cli import tune as tune_command
 from relay.core.config import build_chain, load_config
 from relay.core.registry import Registry
 from relay.core.setting_names import AcceptsOldNames, setting_fields
-from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
 from relay.core.yamlsource import load_yaml
 from relay.workbench.evaluate import Outcome
@@ -40,6 +39,7 @@ from stages.gate.settings import GateSettings
 from stages.lexicon.settings import LexiconSettings
 from stages.lm.rescore import LmRescoreSettings
 from stages.normalize.stage import NormalizeSettings
+from tests.plain_stage import PlainStage
 from tests.relay.workbench.corpus_fixtures import write_config, write_corpus
 
 
@@ -209,15 +209,11 @@ class CountingSettings(BaseModel):
     bias: float = 0.0
 
 
-class CountingStage:
+class CountingStage(PlainStage):
     name: ClassVar[str] = "counting"
     Settings: ClassVar[type[BaseModel]] = CountingSettings
     needs: ClassVar[frozenset[str]] = frozenset({"posterior"})
-    provides: ClassVar[frozenset[str]] = frozenset()
     loads: ClassVar[int] = 0
-
-    def __init__(self, settings: CountingSettings, *, context: StageContext) -> None:
-        self.settings = settings
 
     def load(self) -> None:
         CountingStage.loads += 1
