@@ -127,6 +127,19 @@ def _unavailable(message: str) -> None:
     pytest.skip(f"no MQTT broker: {message}")
 
 
+def program(name: str, package: str | None = None) -> str:
+    """Where the program ``name`` is installed. Without it a test fails under CI=true, where
+    .ci/run installs the Debian ``package`` (by default the program's own name), and is skipped
+    elsewhere."""
+    found = shutil.which(name)
+    if found is None:
+        package = package or name
+        if os.environ.get("CI", "").lower() == "true":
+            pytest.fail(f"{name} not found (Debian package {package}; .ci/run installs it)")
+        pytest.skip(f"{name} not found (apt-get install {package})")
+    return found
+
+
 @pytest.fixture(scope="session")
 def mosquitto(tmp_path_factory: pytest.TempPathFactory) -> Iterator[MosquittoBroker]:
     binary = MOSQUITTO if os.path.exists(MOSQUITTO) else shutil.which("mosquitto")

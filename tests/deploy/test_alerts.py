@@ -3,32 +3,21 @@ tests, deploy/prometheus/rules_test.yaml); every metric they read is one the rel
 
 from __future__ import annotations
 
-import os
 import re
-import shutil
 import subprocess
 
-import pytest
 import yaml
 from prometheus_client import CollectorRegistry
 
 from relay.live.metrics import Metrics
+from tests.conftest import program
 from tests.paths import ROOT
 
 RULES = ROOT / "deploy/prometheus"
 
 
-def _promtool() -> str:
-    found = shutil.which("promtool")
-    if found is None:
-        if os.environ.get("CI", "").lower() == "true":
-            pytest.fail("promtool not found (Debian package prometheus; .ci/run installs it)")
-        pytest.skip("promtool not found (apt-get install prometheus)")
-    return found
-
-
 def test_the_rules_are_valid_and_fire_when_the_relay_is_down_or_stalled() -> None:
-    promtool = _promtool()
+    promtool = program("promtool", "prometheus")
     checked = subprocess.run([promtool, "check", "rules", "alerts.yaml"], cwd=RULES, capture_output=True, text=True,
                              timeout=60)
     assert checked.returncode == 0, checked.stdout + checked.stderr

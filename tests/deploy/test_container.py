@@ -11,7 +11,6 @@ needs no OCI runtime; it shares the host's network, so the relay inside reaches 
 from __future__ import annotations
 
 import asyncio
-import os
 import re
 import shutil
 import subprocess
@@ -21,6 +20,7 @@ from typing import Any
 import orjson
 import pytest
 
+from tests.conftest import program
 from tests.integration.support import Collector, message, publish_all
 from tests.paths import ROOT, WORKSHOP
 
@@ -59,15 +59,6 @@ def test_the_build_has_a_compile_stage_and_a_slim_non_root_runtime() -> None:
     assert any(line.startswith("ENTRYPOINT") and '"rehear", "run"' in line for line in runtime)
 
 
-def _tool(name: str) -> str:
-    found = shutil.which(name)
-    if found is None:
-        if os.environ.get("CI", "").lower() == "true":
-            pytest.fail(f"{name} not found (Debian packages buildah, debootstrap; .ci/run installs them)")
-        pytest.skip(f"{name} not found (apt-get install buildah debootstrap)")
-    return found
-
-
 def _run(argv: list[str], timeout: float) -> str:
     done = subprocess.run(argv, capture_output=True, text=True, timeout=timeout)
     assert done.returncode == 0, f"{' '.join(argv[:4])}...: {done.stdout[-3000:]}\n{done.stderr[-3000:]}"
@@ -79,7 +70,7 @@ def _base(buildah: str, tmp: Path) -> None:
     if subprocess.run([buildah, "inspect", BASE], capture_output=True, timeout=60).returncode == 0:
         return
     rootfs = tmp / "rootfs"
-    _run([_tool("debootstrap"), "--variant=minbase", "bookworm", str(rootfs), "http://deb.debian.org/debian"], 900)
+    _run([program("debootstrap"), "--variant=minbase", "bookworm", str(rootfs), "http://deb.debian.org/debian"], 900)
     tarball = tmp / "rootfs.tar"
     _run(["tar", "-C", str(rootfs), "-cf", str(tarball), "."], 300)
     container = _run([buildah, "from", "scratch"], 60).strip()
@@ -99,7 +90,7 @@ def _base(buildah: str, tmp: Path) -> None:
 @pytest.mark.slow
 @pytest.mark.broker
 def test_the_image_builds_and_its_relay_cleans_a_message(broker: Any, tmp_path: Path) -> None:
-    buildah = _tool("buildah")
+    buildah = program("buildah")
     _base(buildah, tmp_path)
     _run([buildah, "bud", "--isolation", "chroot", "--network", "host", "--build-arg", f"BASE={BASE}",
           "-f", str(CONTAINERFILE), "-t", IMAGE, str(ROOT)], 1800)

@@ -5,8 +5,6 @@ from __future__ import annotations
 
 import asyncio
 import json
-import os
-import shutil
 import subprocess
 import time
 import urllib.parse
@@ -17,19 +15,10 @@ from typing import Any
 import orjson
 import pytest
 
-from tests.conftest import free_port
+from tests.conftest import free_port, program
 from tests.integration.support import Collector, load, make_config, message, publish_all, running_relay
 
 pytestmark = pytest.mark.broker
-
-
-def _prometheus() -> str:
-    found = shutil.which("prometheus")
-    if found is None:
-        if os.environ.get("CI", "").lower() == "true":
-            pytest.fail("prometheus not found (Debian package prometheus; .ci/run installs it)")
-        pytest.skip("prometheus not found (apt-get install prometheus)")
-    return found
 
 
 def _query(address: str, expression: str) -> list[dict[str, Any]]:
@@ -45,7 +34,7 @@ def _query(address: str, expression: str) -> list[dict[str, Any]]:
 
 
 def test_a_prometheus_server_scrapes_the_relay(broker: Any, tmp_path: Path) -> None:
-    binary = _prometheus()
+    binary = program("prometheus")
     path, prefix = make_config(tmp_path, broker, limits={"max_in_flight": 24})
     port = free_port()
     address = f"http://127.0.0.1:{port}"
