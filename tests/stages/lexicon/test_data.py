@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import re
+from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -23,7 +25,10 @@ def write(tmp_path: Path, name: str, text: str) -> Path:
     return path
 
 
-def problems(exc: pytest.ExceptionInfo[ConfigError]) -> list[str]:
+def problems(read: Callable[..., object], *args: Any) -> list[str]:
+    """What ``read(*args)`` finds wrong: it must refuse the file with a ConfigError."""
+    with pytest.raises(ConfigError) as exc:
+        read(*args)
     return exc.value.problems
 
 
@@ -67,9 +72,7 @@ e,term,epsilon,,,-2
 f,,phi,,,1
 """
     path = write(tmp_path, "bad.csv", text)
-    with pytest.raises(ConfigError) as exc:
-        read_lexicon(path)
-    found = problems(exc)
+    found = problems(read_lexicon, path)
     expected = [(3, "duplicate id 'a' (first on line 2)"), (4, "name is required"),
                 (5, "say '/QQ/' cannot be read"), (6, "weight must be a number"),
                 (7, "weight must be a positive"), (8, "type is required")]
@@ -81,45 +84,34 @@ f,,phi,,,1
 
 def test_yaml_errors_carry_the_record_line(tmp_path: Path) -> None:
     path = write(tmp_path, "bad.yaml", "- id: a\n  type: t\n  name: alpha\n- id: b\n  type: t\n  name: ''\n")
-    with pytest.raises(ConfigError) as exc:
-        read_lexicon(path)
-    assert problems(exc) == [f"{path}:4: name is required and must be non-empty text"]
+    assert problems(read_lexicon, path) == [f"{path}:4: name is required and must be non-empty text"]
 
 
 def test_broken_json_names_its_line(tmp_path: Path) -> None:
     path = write(tmp_path, "bad.json", '[\n {"id": "a",\n  "type": }\n]')
-    with pytest.raises(ConfigError) as exc:
-        read_lexicon(path)
-    assert re.match(rf"{re.escape(str(path))}:3: ", problems(exc)[0])
+    assert re.match(rf"{re.escape(str(path))}:3: ", problems(read_lexicon, path)[0])
 
 
 def test_a_misspelt_header_is_one_problem_at_line_1_with_the_valid_columns(tmp_path: Path) -> None:
     rows = "".join(f"a{i},t,alpha {i},1\n" for i in range(50))
     path = write(tmp_path, "lex.csv", "id,type,name,wieght\n" + rows)
-    with pytest.raises(ConfigError) as exc:
-        read_lexicon(path)
-    assert problems(exc) == [f"{path}:1: header: unknown column(s) wieght",
-                             f"{path}:1: valid columns: id, type, name, aliases, say, weight"]
+    assert problems(read_lexicon, path) == [f"{path}:1: header: unknown column(s) wieght",
+                                            f"{path}:1: valid columns: id, type, name, aliases, say, weight"]
     path = write(tmp_path, "lex2.csv", "id,type,label\n" + rows)
-    with pytest.raises(ConfigError) as exc:
-        read_lexicon(path)
-    assert problems(exc)[:2] == [f"{path}:1: header: unknown column(s) label",
-                                 f"{path}:1: header: missing required column(s) name"]
+    assert problems(read_lexicon, path)[:2] == [f"{path}:1: header: unknown column(s) label",
+                                                f"{path}:1: header: missing required column(s) name"]
 
 
 def test_a_row_with_more_fields_than_the_header_says_so(tmp_path: Path) -> None:
     path = write(tmp_path, "lex.csv", "id,type,name\na,t,alpha\nb,t,smith, jo\n")
-    with pytest.raises(ConfigError) as exc:
-        read_lexicon(path)
-    assert problems(exc) == [f'{path}:3: 1 field(s) more than the header\'s 3 columns (a name with a comma needs '
-                             '"quotes")']
+    assert problems(read_lexicon, path) == [
+        f'{path}:3: 1 field(s) more than the header\'s 3 columns (a name with a comma needs "quotes")']
 
 
 def test_an_unknown_key_in_a_yaml_record_lists_the_valid_ones(tmp_path: Path) -> None:
     path = write(tmp_path, "lex.yaml", "- {id: a, type: t, name: alpha, colour: red}\n")
-    with pytest.raises(ConfigError) as exc:
-        read_lexicon(path)
-    assert problems(exc) == [f"{path}:1: unknown column(s) colour (valid: id, type, name, aliases, say, weight)"]
+    assert problems(read_lexicon, path) == [
+        f"{path}:1: unknown column(s) colour (valid: id, type, name, aliases, say, weight)"]
 
 
 def test_speakers_file(tmp_path: Path) -> None:
@@ -129,7 +121,6 @@ def test_speakers_file(tmp_path: Path) -> None:
 
 def test_speakers_file_errors(tmp_path: Path) -> None:
     path = write(tmp_path, "sp.csv", "speaker,id,affinity\nm1,a,1.5\nm1,zz,0.5\nm2,a,high\n")
-    with pytest.raises(ConfigError) as exc:
-        read_speakers(path, {"a"})
-    assert [p.split(": ", 1)[0] for p in problems(exc)] == [f"{path}:2", f"{path}:3", f"{path}:4"]
-    assert "in [0, 1]" in problems(exc)[0] and "not in the lexicon" in problems(exc)[1]
+    found = problems(read_speakers, path, {"a"})
+    assert [p.split(": ", 1)[0] for p in found] == [f"{path}:2", f"{path}:3", f"{path}:4"]
+    assert "in [0, 1]" in found[0] and "not in the lexicon" in found[1]
