@@ -104,6 +104,15 @@ def planted_channel() -> tuple[Channel, list[int]]:
     return Channel(heard, inserted), used
 
 
+def planted_pairs(*, seed: int, count: int, length: int) -> list[PhonePair]:
+    """``count`` stretches of ``length`` phones, drawn from the twelve of the planted channel, each
+    with what the channel makes of it."""
+    truth, used = planted_channel()
+    rng = random.Random(seed)
+    return [PhonePair(tuple(said), sample(rng, said, truth), 1.0)
+            for said in (rng.choices(used, k=length) for _ in range(count))]
+
+
 def test_em_recovers_a_known_channel() -> None:
     truth, used = planted_channel()
     rng = random.Random(11)
@@ -144,10 +153,7 @@ def test_without_data_the_costs_are_the_hand_costs() -> None:
 
 
 def test_a_phone_the_corpus_never_shows_keeps_its_hand_costs() -> None:
-    truth, used = planted_channel()
-    rng = random.Random(3)
-    pairs = [PhonePair(tuple(said), sample(rng, said, truth), 1.0)
-             for said in (rng.choices(used, k=4) for _ in range(300))]
+    pairs = planted_pairs(seed=3, count=300, length=4)
     fit = fit_channel(pairs, prior=HAND, prior_weight=20.0, iterations=6)
     costs = to_costs(fit.channel, fit.scale)
     zh, oy = NUMBER["ZH"], NUMBER["OY"]
@@ -160,10 +166,7 @@ def test_a_phone_the_corpus_never_shows_keeps_its_hand_costs() -> None:
 
 
 def test_chance_scale_keeps_unrelated_stretches_as_alike_as_the_hand_costs_do() -> None:
-    truth, used = planted_channel()
-    rng = random.Random(8)
-    pairs = [PhonePair(tuple(said), sample(rng, said, truth), 1.0)
-             for said in (rng.choices(used, k=5) for _ in range(400))]
+    pairs = planted_pairs(seed=8, count=400, length=5)
     fit = fit_channel(pairs, prior=HAND, prior_weight=5.0, iterations=5)
     scale = chance_scale(fit.channel, pairs, HAND, samples=800, seed=2)
     again = random.Random(2)  # the same unrelated samples chance_scale draws

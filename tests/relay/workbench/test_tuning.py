@@ -89,6 +89,13 @@ def _features(rng: random.Random) -> GateFeatures:
     )
 
 
+def _outcome(i: int, features: GateFeatures, right: bool) -> Outcome:
+    """An accepted utterance with one entity, found (and its words right) or missed."""
+    return Outcome(id=str(i), tags={}, ref_words=5, errors_first=2, errors_oracle=1, errors_relay=0 if right else 2,
+                   reference_ids=frozenset({"a"}), found={"a": "machine"} if right else {}, decision="accept",
+                   gate=features, stage_us={}, total_us=0.0)
+
+
 def _outcomes(count: int, seed: int, *, informative: bool = True) -> list[Outcome]:
     rng = random.Random(seed)
     outcomes = []
@@ -96,10 +103,7 @@ def _outcomes(count: int, seed: int, *, informative: bool = True) -> list[Outcom
         features = _features(rng)
         # Right entities are likelier when the gate's scores are high, as with a real chain.
         right = rng.random() < (features.posterior if informative else 0.5)
-        outcomes.append(Outcome(id=str(i), tags={}, ref_words=5, errors_first=2, errors_oracle=1,
-                                errors_relay=0 if right else 2, reference_ids=frozenset({"a"}),
-                                found={"a": "machine"} if right else {}, decision="accept", gate=features,
-                                stage_us={}, total_us=0.0))
+        outcomes.append(_outcome(i, features, right))
     return outcomes
 
 
@@ -144,10 +148,7 @@ def _hidden_cue_outcomes(count: int, seed: int) -> list[Outcome]:
         features = dataclasses.replace(_features(rng), text_oov=rng.randint(0, 3), safety_rule=None, empty=False,
                                        text_lm_per_word=-rng.uniform(2, 8))
         right = rng.random() < (0.95 if features.text_oov == 0 else 0.3)
-        outcomes.append(Outcome(id=str(i), tags={}, ref_words=5, errors_first=2, errors_oracle=1,
-                                errors_relay=0 if right else 2, reference_ids=frozenset({"a"}),
-                                found={"a": "machine"} if right else {}, decision="accept", gate=features,
-                                stage_us={}, total_us=0.0))
+        outcomes.append(_outcome(i, features, right))
     return outcomes
 
 
