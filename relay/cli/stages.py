@@ -4,11 +4,9 @@ from __future__ import annotations
 
 import argparse
 
-from pydantic import BaseModel
-
 from relay.core.errors import ConfigError
 from relay.core.registry import Registry
-from relay.core.setting_names import setting_fields
+from relay.core.setting_names import group_model, setting_fields
 
 HELP = "list the stages a chain can use, with each stage's settings and defaults"
 
@@ -34,7 +32,7 @@ def run(args: argparse.Namespace) -> int:
         print(f"{name}: {doc[0] if doc else ''}")
         print(f"  needs {', '.join(sorted(cls.needs)) or '-'}; provides {', '.join(sorted(cls.provides)) or '-'}")
         for field_name, field in setting_fields(cls.Settings):
-            if isinstance(field.annotation, type) and issubclass(field.annotation, BaseModel):
+            if group_model(field.annotation) is not None:
                 print(f"    {field_name + ':':<28} {field.description or ''}".rstrip())  # a group; its settings follow
                 continue
             about = f"  {field.description}" if field.description else ""

@@ -19,7 +19,7 @@ from relay.core.domain import Domain, DomainSettings
 from relay.core.errors import ConfigError
 from relay.core.fieldmap import FieldMap
 from relay.core.registry import Registry
-from relay.core.setting_names import OldNameConflict, old_names_of
+from relay.core.setting_names import OldNameConflict, group_model, old_names_of
 from relay.core.settings import (
     BrokerSettings,
     CaptureSettings,
@@ -87,9 +87,9 @@ def _valid_names(model: type[BaseModel] | None, loc: tuple[Any, ...]) -> list[st
     """The settings a model accepts at ``loc`` (a group's inside the group), for "unknown setting"."""
     for part in loc:
         field = model.model_fields.get(str(part)) if model is not None else None
-        annotation = field.annotation if field is not None else None
-        if isinstance(annotation, type) and issubclass(annotation, BaseModel):
-            model = annotation
+        group = group_model(field.annotation) if field is not None else None
+        if group is not None:
+            model = group
         elif field is not None:
             return []  # inside a mapping of free keys: no list to give
     return sorted(model.model_fields) if model is not None else []

@@ -19,7 +19,7 @@ from pydantic.fields import FieldInfo
 from pydantic.functional_validators import ModelWrapValidatorHandler
 
 __all__ = ["AcceptsOldNames", "OldNameConflict", "move_old_names", "old_names_given", "old_names_of",
-           "set_dotted", "setting_fields"]
+           "group_model", "set_dotted", "setting_fields", "value_fields"]
 
 
 class OldNameConflict(ValueError):
@@ -127,10 +127,20 @@ def old_names_given(settings: object) -> tuple[str, ...]:
     return settings.old_names_given if isinstance(settings, AcceptsOldNames) else ()
 
 
+def group_model(annotation: object) -> type[BaseModel] | None:
+    """The settings model a field holds when the field is a group of settings; None for a value."""
+    return annotation if isinstance(annotation, type) and issubclass(annotation, BaseModel) else None
+
+
 def setting_fields(settings_class: type[BaseModel], prefix: str = "") -> Iterator[tuple[str, FieldInfo]]:
     """Every setting by dotted name, a group's settings after the group itself."""
     for name, field in settings_class.model_fields.items():
         yield prefix + name, field
-        group = field.annotation
-        if isinstance(group, type) and issubclass(group, BaseModel):
+        group = group_model(field.annotation)
+        if group is not None:
             yield from setting_fields(group, prefix + name + ".")
+
+
+def value_fields(settings_class: type[BaseModel]) -> Iterator[tuple[str, FieldInfo]]:
+    """Every setting that holds a value (not a group), by dotted name."""
+    return ((name, field) for name, field in setting_fields(settings_class) if group_model(field.annotation) is None)

@@ -15,7 +15,7 @@ import relay.workbench.tuning
 from relay.cli import tune as tune_command
 from relay.core.config import build_chain, load_config
 from relay.core.registry import Registry
-from relay.core.setting_names import AcceptsOldNames, setting_fields
+from relay.core.setting_names import AcceptsOldNames, value_fields
 from relay.core.utterance import Utterance
 from relay.core.yamlsource import load_yaml
 from relay.workbench.evaluate import Outcome
@@ -354,9 +354,7 @@ def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatc
 
 def test_default_space_names_only_settings_the_stages_have() -> None:
     # A group (lexicon "general") is a setting_fields name too, but tune can only vary a value.
-    fields = {stage: {name for name, field in setting_fields(settings)
-                      if not (isinstance(field.annotation, type) and issubclass(field.annotation, BaseModel))}
-              for stage, settings in
+    fields = {stage: {name for name, _ in value_fields(settings)} for stage, settings in
               (("normalize", NormalizeSettings), ("lm_rescore", LmRescoreSettings), ("lexicon", LexiconSettings))}
     for stage, params in DEFAULT_SPACE.items():
         for param, values in params.items():

@@ -9,7 +9,7 @@ import pytest
 from pydantic import BaseModel, ValidationError
 from pydantic.fields import FieldInfo
 
-from relay.core.setting_names import setting_fields
+from relay.core.setting_names import setting_fields, value_fields
 from stages.lexicon.settings import OLD_NAMES, LexiconSettings
 
 # The settings that kept their place at the top when the rest moved into groups.
@@ -39,8 +39,7 @@ WORKSHOP_FLAT = {
 
 def leaves() -> dict[str, FieldInfo]:
     """Every setting that holds a value (not a group), by dotted name."""
-    return {name: field for name, field in setting_fields(LexiconSettings)
-            if not (isinstance(field.annotation, type) and issubclass(field.annotation, BaseModel))}
+    return dict(value_fields(LexiconSettings))
 
 
 def at(settings: BaseModel, dotted: str) -> Any:
