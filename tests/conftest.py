@@ -22,6 +22,7 @@ import pytest
 from hypothesis import settings
 from hypothesis.database import DirectoryBasedExampleDatabase
 
+from relay.workbench.endtoend import stop_process
 from tests.paths import ROOT
 
 MOSQUITTO = os.environ.get("REHEAR_TEST_MOSQUITTO", "/usr/sbin/mosquitto")
@@ -98,12 +99,7 @@ class MosquittoBroker:
     def stop(self) -> None:
         if self.process is None:
             return
-        self.process.terminate()  # SIGTERM: mosquitto writes its persistence file first
-        try:
-            self.process.wait(timeout=10)
-        except subprocess.TimeoutExpired:
-            self.process.kill()
-            self.process.wait()
+        stop_process(self.process)  # SIGTERM first: mosquitto writes its persistence file
         if self.process.stderr:
             self.process.stderr.close()
         self.process = None

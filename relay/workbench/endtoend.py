@@ -32,7 +32,8 @@ from typing import Any
 import aiomqtt
 import orjson
 
-__all__ = ["NODELAY", "WINDOW", "Broker", "RelayRun", "bench_active", "broker", "measure_relay", "serve_passthrough"]
+__all__ = ["NODELAY", "WINDOW", "Broker", "RelayRun", "bench_active", "broker", "measure_relay", "serve_passthrough",
+           "stop_process"]
 
 NODELAY = [(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)]
 WINDOW = 64  # in-flight messages in every relay under test (limits.max_in_flight)
@@ -62,6 +63,17 @@ def _free_port() -> int:
     with socket.socket() as sock:
         sock.bind(("127.0.0.1", 0))
         return int(sock.getsockname()[1])
+
+
+def stop_process(process: subprocess.Popen[Any], timeout: float = 10.0) -> None:
+    """SIGTERM, so the process can finish what it writes; SIGKILL when it has not exited within
+    ``timeout`` seconds; then reap it."""
+    process.terminate()
+    try:
+        process.wait(timeout=timeout)
+    except subprocess.TimeoutExpired:
+        process.kill()
+        process.wait()
 
 
 def _wait_port(port: int, timeout: float = 10.0) -> None:
@@ -96,12 +108,7 @@ def broker(*, mosquitto: str | None = None, embedded: bool = False) -> Iterator[
             _wait_port(port)
             yield found
         finally:
-            process.terminate()
-            try:
-                process.wait(timeout=10)
-            except subprocess.TimeoutExpired:
-                process.kill()
-                process.wait()
+            stop_process(process)
 
 
 # ---- the relays under test (each in a process of its own) -----------------------------------
@@ -298,12 +305,7 @@ def measure_relay(found: Broker, serve: list[str], payloads: Sequence[bytes], *,
         _, latencies, _ = asyncio.run(_drive(found.port, found.protocol, _stamped(payloads, latency_messages),
                                              rate, 60 + latency_messages / rate))
     finally:
-        child.terminate()
-        try:
-            child.wait(timeout=20)
-        except subprocess.TimeoutExpired:
-            child.kill()
-            child.wait()
+        stop_process(child, timeout=20)
         if child.stdout is not None:
             child.stdout.close()
     return RelayRun(throughput, 1e6 * cpu / messages, statistics.median(latencies), _percentile(latencies, 0.99),

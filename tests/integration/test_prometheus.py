@@ -15,6 +15,7 @@ from typing import Any
 import orjson
 import pytest
 
+from relay.workbench.endtoend import stop_process
 from tests.conftest import free_port, program
 from tests.integration.support import Collector, load, make_config, message, publish_all, running_relay
 
@@ -66,12 +67,7 @@ def test_a_prometheus_server_scrapes_the_relay(broker: Any, tmp_path: Path) -> N
                 raise AssertionError("prometheus returned no rehear metric within 60 s:\n"
                                      + (tmp_path / "prometheus.log").read_text()[-2000:])
             finally:
-                server.terminate()
-                try:
-                    server.wait(timeout=20)
-                except subprocess.TimeoutExpired:
-                    server.kill()
-                    server.wait(timeout=10)
+                stop_process(server, timeout=20)
                 log.close()
 
     cleaned, up, limit = asyncio.run(scenario())
