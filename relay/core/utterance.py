@@ -116,6 +116,11 @@ class Utterance:
             return self.chosen_text
         return self.best.text if self.nbest else ""
 
+    @property
+    def last_stage(self) -> str:
+        """The stage of the last trace entry (the one running, or the last to run); "chain" before any."""
+        return self.trace[-1].stage if self.trace else "chain"
+
     def ranked(self) -> list[Hypothesis]:
         return sorted(self.nbest, key=lambda h: (-h.posterior, h.rank))
 
@@ -150,8 +155,7 @@ class Utterance:
         stages.
         """
         if self.deadline is not None and time.monotonic() > self.deadline:
-            stage = self.trace[-1].stage if self.trace else "chain"
-            raise DeadlineExceeded(stage, 0.0, inside=True)
+            raise DeadlineExceeded(self.last_stage, 0.0, inside=True)
 
 
 # The options the relay renders the cleaned message with (relay.live.messages.dump): numpy

@@ -97,8 +97,7 @@ class MessageHandler:
         try:
             utterance = await self._run_chain(active, utterance, deadline, limits, timing)
             if time.monotonic() > deadline:  # the last stage overran: the result is too late
-                raise DeadlineExceeded(utterance.trace[-1].stage if utterance.trace else "chain",
-                                       (time.monotonic() - delivery.received) * 1000)
+                raise DeadlineExceeded(utterance.last_stage, (time.monotonic() - delivery.received) * 1000)
         except (TimeoutError, DeadlineExceeded):
             _log.warning("deadline passed; forwarding the original",
                          extra={"fields": {"id": utterance.id, "deadline_ms": limits.deadline_ms}})
@@ -172,7 +171,7 @@ class MessageHandler:
     def _stage_failed(
         self, utterance: Utterance, exc: BaseException, topics: Any, relay: dict[str, Any]
     ) -> tuple[str, list[Outgoing]]:
-        stage = getattr(exc, "stage", None) or (utterance.trace[-1].stage if utterance.trace else "chain")
+        stage = getattr(exc, "stage", None) or utterance.last_stage
         self.metrics.stage_errors.labels(stage=stage).inc()
         _log.error("stage failed; forwarding the original", exc_info=exc,
                    extra={"fields": {"stage": stage, "id": utterance.id}})

@@ -313,7 +313,7 @@ def _serve(chain: Chain, jobs: int, results: int) -> None:
             except DeadlineExceeded as exc:
                 reply = (number, "deadline", (exc.stage, exc.elapsed_ms), started, time.monotonic())
             except Exception as exc:  # noqa: BLE001 - handed to the relay, which forwards the original
-                stage = getattr(exc, "stage", None) or (utterance.trace[-1].stage if utterance.trace else "chain")
+                stage = getattr(exc, "stage", None) or utterance.last_stage
                 detail = "".join(traceback.format_exception(exc)).strip()
                 reply = (number, "error", (stage, detail), started, time.monotonic())
         try:
