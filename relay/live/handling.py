@@ -178,18 +178,17 @@ class MessageHandler:
         return "stage_error", [passthrough(utterance, topics, relay, "stage_error")]
 
     def _observe(self, utterance: Utterance) -> None:
+        metrics = self.metrics
         for entry in utterance.trace:
-            child = self._stage_latency.get(entry.stage)
-            if child is None:
-                child = self._stage_latency[entry.stage] = self.metrics.stage_latency.labels(stage=entry.stage)
-            child.observe(entry.elapsed_us / 1e6)
+            _child(self._stage_latency, metrics.stage_latency, entry.stage).observe(entry.elapsed_us / 1e6)
         for correction in utterance.corrections:
-            counter = self._corrections.get(correction.stage)
-            if counter is None:
-                counter = self._corrections[correction.stage] = self.metrics.corrections.labels(stage=correction.stage)
-            counter.inc()
-        decision = utterance.decision or "none"
-        counter = self._decisions.get(decision)
-        if counter is None:
-            counter = self._decisions[decision] = self.metrics.decisions.labels(decision=decision)
-        counter.inc()
+            _child(self._corrections, metrics.corrections, correction.stage).inc()
+        _child(self._decisions, metrics.decisions, utterance.decision or "none").inc()
+
+
+def _child(children: dict[str, Any], metric: Any, value: str) -> Any:
+    """``metric``'s child for its one label set to ``value``, kept in ``children``."""
+    child = children.get(value)
+    if child is None:
+        child = children[value] = metric.labels(value)
+    return child
