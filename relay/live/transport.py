@@ -81,12 +81,6 @@ class AckQueue:
             ready.append(self.pending.popleft())
         return ready
 
-    def oldest_age(self, now: float | None = None) -> float:
-        """Seconds the oldest unacknowledged delivery has waited; 0 when none waits."""
-        if not self.pending:
-            return 0.0
-        return (time.monotonic() if now is None else now) - self.pending[0].received
-
     def clear(self) -> None:
         self.pending.clear()
 

@@ -84,16 +84,3 @@ def test_the_source_comes_from_the_level_the_filter_leaves_open() -> None:
     assert source_from_topic("workshop/bench-1/asr", filters, "none") is None
     assert source_from_topic("other/bench-1/asr", filters, "auto") is None
     assert source_from_topic("fixed/asr", ["fixed/asr"], "auto") is None  # no wildcard: the payload says
-
-
-def test_the_oldest_unacknowledged_delivery_sets_the_age() -> None:
-    queue = AckQueue()
-    first, second = _delivery(1), _delivery(2)
-    first.received, second.received = 100.0, 105.0
-    queue.add(first)
-    queue.add(second)
-    assert queue.oldest_age(now=110.0) == 10.0
-    queue.finish(first)
-    assert queue.oldest_age(now=110.0) == 5.0
-    queue.finish(second)
-    assert queue.oldest_age(now=110.0) == 0.0
