@@ -9,7 +9,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field, SecretStr, field_validator, model_validator
 
 __all__ = ["BrokerSettings", "CaptureSettings", "LimitSettings", "LogSettings", "MetricsSettings", "Qos", "TlsSettings", "TopicSettings",
-           "source_level_of"]
+           "source_level_of", "unshared"]
 
 Qos = Literal[0, 1, 2]
 _TEMPLATE_FIELDS = ("source", "speaker", "decision")
@@ -129,16 +129,19 @@ class TopicSettings(_Strict):
         return value
 
 
-def source_level_of(topic_filter: str, setting: int | str) -> int | None:
-    """The level of topics matching ``topic_filter`` that names the source, or None.
+def unshared(topic_filter: str) -> str:
+    """``topic_filter`` without a leading ``$share/GROUP/``: that part is the broker's, not part
+    of the topics that arrive."""
+    levels = topic_filter.split("/", 2)
+    return levels[2] if levels[0] == "$share" and len(levels) > 2 else topic_filter
 
-    ``$share/GROUP/`` is the broker's, not part of the topics that arrive, so it is skipped.
-    """
+
+def source_level_of(topic_filter: str, setting: int | str) -> int | None:
+    """The level of topics matching ``topic_filter`` that names the source, or None (a shared
+    subscription's ``$share/GROUP/`` is not counted: see ``unshared``)."""
     if setting == "none":
         return None
-    levels = topic_filter.split("/")
-    if levels[0] == "$share" and len(levels) > 2:
-        levels = levels[2:]
+    levels = unshared(topic_filter).split("/")
     if isinstance(setting, int):
         return setting
     return levels.index("+") if "+" in levels else None

@@ -18,7 +18,7 @@ from collections.abc import Mapping, Sequence
 
 from paho.mqtt.client import topic_matches_sub
 
-from relay.core.settings import source_level_of
+from relay.core.settings import source_level_of, unshared
 
 __all__ = ["MISSING_VALUE", "clean_text", "render_topic", "sanitize_level", "source_from_topic"]
 
@@ -72,10 +72,7 @@ def source_from_topic(topic: str, filters: Sequence[str], setting: int | str) ->
         return None
     levels = topic.split("/")
     for topic_filter in filters:
-        plain = topic_filter
-        if plain.startswith("$share/"):
-            plain = plain.split("/", 2)[2] if plain.count("/") >= 2 else plain
-        if not topic_matches_sub(plain, topic):
+        if not topic_matches_sub(unshared(topic_filter), topic):
             continue
         level = source_level_of(topic_filter, setting)
         if level is not None and level < len(levels) and levels[level]:
