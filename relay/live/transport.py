@@ -256,7 +256,7 @@ class Session:
 
     def _check_granted(self, granted: Any) -> None:
         for (topic, _qos), code in zip(self.subscriptions, granted):
-            value = code.value if hasattr(code, "value") else int(code)
+            value, _name = _code(code)
             if value >= 0x80:
                 raise TransportError(f"broker refused subscription {topic!r} (reason code {value:#x})",
                                      kind="refused")
