@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from collections.abc import Iterable
 from pathlib import Path
 
 from relay.core.config import LoadedConfig, build_chain, load_config
@@ -13,7 +14,7 @@ from relay.workbench.defaults import default_config
 from relay.workbench.variants import config_from_dict
 from stages.lexicon.data import read_lexicon
 
-__all__ = ["add_corpus_arguments", "chosen_config", "selected_items"]
+__all__ = ["add_corpus_arguments", "chain_lexicon", "chosen_config", "selected_items"]
 
 
 def _filter(text: str) -> TagFilter:
@@ -55,19 +56,19 @@ def selected_items(args: argparse.Namespace, loaded: LoadedConfig) -> tuple[list
     described = " and ".join(str(f) for f in filters) or "all lines"
     if not kept:
         raise ConfigError(f"No corpus line of {args.corpus} matches {described}")
-    lexicon = _lexicon_of(loaded)
+    lexicon = chain_lexicon(build_chain(loaded).stages, loaded.domain.lexicon)  # constructed, not loaded
     if lexicon is not None and lexicon.is_file():
         check_entity_ids(kept, {entry.id for entry in read_lexicon(lexicon)}, lexicon)
     return kept, described
 
 
-def _lexicon_of(loaded: LoadedConfig) -> Path | None:
-    """The lexicon the chain matches against (the stages are constructed, not loaded)."""
-    for stage in build_chain(loaded).stages:
+def chain_lexicon(stages: Iterable[object], domain_lexicon: Path | None) -> Path | None:
+    """The lexicon the chain's stages match against, else the configuration's domain lexicon."""
+    for stage in stages:
         path = files_used(stage).get("lexicon")
         if path is not None:
             return path
-    return loaded.domain.lexicon
+    return domain_lexicon
 
 
 def chosen_config(args: argparse.Namespace) -> LoadedConfig:

@@ -8,9 +8,9 @@ from pathlib import Path
 from typing import Any
 
 from relay.cli.common import delegate, output_file
+from relay.cli.corpus_args import chain_lexicon
 from relay.core.config import build_chain, load_config
 from relay.core.errors import ConfigError
-from relay.core.stage import files_used
 from relay.workbench.label import Tally, label, read_pending
 from relay.workbench.terminal import Keyboard
 from stages.lexicon.data import read_lexicon
@@ -55,12 +55,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 def _lexicon(args: argparse.Namespace, chain: Any, domain_lexicon: Path | None) -> Path:
     if args.lexicon is not None:
         return Path(args.lexicon)
-    for stage in chain.stages:
-        path = files_used(stage).get("lexicon")
-        if path is not None:
-            return Path(path)
-    if domain_lexicon is not None:
-        return domain_lexicon
+    path = chain_lexicon(chain.stages, domain_lexicon)
+    if path is not None:
+        return path
     raise ConfigError(f"{args.config} names no lexicon; give --lexicon")
 
 
