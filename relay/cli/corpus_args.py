@@ -14,10 +14,11 @@ from relay.workbench.defaults import default_config
 from relay.workbench.variants import config_from_dict
 from stages.lexicon.data import read_lexicon
 
-__all__ = ["add_corpus_arguments", "chain_lexicon", "chosen_config", "selected_items"]
+__all__ = ["add_corpus_arguments", "chain_lexicon", "chosen_config", "selected_items", "tag_filter"]
 
 
-def _filter(text: str) -> TagFilter:
+def tag_filter(text: str) -> TagFilter:
+    """argparse type for a TAG=V or TAG!=V corpus filter."""
     try:
         return parse_filter(text)
     except ValueError as exc:
@@ -25,7 +26,7 @@ def _filter(text: str) -> TagFilter:
 
 
 def _exclusion(text: str) -> TagFilter:
-    found = _filter(text)
+    found = tag_filter(text)
     if not found.keep:
         raise argparse.ArgumentTypeError(f"{text!r}: --exclude-tag takes TAG=VALUE")
     return TagFilter(tag=found.tag, keep=False, values=found.values)
@@ -39,7 +40,7 @@ def add_corpus_arguments(parser: argparse.ArgumentParser) -> None:
     chain.add_argument("--train", type=Path, help="in-domain text for the language model of the default chain")
     chain.add_argument("--speakers", type=Path, help="speaker affinities CSV for the default chain")
     part = parser.add_argument_group("which part of the corpus (tags of each line; null matches a missing tag)")
-    part.add_argument("--where", type=_filter, action="append", default=[], metavar="TAG=V|TAG!=V",
+    part.add_argument("--where", type=tag_filter, action="append", default=[], metavar="TAG=V|TAG!=V",
                       help="keep lines whose tag matches, e.g. snr_db!=15 or split=novel; values may be "
                       "comma-separated (snr_db=null,25); repeat to require several")
     part.add_argument("--exclude-tag", type=_exclusion, action="append", default=[], metavar="TAG=V",

@@ -11,9 +11,10 @@ from typing import Any
 
 from relay import __version__
 from relay.cli.common import output_file
+from relay.cli.corpus_args import tag_filter
 from relay.core.errors import InputError
 from relay.workbench.confusions import LearnOptions, confusion_summary, counts_table, learn
-from relay.workbench.corpus import TagFilter, parse_filter, read_corpus
+from relay.workbench.corpus import read_corpus
 from relay.workbench.written import apply_umask
 from stages.lexicon.data import read_lexicon
 from stages.lexicon.sound.costfile import write_costs
@@ -63,13 +64,6 @@ def _weight(text: str) -> float:
     return value
 
 
-def _filter(text: str) -> TagFilter:
-    try:
-        return parse_filter(text)
-    except ValueError as exc:
-        raise argparse.ArgumentTypeError(str(exc)) from None
-
-
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     defaults = LearnOptions()
     parser: argparse.ArgumentParser = subparsers.add_parser(
@@ -80,7 +74,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
                         help="the lexicon the stage will use: entity words are pronounced as its forms")
     parser.add_argument("-o", "--output", type=output_file, required=True, metavar="COSTS.json",
                         help="phone cost file to write")
-    parser.add_argument("--where", type=_filter, action="append", default=[], metavar="TAG=V|TAG!=V",
+    parser.add_argument("--where", type=tag_filter, action="append", default=[], metavar="TAG=V|TAG!=V",
                         help="keep corpus lines whose tag matches, e.g. recogniser=whisper or split=seen (repeatable)")
     parser.add_argument("--hypotheses", type=_positive_int, default=defaults.hypotheses, metavar="N",
                         help="distinct hypotheses read per utterance, rank r weighted 1/(r+1), each utterance "
