@@ -37,9 +37,8 @@ from paho.mqtt.properties import Properties
 from relay.core.errors import PublishRefused, TransportError
 from relay.core.settings import BrokerSettings
 from relay.live.tls import broker_password, tls_context
-from relay.live.topics import MISSING_VALUE, render_topic, sanitize_level
 
-__all__ = ["MISSING_VALUE", "AckQueue", "Delivery", "Session", "render_topic", "sanitize_level"]
+__all__ = ["AckQueue", "Delivery", "Session"]
 
 # MQTT 5.0 section 3.14.2.1: the broker closes a connection with 0x8E when another client
 # connects with the same client identifier.

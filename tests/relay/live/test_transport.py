@@ -3,8 +3,8 @@ from __future__ import annotations
 from hypothesis import given
 from hypothesis import strategies as st
 
-from relay.live.topics import source_from_topic
-from relay.live.transport import AckQueue, Delivery, render_topic, sanitize_level
+from relay.live.topics import render_topic, sanitize_level, source_from_topic
+from relay.live.transport import AckQueue, Delivery
 
 
 @given(st.one_of(st.none(), st.text(), st.integers()), st.one_of(st.none(), st.text()))
