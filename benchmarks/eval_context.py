@@ -23,11 +23,10 @@ from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from relay.core.config import build_chain
 from relay.workbench.corpus import CorpusItem, read_corpus
-from relay.workbench.defaults import default_config
+from relay.workbench.defaults import folder_config, load_chain
 from relay.workbench.evaluate import Outcome, percentile, run_corpus
-from relay.workbench.variants import config_from_dict, with_overrides
+from relay.workbench.variants import with_overrides
 
 
 def parity(item_id: str) -> int:
@@ -57,12 +56,9 @@ def groups(outcomes: Sequence[Outcome]) -> dict[str, list[Outcome]]:
 
 
 def evaluate(folder: Path, items: list[CorpusItem], lexicon: dict[str, Any], cache: Path) -> list[Outcome]:
-    raw = default_config(lexicon=folder / "lexicon.csv", train=folder / "train.txt",
-                         speakers=folder / "speakers.csv", cache_dir=cache)
+    raw = folder_config(folder, cache_dir=cache)
     raw = with_overrides(raw, {"lexicon": lexicon}) if lexicon else raw
-    chain = build_chain(config_from_dict(raw, base_dir=folder))
-    chain.load()
-    return run_corpus(chain, items)
+    return run_corpus(load_chain(raw, base_dir=folder), items)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -20,11 +20,11 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
-from relay.core.config import build_chain
+from relay.core.chain import Chain
 from relay.workbench.corpus import CorpusItem, read_corpus
-from relay.workbench.defaults import default_config
+from relay.workbench.defaults import folder_config, load_chain
 from relay.workbench.evaluate import Outcome, run_corpus, summarize
-from relay.workbench.variants import config_from_dict, with_overrides
+from relay.workbench.variants import with_overrides
 
 ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = ("workshop", "boatyard")
@@ -52,12 +52,8 @@ def parse_sets(pairs: list[str]) -> dict[str, dict[str, Any]]:
     return out
 
 
-def chain_for(folder: Path, overrides: dict[str, dict[str, Any]], cache: Path) -> Any:
-    raw = default_config(lexicon=folder / "lexicon.csv", train=folder / "train.txt",
-                         speakers=folder / "speakers.csv", cache_dir=cache)
-    chain = build_chain(config_from_dict(with_overrides(raw, overrides), base_dir=folder))
-    chain.load()
-    return chain
+def chain_for(folder: Path, overrides: dict[str, dict[str, Any]], cache: Path) -> Chain:
+    return load_chain(with_overrides(folder_config(folder, cache_dir=cache), overrides), base_dir=folder)
 
 
 def row(outcomes: list[Outcome]) -> dict[str, Any]:

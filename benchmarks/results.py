@@ -23,9 +23,8 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
-from relay.core.config import build_chain
 from relay.workbench.corpus import CorpusItem, read_corpus
-from relay.workbench.defaults import default_config
+from relay.workbench.defaults import folder_config, load_chain
 from relay.workbench.evaluate import Summary, run_corpus, summarize
 from relay.workbench.gate_model import fit_default, record
 from relay.workbench.tune import tune
@@ -38,15 +37,8 @@ CORPORA = {"whisper": ("corpus-whisper.jsonl", "corpus-10db-whisper.jsonl"),
            "pocketsphinx": ("corpus.jsonl", "corpus-10db-pocketsphinx.jsonl")}
 
 
-def _raw(folder: Path, cache: Path) -> dict[str, Any]:
-    return default_config(lexicon=folder / "lexicon.csv", train=folder / "train.txt",
-                          speakers=folder / "speakers.csv", cache_dir=cache)
-
-
 def _run(raw: dict[str, Any], folder: Path, items: list[CorpusItem]) -> Summary:
-    chain = build_chain(config_from_dict(raw, base_dir=folder))
-    chain.load()
-    return summarize(run_corpus(chain, items))
+    return summarize(run_corpus(load_chain(raw, base_dir=folder), items))
 
 
 def _row(summary: Summary) -> dict[str, Any]:
@@ -83,7 +75,7 @@ def main(argv: list[str] | None = None) -> int:
                 main_part = [i for i in every if i.tags.get("snr_db") in (None, 20, 25)]
                 noise = [i for i in every if i.tags.get("snr_db") == 15] + read_corpus(folder / noise_name)
                 data[scenario] = (main_part, noise)
-                raw = _raw(folder, cache)
+                raw = folder_config(folder, cache_dir=cache)
                 loaded = config_from_dict(raw, base_dir=folder)
                 result = tune(loaded, main_part, written=raw, max_clarify=args.max_clarify,
                               max_settings=args.max_settings)
@@ -97,7 +89,7 @@ def main(argv: list[str] | None = None) -> int:
             for scenario in SCENARIOS:
                 other = next(s for s in SCENARIOS if s != scenario)
                 folder = ROOT / "examples" / scenario
-                crossed = _raw(folder, cache) | {"stages": tuned[other]["stages"]}
+                crossed = folder_config(folder, cache_dir=cache) | {"stages": tuned[other]["stages"]}
                 for part, items in zip(("clean+20-25dB", "noise (10 dB; pocketsphinx 15 dB too)"), data[scenario]):
                     rows.append({"scenario": scenario, "recogniser": recogniser, "how": f"tuned on {other}",
                                  "part": part} | _row(_run(crossed, folder, items)))

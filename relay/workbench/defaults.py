@@ -13,11 +13,14 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from relay.core.chain import Chain
+from relay.core.config import build_chain
 from relay.core.errors import ConfigError
 from relay.core.registry import Registry
 from relay.workbench.build_lm import build_model
+from relay.workbench.variants import config_from_dict
 
-__all__ = ["default_config"]
+__all__ = ["default_config", "folder_config", "load_chain"]
 
 def _available(registry: Registry, name: str) -> bool:
     try:
@@ -73,3 +76,18 @@ def default_config(*, lexicon: Path, train: Path | None, speakers: Path | None,
         _note("stage lexicon is not installed; the default chain runs without it")
     stages.append("gate")
     return {"domain": domain, "cache_dir": str(cache_dir.resolve()), "stages": stages}
+
+
+def folder_config(folder: Path, *, cache_dir: Path) -> dict[str, Any]:
+    """The default chain for a folder laid out as the examples are: ``lexicon.csv``,
+    ``train.txt`` and, when there is one, ``speakers.csv``."""
+    speakers = folder / "speakers.csv"
+    return default_config(lexicon=folder / "lexicon.csv", train=folder / "train.txt",
+                          speakers=speakers if speakers.exists() else None, cache_dir=cache_dir)
+
+
+def load_chain(raw: dict[str, Any], *, base_dir: Path) -> Chain:
+    """The chain a configuration dict describes, built and loaded."""
+    chain = build_chain(config_from_dict(raw, base_dir=base_dir))
+    chain.load()
+    return chain

@@ -20,11 +20,10 @@ from typing import Any
 
 import numpy as np
 
-from relay.core.config import build_chain
 from relay.workbench.corpus import read_corpus
-from relay.workbench.defaults import default_config
+from relay.workbench.defaults import folder_config, load_chain
 from relay.workbench.evaluate import calibration_error, run_corpus
-from relay.workbench.variants import config_from_dict, with_overrides
+from relay.workbench.variants import with_overrides
 from stages.gate.confidence import SIGNS, ConfidenceModel, confidence, fit_model
 
 __all__ = ["TRANSFERABLE", "Row", "fit_default", "record", "transfer"]
@@ -56,12 +55,9 @@ def record(folders: Iterable[Path], corpora: Sequence[str], *, cache_dir: Path) 
     """Rows for every utterance of each folder's corpora (those that exist), default chain."""
     rows: list[Row] = []
     for folder in folders:
-        raw = default_config(lexicon=folder / "lexicon.csv", train=folder / "train.txt",
-                             speakers=folder / "speakers.csv" if (folder / "speakers.csv").exists() else None,
-                             cache_dir=cache_dir)
-        raw = with_overrides(raw, {"gate": {"confidence": None}})  # features do not depend on it
-        chain = build_chain(config_from_dict(raw, base_dir=folder))
-        chain.load()
+        raw = with_overrides(folder_config(folder, cache_dir=cache_dir),
+                             {"gate": {"confidence": None}})  # features do not depend on it
+        chain = load_chain(raw, base_dir=folder)
         for name in corpora:
             if not (folder / name).exists():
                 continue
