@@ -8,6 +8,7 @@ the relay would accept too.
 from __future__ import annotations
 
 import re
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -20,7 +21,7 @@ from relay.core.fieldmap import FieldMap
 from relay.core.utterance import Utterance
 from relay.live.messages import parse_message
 
-__all__ = ["CorpusItem", "TagFilter", "check_entity_ids", "parse_filter", "read_corpus", "tag_text"]
+__all__ = ["CorpusItem", "TagFilter", "check_entity_ids", "json_objects", "parse_filter", "read_corpus", "tag_text"]
 
 
 class ReferenceEntity(BaseModel):
@@ -65,15 +66,13 @@ def _problem(error: ValidationError) -> str:
     return f"field {field}: {first['msg']}"
 
 
-def read_corpus(path: str | Path, *, field_map: FieldMap | None = None) -> list[CorpusItem]:
-    """All lines of a corpus file; InputError naming ``file:line`` on the first bad one."""
-    path = Path(path)
+def json_objects(path: Path, kind: str) -> Iterator[tuple[str, dict[str, Any]]]:
+    """(``file:line``, object) for every non-blank line of a JSON Lines file; InputError of
+    ``kind`` naming ``file:line`` on a line that is not UTF-8, not JSON or not an object."""
     try:
         raw = path.read_bytes()
     except OSError as exc:
-        raise InputError("corpus", f"{path}: cannot read ({exc.strerror})") from None
-    items: list[CorpusItem] = []
-    seen: dict[str, str] = {}
+        raise InputError(kind, f"{path}: cannot read ({exc.strerror})") from None
     for number, line in enumerate(raw.splitlines(), start=1):
         where = f"{path}:{number}"
         if not line.strip():
@@ -81,14 +80,22 @@ def read_corpus(path: str | Path, *, field_map: FieldMap | None = None) -> list[
         try:
             line.decode("utf-8")
         except UnicodeDecodeError as exc:
-            raise InputError("corpus", f"{where}: not UTF-8 text (byte {exc.start + 1} of the line is "
-                                       f"{line[exc.start]:#04x}); save the file as UTF-8") from None
+            raise InputError(kind, f"{where}: not UTF-8 text (byte {exc.start + 1} of the line is "
+                                   f"{line[exc.start]:#04x}); save the file as UTF-8") from None
         try:
             data = orjson.loads(line)
         except orjson.JSONDecodeError as exc:
-            raise InputError("corpus", f"{where}: not valid JSON ({exc})") from None
+            raise InputError(kind, f"{where}: not valid JSON ({exc})") from None
         if not isinstance(data, dict):
-            raise InputError("corpus", f"{where}: expected a JSON object, got {type(data).__name__}")
+            raise InputError(kind, f"{where}: expected a JSON object, got {type(data).__name__}")
+        yield where, data
+
+
+def read_corpus(path: str | Path, *, field_map: FieldMap | None = None) -> list[CorpusItem]:
+    """All lines of a corpus file; InputError naming ``file:line`` on the first bad one."""
+    items: list[CorpusItem] = []
+    seen: dict[str, str] = {}
+    for where, data in json_objects(Path(path), "corpus"):
         try:
             entry = CorpusLine.model_validate(data)
         except ValidationError as exc:

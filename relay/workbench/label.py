@@ -24,6 +24,7 @@ from relay.core.stage import deciding_stage
 from relay.live.capture import capture_files
 from relay.live.messages import parse_message
 from relay.live.routing import is_final
+from relay.workbench.corpus import json_objects
 from relay.workbench.terminal import Keyboard
 from stages.lexicon.data import LexiconEntry
 from stages.normalize.tokens import tokenize
@@ -71,20 +72,7 @@ def read_pending(paths: Sequence[Path], *, field_map: FieldMap | None = None, ta
     recogniser messages (a recogniser's log); a directory means its capture or .jsonl files.
     Dead letters, partial results and messages the relay could not read are passed over."""
     for path in _files(paths):
-        try:
-            raw = path.read_bytes()
-        except OSError as exc:
-            raise InputError("messages", f"{path}: cannot read ({exc.strerror})") from None
-        for number, line in enumerate(raw.splitlines(), start=1):
-            where = f"{path}:{number}"
-            if not line.strip():
-                continue
-            try:
-                value = orjson.loads(line)
-            except orjson.JSONDecodeError as exc:
-                raise InputError("messages", f"{where}: not valid JSON ({exc})") from None
-            if not isinstance(value, dict):
-                raise InputError("messages", f"{where}: expected a JSON object, got {type(value).__name__}")
+        for where, value in json_objects(path, "messages"):
             message = value.get("message") if ("sent" in value or "reference" in value) else value
             readable = isinstance(message, dict)
             if readable:
