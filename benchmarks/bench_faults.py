@@ -22,7 +22,6 @@ import asyncio
 import ctypes
 import gc
 import shutil
-import socket
 import statistics
 import subprocess
 import sys
@@ -42,17 +41,12 @@ sys.path.insert(0, str(ROOT))
 
 from relay.live.active import load_active  # noqa: E402
 from relay.live.serve import serve  # noqa: E402
+from relay.workbench.endtoend import free_port  # noqa: E402
 
 SETTINGS = {
     "limits": {},  # the defaults: word limits on, deadline checked inside the stages
     "no-limits": {"max_words_per_hypothesis": 10**9, "max_words": 10**9, "max_word_chars": 10**9},
 }
-
-
-def _free_port() -> int:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        return int(sock.getsockname()[1])
 
 
 def _config(folder: Path, port: int, limits: dict[str, Any]) -> Path:
@@ -170,7 +164,7 @@ def main() -> int:
     parser.add_argument("--numbers", type=int, default=20_000, help="numbers in the expensive hypothesis")
     parser.add_argument("--mosquitto", default=shutil.which("mosquitto") or "/usr/sbin/mosquitto")
     args = parser.parse_args()
-    port = _free_port()
+    port = free_port()
     with tempfile.TemporaryDirectory() as folder:
         conf = Path(folder) / "mosquitto.conf"
         conf.write_text(f"listener {port} 127.0.0.1\nallow_anonymous true\nset_tcp_nodelay true\n")

@@ -31,7 +31,6 @@ import asyncio
 import dataclasses
 import os
 import shutil
-import socket
 import statistics
 import subprocess
 import sys
@@ -47,15 +46,9 @@ from pydantic import BaseModel, ConfigDict, Field
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from relay.workbench.endtoend import NODELAY, WINDOW, serve_passthrough  # noqa: E402 - after the path
+from relay.workbench.endtoend import NODELAY, WINDOW, free_port, serve_passthrough  # noqa: E402 - after the path
 
 DEFAULT_CHAIN = "stages: [normalize]\n"
-
-
-def _free_port() -> int:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        return int(sock.getsockname()[1])
 
 
 def _payload(index: int, sent_ns: int) -> bytes:
@@ -283,7 +276,7 @@ def main() -> int:
             cases[f"{runner} +{cost:g} us"] = serve
             if args.capture:
                 cases[f"{runner} +{cost:g} us cap"] = [*serve, "--capture-dir", tempfile.mkdtemp(prefix="rehear-cap-")]
-    port = _free_port()
+    port = free_port()
     workdir = Path(tempfile.mkdtemp(prefix="rehear-bench-"))
     (workdir / "mosquitto.conf").write_text(
         f"listener {port} 127.0.0.1\nallow_anonymous true\nset_tcp_nodelay true\n"

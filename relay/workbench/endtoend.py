@@ -32,8 +32,8 @@ from typing import Any
 import aiomqtt
 import orjson
 
-__all__ = ["NODELAY", "WINDOW", "Broker", "RelayRun", "bench_active", "broker", "measure_relay", "serve_passthrough",
-           "stop_process"]
+__all__ = ["NODELAY", "WINDOW", "Broker", "RelayRun", "bench_active", "broker", "free_port", "measure_relay",
+           "serve_passthrough", "stop_process"]
 
 NODELAY = [(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)]
 WINDOW = 64  # in-flight messages in every relay under test (limits.max_in_flight)
@@ -59,7 +59,8 @@ class RelayRun:
     pss_mb: float  # proportional set size of the relay and its workers (shared pages counted once)
 
 
-def _free_port() -> int:
+def free_port() -> int:
+    """A loopback TCP port nothing listens on now."""
     with socket.socket() as sock:
         sock.bind(("127.0.0.1", 0))
         return int(sock.getsockname()[1])
@@ -92,7 +93,7 @@ def broker(*, mosquitto: str | None = None, embedded: bool = False) -> Iterator[
     """A broker on a free loopback port for the duration of the block."""
     binary = mosquitto or shutil.which("mosquitto") or ("/usr/sbin/mosquitto" if Path("/usr/sbin/mosquitto").exists()
                                                          else None)
-    port = _free_port()
+    port = free_port()
     with tempfile.TemporaryDirectory(prefix="rehear-bench-") as folder:
         if binary and not embedded:
             conf = Path(folder) / "mosquitto.conf"
