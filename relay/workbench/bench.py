@@ -87,6 +87,7 @@ def _child(*args: str, timeout: float = 600) -> dict[str, Any]:
 def in_process(config: Path, messages: Sequence[bytes], *, passes: int) -> dict[str, Any]:
     """p50/p99 in microseconds of the whole chain and of each stage, per message."""
     from relay.live.active import load_active
+    from relay.live.heap import freeze_loaded
     from relay.live.messages import parse_message
 
     active = load_active(config)
@@ -98,8 +99,7 @@ def in_process(config: Path, messages: Sequence[bytes], *, passes: int) -> dict[
 
     for utterance in parsed():  # untimed: fills the word caches, as a running relay has them
         chain.process(utterance)
-    gc.collect()
-    gc.freeze()
+    freeze_loaded()
     whole: list[float] = []
     stages: dict[str, list[float]] = {name: [] for name in chain.names}
     for _ in range(passes):
@@ -176,6 +176,7 @@ def time_lexicon(folder: Path, texts: Sequence[Sequence[str]]) -> tuple[list[flo
     the seconds of the warm load from the cache ``build_lexicon`` left."""
     from relay.core.stage import StageContext
     from relay.core.utterance import Hypothesis, TraceEntry, Utterance
+    from relay.live.heap import freeze_loaded
     from stages.lexicon.settings import LexiconSettings
     from stages.lexicon.stage import LexiconStage
     from stages.normalize.stage import NormalizeSettings, NormalizeStage
@@ -186,8 +187,7 @@ def time_lexicon(folder: Path, texts: Sequence[Sequence[str]]) -> tuple[list[flo
     stage.load()
     warm = time.perf_counter() - began
     normalize = NormalizeStage(NormalizeSettings(prefer="rank"), context=context)
-    gc.collect()
-    gc.freeze()  # as `rehear run` does once the chain is loaded
+    freeze_loaded()  # as `rehear run` does once the chain is loaded
     times = []
     for hypotheses in texts:
         nbest = [Hypothesis(t, r, {}) for r, t in enumerate(hypotheses)]
