@@ -81,6 +81,8 @@ class LmRescoreStage:
             lm = self.score(hypothesis.tokens)
             for other in hypothesis.readings:
                 # The reading the in-domain text makes likeliest ("seven thirty" or "seven point three zero").
+                if other == hypothesis.tokens:
+                    continue  # the readings start with the tokens themselves, scored just above
                 scored = self.score(other)
                 if scored.total > lm.total:
                     lm, hypothesis.tokens, hypothesis.text = scored, other, " ".join(other)
