@@ -98,8 +98,8 @@ class CarrierSearch:
         note: dict[str, Any] = {"template": empty.template, "where": empty.where, "heard": empty.words,
                                 "type": empty.type, "hypothesis": hypothesis}
         slot_words = heard[start:end]
-        phones = "".join(self.pronouncer.word(token) for token in slot_words)
-        heard_as_one = [AnchoredHypothesis([phones], [0])]  # the slot's words run together, one span
+        # The slot's words run together, one span.
+        heard_as_one = [AnchoredHypothesis([self.pronouncer.words(slot_words)], [0])]
         matches = anchored_matches(heard_as_one, self.forms[empty.type], lexicon, self.costs,
                                    max_words=1, min_phone=0.0, align_floor=self.align_floor)
         if not matches:
