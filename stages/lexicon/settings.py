@@ -138,8 +138,6 @@ class CarrierSettings(_Group):
                             "best fill")
     loose_from: int = Field(3, ge=0, le=20, description="lines with at least this many carrier words also match "
                             "with one of them misheard (0: exact only)")
-    # Off by default: a carrier phrase is itself the evidence that everyday words hold a slot, and
-    # on the example scenarios weighing the heard reading here cost recall and saved no precision.
     # -2: a fill the in-domain LM finds much less likely than the words heard ("turn off all the
     # lights" -> "the router") is a slot the speaker did not fill. On both scenarios' Whisper output it
     # raised precision by 0.2-0.4 points at equal recall; on pocketsphinx (not looked at to choose it)
@@ -147,6 +145,8 @@ class CarrierSettings(_Group):
     min_gain: float = Field(-2.0, ge=-100, le=100, description="least gain (nats) of the sentence under the "
                             "in-domain LM by the fill; a fill the LM finds much less likely than the heard "
                             "words is refused")
+    # Off by default: a carrier phrase is itself the evidence that everyday words hold a slot, and
+    # on the example scenarios weighing the heard reading here cost recall and saved no precision.
     heard_weight: float = Field(0.0, ge=0, le=2, description="more phone similarity needed per unit of belief "
                                 "that the slot's words were said as heard")
 
