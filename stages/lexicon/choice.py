@@ -58,8 +58,8 @@ def reading_otherwise(choice: Choice, nbest: Sequence[Hypothesis], words: Sequen
     run the correction would rewrite): they heard the name there ("pellow table saw" around
     "table"), so their ``words`` are part of it, not said on their own."""
     run = list(words)
-    return {h for h, seen in choice.evidence.per_hypothesis.items()
-            if seen.score >= STRONG and nbest[h].tokens[seen.start:seen.end] != run}
+    sightings = choice.evidence.per_hypothesis
+    return {h for h in holding(choice) if nbest[h].tokens[sightings[h].start:sightings[h].end] != run}
 
 
 def support(choice: Choice, nbest: Sequence[Hypothesis]) -> float:
