@@ -22,7 +22,7 @@ import pytest
 from hypothesis import settings
 from hypothesis.database import DirectoryBasedExampleDatabase
 
-from relay.workbench.endtoend import stop_process
+from relay.workbench.endtoend import free_port, stop_process
 from tests.paths import ROOT
 
 MOSQUITTO = os.environ.get("REHEAR_TEST_MOSQUITTO", "/usr/sbin/mosquitto")
@@ -31,12 +31,6 @@ MOSQUITTO = os.environ.get("REHEAR_TEST_MOSQUITTO", "/usr/sbin/mosquitto")
 # the working directory by default; kept in the checkout instead, a run from anywhere replays them.
 settings.register_profile("rehear", database=DirectoryBasedExampleDatabase(ROOT / ".hypothesis" / "examples"))
 settings.load_profile("rehear")
-
-
-def free_port() -> int:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        return int(sock.getsockname()[1])
 
 
 class MosquittoBroker:
