@@ -15,7 +15,6 @@ from relay.cli.corpus_args import tag_filter
 from relay.core.errors import InputError
 from relay.workbench.confusions import LearnOptions, confusion_summary, counts_table, learn
 from relay.workbench.corpus import read_corpus
-from relay.workbench.written import apply_umask
 from stages.lexicon.data import read_lexicon
 from stages.lexicon.sound.costfile import write_costs
 
@@ -124,7 +123,6 @@ def run(args: argparse.Namespace) -> int:
     }
     try:
         write_costs(args.output, learned.model, provenance)
-        apply_umask(args.output)
     except OSError as exc:
         raise InputError("output", f"{args.output}: cannot write ({exc.strerror or exc})") from None
     named = f"recogniser {recogniser}" if recogniser else "a recogniser the corpus does not name (no recogniser tag)"

@@ -1,12 +1,11 @@
 """Files the workbench writes for people and other machines: configurations that keep their
-comments and travel (paths relative to the written file), and files created with the process
-umask (a relay running as another user must be able to read a model or a configuration)."""
+comments and travel (paths relative to the written file); written with the process umask and
+atomically by relay.core.files."""
 
 from __future__ import annotations
 
 import io
 import os
-import tempfile
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
@@ -15,6 +14,7 @@ from ruamel.yaml import YAML
 from ruamel.yaml.comments import CommentedMap
 
 from relay.core.errors import ConfigError
+from relay.core.files import apply_umask, write_atomically
 
 __all__ = ["apply_umask", "dump_yaml", "load_commented", "merge_in_place", "rebase_paths", "write_atomically"]
 
@@ -27,28 +27,6 @@ def _yaml() -> YAML:
     yaml.width = 110
     yaml.indent(mapping=2, sequence=4, offset=2)
     return yaml
-
-
-def apply_umask(path: Path) -> None:
-    """Give ``path`` the permissions a plain ``open()`` would have (0666 less the umask);
-    temporary files are created 0600 whatever the umask."""
-    mask = os.umask(0)
-    os.umask(mask)
-    os.chmod(path, 0o666 & ~mask)
-
-
-def write_atomically(path: Path, data: bytes) -> None:
-    """Write to a temporary file beside ``path``, set the umask's permissions, then rename: a
-    failed run leaves the old file (or none), never half of one."""
-    descriptor, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
-    try:
-        with os.fdopen(descriptor, "wb") as handle:
-            handle.write(data)
-        apply_umask(Path(temporary))
-        os.replace(temporary, path)
-    except BaseException:
-        Path(temporary).unlink(missing_ok=True)
-        raise
 
 
 def load_commented(path: Path) -> Any:

@@ -18,12 +18,11 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import tempfile
 from pathlib import Path
 from typing import Any
 
 from relay.core.errors import ConfigError
+from relay.core.files import write_atomically
 from stages.lexicon.sound.phonetics import PHONES, CostModel
 
 __all__ = ["FORMAT", "VERSION", "read_costs", "write_costs"]
@@ -53,7 +52,8 @@ def read_costs(path: Path) -> CostModel:
 
 
 def write_costs(path: Path, model: CostModel, provenance: dict[str, Any]) -> None:
-    """Write ``model`` with its provenance, one matrix row per line, atomically (temporary file, then rename)."""
+    """Write ``model`` with its provenance, one matrix row per line, atomically (temporary file, then
+    rename) and readable as a plain ``open()`` would leave it (the umask's permissions)."""
     said_heard = [[model.substitution[h][s] for h in range(len(PHONES))] for s in range(len(PHONES))]
     lines = ["{", f' "format": {json.dumps(FORMAT)},', f' "version": {VERSION},',
              f' "phones": {json.dumps(list(PHONES))},', ' "substitution": [']
@@ -61,15 +61,7 @@ def write_costs(path: Path, model: CostModel, provenance: dict[str, Any]) -> Non
     lines += [" ],", f' "deletion": {json.dumps(list(model.deletion))},',
               f' "insertion": {json.dumps(list(model.insertion))},',
               f' "provenance": {json.dumps(provenance, indent=1, sort_keys=True)}', "}", ""]
-    path = Path(path)
-    descriptor, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}-", suffix=".tmp")
-    try:
-        with os.fdopen(descriptor, "w", encoding="utf-8") as out:
-            out.write("\n".join(lines))
-        os.replace(temporary, path)
-    except BaseException:
-        Path(temporary).unlink(missing_ok=True)
-        raise
+    write_atomically(Path(path), "\n".join(lines).encode("utf-8"))
 
 
 def _parse(path: Path) -> tuple[dict[str, Any] | None, list[str]]:

@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import json
+import os
 import random
+import stat
 from pathlib import Path
 from typing import Any
 
@@ -35,6 +37,16 @@ def test_a_written_model_reads_back_the_same(tmp_path: Path) -> None:
     assert again == model  # the three cost tables, value for value
     assert json.loads(path.read_text())["provenance"]["recogniser"] == "example"
     assert list(path.parent.iterdir()) == [path]  # no temporary file left behind
+
+
+def test_a_written_model_is_readable_as_the_umask_allows(tmp_path: Path) -> None:
+    # A relay running as another user reads the file: not the 0600 of a temporary file.
+    old = os.umask(0o022)
+    try:
+        write_costs(tmp_path / "costs.json", asymmetric_model(), {})
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE((tmp_path / "costs.json").stat().st_mode) == 0o644
 
 
 def test_rows_are_said_and_columns_heard(tmp_path: Path) -> None:
