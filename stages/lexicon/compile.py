@@ -24,13 +24,13 @@ from relay.core.errors import ConfigError
 from stages.lexicon.data import LexiconEntry, read_lexicon
 from stages.lexicon.sound.g2p import MODEL_FILE
 from stages.lexicon.sound.phone_index import PhoneIndex
-from stages.lexicon.sound.phonetics import broad
+from stages.lexicon.sound.phonetics import broad, skeleton
 from stages.lexicon.sound.pronounce import Pronouncer
 from stages.lexicon.sound.respell import RespellError
 
 __all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys", "word_run_keys"]
 
-COMPILE_FORMAT = "lexicon-compiled-8"  # 8: with the broad-class index
+COMPILE_FORMAT = "lexicon-compiled-9"  # 8: with the broad-class index; 9: and the skeleton index
 
 
 @lru_cache(maxsize=65536)
@@ -77,6 +77,7 @@ class CompiledLexicon:
     forms: list[Form]
     index: PhoneIndex
     broad_index: PhoneIndex  # the same forms in broad phone classes (stages.lexicon.sound.phonetics.broad)
+    skeleton_index: PhoneIndex  # and as consonant skeletons (stages.lexicon.sound.phonetics.skeleton)
     exact: dict[str, list[int]]  # form text -> form numbers
     max_words: int
     digest: str
@@ -100,8 +101,9 @@ def compile_entries(entries: list[LexiconEntry], pronouncer: Pronouncer, *, dige
         raise ConfigError("Lexicon is invalid", problems)
     index = PhoneIndex([form.phones for form in forms], max_postings=max_postings)
     broad_index = PhoneIndex([broad(form.phones) for form in forms], max_postings=max_postings)
+    skeleton_index = PhoneIndex([skeleton(form.phones) for form in forms], max_postings=max_postings)
     max_words = max(len(form.text.split()) for form in forms)
-    return CompiledLexicon(entries, forms, index, broad_index, exact, max_words, digest)
+    return CompiledLexicon(entries, forms, index, broad_index, skeleton_index, exact, max_words, digest)
 
 
 def _digest(path: Path, max_postings: int) -> str:

@@ -45,7 +45,9 @@ class GeneralSearch:
         self.weights = Weights(match.weight_phone, match.weight_spelling, match.weight_keys, match.candidates,
                                match.min_retrieval, match.pair_floor, match.min_phone,
                                align_floor=match.align_floor, broad_candidates=match.broad_candidates,
-                               broad_min_retrieval=match.broad_min_retrieval)
+                               broad_min_retrieval=match.broad_min_retrieval,
+                               skeleton_candidates=match.skeleton_candidates,
+                               skeleton_min_retrieval=match.skeleton_min_retrieval)
 
     def entries(self, utterance: Utterance, top: int) -> list[Evidence]:
         """The entries the N-best supports enough to be corrected or traced, strongest first."""

@@ -26,7 +26,7 @@ from rapidfuzz.process import cpdist
 from relay.core.utterance import Hypothesis
 from stages.lexicon.compile import CompiledLexicon, Form, word_run_keys
 from stages.lexicon.sound.kernels import compiled
-from stages.lexicon.sound.phonetics import _CHAR_BASE, PHONES, CostModel, batch_similarity, broad
+from stages.lexicon.sound.phonetics import _CHAR_BASE, PHONES, CostModel, batch_similarity, broad, skeleton
 from stages.lexicon.sound.pronounce import Pronouncer
 
 __all__ = ["Evidence", "Sighting", "Spans", "Weights", "best_entries", "find_spans", "pool", "score_spans"]
@@ -44,6 +44,8 @@ class Weights:
     align_floor: float  # pairs below this unit-cost phone similarity are not aligned at all
     broad_candidates: int = 0  # forms taken per span from the broad-class index as well (0: none)
     broad_min_retrieval: float = 0.3
+    skeleton_candidates: int = 0  # and from the consonant-skeleton index (0: none)
+    skeleton_min_retrieval: float = 0.6
 
 
 @dataclass(slots=True)
@@ -131,11 +133,15 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     hits = lexicon.index.search(spans.phones, k=weights.candidates,
                                 min_score=weights.min_retrieval)
     queries, items = hits.query.tolist(), hits.item.tolist()
-    if weights.broad_candidates:
-        # A second way in: the same search over broad phone classes, for spans whose vowels or
-        # voicing the recogniser changed; a pair both ways find is kept once, where it came first.
-        more = lexicon.broad_index.search([broad(p) for p in spans.phones], k=weights.broad_candidates,
-                                          min_score=weights.broad_min_retrieval)
+    # Two more ways in: the same search over broad phone classes, for spans whose vowels or
+    # voicing the recogniser changed, and over consonant skeletons, for spans that gained or lost
+    # a vowel; a pair found several ways is kept once, where it came first.
+    for index, recast, k, least in ((lexicon.broad_index, broad, weights.broad_candidates, weights.broad_min_retrieval),
+                                    (lexicon.skeleton_index, skeleton, weights.skeleton_candidates,
+                                     weights.skeleton_min_retrieval)):
+        if not k:
+            continue
+        more = index.search([recast(p) for p in spans.phones], k=k, min_score=least)
         seen = set(zip(queries, items))
         extra = [(q, f) for q, f in zip(more.query.tolist(), more.item.tolist()) if (q, f) not in seen]
         queries += [q for q, _ in extra]

@@ -31,6 +31,7 @@ __all__ = [
     "encode",
     "is_phone",
     "similarity",
+    "skeleton",
     "strip_stress",
 ]
 
@@ -92,9 +93,23 @@ _BROAD_CHARS = str.maketrans({chr(_CHAR_BASE + _INDEX[p]): chr(_CHAR_BASE + _IND
                               for p in PHONES})
 
 
+# The consonant skeleton: vowels and h left out (schwas come and go: "chandlery" heard as
+# "chandelry"), ER read as R, voicing ignored, and the four hushing sounds (CH JH SH ZH) as one.
+_SKELETON = {**{v: "" for v in _VOWELS}, "ER": "R", "HH": "", "B": "P", "D": "T", "G": "K", "V": "F",
+             "DH": "TH", "Z": "S", "JH": "SH", "CH": "SH", "ZH": "SH"}
+_SKELETON_CHARS = str.maketrans({
+    chr(_CHAR_BASE + _INDEX[p]): (chr(_CHAR_BASE + _INDEX[_SKELETON.get(p, p)]) if _SKELETON.get(p, p) else None)
+    for p in PHONES})
+
+
 def broad(text: str) -> str:
     """An encoded phone string in broad classes (see ``_BROAD``), same encoding and length."""
     return text.translate(_BROAD_CHARS)
+
+
+def skeleton(text: str) -> str:
+    """An encoded phone string's consonant skeleton (see ``_SKELETON``), same encoding, shorter."""
+    return text.translate(_SKELETON_CHARS)
 
 
 def decode(text: str) -> list[str]:
