@@ -53,6 +53,7 @@ FEATURES: tuple[str, ...] = (
     "text_lm_relative",   # text_lm_per_word relative to the in-domain lines' own (standard deviations)
     "line_edit_share",    # line_edits per word of the result
     "asr_word_mean",      # mean natural log of the recogniser's per-word probabilities (`word_probs`), when given
+    "missing_slots",      # slots of the nearest in-domain line beyond the entities found
 )
 _LM_FLOOR = -30.0
 # Which way each feature may move the confidence, where the direction is known before any data:
@@ -63,7 +64,7 @@ SIGNS: dict[str, int] = {
     "posterior": 1, "margin": 1, "weakest_entity": 1, "corrections": -1, "lm_per_word": 1,
     "text_lm_per_word": 1, "text_lm_weakest": 1, "text_oov": -1, "unfilled_slots": -1, "line_edits": -1,
     "asr_log_conf": 1, "weakest_support": 1, "weakest_heard": 1, "weakest_lead": 1, "invented": -1,
-    "rewritten": -1, "text_lm_relative": 1, "line_edit_share": -1, "asr_word_mean": 1,
+    "rewritten": -1, "text_lm_relative": 1, "line_edit_share": -1, "asr_word_mean": 1, "missing_slots": -1,
 }
 
 

@@ -43,6 +43,7 @@ class GateFeatures:
     unfilled_slots: int | None = None  # 1 when a carrier phrase has a slot no entity fills; None: no carrier_text
     unfilled_type: str | None = None  # that slot's entity type
     line_edits: int | None = None  # word edits to the nearest in-domain line; None: no carrier_text
+    missing_slots: int | None = None  # slots of that nearest line beyond the result's entities
     asr_log_conf: float | None = None  # ln of the highest `conf` the recogniser gave; None: it gave none
     asr_word_mean: float | None = None  # mean ln of the first hypothesis's `word_probs`; None: not given
     # How the N-best backs the entities (the lexicon stage's evidence); None without entities.
@@ -68,6 +69,7 @@ class GateFeatures:
             "text_oov": None if self.text_oov is None else float(self.text_oov),
             "unfilled_slots": None if self.unfilled_slots is None else float(self.unfilled_slots),
             "line_edits": None if self.line_edits is None else float(self.line_edits),
+            "missing_slots": None if self.missing_slots is None else float(self.missing_slots),
             "asr_log_conf": self.asr_log_conf,
             "asr_word_mean": self.asr_word_mean,
             # Without entities there is no evidence to weigh: unknown (a model counts its training

@@ -67,7 +67,7 @@ class GateStage:
         used = set(given.features) if given is not None else set()
         for needed, path, where in ((sorted(n for n in used if n.startswith("text_")), self.lm_path,
                                      "domain.language_model (or lm_model)"),
-                                    (sorted(used & {"unfilled_slots", "line_edits"}), self.text_path,
+                                    (sorted(used & {"unfilled_slots", "line_edits", "line_edit_share", "missing_slots"}), self.text_path,
                                      "domain.text (or carrier_text)")):
             if needed and path is None:
                 raise ConfigError(f"confidence uses {', '.join(needed)}", [f"which need {where}"])
@@ -110,7 +110,8 @@ class GateStage:
             in_domain = {"unfilled_slots": int(empty is not None), "unfilled_type": empty and empty.type}
             utterance.check_deadline()
         if self.lines is not None:
-            in_domain["line_edits"] = self.lines.edits(marked)
+            nearest = self.lines.nearest(marked)
+            in_domain["line_edits"], in_domain["missing_slots"] = (None, None) if nearest is None else nearest
             utterance.check_deadline()
         return GateFeatures(
             posterior=top,

@@ -304,14 +304,24 @@ def test_line_edits_counts_words_away_from_the_nearest_in_domain_line(tmp_path: 
     assert far.line_edits == 4 and far.values()["line_edits"] == 4.0
 
 
+def test_missing_slots_counts_slots_of_the_nearest_line_no_entity_fills(tmp_path: Path) -> None:
+    stage = _carrier_gate(tmp_path)
+    bay = Entity(id="place.bay_1", type="place", name="bay one", span=(11, 18), heard="they won", score=0.9)
+    found = stage.features(make_utterance([0.9, 0.1], ["meet me in bay one", "x"], entities=[bay]))
+    assert found.missing_slots == 0 and found.values()["missing_slots"] == 0.0
+    # The place was not found: the nearest line ("meet me in {place}") holds a slot the result does not.
+    assert stage.features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).missing_slots == 1
+
+
 def test_without_carrier_text_the_feature_is_unknown() -> None:
     features = gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"]))
     assert features.unfilled_slots is None and features.values()["unfilled_slots"] is None
     assert features.line_edits is None and features.values()["line_edits"] is None
+    assert features.missing_slots is None and features.values()["missing_slots"] is None
 
 
 def test_unfilled_slots_needs_carrier_text() -> None:
-    for feature in ("unfilled_slots", "line_edits"):
+    for feature in ("unfilled_slots", "line_edits", "line_edit_share", "missing_slots"):
         with pytest.raises(ConfigError, match=f"confidence uses {feature}") as caught:
             gate(confidence={"features": {feature: {"weight": -1.0}}})
         assert "which need domain.text (or carrier_text)" in str(caught.value)
