@@ -44,6 +44,7 @@ class GateFeatures:
     unfilled_type: str | None = None  # that slot's entity type
     line_edits: int | None = None  # word edits to the nearest in-domain line; None: no carrier_text
     missing_slots: int | None = None  # slots of that nearest line beyond the result's entities
+    missing_type: str | None = None  # the first such slot's entity type
     asr_log_conf: float | None = None  # ln of the highest `conf` the recogniser gave; None: it gave none
     asr_word_mean: float | None = None  # mean ln of the first hypothesis's `word_probs`; None: not given
     # How the N-best backs the entities (the lexicon stage's evidence); None without entities.

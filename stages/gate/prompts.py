@@ -25,8 +25,9 @@ def prompt_for(utterance: Utterance, decision: Decision, rule: str, features: Ga
         corrected = {c.after for c in utterance.corrections}
         about = next((e for e in utterance.entities if e.name in corrected), None)
         about = about or min(utterance.entities, key=lambda e: e.score)
-    # Asking again with a slot that only everyday words filled: ask for that slot ("Which room?").
-    missing = features.unfilled_type if decision == "reprompt" and about is None else None
+    # Asking again with a slot that only everyday words filled, or one the nearest in-domain line
+    # holds and no entity fills: ask for that slot ("Which room?").
+    missing = (features.unfilled_type or features.missing_type) if decision == "reprompt" and about is None else None
     entity_type = about.type if about is not None else missing
     prompts = settings.prompts
     if entity_type is not None and entity_type in settings.prompts_by_type:

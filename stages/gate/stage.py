@@ -111,7 +111,9 @@ class GateStage:
             utterance.check_deadline()
         if self.lines is not None:
             nearest = self.lines.nearest(marked)
-            in_domain["line_edits"], in_domain["missing_slots"] = (None, None) if nearest is None else nearest
+            if nearest is not None:
+                in_domain |= {"line_edits": nearest.edits, "missing_slots": nearest.missing,
+                              "missing_type": nearest.missing_type}
             utterance.check_deadline()
         return GateFeatures(
             posterior=top,

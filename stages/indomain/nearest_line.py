@@ -19,12 +19,22 @@ call per line length, nearest lengths first: about 30 us against the workshop's 
 
 from __future__ import annotations
 
+from collections import Counter
 from collections.abc import Iterable, Sequence
+from typing import NamedTuple
 
 from rapidfuzz.distance import Levenshtein
 from rapidfuzz.process import extract, extractOne
 
-__all__ = ["NearestLine"]
+__all__ = ["Nearest", "NearestLine"]
+
+
+class Nearest(NamedTuple):
+    """A text against the nearest in-domain line."""
+
+    edits: int  # fewest word edits to a line
+    missing: int  # slots of that line (the fewest among lines as near) no entity of the text fills
+    missing_type: str | None  # the first such slot's entity type
 
 
 def _character(number: int) -> str:
@@ -44,8 +54,8 @@ class NearestLine:
         self._by_length: dict[int, list[str]] = {}
         for line in sorted(coded):
             self._by_length.setdefault(len(line), []).append(line)
-        markers = frozenset(code for token, code in self._codes.items() if token.startswith("{"))
-        self._slots = {line: sum(ch in markers for ch in line) for line in coded}
+        markers = {code: token for token, code in self._codes.items() if token.startswith("{")}
+        self._slots = {line: [markers[ch] for ch in line if ch in markers] for line in coded}  # markers, in order
 
     def __len__(self) -> int:
         return sum(len(lines) for lines in self._by_length.values())
@@ -61,12 +71,11 @@ class NearestLine:
         """Fewest word edits from ``tokens`` (entities as ``{type}`` markers) to a line; None
         when there are no lines."""
         found = self.nearest(tokens)
-        return None if found is None else found[0]
+        return None if found is None else found.edits
 
-    def nearest(self, tokens: Sequence[str]) -> tuple[int, int] | None:
-        """Fewest word edits from ``tokens`` (entities as ``{type}`` markers) to a line, and how
-        many more slots than ``tokens`` has entities that nearest line holds (0 when it holds
-        no more); None when there are no lines."""
+    def nearest(self, tokens: Sequence[str]) -> Nearest | None:
+        """Fewest word edits from ``tokens`` (entities as ``{type}`` markers) to a line, and the
+        slots that nearest line holds beyond the text's entities; None when there are no lines."""
         if not self._by_length:
             return None
         # A word no line uses gets a code of its own after the lines' words, one per distinct
@@ -86,13 +95,23 @@ class NearestLine:
                 best, line = int(found[1]), found[0]
         if best is None:
             return None
-        entities = sum(token.startswith("{") for token in tokens)
-        slots = self._slots[line]
-        if slots > entities:
-            # Another line as near may miss fewer slots: look at every line within reach.
+        entities = Counter(token for token in tokens if token.startswith("{"))
+        count = sum(entities.values())
+        if len(self._slots[line]) > count:
+            # Another line as near may have fewer slots: look at every line within reach.
             for length, lines in self._by_length.items():
                 if abs(length - len(query)) <= best:
                     for other, _, _ in extract(query, lines, scorer=Levenshtein.distance, score_cutoff=best,
                                                limit=None):
-                        slots = min(slots, self._slots[other])
-        return best, max(0, slots - entities)
+                        if len(self._slots[other]) < len(self._slots[line]):
+                            line = other
+        missing = max(0, len(self._slots[line]) - count)
+        # Which slot: the first of the line's whose type the text's entities do not account for.
+        left = Counter(entities)
+        unfilled = None
+        for marker in self._slots[line] if missing else ():
+            if left[marker] > 0:
+                left[marker] -= 1
+            elif unfilled is None:
+                unfilled = marker[1:-1]
+        return Nearest(best, missing, unfilled)

@@ -313,6 +313,22 @@ def test_missing_slots_counts_slots_of_the_nearest_line_no_entity_fills(tmp_path
     assert stage.features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).missing_slots == 1
 
 
+def test_a_missing_slot_lowers_confidence_and_the_reprompt_asks_for_its_type(tmp_path: Path) -> None:
+    (tmp_path / "train.txt").write_text("meet me in {place}\nbook the {machine} for {person}\n")
+    stage = gate(carrier_text=str(tmp_path / "train.txt"), accept_confidence=0.6, reprompt_confidence=0.2,
+                 confidence={"bias": 2.0, "features": {"missing_slots": {"weight": -4.0, "center": 0.0, "scale": 1.0}}},
+                 type_nouns={"place": "room"}, safety_words=[])
+    stage.load()
+    # "meet in there": no carrier phrase matches word for word, but the nearest line, two edits
+    # away, holds a place the result has no entity for: sigmoid(2 - 4) = 0.12, below 0.2.
+    missed = stage.process(make_utterance([0.9, 0.1], ["meet in there", "meat in there"]))
+    assert missed.trace[-1].scores["unfilled_slots"] == 0
+    assert (missed.decision, missed.prompt) == ("reprompt", "Which room?")
+    bay = Entity(id="place.bay_1", type="place", name="bay one", span=(8, 15), heard="bay one", score=1.0)
+    found = stage.process(make_utterance([0.9, 0.1], ["meet in bay one", "x"], entities=[bay]))
+    assert found.decision == "accept"
+
+
 def test_without_carrier_text_the_feature_is_unknown() -> None:
     features = gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"]))
     assert features.unfilled_slots is None and features.values()["unfilled_slots"] is None

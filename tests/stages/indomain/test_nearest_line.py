@@ -59,19 +59,19 @@ def test_missing_slots_are_the_nearest_lines_slots_beyond_the_texts_entities() -
     near = NearestLine(line.split() for line in LINES)
     # Worked by hand: "tell the lathe is free" is two edits from "tell {person} the {machine} is
     # free" ({person} left out, "lathe" for {machine}), and further from every other line.
-    assert near.nearest("tell the lathe is free".split()) == (2, 2)
-    assert near.nearest("tell {person} the lathe is free".split()) == (1, 1)
-    assert near.nearest("call {person}".split()) == (0, 0)
-    assert near.nearest("meet me in there".split()) == (1, 1)
+    assert near.nearest("tell the lathe is free".split()) == (2, 2, "person")
+    assert near.nearest("tell {person} the lathe is free".split()) == (1, 1, "machine")
+    assert near.nearest("call {person}".split()) == (0, 0, None)
+    assert near.nearest("meet me in there".split()) == (1, 1, "place")
     # More entities than the line has slots is not a missing slot.
-    assert near.nearest("meet {person} in {place}".split()) == (1, 0)
+    assert near.nearest("meet {person} in {place}".split()) == (1, 0, None)
     assert NearestLine([]).nearest(["call", "{person}"]) is None
 
 
 def test_missing_slots_take_the_fewest_among_equally_near_lines() -> None:
     near = NearestLine([["call", "{person}"], ["call", "now"]])
     # "call him" is one substitution from both lines; one of them has no slot to miss.
-    assert near.nearest(["call", "him"]) == (1, 0)
+    assert near.nearest(["call", "him"]) == (1, 0, None)
 
 
 def test_nearest_matches_jiwer_on_random_texts() -> None:
@@ -85,7 +85,7 @@ def test_nearest_matches_jiwer_on_random_texts() -> None:
         markers = sum(w.startswith("{") for w in words)
         missing = min(max(0, sum(w.startswith("{") for w in line.split()) - markers)
                       for line, d in distances.items() if d == best)
-        assert near.nearest(words) == (best, missing), words
+        assert near.nearest(words)[:2] == (best, missing), words
 
 
 def test_names_in_literal_lines_count_as_their_slot() -> None:
