@@ -117,6 +117,8 @@ def _word_spans_python(token_lists: Sequence[Sequence[str]], sound_lists: Sequen
 
 
 _span_keys = lru_cache(maxsize=32768)(word_run_keys)  # span words recur from message to message
+_broad_span = lru_cache(maxsize=32768)(broad)  # and so do their phones
+_skeleton_span = lru_cache(maxsize=32768)(skeleton)
 
 
 def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
@@ -132,23 +134,29 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
                 exact_pairs.add((number, form))
     hits = lexicon.index.search(spans.phones, k=weights.candidates,
                                 min_score=weights.min_retrieval)
-    queries, items = hits.query.tolist(), hits.item.tolist()
     # Two more ways in: the same search over broad phone classes, for spans whose vowels or
     # voicing the recogniser changed, and over consonant skeletons, for spans that gained or lost
     # a vowel; a pair found several ways is kept once, where it came first.
-    for index, recast, k, least in ((lexicon.broad_index, broad, weights.broad_candidates, weights.broad_min_retrieval),
-                                    (lexicon.skeleton_index, skeleton, weights.skeleton_candidates,
-                                     weights.skeleton_min_retrieval)):
-        if not k:
-            continue
-        more = index.search([recast(p) for p in spans.phones], k=k, min_score=least)
-        seen = set(zip(queries, items))
-        extra = [(q, f) for q, f in zip(more.query.tolist(), more.item.tolist()) if (q, f) not in seen]
-        queries += [q for q, _ in extra]
-        items += [f for _, f in extra]
+    more = [index.search([recast(p) for p in spans.phones], k=k, min_score=least)
+            for index, recast, k, least in ((lexicon.broad_index, _broad_span, weights.broad_candidates,
+                                             weights.broad_min_retrieval),
+                                            (lexicon.skeleton_index, _skeleton_span, weights.skeleton_candidates,
+                                             weights.skeleton_min_retrieval)) if k]
     forms = lexicon.forms
     if compiled is not None:
-        return _score_pairs_compiled(spans, forms, queries, items, exact_pairs, weights, costs, pairs)
+        query, item = hits.query, hits.item
+        for extra_hits in more:
+            size = len(query) + len(extra_hits.query)
+            merged_query, merged_item = np.empty(size, np.int32), np.empty(size, np.int32)
+            found = compiled.merge_hits(query, item, extra_hits.query, extra_hits.item, merged_query, merged_item)
+            query, item = merged_query[:found], merged_item[:found]
+        return _score_pairs_compiled(spans, forms, query, item, exact_pairs, weights, costs, pairs)
+    queries, items = hits.query.tolist(), hits.item.tolist()
+    for extra_hits in more:
+        seen = set(zip(queries, items))
+        extra = [(q, f) for q, f in zip(extra_hits.query.tolist(), extra_hits.item.tolist()) if (q, f) not in seen]
+        queries += [q for q, _ in extra]
+        items += [f for _, f in extra]
     # A plain edit-distance similarity (rapidfuzz, in C) screens pairs before the costlier
     # feature alignment; see stages/lexicon/README.md for how the threshold was chosen.
     screen = weights.align_floor
@@ -189,17 +197,19 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     return pairs
 
 
-def _score_pairs_compiled(spans: Spans, forms: list[Form], queries: list[int], items: list[int],
-                          exact_pairs: set[tuple[int, int]], weights: Weights, costs: CostModel,
-                          pairs: list[tuple[int, int, float, bool]]) -> list[tuple[int, int, float, bool]]:
+def _score_pairs_compiled(spans: Spans, forms: list[Form], queries: npt.NDArray[np.int32],
+                          items: npt.NDArray[np.int32], exact_pairs: set[tuple[int, int]], weights: Weights,
+                          costs: CostModel, pairs: list[tuple[int, int, float, bool]]
+                          ) -> list[tuple[int, int, float, bool]]:
     """The rest of ``score_spans`` pair by pair in C (stages/lexicon/sound/_lexfast.c): the screen,
     the alignment and the phone floors, then the spelling and key terms of the pairs left; the
     same floats in the same order as the array code below it, so the same pairs and scores."""
     if compiled is None:
         raise RuntimeError("the compiled kernels are not built")
     if exact_pairs:
-        kept = [(q, f) for q, f in zip(queries, items) if (q, f) not in exact_pairs]
-        queries, items = [q for q, _ in kept], [f for _, f in kept]
+        kept = [(q, f) for q, f in zip(queries.tolist(), items.tolist()) if (q, f) not in exact_pairs]
+        queries = np.array([q for q, _ in kept], dtype=np.int32)
+        items = np.array([f for _, f in kept], dtype=np.int32)
     count = len(queries)
     if not count:
         return pairs
@@ -209,7 +219,7 @@ def _score_pairs_compiled(spans: Spans, forms: list[Form], queries: list[int], i
     chosen_item = np.empty(count, dtype=np.int32)
     score = np.empty(count, dtype=np.float64)
     found = compiled.pair_screen(
-        spans.phones, forms, np.asarray(queries, dtype=np.int32), np.asarray(items, dtype=np.int32),
+        spans.phones, forms, np.ascontiguousarray(queries, dtype=np.int32), np.ascontiguousarray(items, dtype=np.int32),
         weights.align_floor, costs.sub_array, costs.insertion_array, costs.deletion_array, len(PHONES) + 1,
         _CHAR_BASE, weights.phone, weights.spelling, weights.keys, weights.min_phone, floor,
         chosen_query, chosen_item, score)
@@ -253,8 +263,18 @@ def pool(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexicon: Compi
 
     Among spans scoring at least ``strong``, the one covering more words is preferred, so a
     near match of a full name ("tamsin okorra") is not lost to an exact match of its alias
-    ("tamsin") alone.
+    ("tamsin") alone. The compiled kernel (``pool_pairs`` in sound/_lexfast.c) does the same as
+    ``_pool_python`` in C: the same entries, sightings and pooled floats in the same order.
     """
+    if compiled is not None:
+        evidence: dict[int, Evidence] = compiled.pool_pairs(spans.occurrences, pairs, lexicon.forms, posteriors,
+                                                            strong, Evidence, Sighting)
+        return evidence
+    return _pool_python(spans, pairs, lexicon, posteriors, strong=strong)
+
+
+def _pool_python(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexicon: CompiledLexicon,
+                 posteriors: Sequence[float], *, strong: float = 0.75) -> dict[int, Evidence]:
     evidence: dict[int, Evidence] = {}
     forms = lexicon.forms
     words: dict[int, int] = {}  # form -> its word count, for the pairs _better weighs

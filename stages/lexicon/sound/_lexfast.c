@@ -1,5 +1,6 @@
 /* Compiled kernels of the lexicon stage: phone n-gram retrieval, feature-weighted alignment, the
-   graphone beam search of the G2P model, and the word spans of an N-best.
+   graphone beam search of the G2P model, the word spans of an N-best, the scoring of span/form
+   pairs, and the pooling of their evidence over the N-best (stages/lexicon/match.py _pool_python).
 
    Each gives the same results as the numpy or Python code it stands in for (stages/phone_index.py
    PhoneIndex._search_numpy, stages/phonetics.py _batch_alignment_cost_numpy, stages/g2p.py
@@ -11,6 +12,7 @@
 
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
+#include <math.h>
 #include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
@@ -1276,6 +1278,329 @@ done:
     return result;
 }
 
+/* ---- pooling: each entry's best sighting per hypothesis and their posterior-weighted sum ---- */
+
+static PyObject *attr_entry, *attr_words; /* interned names of the Form fields pooling reads */
+
+typedef struct {
+    double score;
+    Py_ssize_t start, end, form;
+    int exact;
+    /* The objects the Sighting is made of: borrowed from the pairs and occurrences, which the
+       caller holds for the whole call (the Python version passes these same objects). */
+    PyObject *score_obj, *start_obj, *end_obj, *form_obj, *exact_obj;
+} Seen;
+
+/* A Py_ssize_t attribute of forms[at] (the caller checked at), or -1 with an error set. */
+static Py_ssize_t form_int(PyObject *forms, Py_ssize_t at, PyObject *name) {
+    PyObject *value = PyObject_GetAttr(PyList_GET_ITEM(forms, at), name);
+    if (value == NULL)
+        return -1;
+    Py_ssize_t number = PyLong_AsSsize_t(value);
+    Py_DECREF(value);
+    if (number < 0 && !PyErr_Occurred())
+        PyErr_SetString(PyExc_ValueError, "pool_pairs: a form's entry and word count must not be negative");
+    return number;
+}
+
+/* match.py _better: whether a new sighting replaces the held one when either is exact; the words
+   are the word counts of their forms. */
+static int better_seen(const Seen *new, const Seen *held, double strong, Py_ssize_t new_words,
+                       Py_ssize_t held_words) {
+    Py_ssize_t new_length = new->end - new->start, held_length = held->end - held->start;
+    int contains = new->start <= held->start && held->end <= new->end && new_length > held_length &&
+                   new_words > held_words;
+    int inside = held->start <= new->start && new->end <= held->end && held_length > new_length &&
+                 held_words > new_words;
+    if (held->exact && !new->exact && new->score >= strong && contains)
+        return 1;
+    if (new->exact && !held->exact && held->score >= strong && inside)
+        return 0;
+    return new->score > held->score || (new->score == held->score && new_length > held_length);
+}
+
+PyDoc_STRVAR(pool_doc,
+"pool_pairs(occurrences, pairs, forms, posteriors, strong, evidence, sighting) -> dict\n\n"
+"stages/lexicon/match.py _pool_python: for each entry (forms[f].entry of a pair (q, f, score, exact))\n"
+"the best sighting in each hypothesis over the occurrences[q] (hypothesis, start, end) of its\n"
+"spans, and pooled, the sum over those hypotheses of posteriors[h] x score as Python's sum adds it.\n"
+"Returns {entry: evidence(entry, pooled, {h: sighting(score, start, end, f, exact)})} with\n"
+"entries and hypotheses in order of first sighting, as the Python version does.");
+
+static PyObject *pool_pairs(PyObject *self, PyObject *args) {
+    PyObject *occurrences, *pair_list, *forms, *posterior_list, *evidence_type, *sighting_type;
+    double strong;
+    if (!PyArg_ParseTuple(args, "O!OO!OdOO", &PyList_Type, &occurrences, &pair_list, &PyList_Type, &forms,
+                          &posterior_list, &strong, &evidence_type, &sighting_type))
+        return NULL;
+    PyObject *pairs = PySequence_Fast(pair_list, "pool_pairs: pairs must be a sequence");
+    if (pairs == NULL)
+        return NULL;
+    PyObject *posteriors = PySequence_Fast(posterior_list, "pool_pairs: posteriors must be a sequence");
+    if (posteriors == NULL) {
+        Py_DECREF(pairs);
+        return NULL;
+    }
+    Py_ssize_t count = PySequence_Fast_GET_SIZE(pairs), hypotheses = PySequence_Fast_GET_SIZE(posteriors);
+    Py_ssize_t spans = PyList_GET_SIZE(occurrences), form_count = PyList_GET_SIZE(forms);
+    Py_ssize_t cells = count * hypotheses, known = 0; /* entries seen so far */
+    PyObject *result = NULL, *evidence = NULL, **entries = NULL;
+    double *weights = malloc(sizeof(double) * (size_t)(hypotheses + 1));
+    Seen *seen = malloc(sizeof(Seen) * (size_t)(cells + 1));
+    char *held = calloc((size_t)(cells + 1), 1);
+    int32_t *order = malloc(sizeof(int32_t) * (size_t)(cells + 1)); /* per entry: hypotheses in order first seen */
+    Py_ssize_t *sighted = calloc((size_t)(count + 1), sizeof(Py_ssize_t)), mask = 16 - 1;
+    while (mask + 1 < 2 * count)
+        mask = 2 * mask + 1;
+    int64_t *slots = malloc(sizeof(int64_t) * (size_t)(mask + 1)); /* entry ids, -1 when empty */
+    Py_ssize_t *slot_entry = malloc(sizeof(Py_ssize_t) * (size_t)(mask + 1));
+    entries = calloc((size_t)(count + 1), sizeof(PyObject *)); /* owned: each entry's number as given */
+    if (!weights || !seen || !held || !order || !sighted || !slots || !slot_entry || !entries) {
+        PyErr_NoMemory();
+        goto done;
+    }
+    memset(slots, 0xff, sizeof(int64_t) * (size_t)(mask + 1));
+    for (Py_ssize_t h = 0; h < hypotheses; h++) {
+        weights[h] = PyFloat_AsDouble(PySequence_Fast_GET_ITEM(posteriors, h));
+        if (weights[h] == -1.0 && PyErr_Occurred())
+            goto done;
+    }
+    for (Py_ssize_t p = 0; p < count; p++) {
+        PyObject *pair = PySequence_Fast_GET_ITEM(pairs, p);
+        if (!PyTuple_Check(pair) || PyTuple_GET_SIZE(pair) != 4) {
+            PyErr_SetString(PyExc_TypeError, "pool_pairs: each pair must be a tuple (span, form, score, exact)");
+            goto done;
+        }
+        Seen new;
+        new.form_obj = PyTuple_GET_ITEM(pair, 1);
+        new.score_obj = PyTuple_GET_ITEM(pair, 2);
+        new.exact_obj = PyTuple_GET_ITEM(pair, 3);
+        Py_ssize_t q = PyLong_AsSsize_t(PyTuple_GET_ITEM(pair, 0));
+        new.form = PyLong_AsSsize_t(new.form_obj);
+        new.score = PyFloat_AsDouble(new.score_obj);
+        new.exact = PyObject_IsTrue(new.exact_obj);
+        if (PyErr_Occurred() || new.exact < 0)
+            goto done;
+        if (q < 0 || q >= spans || new.form < 0 || new.form >= form_count) {
+            PyErr_SetString(PyExc_IndexError, "pool_pairs: span or form number out of range");
+            goto done;
+        }
+        PyObject *entry = PyObject_GetAttr(PyList_GET_ITEM(forms, new.form), attr_entry);
+        if (entry == NULL)
+            goto done;
+        Py_ssize_t id = PyLong_AsSsize_t(entry);
+        if (id < 0) {
+            if (!PyErr_Occurred())
+                PyErr_SetString(PyExc_ValueError, "pool_pairs: a form's entry must not be negative");
+            Py_DECREF(entry);
+            goto done;
+        }
+        Py_ssize_t at = (Py_ssize_t)(((uint64_t)id * 0x9E3779B97F4A7C15ull) >> 32) & mask;
+        while (slots[at] != -1 && slots[at] != (int64_t)id)
+            at = (at + 1) & mask;
+        if (slots[at] == -1) {
+            slots[at] = (int64_t)id;
+            slot_entry[at] = known;
+            entries[known++] = entry; /* the reference is kept */
+        } else {
+            Py_DECREF(entry);
+        }
+        Py_ssize_t e = slot_entry[at];
+        PyObject *places = PyList_GET_ITEM(occurrences, q);
+        if (!PyList_Check(places)) {
+            PyErr_SetString(PyExc_TypeError, "pool_pairs: each span's occurrences must be a list");
+            goto done;
+        }
+        for (Py_ssize_t o = 0; o < PyList_GET_SIZE(places); o++) {
+            PyObject *place = PyList_GET_ITEM(places, o);
+            if (!PyTuple_Check(place) || PyTuple_GET_SIZE(place) != 3) {
+                PyErr_SetString(PyExc_TypeError, "pool_pairs: an occurrence must be a tuple (hypothesis, start, end)");
+                goto done;
+            }
+            new.start_obj = PyTuple_GET_ITEM(place, 1);
+            new.end_obj = PyTuple_GET_ITEM(place, 2);
+            Py_ssize_t h = PyLong_AsSsize_t(PyTuple_GET_ITEM(place, 0));
+            new.start = PyLong_AsSsize_t(new.start_obj);
+            new.end = PyLong_AsSsize_t(new.end_obj);
+            if (PyErr_Occurred())
+                goto done;
+            if (h < 0 || h >= hypotheses) {
+                PyErr_SetString(PyExc_IndexError, "pool_pairs: hypothesis number outside the posteriors");
+                goto done;
+            }
+            Py_ssize_t cell = e * hypotheses + h;
+            Seen *old = &seen[cell];
+            if (!held[cell]) {
+                held[cell] = 1;
+                order[e * hypotheses + sighted[e]++] = (int32_t)h;
+                *old = new;
+            } else if (new.exact || old->exact) {
+                Py_ssize_t new_words = form_int(forms, new.form, attr_words);
+                if (new_words < 0)
+                    goto done;
+                Py_ssize_t old_words = form_int(forms, old->form, attr_words);
+                if (old_words < 0)
+                    goto done;
+                if (better_seen(&new, old, strong, new_words, old_words))
+                    *old = new;
+            } else if (new.score > old->score ||
+                       (new.score == old->score && new.end - new.start > old->end - old->start)) {
+                *old = new; /* neither exact: the higher score, then the longer span */
+            }
+        }
+    }
+    evidence = PyDict_New();
+    if (evidence == NULL)
+        goto done;
+    for (Py_ssize_t e = 0; e < known; e++) {
+        PyObject *by_hypothesis = PyDict_New();
+        if (by_hypothesis == NULL)
+            goto done;
+        /* float(sum([...])): the int 0 plus the first product, then the rest as this Python's sum
+           adds floats (plain additions before 3.12, Neumaier's compensated sum since). */
+        double total = 0.0, compensation = 0.0;
+        for (Py_ssize_t k = 0; k < sighted[e]; k++) {
+            Py_ssize_t h = order[e * hypotheses + k];
+            const Seen *best = &seen[e * hypotheses + h];
+            PyObject *fields[5] = {best->score_obj, best->start_obj, best->end_obj, best->form_obj, best->exact_obj};
+            PyObject *sighting = PyObject_Vectorcall(sighting_type, fields, 5, NULL);
+            PyObject *key = sighting ? PyLong_FromSsize_t(h) : NULL;
+            int failed = key == NULL || PyDict_SetItem(by_hypothesis, key, sighting) < 0;
+            Py_XDECREF(key);
+            Py_XDECREF(sighting);
+            if (failed) {
+                Py_DECREF(by_hypothesis);
+                goto done;
+            }
+            double x = weights[h] * best->score;
+            if (k == 0) {
+                total = 0.0 + x;
+                continue;
+            }
+#if PY_VERSION_HEX >= 0x030C0000
+            double t = total + x;
+            if (fabs(total) >= fabs(x))
+                compensation += (total - t) + x;
+            else
+                compensation += (x - t) + total;
+            total = t;
+#else
+            total += x;
+#endif
+        }
+#if PY_VERSION_HEX >= 0x030C0000
+        if (compensation != 0.0 && isfinite(compensation))
+            total += compensation;
+#else
+        (void)compensation;
+#endif
+        PyObject *pooled = PyFloat_FromDouble(total);
+        if (pooled == NULL) {
+            Py_DECREF(by_hypothesis);
+            goto done;
+        }
+        PyObject *fields[3] = {entries[e], pooled, by_hypothesis};
+        PyObject *found = PyObject_Vectorcall(evidence_type, fields, 3, NULL);
+        Py_DECREF(pooled);
+        Py_DECREF(by_hypothesis);
+        int failed = found == NULL || PyDict_SetItem(evidence, entries[e], found) < 0;
+        Py_XDECREF(found);
+        if (failed)
+            goto done;
+    }
+    result = evidence;
+    evidence = NULL;
+done:
+    Py_XDECREF(evidence);
+    if (entries != NULL)
+        for (Py_ssize_t e = 0; e < known; e++)
+            Py_DECREF(entries[e]);
+    free(entries);
+    free(weights);
+    free(seen);
+    free(held);
+    free(order);
+    free(sighted);
+    free(slots);
+    free(slot_entry);
+    Py_DECREF(pairs);
+    Py_DECREF(posteriors);
+    return result;
+}
+
+/* ---- the two index searches' hits as one list of pairs ---- */
+
+/* Whether value is in an open-addressing set made by add_once. */
+static inline int holds(const int64_t *slots, Py_ssize_t mask, int64_t value) {
+    Py_ssize_t at = (Py_ssize_t)(((uint64_t)value * 0x9E3779B97F4A7C15ull) >> 32) & mask;
+    while (slots[at] != -1) {
+        if (slots[at] == value)
+            return 1;
+        at = (at + 1) & mask;
+    }
+    return 0;
+}
+
+PyDoc_STRVAR(merge_doc,
+"merge_hits(query, item, more_query, more_item, out_query, out_item) -> int\n\n"
+"The pairs (query[i], item[i]), then each pair (more_query[j], more_item[j]) that is not among\n"
+"those first ones, in order, into the out buffers (int32, room for both); returns how many.\n"
+"score_spans's merge of the phone and broad-class hits, as its Python version does it.");
+
+static PyObject *merge_hits(PyObject *self, PyObject *args) {
+    Py_buffer q_b, i_b, mq_b, mi_b, oq_b, oi_b;
+    if (!PyArg_ParseTuple(args, "y*y*y*y*w*w*", &q_b, &i_b, &mq_b, &mi_b, &oq_b, &oi_b))
+        return NULL;
+    PyObject *result = NULL;
+    int64_t *slots = NULL;
+    Py_ssize_t first = q_b.len / 4, more = mq_b.len / 4, mask = 16 - 1;
+    if (check_size(&i_b, first, 4, "item") < 0 || check_size(&mi_b, more, 4, "more_item") < 0 ||
+        check_size(&oq_b, first + more, 4, "out_query") < 0 || check_size(&oi_b, first + more, 4, "out_item") < 0)
+        goto done;
+    while (mask + 1 < 2 * first)
+        mask = 2 * mask + 1;
+    slots = malloc(sizeof(int64_t) * (size_t)(mask + 1));
+    if (slots == NULL) {
+        PyErr_NoMemory();
+        goto done;
+    }
+    memset(slots, 0xff, sizeof(int64_t) * (size_t)(mask + 1)); /* every slot -1: empty */
+    const int32_t *query = q_b.buf, *item = i_b.buf, *more_query = mq_b.buf, *more_item = mi_b.buf;
+    int32_t *out_query = oq_b.buf, *out_item = oi_b.buf;
+    Py_ssize_t written = 0;
+    for (Py_ssize_t i = 0; i < first; i++) {
+        if (query[i] < 0 || item[i] < 0) {
+            PyErr_SetString(PyExc_ValueError, "merge_hits: negative query or item");
+            goto done;
+        }
+        add_once(slots, mask, ((int64_t)query[i] << 32) | item[i]);
+        out_query[written] = query[i];
+        out_item[written] = item[i];
+        written++;
+    }
+    for (Py_ssize_t j = 0; j < more; j++) {
+        if (more_query[j] < 0 || more_item[j] < 0) {
+            PyErr_SetString(PyExc_ValueError, "merge_hits: negative query or item");
+            goto done;
+        }
+        if (holds(slots, mask, ((int64_t)more_query[j] << 32) | more_item[j]))
+            continue;
+        out_query[written] = more_query[j];
+        out_item[written] = more_item[j];
+        written++;
+    }
+    result = PyLong_FromSsize_t(written);
+done:
+    free(slots);
+    PyBuffer_Release(&q_b);
+    PyBuffer_Release(&i_b);
+    PyBuffer_Release(&mq_b);
+    PyBuffer_Release(&mi_b);
+    PyBuffer_Release(&oq_b);
+    PyBuffer_Release(&oi_b);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"search", search, METH_VARARGS, search_doc},
     {"alignment_costs", alignment_costs, METH_VARARGS, align_doc},
@@ -1283,6 +1608,8 @@ static PyMethodDef methods[] = {
     {"word_spans", word_spans, METH_VARARGS, spans_doc},
     {"pair_screen", pair_screen, METH_VARARGS, screen_doc},
     {"pair_finish", pair_finish, METH_VARARGS, finish_doc},
+    {"pool_pairs", pool_pairs, METH_VARARGS, pool_doc},
+    {"merge_hits", merge_hits, METH_VARARGS, merge_doc},
     {NULL, NULL, 0, NULL},
 };
 
@@ -1292,14 +1619,17 @@ static struct PyModuleDef module = {
 
 /* Raised when a kernel's arguments change, so stages/lexicon/sound/kernels.py can tell a module
    built from an older _lexfast.c (and fall back to numpy) instead of calling it wrongly.
-   2: alignment_costs takes separate insertion and deletion costs; 3: pair_screen and pair_finish. */
-#define KERNELS_VERSION 3
+   2: alignment_costs takes separate insertion and deletion costs; 3: pair_screen and pair_finish;
+   4: pool_pairs and merge_hits. */
+#define KERNELS_VERSION 4
 
 PyMODINIT_FUNC PyInit__lexfast(void) {
     attr_phones = PyUnicode_InternFromString("phones");
     attr_text = PyUnicode_InternFromString("text");
     attr_keys = PyUnicode_InternFromString("keys");
-    if (!attr_phones || !attr_text || !attr_keys)
+    attr_entry = PyUnicode_InternFromString("entry");
+    attr_words = PyUnicode_InternFromString("words");
+    if (!attr_phones || !attr_text || !attr_keys || !attr_entry || !attr_words)
         return NULL;
     PyObject *m = PyModule_Create(&module);
     if (m != NULL && PyModule_AddIntConstant(m, "version", KERNELS_VERSION) < 0) {

@@ -210,6 +210,10 @@ def test_a_compiled_module_built_from_older_source_is_not_used(monkeypatch: pyte
     older.version = 2  # type: ignore[attr-defined]
     assert kernels._load() is None  # nor one that predates the pair-scoring kernels
     older.pair_screen = older.pair_finish = lambda *args: None  # type: ignore[attr-defined]
+    older.version = 3  # type: ignore[attr-defined]
+    assert kernels._load() is None  # nor one that predates pooling and merging hits in C
+    older.pool_pairs = older.merge_hits = lambda *args: None  # type: ignore[attr-defined]
+    assert kernels._load() is None  # nor one with the functions whose version says they take other arguments
     older.version = kernels.VERSION  # type: ignore[attr-defined]
     assert kernels._load() is older
 

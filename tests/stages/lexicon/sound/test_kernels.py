@@ -23,7 +23,17 @@ from relay.workbench.phone_channel import PhonePair, fit_channel, to_costs
 from stages.lexicon import match
 from stages.lexicon.compile import CompiledLexicon, compile_entries
 from stages.lexicon.data import LexiconEntry
-from stages.lexicon.match import Spans, Weights, _word_spans_python, find_spans, score_spans
+from stages.lexicon.match import (
+    Evidence,
+    Sighting,
+    Spans,
+    Weights,
+    _pool_python,
+    _word_spans_python,
+    find_spans,
+    pool,
+    score_spans,
+)
 from stages.lexicon.sound.kernels import compiled
 from stages.lexicon.sound.phone_index import Hits, PhoneIndex
 from stages.lexicon.sound.phonetics import (
@@ -262,3 +272,87 @@ def test_pair_terms_are_rapidfuzz_s_similarities_to_the_bit() -> None:
                        scorer=Levenshtein.normalized_similarity, dtype=np.float64).reshape(4, count).max(axis=0)
     expected = (scores + 0.3 * spelling / 100.0) + 0.2 * agreement
     assert [p[2].hex() for p in pairs] == [(value / 1.0).hex() for value in expected.tolist()]
+
+
+# ---- pooling (pool_pairs) against match._pool_python ----
+
+def _shown(evidence: dict[int, Evidence]) -> list[tuple[object, ...]]:
+    """Everything pooling decides, in order, floats as their bits and with each field's type."""
+    return [(key, e.entry, e.pooled.hex(), type(e.pooled).__name__,
+             [(h, s.score.hex(), s.start, s.end, s.form, s.exact, type(s.exact).__name__)
+              for h, s in e.per_hypothesis.items()]) for key, e in evidence.items()]
+
+
+def test_pooling_gives_the_python_versions_evidence_bit_for_bit() -> None:
+    lexicon, messages = _pair_fixture()
+    costs = CostModel.features()
+    weights = Weights(0.6, 0.2, 0.2, 3, 0.2, 0.45, 0.6, 0.4, broad_candidates=4)
+    rng = random.Random(17)
+    scores = [0.5, 0.75, 0.8, 0.9, 1.0]  # repeated values, so ties between spans decide often
+    compared = replaced = 0
+    for spans in messages:
+        hypotheses = 1 + max(h for places in spans.occurrences for h, _, _ in places)
+        # Posteriors of very different sizes: the pooled sum's order and rounding then show.
+        posteriors = [rng.random() * 10.0 ** -rng.randint(0, 12) for _ in range(hypotheses)]
+        scored = score_spans(spans, lexicon, weights, costs)
+        # Random pairs as well, exact ones among them, on forms of one, two and three words of the
+        # same entries: every branch of the choice between two sightings (match._better) is taken.
+        made = [(rng.randrange(len(spans)), rng.randrange(len(lexicon.forms)),
+                 rng.choice(scores) if rng.random() < 0.7 else rng.random(), rng.random() < 0.3)
+                for _ in range(rng.randint(0, 150))]
+        for pairs in (scored, made, scored + made, []):
+            for strong in (0.75, 0.0, 1.1):
+                got = pool(spans, pairs, lexicon, posteriors, strong=strong)
+                expected = _pool_python(spans, pairs, lexicon, posteriors, strong=strong)
+                assert _shown(got) == _shown(expected)
+                compared += len(expected)
+                replaced += sum(1 for q, _, _, _ in pairs for _ in spans.occurrences[q]) > sum(
+                    len(e.per_hypothesis) for e in expected.values())
+    assert compared > 2000 and replaced > 100  # many entries, and sightings that met a held one
+
+
+def test_pooling_a_worked_example() -> None:
+    # Worked by hand: two hypotheses, posteriors 0.75 and 0.25; the entry's full form has two words
+    # (form "a b"), its alias one (form "a"). Hypothesis 0 holds the alias exactly (score 1) at
+    # words 0-1 and the full form nearly (0.8 >= strong 0.75) at 0-2, which contains it: the longer
+    # form wins despite the lower score. Hypothesis 1 holds only the alias, exactly.
+    # pooled = 0.75 x 0.8 + 0.25 x 1.0 = 0.85 (as Python's sum adds these two floats).
+    lexicon = compile_entries([LexiconEntry("e0", "thing", "a b", ("a",), None, 1.0, 2)], Pronouncer())
+    full = next(i for i, f in enumerate(lexicon.forms) if f.text == "a b")
+    alias = next(i for i, f in enumerate(lexicon.forms) if f.text == "a")
+    spans = Spans([("a",), ("a", "b")], ["", ""], ["a", "a b"], [[(0, 0, 1), (1, 3, 4)], [(0, 0, 2)]])
+    for pairs in ([(0, alias, 1.0, True), (1, full, 0.8, False)], [(1, full, 0.8, False), (0, alias, 1.0, True)]):
+        evidence = compiled.pool_pairs(spans.occurrences, pairs, lexicon.forms, [0.75, 0.25], 0.75, Evidence, Sighting)
+        assert list(evidence) == [0]
+        assert evidence[0].per_hypothesis == {0: Sighting(0.8, 0, 2, full, False), 1: Sighting(1.0, 3, 4, alias, True)}
+        assert evidence[0].pooled == sum([0.75 * 0.8, 0.25 * 1.0])
+    # Below strong the exact alias keeps hypothesis 0: 0.75 x 1.0 + 0.25 x 1.0 = 1.0.
+    evidence = compiled.pool_pairs(spans.occurrences, [(0, alias, 1.0, True), (1, full, 0.7, False)],
+                                   lexicon.forms, [0.75, 0.25], 0.75, Evidence, Sighting)
+    assert evidence[0].per_hypothesis[0] == Sighting(1.0, 0, 1, alias, True) and evidence[0].pooled == 1.0
+
+
+def test_pooling_refuses_what_it_cannot_read() -> None:
+    lexicon, messages = _pair_fixture()
+    spans = messages[0]
+    with pytest.raises(IndexError, match="out of range"):
+        compiled.pool_pairs(spans.occurrences, [(len(spans), 0, 0.5, False)], lexicon.forms, [1.0] * 5, 0.75,
+                            Evidence, Sighting)
+    with pytest.raises(IndexError, match="outside the posteriors"):
+        compiled.pool_pairs(spans.occurrences, [(0, 0, 0.5, False)], lexicon.forms, [], 0.75, Evidence, Sighting)
+    with pytest.raises(TypeError, match="must be a tuple"):
+        compiled.pool_pairs(spans.occurrences, [(0, 0, 0.5)], lexicon.forms, [1.0] * 5, 0.75, Evidence, Sighting)
+
+
+def test_merging_hits_keeps_the_first_search_s_pairs_then_the_new_ones_in_order() -> None:
+    # Worked by hand: (0, 5) and (2, 7) are both found first; the second search's (0, 5) repeats
+    # a first pair and is dropped, (0, 6) and (1, 5) are new, its own repeat (1, 5) stays (the
+    # Python version checks against the first search's pairs only), and (2, 7) is dropped.
+    query, item = np.array([0, 0, 2], np.int32), np.array([5, 9, 7], np.int32)
+    more_query, more_item = np.array([0, 0, 1, 1, 2], np.int32), np.array([5, 6, 5, 5, 7], np.int32)
+    out_query, out_item = np.empty(8, np.int32), np.empty(8, np.int32)
+    found = compiled.merge_hits(query, item, more_query, more_item, out_query, out_item)
+    assert list(zip(out_query[:found].tolist(), out_item[:found].tolist())) == [
+        (0, 5), (0, 9), (2, 7), (0, 6), (1, 5), (1, 5)]
+    with pytest.raises(ValueError, match="out_query"):
+        compiled.merge_hits(query, item, more_query, more_item, out_query[:7], out_item)
