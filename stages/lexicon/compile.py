@@ -24,13 +24,13 @@ from relay.core.errors import ConfigError
 from stages.lexicon.data import LexiconEntry, read_lexicon
 from stages.lexicon.sound.g2p import MODEL_FILE
 from stages.lexicon.sound.phone_index import PhoneIndex
-from stages.lexicon.sound.phonetics import broad, skeleton
+from stages.lexicon.sound.phonetics import BROAD_CLASSES, SKELETON_CLASSES, broad, skeleton
 from stages.lexicon.sound.pronounce import Pronouncer
 from stages.lexicon.sound.respell import RespellError
 
 __all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys", "word_run_keys"]
 
-COMPILE_FORMAT = "lexicon-compiled-9"  # 8: with the broad-class index; 9: and the skeleton index
+COMPILE_FORMAT = "lexicon-compiled-10"  # 8: the broad-class index; 9: the skeleton index; 10: small alphabets
 
 
 @lru_cache(maxsize=65536)
@@ -100,8 +100,10 @@ def compile_entries(entries: list[LexiconEntry], pronouncer: Pronouncer, *, dige
     if problems:
         raise ConfigError("Lexicon is invalid", problems)
     index = PhoneIndex([form.phones for form in forms], max_postings=max_postings)
-    broad_index = PhoneIndex([broad(form.phones) for form in forms], max_postings=max_postings)
-    skeleton_index = PhoneIndex([skeleton(form.phones) for form in forms], max_postings=max_postings)
+    broad_index = PhoneIndex([broad(form.phones) for form in forms], max_postings=max_postings,
+                             symbols=len(BROAD_CLASSES))
+    skeleton_index = PhoneIndex([skeleton(form.phones) for form in forms], max_postings=max_postings,
+                                symbols=len(SKELETON_CLASSES))
     max_words = max(len(form.text.split()) for form in forms)
     return CompiledLexicon(entries, forms, index, broad_index, skeleton_index, exact, max_words, digest)
 

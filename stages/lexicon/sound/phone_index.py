@@ -30,28 +30,53 @@ from stages.lexicon.sound.phonetics import PHONES
 __all__ = ["Hits", "PhoneIndex", "gram_codes", "ngrams"]
 
 _CHAR_BASE = 0x100  # as in stages.phonetics.encode
-_START, _END = len(PHONES), len(PHONES) + 1
-_BASE = len(PHONES) + 2
 SIZES = (3, 4)
-_OFFSETS = {3: 0, 4: _BASE**3}  # 3-gram and 4-gram numbers occupy separate ranges
-_TABLE = _BASE**3 + _BASE**4
 _UNKNOWN, _DROPPED = -1, -2
 
 
-def _codes(text: str) -> list[int]:
-    return [_START] + [ord(ch) - _CHAR_BASE for ch in text] + [_END]
+@dataclass(frozen=True, slots=True)
+class _Alphabet:
+    """How the n-grams of strings over ``symbols`` symbols are numbered: symbol codes, then a start
+    and an end mark, in base ``symbols + 2``; 3-gram and 4-gram numbers in separate ranges. A
+    smaller alphabet (the broad classes, the skeleton) needs a far smaller lookup table."""
+
+    symbols: int
+
+    @property
+    def start(self) -> int:
+        return self.symbols
+
+    @property
+    def end(self) -> int:
+        return self.symbols + 1
+
+    @property
+    def base(self) -> int:
+        return self.symbols + 2
+
+    @property
+    def offsets(self) -> dict[int, int]:
+        return {3: 0, 4: self.base**3}
+
+    @property
+    def table(self) -> int:
+        return self.base**3 + self.base**4
 
 
-def ngrams(phones: str) -> set[int]:
-    """The n-gram numbers of one encoded phone string (the reference for ``gram_codes``)."""
-    padded = _codes(phones)
+_PHONES = _Alphabet(len(PHONES))
+
+
+def ngrams(phones: str, symbols: int = len(PHONES)) -> set[int]:
+    """The n-gram numbers of one encoded string (the reference for ``gram_codes``)."""
+    alphabet = _Alphabet(symbols)
+    padded = [alphabet.start] + [ord(ch) - _CHAR_BASE for ch in phones] + [alphabet.end]
     out = set()
     for n in SIZES:
         for i in range(len(padded) - n + 1):
             value = 0
             for code in padded[i : i + n]:
-                value = value * _BASE + code
-            out.add(_OFFSETS[n] + value)
+                value = value * alphabet.base + code
+            out.add(alphabet.offsets[n] + value)
     return out
 
 
@@ -65,8 +90,11 @@ def _unique(values: npt.NDArray[Any]) -> tuple[npt.NDArray[np.int64], npt.NDArra
     return ordered[first], np.diff(np.r_[first, len(ordered)])
 
 
-def gram_codes(strings: Sequence[str]) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]:
+def gram_codes(strings: Sequence[str], symbols: int = len(PHONES)) -> tuple[npt.NDArray[np.int64],
+                                                                             npt.NDArray[np.int64]]:
     """(string number, n-gram number) for every distinct n-gram of every string, vectorised."""
+    alphabet = _Alphabet(symbols)
+    base, offsets, table = alphabet.base, alphabet.offsets, alphabet.table
     lengths = np.fromiter(map(len, strings), dtype=np.int64, count=len(strings)) + 2
     joined = "".join(strings).encode("utf-32-le")
     inner = np.frombuffer(joined, dtype=np.uint32).astype(np.int64) - _CHAR_BASE
@@ -77,8 +105,8 @@ def gram_codes(strings: Sequence[str]) -> tuple[npt.NDArray[np.int64], npt.NDArr
     is_start[starts] = True
     is_end = np.zeros(len(codes), dtype=bool)
     is_end[starts + lengths - 1] = True
-    codes[is_start] = _START
-    codes[is_end] = _END
+    codes[is_start] = alphabet.start
+    codes[is_end] = alphabet.end
     codes[~(is_start | is_end)] = inner
     owners, grams = [], []
     for n in SIZES:
@@ -86,14 +114,14 @@ def gram_codes(strings: Sequence[str]) -> tuple[npt.NDArray[np.int64], npt.NDArr
             continue
         value = np.zeros(len(codes) - n + 1, dtype=np.int64)
         for k in range(n):
-            value = value * _BASE + codes[k : len(codes) - n + 1 + k]
+            value = value * base + codes[k : len(codes) - n + 1 + k]
         whole = owner[: len(value)] == owner[n - 1 :]  # the window lies inside one string
         owners.append(owner[: len(value)][whole])
-        grams.append(value[whole] + _OFFSETS[n])
+        grams.append(value[whole] + offsets[n])
     if not owners:
         return np.zeros(0, np.int64), np.zeros(0, np.int64)
-    pairs, _ = _unique(np.concatenate(owners) * _TABLE + np.concatenate(grams))
-    return pairs // _TABLE, pairs % _TABLE
+    pairs, _ = _unique(np.concatenate(owners) * table + np.concatenate(grams))
+    return pairs // table, pairs % table
 
 
 @dataclass(frozen=True, slots=True)
@@ -106,23 +134,29 @@ class Hits:
 
 
 class PhoneIndex:
-    def __init__(self, strings: Sequence[str], *, max_postings: int = 60) -> None:
-        owner, gram = gram_codes(strings)
+    def __init__(self, strings: Sequence[str], *, max_postings: int = 60, symbols: int = len(PHONES)) -> None:
+        """An index of encoded strings over ``symbols`` symbols (the phones, or fewer classes)."""
+        self.alphabet = _Alphabet(symbols)
+        owner, gram = gram_codes(strings, symbols)
         vocabulary, column = np.unique(gram, return_inverse=True)
-        order = np.lexsort((owner, column))
-        self.postings = owner[order].astype(np.int32)
         counts = np.bincount(column, minlength=len(vocabulary))
-        self.offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
         common = counts > max_postings
+        # Only the kept n-grams have posting lists: a dropped one is never looked up, and at 100k
+        # entries the dropped lists held most of the broad-class and skeleton indexes' postings.
+        kept = ~common[column]
+        renumbered = np.cumsum(~common) - 1
+        order = np.lexsort((owner[kept], renumbered[column[kept]]))
+        self.postings = owner[kept][order].astype(np.int32)
+        self.offsets = np.concatenate([[0], np.cumsum(counts[~common])]).astype(np.int64)
         self.vocabulary = vocabulary
-        self.column_of = np.where(common, _DROPPED, np.arange(len(vocabulary)))
+        self.column_of = np.where(common, _DROPPED, renumbered)
         # Each string's set size counts only the n-grams kept in the vectors.
-        self.sizes = np.bincount(owner[~common[column]], minlength=len(strings)).astype(np.float32)
+        self.sizes = np.bincount(owner[kept], minlength=len(strings)).astype(np.float32)
         self.count = len(strings)
         self._build_lookup()
 
     def _build_lookup(self) -> None:
-        lookup = np.full(_TABLE, _UNKNOWN, dtype=np.int32)
+        lookup = np.full(self.alphabet.table, _UNKNOWN, dtype=np.int32)
         lookup[self.vocabulary] = self.column_of
         self.lookup = lookup
         self.least_size = float(self.sizes.min(initial=0.0))  # for the search's bound on scores
@@ -152,14 +186,14 @@ class PhoneIndex:
         score = np.empty(len(queries) * k, dtype=np.float32)
         found = compiled.search(queries, self.lookup, self.offsets, self.postings, self.sizes, self.counts,
                                 self.touched, self.least_size, k, min_score, query, item, score,
-                                _CHAR_BASE, _START, _BASE, _OFFSETS[4])
+                                _CHAR_BASE, self.alphabet.start, self.alphabet.base, self.alphabet.offsets[4])
         return Hits(query[:found], item[:found], score[:found])
 
     def _search_numpy(self, queries: Sequence[str], *, k: int, min_score: float) -> Hits:
         empty = Hits(np.zeros(0, np.int32), np.zeros(0, np.int32), np.zeros(0, np.float32))
         if not queries:
             return empty
-        owner, gram = gram_codes(queries)
+        owner, gram = gram_codes(queries, self.alphabet.symbols)
         column = self.lookup[gram]
         kept = column != _DROPPED
         query_sizes = np.bincount(owner[kept], minlength=len(queries)).astype(np.float32)

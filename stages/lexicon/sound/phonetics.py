@@ -18,8 +18,10 @@ import numpy.typing as npt
 from stages.lexicon.sound.kernels import compiled
 
 __all__ = [
+    "BROAD_CLASSES",
     "CONSONANTS",
     "PHONES",
+    "SKELETON_CLASSES",
     "VOWELS",
     "CostModel",
     "alignment_cost",
@@ -89,7 +91,10 @@ def encode(phones: Sequence[str]) -> str:
 # their broad-class n-grams are worth aligning even when their exact phone n-grams differ.
 _BROAD = {**{v: "AH" for v in _VOWELS}, "B": "P", "D": "T", "G": "K", "JH": "CH", "V": "F", "DH": "TH",
           "Z": "S", "ZH": "SH"}
-_BROAD_CHARS = str.maketrans({chr(_CHAR_BASE + _INDEX[p]): chr(_CHAR_BASE + _INDEX[_BROAD.get(p, p)])
+# Each class is written as one symbol of its own alphabet (numbered from _CHAR_BASE like the
+# phones), so an index over broad strings needs a lookup table for 17 symbols, not 39.
+BROAD_CLASSES: tuple[str, ...] = tuple(sorted({_BROAD.get(p, p) for p in PHONES}))
+_BROAD_CHARS = str.maketrans({chr(_CHAR_BASE + _INDEX[p]): chr(_CHAR_BASE + BROAD_CLASSES.index(_BROAD.get(p, p)))
                               for p in PHONES})
 
 
@@ -97,18 +102,22 @@ _BROAD_CHARS = str.maketrans({chr(_CHAR_BASE + _INDEX[p]): chr(_CHAR_BASE + _IND
 # "chandelry"), ER read as R, voicing ignored, and the four hushing sounds (CH JH SH ZH) as one.
 _SKELETON = {**{v: "" for v in _VOWELS}, "ER": "R", "HH": "", "B": "P", "D": "T", "G": "K", "V": "F",
              "DH": "TH", "Z": "S", "JH": "SH", "CH": "SH", "ZH": "SH"}
+SKELETON_CLASSES: tuple[str, ...] = tuple(sorted({_SKELETON.get(p, p) for p in PHONES} - {""}))
 _SKELETON_CHARS = str.maketrans({
-    chr(_CHAR_BASE + _INDEX[p]): (chr(_CHAR_BASE + _INDEX[_SKELETON.get(p, p)]) if _SKELETON.get(p, p) else None)
+    chr(_CHAR_BASE + _INDEX[p]): (chr(_CHAR_BASE + SKELETON_CLASSES.index(_SKELETON.get(p, p)))
+                                  if _SKELETON.get(p, p) else None)
     for p in PHONES})
 
 
 def broad(text: str) -> str:
-    """An encoded phone string in broad classes (see ``_BROAD``), same encoding and length."""
+    """An encoded phone string in broad classes (see ``_BROAD``): one symbol per phone, numbered
+    from ``_CHAR_BASE`` in ``BROAD_CLASSES``."""
     return text.translate(_BROAD_CHARS)
 
 
 def skeleton(text: str) -> str:
-    """An encoded phone string's consonant skeleton (see ``_SKELETON``), same encoding, shorter."""
+    """An encoded phone string's consonant skeleton (see ``_SKELETON``): a symbol per consonant
+    kept, numbered from ``_CHAR_BASE`` in ``SKELETON_CLASSES``."""
     return text.translate(_SKELETON_CHARS)
 
 

@@ -73,3 +73,33 @@ def test_search_bound_keeps_every_pair_over_the_threshold(min_score: float) -> N
         got = sorted(int(i) for qq, i in zip(hits.query, hits.item) if qq == q)
         brute = sorted(i for i, item in enumerate(items) if dice(query, item) >= min_score + 1e-6)
         assert set(brute) <= set(got)
+
+
+def test_a_small_alphabet_finds_what_the_phone_alphabet_finds() -> None:
+    # The broad-class and skeleton indexes write their symbols in alphabets of their own (17 and
+    # 14 symbols); numbering the same strings either way must give the same hits, with a lookup
+    # table a fraction of the size. Strings over the first 12 phones are written both ways.
+    rng = random.Random(9)
+    items = [rng.choices(range(12), k=rng.randint(2, 9)) for _ in range(300)]
+    queries = [rng.choices(range(12), k=rng.randint(1, 9)) for _ in range(60)]
+    as_phones = lambda codes: encode([PHONES[c] for c in codes])  # noqa: E731
+    as_small = lambda codes: "".join(chr(0x100 + c) for c in codes)  # noqa: E731
+    wide = PhoneIndex([as_phones(i) for i in items], max_postings=20)
+    small = PhoneIndex([as_small(i) for i in items], max_postings=20, symbols=12)
+    assert small.lookup.size < wide.lookup.size / 8
+    a = wide.search([as_phones(q) for q in queries], k=4, min_score=0.2)
+    b = small.search([as_small(q) for q in queries], k=4, min_score=0.2)
+    assert (a.query.tolist(), a.item.tolist(), a.score.tolist()) == (b.query.tolist(), b.item.tolist(), b.score.tolist())
+    owner, gram = gram_codes([as_small(i) for i in items[:20]], 12)
+    for number, codes in enumerate(items[:20]):
+        assert set(gram[owner == number].tolist()) == ngrams(as_small(codes), 12)
+
+
+def test_only_kept_ngrams_have_posting_lists() -> None:
+    shared = encode(["S", "T"])
+    items = [shared + encode([p]) for p in PHONES[:30]]
+    index = PhoneIndex(items, max_postings=5)
+    # Every n-gram with "^ S T" is held by all 30 items and dropped: no postings are kept for it.
+    kept = int((index.column_of >= 0).sum())
+    assert len(index.offsets) == kept + 1 and len(index.postings) == int(index.offsets[-1])
+    assert len(index.postings) < 30 * len(ngrams(items[0]))
