@@ -267,10 +267,11 @@ def test_an_unsure_correction_is_confirmed_by_naming_the_corrected_entity() -> N
     assert utterance.prompt == "Did you mean lathe?"
 
 
-def _carrier_gate(tmp_path: Path) -> GateStage:
+def _carrier_gate(tmp_path: Path, feature: str = "unfilled_slots") -> GateStage:
+    """A gate over two in-domain lines whose confidence is sigmoid(2 - 4 x ``feature``)."""
     (tmp_path / "train.txt").write_text("meet me in {place}\nbook the {machine} for {person}\n")
     stage = gate(carrier_text=str(tmp_path / "train.txt"), accept_confidence=0.6, reprompt_confidence=0.2,
-                 confidence={"bias": 2.0, "features": {"unfilled_slots": {"weight": -4.0, "center": 0.0, "scale": 1.0}}},
+                 confidence={"bias": 2.0, "features": {feature: {"weight": -4.0, "center": 0.0, "scale": 1.0}}},
                  type_nouns={"place": "room"}, safety_words=[])
     stage.load()
     return stage
@@ -314,11 +315,7 @@ def test_missing_slots_counts_slots_of_the_nearest_line_no_entity_fills(tmp_path
 
 
 def test_a_missing_slot_lowers_confidence_and_the_reprompt_asks_for_its_type(tmp_path: Path) -> None:
-    (tmp_path / "train.txt").write_text("meet me in {place}\nbook the {machine} for {person}\n")
-    stage = gate(carrier_text=str(tmp_path / "train.txt"), accept_confidence=0.6, reprompt_confidence=0.2,
-                 confidence={"bias": 2.0, "features": {"missing_slots": {"weight": -4.0, "center": 0.0, "scale": 1.0}}},
-                 type_nouns={"place": "room"}, safety_words=[])
-    stage.load()
+    stage = _carrier_gate(tmp_path, "missing_slots")
     # "meet in there": no carrier phrase matches word for word, but the nearest line, two edits
     # away, holds a place the result has no entity for: sigmoid(2 - 4) = 0.12, below 0.2.
     missed = stage.process(make_utterance([0.9, 0.1], ["meet in there", "meat in there"]))
