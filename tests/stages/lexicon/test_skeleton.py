@@ -14,7 +14,7 @@ from relay.core.utterance import Hypothesis
 from stages.lexicon.compile import CompiledLexicon, compile_entries
 from stages.lexicon.data import LexiconEntry
 from stages.lexicon.match import Weights, find_spans, score_spans
-from stages.lexicon.sound.phonetics import SKELETON_CLASSES, CostModel, encode, skeleton
+from stages.lexicon.sound.phonetics import PHONES, SKELETON_CLASSES, VOWELS, CostModel, encode, skeleton
 from stages.lexicon.sound.pronounce import Pronouncer
 
 
@@ -28,7 +28,24 @@ def test_skeleton_keeps_consonants_merges_voicing_and_hushing_sounds() -> None:
     assert skeleton(heard) == skeleton(said)
     assert skeleton(encode(["HH", "AW", "S", "JH", "IY", "Z"])) == skeleton(encode(["S", "SH", "S"]))
     assert skeleton(encode(["AH", "IY"])) == ""
-    assert len(SKELETON_CLASSES) == 14 and all(ord(ch) - 0x100 < 14 for ch in skeleton(said + heard))
+
+
+def test_every_phone_has_its_skeleton_symbol_and_every_symbol_a_phone() -> None:
+    # Worked by hand from the description: voiced consonants as their voiceless partners, the
+    # hushing sounds as SH, ER as R; vowels and HH leave nothing; every other consonant is itself.
+    partner = {"B": "P", "D": "T", "G": "K", "V": "F", "DH": "TH", "Z": "S", "JH": "SH", "CH": "SH", "ZH": "SH",
+               "ER": "R"}
+    reached = set()
+    for phone in PHONES:
+        written = skeleton(encode([phone]))
+        if (phone in VOWELS and phone != "ER") or phone == "HH":
+            assert written == "", phone
+            continue
+        assert len(written) == 1, phone
+        symbol = SKELETON_CLASSES[ord(written) - 0x100]
+        assert symbol == partner.get(phone, phone), phone
+        reached.add(symbol)
+    assert reached == set(SKELETON_CLASSES)  # the alphabet holds no symbol that no phone is written as
 
 
 @pytest.fixture(scope="module")
