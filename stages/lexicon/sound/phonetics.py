@@ -91,22 +91,27 @@ def encode(phones: Sequence[str]) -> str:
 # their broad-class n-grams are worth aligning even when their exact phone n-grams differ.
 _BROAD = {**{v: "AH" for v in _VOWELS}, "B": "P", "D": "T", "G": "K", "JH": "CH", "V": "F", "DH": "TH",
           "Z": "S", "ZH": "SH"}
-# Each class is written as one symbol of its own alphabet (numbered from _CHAR_BASE like the
-# phones), so an index over broad strings needs a lookup table for 17 symbols, not 39.
-BROAD_CLASSES: tuple[str, ...] = tuple(sorted({_BROAD.get(p, p) for p in PHONES}))
-_BROAD_CHARS = str.maketrans({chr(_CHAR_BASE + _INDEX[p]): chr(_CHAR_BASE + BROAD_CLASSES.index(_BROAD.get(p, p)))
-                              for p in PHONES})
+
+
+def _classes(mapping: dict[str, str]) -> tuple[tuple[str, ...], dict[int, str | None]]:
+    """The classes ``mapping`` sends the phones to (a phone it leaves out is its own; "" drops it),
+    and a ``str.translate`` table writing each phone as its class's symbol. Each class is a symbol
+    of its own alphabet, numbered from _CHAR_BASE like the phones, so an index over such strings
+    needs a lookup table for that many symbols, not 39."""
+    classes = tuple(sorted({mapping.get(p, p) for p in PHONES} - {""}))
+    table = str.maketrans({chr(_CHAR_BASE + _INDEX[p]): (chr(_CHAR_BASE + classes.index(mapping.get(p, p)))
+                                                         if mapping.get(p, p) else None) for p in PHONES})
+    return classes, table
+
+
+BROAD_CLASSES, _BROAD_CHARS = _classes(_BROAD)  # 17 symbols
 
 
 # The consonant skeleton: vowels and h left out (schwas come and go: "chandlery" heard as
 # "chandelry"), ER read as R, voicing ignored, and the four hushing sounds (CH JH SH ZH) as one.
 _SKELETON = {**{v: "" for v in _VOWELS}, "ER": "R", "HH": "", "B": "P", "D": "T", "G": "K", "V": "F",
              "DH": "TH", "Z": "S", "JH": "SH", "CH": "SH", "ZH": "SH"}
-SKELETON_CLASSES: tuple[str, ...] = tuple(sorted({_SKELETON.get(p, p) for p in PHONES} - {""}))
-_SKELETON_CHARS = str.maketrans({
-    chr(_CHAR_BASE + _INDEX[p]): (chr(_CHAR_BASE + SKELETON_CLASSES.index(_SKELETON.get(p, p)))
-                                  if _SKELETON.get(p, p) else None)
-    for p in PHONES})
+SKELETON_CLASSES, _SKELETON_CHARS = _classes(_SKELETON)  # 14 symbols
 
 
 def broad(text: str) -> str:
