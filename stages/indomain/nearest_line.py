@@ -20,7 +20,7 @@ call per line length, nearest lengths first: about 30 us against the workshop's 
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from typing import NamedTuple
 
 from rapidfuzz.distance import Levenshtein
@@ -98,13 +98,8 @@ class NearestLine:
         entities = Counter(token for token in tokens if token.startswith("{"))
         count = sum(entities.values())
         if len(self._slots[line]) > count:
-            # Another line as near may have fewer slots: look at every line within reach.
-            for length, lines in self._by_length.items():
-                if abs(length - len(query)) <= best:
-                    for other, _, _ in extract(query, lines, scorer=Levenshtein.distance, score_cutoff=best,
-                                               limit=None):
-                        if len(self._slots[other]) < len(self._slots[line]):
-                            line = other
+            # Another line as near may have fewer slots (the first such, in the lines' order).
+            line = min([line, *self._as_near(query, best)], key=lambda found: len(self._slots[found]))
         missing = max(0, len(self._slots[line]) - count)
         # Which slot: the first of the line's whose type the text's entities do not account for.
         left = Counter(entities)
@@ -115,3 +110,10 @@ class NearestLine:
             elif unfilled is None:
                 unfilled = marker[1:-1]
         return Nearest(best, missing, unfilled)
+
+    def _as_near(self, query: str, edits: int) -> Iterator[str]:
+        """Every line ``edits`` or fewer word edits from the coded ``query``."""
+        for length, lines in self._by_length.items():
+            if abs(length - len(query)) <= edits:
+                for line, _, _ in extract(query, lines, scorer=Levenshtein.distance, score_cutoff=edits, limit=None):
+                    yield line
