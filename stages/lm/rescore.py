@@ -79,6 +79,7 @@ class LmRescoreStage:
         for hypothesis in utterance.nbest:
             utterance.check_deadline()
             lm = self.score(hypothesis.tokens)
+            own = hypothesis.tokens
             for other in hypothesis.readings:
                 # The reading the in-domain text makes likeliest ("seven thirty" or "seven point three zero").
                 if other == hypothesis.tokens:
@@ -86,7 +87,7 @@ class LmRescoreStage:
                 scored = self.score(other)
                 if scored.total > lm.total:
                     lm, hypothesis.tokens, hypothesis.text = scored, other, " ".join(other)
-                    chosen += 1
+            chosen += hypothesis.tokens != own  # hypotheses whose reading changed, not swaps
             asr = hypothesis.scores.get(ASR_SCORE)
             if asr is None:
                 asr = math.log(max(hypothesis.posterior, _POSTERIOR_FLOOR))

@@ -20,6 +20,7 @@ from stages.lm.kneser_ney import DiscountFallbackWarning, estimate
 from stages.lm.model import score_tokens
 from stages.lm.rescore import LmRescoreSettings, LmRescoreStage, lm_per_word
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
+from stages.normalize.tokens import readings
 from tests.paths import DATA
 
 LN10 = math.log(10)
@@ -175,3 +176,32 @@ def test_the_in_domain_model_chooses_how_a_number_is_read(tmp_path: Path) -> Non
     # A number that cannot be a time keeps its one reading.
     utterance = chain.process(_utterance({"text": "back in at 10.75"}))
     assert utterance.nbest[0].tokens == "back in at ten point seven five".split()
+
+
+def test_readings_changed_counts_hypotheses_not_swaps(tmp_path: Path) -> None:
+    # "at 7.30 or 9.45" reads four ways; in this text the second beats the first and the fourth
+    # beats the second, two swaps in the loop over one hypothesis's readings, which is one
+    # hypothesis whose reading changed. "back in at 10.15" changes once; "at seven or nine" never.
+    (tmp_path / "train.txt").write_text("in at seven thirty or nine forty five\nout at seven thirty\n"
+                                        "back at nine forty five\nback in at ten fifteen\n")
+    from relay.workbench.build_lm import build_model
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DiscountFallbackWarning)
+        build_model(train=tmp_path / "train.txt", output=tmp_path / "lm.arpa")
+    context = _context(tmp_path)
+    rescore = LmRescoreStage(LmRescoreSettings(model=Path("lm.arpa")), context=context)
+    chain = Chain([NormalizeStage(NormalizeSettings(), context=context), rescore])
+    chain.load()
+    # The premise: the running best changes twice for the first text.
+    totals = [rescore.score(r).total for r in readings("at 7.30 or 9.45")]
+    assert len(totals) == 4
+    assert totals[0] < totals[1] < totals[3] and totals[2] < totals[1]
+    utterance = chain.process(_utterance({"text": "at 7.30 or 9.45", "conf": 0.5},
+                                         {"text": "back in at 10.15", "conf": 0.3},
+                                         {"text": "at seven or nine", "conf": 0.2}))
+    before = [readings(t)[0] for t in ("at 7.30 or 9.45", "back in at 10.15", "at seven or nine")]
+    by_rank = sorted(utterance.nbest, key=lambda h: h.rank)
+    changed = [h.tokens != tokens for h, tokens in zip(by_rank, before)]
+    assert changed == [True, True, False]
+    assert utterance.trace[-1].scores["readings_changed"] == sum(changed)
