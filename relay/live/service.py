@@ -103,13 +103,18 @@ class Relay:
     # ---- control -------------------------------------------------------------------------
 
     def ack_stall(self) -> float:
-        """Seconds input has waited without any acknowledgement going out; 0 when none waits."""
-        if self._waiting_since is None:
-            return 0.0
-        if self.connected and not self._tasks and (self._session is None or not self._session.acks.pending):
-            self._waiting_since = None  # everything that waited was acknowledged or went back
+        """Seconds input has waited without any acknowledgement going out; 0 when none waits.
+
+        A pure read (the gauge and /healthz call it): the wait is forgotten where work ends, in
+        _handle and _finished, never here.
+        """
+        if self._waiting_since is None or self._idle():
             return 0.0
         return time.monotonic() - self._waiting_since
+
+    def _idle(self) -> bool:
+        """Connected with nothing in flight and nothing left to acknowledge."""
+        return self.connected and not self._tasks and (self._session is None or not self._session.acks.pending)
 
     def health(self) -> tuple[bool, str]:
         problems = []
@@ -250,7 +255,12 @@ class Relay:
             await self._slots.acquire()
             task = asyncio.create_task(self._handle(session, delivery))
             self._tasks.add(task)
-            task.add_done_callback(self._tasks.discard)
+            task.add_done_callback(self._finished)
+
+    def _finished(self, task: asyncio.Task[None]) -> None:
+        self._tasks.discard(task)
+        if self._idle():
+            self._waiting_since = None  # everything that waited was acknowledged or went back
 
     # ---- one message ---------------------------------------------------------------------
 
