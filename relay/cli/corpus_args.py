@@ -6,6 +6,7 @@ import argparse
 from collections.abc import Iterable
 from pathlib import Path
 
+from relay.core.chain import Chain
 from relay.core.config import LoadedConfig, build_chain, load_config
 from relay.core.errors import ConfigError
 from relay.core.stage import files_used
@@ -49,15 +50,21 @@ def add_corpus_arguments(parser: argparse.ArgumentParser) -> None:
                         help="no progress bar (there is none anyway when stderr is not a terminal)")
 
 
-def selected_items(args: argparse.Namespace, loaded: LoadedConfig) -> tuple[list[CorpusItem], str]:
-    """The corpus lines the filters keep, and a description of the filters."""
+def selected_items(args: argparse.Namespace, loaded: LoadedConfig, *,
+                   chain: Chain | None = None) -> tuple[list[CorpusItem], str]:
+    """The corpus lines the filters keep, and a description of the filters.
+
+    ``chain``: the chain built from ``loaded`` when the caller has one (its stages name the
+    lexicon the entity ids are checked against); otherwise one is constructed here, not loaded.
+    """
     items = read_corpus(args.corpus, field_map=loaded.config.fields)
     filters: list[TagFilter] = [*args.where, *args.exclude_tag]
     kept = [item for item in items if all(f(item) for f in filters)]
     described = " and ".join(str(f) for f in filters) or "all lines"
     if not kept:
         raise ConfigError(f"No corpus line of {args.corpus} matches {described}")
-    lexicon = chain_lexicon(build_chain(loaded).stages, loaded.domain.lexicon)  # constructed, not loaded
+    stages = (chain if chain is not None else build_chain(loaded)).stages
+    lexicon = chain_lexicon(stages, loaded.domain.lexicon)
     if lexicon is not None and lexicon.is_file():
         check_entity_ids(kept, {entry.id for entry in read_lexicon(lexicon)}, lexicon)
     return kept, described

@@ -59,8 +59,8 @@ def run(args: argparse.Namespace) -> int:
         require_extra("matplotlib", extra="report", feature="--report")
     progress = show_progress(args)
     loaded = chosen_config(args)
-    items, described = selected_items(args, loaded)
     chain = build_chain(loaded, progress=progress)
+    items, described = selected_items(args, loaded, chain=chain)  # checked before the chain loads
     chain.load()
     outcomes = run_corpus(chain, items, progress=progress)
     summary = summarize(outcomes)

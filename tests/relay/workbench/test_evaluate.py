@@ -4,6 +4,7 @@ import importlib.util
 import json
 import os
 from pathlib import Path
+from typing import Any
 
 import jiwer
 import pytest
@@ -11,6 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from relay.cli import eval as eval_command
+from relay.core.chain import Chain
 from relay.core.errors import ConfigError, InputError
 from relay.core.fieldmap import FieldMap
 from relay.core.registry import Registry
@@ -166,6 +168,31 @@ def test_report_embeds_the_plots_as_png(tmp_path: Path) -> None:
     page = report.read_text()
     assert page.count("src='data:image/png;base64,") >= 3
     assert "Wrong accepts against clarifications" in page and "Entity recall per type" in page
+
+
+def test_eval_builds_and_loads_the_chain_once(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # The corpus check (entity ids against the chain's lexicon), the run and the outputs all use
+    # one chain.
+    built: list[Chain] = []
+    loads: list[Chain] = []
+    real_init, real_load = Chain.__init__, Chain.load
+
+    def counted_init(chain: Chain, *args: Any, **kwargs: Any) -> None:
+        built.append(chain)
+        real_init(chain, *args, **kwargs)
+
+    def counted_load(chain: Chain) -> None:
+        loads.append(chain)
+        real_load(chain)
+
+    monkeypatch.setattr(Chain, "__init__", counted_init)
+    monkeypatch.setattr(Chain, "load", counted_load)
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 30)
+    extra = ["--report", str(tmp_path / "r.html")] if importlib.util.find_spec("matplotlib") is not None else []
+    assert eval_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")),
+                              "--json", str(tmp_path / "s.json"), "--results", str(tmp_path / "r.jsonl"),
+                              "--no-progress", *extra]) == 0
+    assert len(built) == 1 and loads == built
 
 
 def test_default_chain_leaves_out_stages_that_are_not_installed(
