@@ -87,9 +87,10 @@ def run(args: argparse.Namespace) -> int:
         if not isinstance(space, dict) or not all(isinstance(v, dict) for v in space.values()):
             raise ConfigError(f"Invalid search space {args.space}", ["write stage: {parameter: [values, ...]}"])
     # The configuration as the user wrote it: ${VARIABLES} stay unexpanded, so no secret from
-    # the environment ends up in the tuned file.
-    document = load_commented(args.config) if args.config else None
-    written = yaml.safe_load(args.config.read_text(encoding="utf-8")) if args.config else dict(loaded.source.value)
+    # the environment ends up in the tuned file. The file was read once, by chosen_config.
+    text = loaded.source.text if args.config else None
+    document = load_commented(args.config, text=text) if text is not None else None
+    written = yaml.safe_load(text) if text is not None else dict(loaded.source.value)
     try:
         result = tune(loaded, items, written=written, space=space, max_clarify=args.max_clarify, folds=args.folds,
                       seed=args.seed, max_settings=args.max_settings, progress=show_progress(args))

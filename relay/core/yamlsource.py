@@ -30,6 +30,9 @@ class Located:
     file: str
     value: Any
     lines: dict[Path_, int] = field(default_factory=dict)
+    # The document as read (${VARIABLES} unexpanded), for whoever needs the file itself without
+    # reading it again; None for a value that came from no file.
+    text: str | None = field(default=None, repr=False)
 
     def line(self, path: Path_) -> int | None:
         """The line of the deepest known prefix of ``path``."""
@@ -101,6 +104,6 @@ def load_yaml(path: Path, *, env: Mapping[str, str] | None = None, text: str | N
         raise ConfigError(f"{where}: not valid YAML", [detail]) from None
     finally:
         loader.dispose()
-    out = Located(file=name, value=None)
+    out = Located(file=name, value=None, text=text)
     out.value = {} if node is None else _build(node, loader, (), out, os.environ if env is None else env)
     return out

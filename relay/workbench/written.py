@@ -29,10 +29,13 @@ def _yaml() -> YAML:
     return yaml
 
 
-def load_commented(path: Path) -> Any:
-    """A YAML file as ruamel's round-trip tree (comments kept; ${VARIABLES} left as written)."""
+def load_commented(path: Path, *, text: str | None = None) -> Any:
+    """A YAML file as ruamel's round-trip tree (comments kept; ${VARIABLES} left as written).
+
+    ``text``: the file's text when it was read already (``path`` then only names it).
+    """
     try:
-        return _yaml().load(path.read_text(encoding="utf-8"))
+        return _yaml().load(path.read_text(encoding="utf-8") if text is None else text)
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(f"{path}: cannot read ({exc})") from None
     except Exception as exc:  # noqa: BLE001 - ruamel's errors have no common base worth naming

@@ -2,6 +2,7 @@ from __future__ import annotations
 
 import dataclasses
 import os
+import pathlib
 import random
 from pathlib import Path
 from typing import Any, ClassVar
@@ -350,6 +351,29 @@ def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatc
     written = out.read_text()
     assert "${REHEAR_TEST_PASSWORD}" in written and "hunter2" not in written
     assert load_config(out).config.broker.password is not None
+
+
+def test_tune_reads_its_configuration_once(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # One read serves the chain, the commented tree the tuned file is written into, and the
+    # unexpanded values: they cannot come from two versions of a file edited meanwhile.
+    monkeypatch.setenv("REHEAR_TEST_LEVEL", "info")
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 40)
+    config = tmp_path / "relay.yaml"
+    config.write_text("# kept\nlogging:\n  level: ${REHEAR_TEST_LEVEL}\nstages:\n  - normalize\n  - gate   # decides\n")
+    opened: list[str] = []
+    real_open = pathlib.Path.open
+
+    def counted_open(path: pathlib.Path, *args: Any, **kwargs: Any) -> Any:
+        if path.resolve() == config.resolve():
+            opened.append(str(args[0] if args else kwargs.get("mode", "r")))
+        return real_open(path, *args, **kwargs)
+
+    monkeypatch.setattr(pathlib.Path, "open", counted_open)
+    out = tmp_path / "tuned.yaml"
+    assert tune_command.main([str(corpus), "--config", str(config), "-o", str(out), "--no-progress"]) == 0
+    assert opened == ["r"]
+    written = out.read_text()
+    assert "# kept" in written and "# decides" in written and "${REHEAR_TEST_LEVEL}" in written
 
 
 def test_default_space_names_only_settings_the_stages_have() -> None:
