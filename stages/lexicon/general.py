@@ -129,16 +129,20 @@ class GeneralSearch:
                     self._supersedes(c, choice, tokens) for c in taken) else "overlap"})
         return placed, blocked
 
-    def _kept_rest(self, heard: list[str], form: list[str]) -> float:
+    def _kept_rest(self, heard: list[str], choice: Choice) -> float:
         """Phone similarity of the words a correction replaces, when it keeps words at either end
-        ("the extractor" -> "big huff extractor": "the" against "big huff"); 1 when it keeps none."""
+        ("the extractor" -> "big huff extractor": "the" against "big huff"); 1 when it keeps none.
+        The replacing words sound as the entry's `say` has them, as the whole form does."""
+        entry = self.lexicon.entries[choice.evidence.entry]
+        form = self.lexicon.forms[choice.form].text.split()
         size = min(len(heard), len(form))
         head = next((i for i in range(size) if heard[i] != form[i]), size)
         tail = next((i for i in range(size - head) if heard[-1 - i] != form[-1 - i]), size - head)
         rest_heard, rest_form = heard[head:len(heard) - tail], form[head:len(form) - tail]
         if not (head or tail) or not rest_heard or not rest_form:
             return 1.0
-        return similarity(self.pronouncer.words(rest_heard), self.pronouncer.words(rest_form), self.costs)
+        replacing = self.pronouncer.form(" ".join(rest_form), name=entry.name, say=entry.say)
+        return similarity(self.pronouncer.words(rest_heard), replacing, self.costs)
 
     def _supersedes(self, longer: Choice, exact: Choice, tokens: Sequence[str]) -> bool:
         """Whether ``longer`` spans ``exact`` and keeps its words, so replacing is no loss."""
@@ -176,7 +180,7 @@ class GeneralSearch:
             return "type_hint"  # a hinted type without its hint word needs general.hint_penalty more
         if g.min_support and support(choice, nbest) < g.min_support:
             return "weak_sound"  # priors alone must not carry a rewrite: some hypothesis must sound like it
-        if g.kept_min_phone and self._kept_rest(words, self.lexicon.forms[choice.form].text.split()) < g.kept_min_phone:
+        if g.kept_min_phone and self._kept_rest(words, choice) < g.kept_min_phone:
             return "kept_words"
         if g.heard_weight and choice.score < g.min_score + g.heard_weight * heard_belief(
                 words, nbest, self.zipf, holding=reading_otherwise(choice, nbest, words)):

@@ -103,3 +103,19 @@ def test_a_correction_that_keeps_heard_words_is_judged_on_the_words_it_replaces(
     # A word of the name that the recogniser dropped is still put back: nothing heard is replaced.
     assert run(small_chain(tmp_path, lexicon=KEPT_LEXICON), "switch on a big extractor").text == (
         "switch on a big huff extractor")
+
+
+SAID_LEXICON = """id,type,name,aliases,say,weight
+machine.aoife_press,machine,aoife press,,EE-fa press,1.0
+place.bay_2,place,bay two,,,1.0
+"""
+
+
+def test_the_words_a_correction_replaces_sound_as_the_entry_s_say(tmp_path: Path) -> None:
+    # "eva press" keeps "press" of "aoife press"; the word it replaces is said "EE-fa", which "eva"
+    # (CMUdict: EY V AH) matches well, while the spelling read by the G2P model ("AW IY F") does not.
+    heard = "start the eva press"
+    chain = small_chain(tmp_path, lexicon=SAID_LEXICON, general={"heard_weight": 0.0})  # this guard alone
+    utt = run(chain, heard, heard)
+    assert utt.text == "start the aoife press"
+    assert not any(b["guard"] == "kept_words" for b in blocked(utt))
