@@ -68,6 +68,7 @@ class Entity:
     support: float | None = None  # posterior share of hypotheses that hold it, by a strong sound match
     heard_exactly: float | None = None  # posterior share of hypotheses that hold its written form word for word
     margin: float | None = None  # its lead over the next entry for the same words
+    overridden: float | None = None  # belief that the words a correction replaced were said as heard; 0: none replaced
     origin: str | None = None  # which way of finding entries placed it
 
 

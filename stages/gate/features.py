@@ -51,6 +51,7 @@ class GateFeatures:
     weakest_support: float | None = None  # least posterior share of hypotheses that hold an entity by sound
     weakest_heard: float | None = None  # least posterior share of hypotheses that hold an entity word for word
     weakest_lead: float | None = None  # least lead of an entity over the next entry for its words
+    most_overridden: float | None = None  # most belief in the heard words that a correction overwrote
     invented: int = 0  # corrections into an entity that no hypothesis holds word for word
     rewritten: float = 0.0  # share of the result's words that corrections put there
     text_lm_relative: float | None = None  # text_lm_per_word in standard deviations from the in-domain lines'
@@ -81,6 +82,7 @@ class GateFeatures:
             "weakest_support": self.weakest_support,
             "weakest_heard": self.weakest_heard,
             "weakest_lead": self.weakest_lead,
+            "most_overridden": self.most_overridden,
             "invented": float(self.invented),
             "rewritten": self.rewritten,
             "text_lm_relative": self.text_lm_relative,
@@ -135,6 +137,8 @@ def backing(utterance: Utterance, words: int) -> dict[str, Any]:
                             ("weakest_lead", "margin")):
         known = [value for e in entities if (value := getattr(e, attribute)) is not None]
         out[name] = min(known) if known else None
+    overridden = [e.overridden for e in entities if e.overridden is not None]
+    out["most_overridden"] = max(overridden) if overridden else None
     corrected = {c.after for c in utterance.corrections}
     out["invented"] = sum(1 for e in entities if e.name in corrected and not e.heard_exactly)
     out["rewritten"] = sum(len(c.after.split()) for c in utterance.corrections) / max(1, words)

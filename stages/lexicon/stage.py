@@ -10,6 +10,7 @@ corrections in the text of the top hypothesis; every guard that stops a change i
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from typing import Any, ClassVar
 
 from pydantic import BaseModel
@@ -21,11 +22,12 @@ from stages.indomain.carriers import CarrierPhrases
 from stages.indomain.hints import slot_neighbours
 from stages.lexicon.anchored import AnchoredSearch
 from stages.lexicon.carrier import CarrierSearch
-from stages.lexicon.choice import Choice, describe, support
+from stages.lexicon.choice import Choice, describe, reading_otherwise, support
 from stages.lexicon.compile import CompiledLexicon, load_compiled
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.data import read_speakers
 from stages.lexicon.general import GeneralSearch
+from stages.lexicon.heard import heard_belief
 from stages.lexicon.rewrite import rewrite
 from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.costfile import read_costs
@@ -36,7 +38,7 @@ from stages.lm.model import shared_model
 __all__ = ["LexiconSettings", "LexiconStage"]
 
 
-def _backing(choice: Choice, choices: list[Choice], utterance: Utterance) -> dict[str, Any]:
+def _backing(choice: Choice, choices: list[Choice], utterance: Utterance, overridden: float) -> dict[str, Any]:
     """How the N-best backs a placed entry: the gate reads these (Entity's evidence fields)."""
     posteriors = [h.posterior for h in utterance.nbest]
     sightings = choice.evidence.per_hypothesis
@@ -46,7 +48,7 @@ def _backing(choice: Choice, choices: list[Choice], utterance: Utterance) -> dic
         margin = choice.score - max(rivals) if rivals else choice.score
     return {"support": round(support(choice, utterance.nbest), 6),
             "heard_exactly": round(sum(posteriors[h] for h, s in sightings.items() if s.exact), 6),
-            "margin": round(margin, 6), "origin": "exact" if choice.exact else choice.origin}
+            "margin": round(margin, 6), "overridden": round(overridden, 6), "origin": "exact" if choice.exact else choice.origin}
 
 
 class LexiconStage:
@@ -77,6 +79,7 @@ class LexiconStage:
         self.general: GeneralSearch | None = None
         self.anchored: AnchoredSearch | None = None
         self.carrier: CarrierSearch | None = None
+        self._zipf: Mapping[str, float] = {}  # the common-word list's Zipf frequencies, for heard_belief
 
     @property
     def _lexicon(self) -> CompiledLexicon:
@@ -109,6 +112,7 @@ class LexiconStage:
         self.learned = {"hints": written, "anchors": anchors, "types": types}
         self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
         zipf = common_words()
+        self._zipf = zipf
         common = {w for w, z in zipf.items() if z >= s.general.common_zipf}
         self.general = GeneralSearch(s, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
                                      common=common, zipf=zipf, hints=hints, affinity=affinity)
@@ -162,9 +166,14 @@ class LexiconStage:
             entry = lexicon.entries[choice.evidence.entry]
             heard = " ".join(tokens[start:end])
             score = min(1.0, max(0.0, choice.score))
+            replaced = not choice.exact and heard != after
+            # How sure the N-best was of the words the correction overwrote (the reading every
+            # correction had to beat): the gate weighs a correction that beat a strong one.
+            overridden = heard_belief(tokens[start:end], utterance.nbest, self._zipf, holding=reading_otherwise(
+                choice, utterance.nbest, tokens[start:end])) if replaced else 0.0
             utterance.entities.append(Entity(entry.id, entry.type, entry.name, span, heard, score,
-                                             **_backing(choice, choices, utterance)))
-            if not choice.exact and heard != after:
+                                             **_backing(choice, choices, utterance, overridden)))
+            if replaced:
                 corrections += 1
                 utterance.corrections.append(Correction(
                     self.name, heard, after, score,

@@ -411,6 +411,20 @@ def test_the_trace_says_how_sure_the_gate_was_and_what_weighed_most() -> None:
     assert len(scores["weighed"]) == 3 and all(isinstance(v, float) for v in scores["weighed"].values())
 
 
+def test_a_correction_that_overwrote_words_the_nbest_was_sure_of_lowers_confidence() -> None:
+    # The same correction, once over words nobody agreed on and once over everyday words the
+    # whole N-best held ("stock" -> "dock"): the shipped model must be less sure of the second.
+    text = "book the corvin bandsaw"
+    fix = Correction(stage="lexicon", before="carving band", after="corvin bandsaw", score=0.9, reason="phonetic")
+    gate_ = _default_gate()
+    def sure(overridden: float) -> float:
+        entity = Entity(id="machine.x", type="machine", name="corvin bandsaw", span=(9, 23), heard="carving band",
+                        score=0.9, support=0.8, heard_exactly=0.0, margin=0.3, overridden=overridden, origin="general")
+        utterance = make_utterance([0.9, 0.1], [text, "x"], entities=[entity], corrections=[fix])
+        return float(gate_.process(utterance).trace[-1].scores["confidence"])
+    assert sure(0.9) < sure(0.0)
+
+
 def test_a_correction_no_hypothesis_heard_lowers_confidence() -> None:
     # The same result, once as the recogniser heard it word for word and once as a rewrite that
     # no hypothesis holds on thin sound evidence: the second must not be surer.

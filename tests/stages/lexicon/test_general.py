@@ -10,6 +10,8 @@ from pathlib import Path
 import pytest
 
 from relay.core.utterance import Utterance
+from stages.lexicon.heard import heard_belief
+from stages.lexicon.sound.pronounce import common_words
 from tests.stages.lexicon.fixtures import blocked, run, small_chain
 
 
@@ -30,6 +32,19 @@ def test_common_words_need_stronger_evidence(tmp_path: Path) -> None:
     eased = run(small_chain(tmp_path, general={"common_min_score": 0.99, "common_zipf": 3.5, "common_relief": 0.02}),
                 "book the pillow table saw for me")
     assert [c.after for c in eased.corrections] == ["pellow table saw"]
+
+
+def test_an_entity_says_how_sure_the_nbest_was_of_the_words_it_overwrote(tmp_path: Path) -> None:
+    # The gate reads it: a correction that beat a strong heard-as-said reading is doubtful.
+    chain = small_chain(tmp_path, general={"common_min_score": 0.5, "heard_weight": 0.0})
+    utt = run(chain, "book the pillow table saw for me")
+    (entity,) = [e for e in utt.entities if e.id == "machine.pellow_saw"]
+    assert [c.after for c in utt.corrections] == ["pellow table saw"]
+    # The same belief the heard-as-said guard weighs: every hypothesis holds "pillow table saw".
+    expected = heard_belief(["pillow", "table", "saw"], utt.nbest, common_words())
+    assert entity.overridden == pytest.approx(expected, abs=1e-6) and entity.overridden > 0.5
+    kept = run(chain, "tamsin okara is in bay two")
+    assert kept.corrections == [] and {e.overridden for e in kept.entities} == {0.0}  # nothing replaced
 
 
 def test_margin_over_the_runner_up_is_required(tmp_path: Path) -> None:
