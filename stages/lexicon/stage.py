@@ -79,7 +79,6 @@ class LexiconStage:
         self.general: GeneralSearch | None = None
         self.anchored: AnchoredSearch | None = None
         self.carrier: CarrierSearch | None = None
-        self._zipf: Mapping[str, float] = {}  # the common-word list's Zipf frequencies, for heard_belief
 
     @property
     def _lexicon(self) -> CompiledLexicon:
@@ -112,7 +111,6 @@ class LexiconStage:
         self.learned = {"hints": written, "anchors": anchors, "types": types}
         self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
         zipf = common_words()
-        self._zipf = zipf
         common = {w for w, z in zipf.items() if z >= s.general.common_zipf}
         self.general = GeneralSearch(s, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
                                      common=common, zipf=zipf, hints=hints, affinity=affinity)
@@ -147,14 +145,15 @@ class LexiconStage:
         if self.carrier is not None:
             found, carrier = self.carrier.recall(utterance, top, placed, context)
             placed += found
-        self._finish(utterance, top, placed, blocked, choices)
+        self._finish(utterance, top, placed, blocked, choices, zipf=general.zipf)
         if carrier:
             utterance.note(carrier=carrier)
         return utterance
 
     def _finish(self, utterance: Utterance, top: int, placed: list[Choice],
-                blocked: list[dict[str, Any]], choices: list[Choice]) -> None:
-        """Entities, corrections and the rewritten text from what was placed; the trace."""
+                blocked: list[dict[str, Any]], choices: list[Choice], *, zipf: Mapping[str, float]) -> None:
+        """Entities, corrections and the rewritten text from what was placed; the trace. ``zipf``:
+        the common-word list the heard-as-said belief reads."""
         lexicon = self._lexicon
         tokens = utterance.nbest[top].tokens
         replacements = [(c.start, c.end, lexicon.forms[c.form].text if not c.exact
@@ -169,7 +168,7 @@ class LexiconStage:
             replaced = not choice.exact and heard != after
             # How sure the N-best was of the words the correction overwrote (the reading every
             # correction had to beat): the gate weighs a correction that beat a strong one.
-            overridden = heard_belief(tokens[start:end], utterance.nbest, self._zipf, holding=reading_otherwise(
+            overridden = heard_belief(tokens[start:end], utterance.nbest, zipf, holding=reading_otherwise(
                 choice, utterance.nbest, tokens[start:end])) if replaced else 0.0
             utterance.entities.append(Entity(entry.id, entry.type, entry.name, span, heard, score,
                                              **_backing(choice, choices, utterance, overridden)))
