@@ -33,6 +33,11 @@ def test_belief_is_agreement_times_commonness() -> None:
     assert heard_belief(["quillan"], [_hyp("the quillan", 1.0)], zipf) == 0.0
     # Hypotheses that read the words as part of the name do not count for the heard reading.
     assert heard_belief(["tomorrow"], split[:1] + sure[1:], zipf, holding={1}) == 0.6
+    # Only whole words in a row count: "the water" is not in "bathe water", nor "on" in "gone"
+    # (every word here is an everyday one, so the belief is the agreement alone).
+    inside = [_hyp("bathe water gone", 0.5), _hyp("is the water on", 0.5)]
+    assert [heard_belief(run.split(), inside, zipf) for run in ("the water", "water on", "water gone", "on gone")] == [
+        0.5, 0.5, 0.5, 0.0]
 
 
 def test_an_inflected_everyday_word_counts_as_everyday() -> None:
