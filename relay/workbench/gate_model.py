@@ -35,7 +35,7 @@ TRANSFERABLE: tuple[str, ...] = (
     "posterior", "margin", "weakest_entity", "entities", "corrections", "text_lm_relative", "text_lm_weakest",
     "text_oov", "unfilled_slots", "line_edit_share", "asr_log_conf", "weakest_support", "weakest_heard",
     "weakest_lead", "invented", "rewritten", "asr_word_mean", "missing_slots",
-    "most_overridden",
+    "most_overridden", "foreign_slots",
 )
 
 

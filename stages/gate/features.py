@@ -45,6 +45,7 @@ class GateFeatures:
     line_edits: int | None = None  # word edits to the nearest in-domain line; None: no carrier_text
     missing_slots: int | None = None  # slots of that nearest line beyond the result's entities
     missing_type: str | None = None  # the first such slot's entity type
+    foreign_slots: int | None = None  # entities whose type that nearest line has no slot for
     asr_log_conf: float | None = None  # ln of the highest `conf` the recogniser gave; None: it gave none
     asr_word_mean: float | None = None  # mean ln of the first hypothesis's `word_probs`; None: not given
     # How the N-best backs the entities (the lexicon stage's evidence); None without entities.
@@ -72,6 +73,7 @@ class GateFeatures:
             "unfilled_slots": None if self.unfilled_slots is None else float(self.unfilled_slots),
             "line_edits": None if self.line_edits is None else float(self.line_edits),
             "missing_slots": None if self.missing_slots is None else float(self.missing_slots),
+            "foreign_slots": None if self.foreign_slots is None else float(self.foreign_slots),
             "asr_log_conf": self.asr_log_conf,
             "asr_word_mean": self.asr_word_mean,
             # Without entities there is no evidence to weigh: unknown (a model counts its training

@@ -67,7 +67,7 @@ class GateStage:
         used = set(given.features) if given is not None else set()
         for needed, path, where in ((sorted(n for n in used if n.startswith("text_")), self.lm_path,
                                      "domain.language_model (or lm_model)"),
-                                    (sorted(used & {"unfilled_slots", "line_edits", "line_edit_share", "missing_slots"}), self.text_path,
+                                    (sorted(used & {"unfilled_slots", "line_edits", "line_edit_share", "missing_slots", "foreign_slots"}), self.text_path,
                                      "domain.text (or carrier_text)")):
             if needed and path is None:
                 raise ConfigError(f"confidence uses {', '.join(needed)}", [f"which need {where}"])
@@ -113,7 +113,7 @@ class GateStage:
             nearest = self.lines.nearest(marked)
             if nearest is not None:
                 in_domain |= {"line_edits": nearest.edits, "missing_slots": nearest.missing,
-                              "missing_type": nearest.missing_type}
+                              "missing_type": nearest.missing_type, "foreign_slots": nearest.foreign}
             utterance.check_deadline()
         return GateFeatures(
             posterior=top,

@@ -13,6 +13,8 @@ entities: "the next stern gland needs replacing" is two edits from "{vessel} s s
 replacing", a line with a slot the result does not fill, so most likely a name was said there
 and not found (of such results on the example corpora, 11-28% had the right entities, against
 88% with no slot missing). Among lines equally near, the one missing the fewest slots counts.
+Entities of a type that line has no slot for are foreign to it: "touch up the sling marks on
+{place}" against "touch up the sling marks on {vessel}" (a place heard where a vessel was said).
 Each distinct word is coded as one character, so the comparison is done by rapidfuzz (in C), one
 call per line length, nearest lengths first: about 30 us against the workshop's 219 lines.
 """
@@ -35,6 +37,7 @@ class Nearest(NamedTuple):
     edits: int  # fewest word edits to a line
     missing: int  # slots of that line (the fewest among lines as near) no entity of the text fills
     missing_type: str | None  # the first such slot's entity type
+    foreign: int = 0  # entities of the text whose type that line has no slot for
 
 
 def _character(number: int) -> str:
@@ -109,7 +112,8 @@ class NearestLine:
                 left[marker] -= 1
             elif unfilled is None:
                 unfilled = marker[1:-1]
-        return Nearest(best, missing, unfilled)
+        foreign = sum((entities - Counter(self._slots[line])).values())
+        return Nearest(best, missing, unfilled, foreign)
 
     def _as_near(self, query: str, edits: int) -> Iterator[str]:
         """Every line ``edits`` or fewer word edits from the coded ``query``."""

@@ -326,15 +326,28 @@ def test_a_missing_slot_lowers_confidence_and_the_reprompt_asks_for_its_type(tmp
     assert found.decision == "accept"
 
 
+def test_an_entity_the_nearest_line_has_no_slot_for_lowers_confidence(tmp_path: Path) -> None:
+    stage = _carrier_gate(tmp_path, "foreign_slots")
+    # "meet me in {person}": a person where the in-domain text only ever puts a place. The nearest
+    # line is one substitution away and holds no person slot: sigmoid(2 - 4) = 0.12.
+    person = Entity(id="person.x", type="person", name="bea juan", span=(11, 19), heard="bay one", score=0.9)
+    foreign = stage.process(make_utterance([0.9, 0.1], ["meet me in bea juan", "x"], entities=[person]))
+    assert foreign.trace[-1].scores["foreign_slots"] == 1 and foreign.decision == "reprompt"
+    bay = Entity(id="place.bay_1", type="place", name="bay one", span=(11, 18), heard="bay one", score=0.9)
+    found = stage.process(make_utterance([0.9, 0.1], ["meet me in bay one", "x"], entities=[bay]))
+    assert found.trace[-1].scores["foreign_slots"] == 0 and found.decision == "accept"
+
+
 def test_without_carrier_text_the_feature_is_unknown() -> None:
     features = gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"]))
     assert features.unfilled_slots is None and features.values()["unfilled_slots"] is None
     assert features.line_edits is None and features.values()["line_edits"] is None
     assert features.missing_slots is None and features.values()["missing_slots"] is None
+    assert features.foreign_slots is None and features.values()["foreign_slots"] is None
 
 
 def test_unfilled_slots_needs_carrier_text() -> None:
-    for feature in ("unfilled_slots", "line_edits", "line_edit_share", "missing_slots"):
+    for feature in ("unfilled_slots", "line_edits", "line_edit_share", "missing_slots", "foreign_slots"):
         with pytest.raises(ConfigError, match=f"confidence uses {feature}") as caught:
             gate(confidence={"features": {feature: {"weight": -1.0}}})
         assert "which need domain.text (or carrier_text)" in str(caught.value)

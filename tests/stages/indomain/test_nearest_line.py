@@ -67,19 +67,29 @@ def test_missing_slots_are_the_nearest_lines_slots_beyond_the_texts_entities() -
     near = NearestLine(line.split() for line in LINES)
     # Worked by hand: "tell the lathe is free" is two edits from "tell {person} the {machine} is
     # free" ({person} left out, "lathe" for {machine}), and further from every other line.
-    assert near.nearest("tell the lathe is free".split()) == (2, 2, "person")
-    assert near.nearest("tell {person} the lathe is free".split()) == (1, 1, "machine")
-    assert near.nearest("call {person}".split()) == (0, 0, None)
-    assert near.nearest("meet me in there".split()) == (1, 1, "place")
-    # More entities than the line has slots is not a missing slot.
-    assert near.nearest("meet {person} in {place}".split()) == (1, 0, None)
+    assert near.nearest("tell the lathe is free".split()) == (2, 2, "person", 0)
+    assert near.nearest("tell {person} the lathe is free".split()) == (1, 1, "machine", 0)
+    assert near.nearest("call {person}".split()) == (0, 0, None, 0)
+    assert near.nearest("meet me in there".split()) == (1, 1, "place", 0)
+    # More entities than the line has slots is not a missing slot; the one of a type the line has
+    # no slot for is foreign.
+    assert near.nearest("meet {person} in {place}".split()) == (1, 0, None, 1)
     assert NearestLine([]).nearest(["call", "{person}"]) is None
+
+
+def test_an_entity_of_a_type_the_nearest_line_has_no_slot_for_is_foreign() -> None:
+    near = NearestLine(line.split() for line in LINES)
+    # Worked by hand: a place where the line holds a machine ("the slip" for a vessel's name) is
+    # one substitution from "tell {person} the {machine} is free". Missing slots count slots
+    # beyond the number of entities (none here); the place is foreign to the line.
+    assert near.nearest("tell {person} the {place} is free".split()) == (1, 0, None, 1)
+    assert near.nearest("tell {person} the {machine} is free".split()).foreign == 0  # type: ignore[union-attr]
 
 
 def test_missing_slots_take_the_fewest_among_equally_near_lines() -> None:
     near = NearestLine([["call", "{person}"], ["call", "now"]])
     # "call him" is one substitution from both lines; one of them has no slot to miss.
-    assert near.nearest(["call", "him"]) == (1, 0, None)
+    assert near.nearest(["call", "him"]) == (1, 0, None, 0)
 
 
 def test_names_in_literal_lines_count_as_their_slot() -> None:
