@@ -41,13 +41,7 @@ class GeneralSearch:
         self.zipf = zipf  # every word of the common-word list with its Zipf frequency
         self.hints = hints
         self.affinity = affinity
-        match = settings.match
-        self.weights = Weights(match.weight_phone, match.weight_spelling, match.weight_keys, match.candidates,
-                               match.min_retrieval, match.pair_floor, match.min_phone,
-                               align_floor=match.align_floor, broad_candidates=match.broad_candidates,
-                               broad_min_retrieval=match.broad_min_retrieval,
-                               skeleton_candidates=match.skeleton_candidates,
-                               skeleton_min_retrieval=match.skeleton_min_retrieval)
+        self.weights = Weights.of(settings.match)
 
     def entries(self, utterance: Utterance, top: int) -> list[Evidence]:
         """The entries the N-best supports enough to be corrected or traced, strongest first."""

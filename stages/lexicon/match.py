@@ -16,6 +16,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
 import numpy as np
 import numpy.typing as npt
@@ -28,6 +29,9 @@ from stages.lexicon.compile import CompiledLexicon, Form, word_run_keys
 from stages.lexicon.sound.kernels import compiled
 from stages.lexicon.sound.phonetics import _CHAR_BASE, PHONES, CostModel, batch_similarity, broad, skeleton
 from stages.lexicon.sound.pronounce import Pronouncer
+
+if TYPE_CHECKING:
+    from stages.lexicon.settings import MatchSettings
 
 __all__ = ["Evidence", "Sighting", "Spans", "Weights", "best_entries", "find_spans", "pool", "score_spans"]
 
@@ -46,6 +50,14 @@ class Weights:
     broad_min_retrieval: float = 0.3
     skeleton_candidates: int = 0  # and from the consonant-skeleton index (0: none)
     skeleton_min_retrieval: float = 0.6
+
+    @classmethod
+    def of(cls, match: MatchSettings) -> Weights:
+        """The weights and floors the stage's ``match`` settings give."""
+        return cls(match.weight_phone, match.weight_spelling, match.weight_keys, match.candidates,
+                   match.min_retrieval, match.pair_floor, match.min_phone, align_floor=match.align_floor,
+                   broad_candidates=match.broad_candidates, broad_min_retrieval=match.broad_min_retrieval,
+                   skeleton_candidates=match.skeleton_candidates, skeleton_min_retrieval=match.skeleton_min_retrieval)
 
 
 @dataclass(slots=True)

@@ -34,6 +34,7 @@ from stages.lexicon.match import (
     pool,
     score_spans,
 )
+from stages.lexicon.settings import MatchSettings
 from stages.lexicon.sound.kernels import compiled
 from stages.lexicon.sound.phone_index import Hits, PhoneIndex
 from stages.lexicon.sound.phonetics import (
@@ -223,7 +224,7 @@ def _pair_fixture() -> tuple[CompiledLexicon, list[Spans]]:
 
 
 @pytest.mark.parametrize("weights", [
-    Weights(0.6, 0.2, 0.2, 3, 0.2, 0.45, 0.6, 0.4, broad_candidates=4, skeleton_candidates=3),  # the defaults
+    Weights.of(MatchSettings()),  # the stage's defaults
     Weights(0.5, 0.3, 0.2, 8, 0.1, 0.2, 0.3, 0.2),  # looser: more pairs reach every term
     Weights(0.7, 0.0, 0.3, 5, 0.1, 0.3, 0.4, 0.3),  # no spelling term
     Weights(0.7, 0.3, 0.0, 5, 0.1, 0.3, 0.4, 0.3),  # no key term
