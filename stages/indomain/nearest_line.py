@@ -103,17 +103,12 @@ class NearestLine:
         if len(self._slots[line]) > count:
             # Another line as near may have fewer slots (the first such, in the lines' order).
             line = min([line, *self._as_near(query, best)], key=lambda found: len(self._slots[found]))
-        missing = max(0, len(self._slots[line]) - count)
-        # Which slot: the first of the line's whose type the text's entities do not account for.
-        left = Counter(entities)
-        unfilled = None
-        for marker in self._slots[line] if missing else ():
-            if left[marker] > 0:
-                left[marker] -= 1
-            elif unfilled is None:
-                unfilled = marker[1:-1]
-        foreign = sum((entities - Counter(self._slots[line])).values())
-        return Nearest(best, missing, unfilled, foreign)
+        slots = self._slots[line]
+        missing = max(0, len(slots) - count)
+        # Slot types the text's entities do not fill, and entity types the line has no slot for.
+        unfilled, foreign = Counter(slots) - entities, entities - Counter(slots)
+        first = next((marker[1:-1] for marker in slots if unfilled[marker]), None) if missing else None
+        return Nearest(best, missing, first, sum(foreign.values()))
 
     def _as_near(self, query: str, edits: int) -> Iterator[str]:
         """Every line ``edits`` or fewer word edits from the coded ``query``."""
