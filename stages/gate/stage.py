@@ -44,6 +44,10 @@ __all__ = ["GateStage"]
 _FEATURE_NAMES = tuple(f.name for f in fields(GateFeatures))
 
 
+# The confidence features read from the in-domain lines (carrier phrases and the nearest line).
+_FROM_LINES = frozenset({"unfilled_slots", "line_edits", "line_edit_share", "missing_slots", "foreign_slots"})
+
+
 class GateStage:
     """Decide what happens to the result and what to say back when it is not accepted."""
 
@@ -67,7 +71,7 @@ class GateStage:
         used = set(given.features) if given is not None else set()
         for needed, path, where in ((sorted(n for n in used if n.startswith("text_")), self.lm_path,
                                      "domain.language_model (or lm_model)"),
-                                    (sorted(used & {"unfilled_slots", "line_edits", "line_edit_share", "missing_slots", "foreign_slots"}), self.text_path,
+                                    (sorted(used & _FROM_LINES), self.text_path,
                                      "domain.text (or carrier_text)")):
             if needed and path is None:
                 raise ConfigError(f"confidence uses {', '.join(needed)}", [f"which need {where}"])
