@@ -219,9 +219,11 @@ def _score_pairs_compiled(spans: Spans, forms: list[Form], queries: npt.NDArray[
     if compiled is None:
         raise RuntimeError("the compiled kernels are not built")
     if exact_pairs:
-        kept = [(q, f) for q, f in zip(queries.tolist(), items.tolist()) if (q, f) not in exact_pairs]
-        queries = np.array([q for q, _ in kept], dtype=np.int32)
-        items = np.array([f for _, f in kept], dtype=np.int32)
+        # Pairs as one number each (span x forms + form), so the exact ones drop out in one pass.
+        keys = queries.astype(np.int64) * len(forms) + items
+        exact = np.fromiter((q * len(forms) + f for q, f in exact_pairs), dtype=np.int64, count=len(exact_pairs))
+        kept = ~np.isin(keys, exact)
+        queries, items = queries[kept], items[kept]
     count = len(queries)
     if not count:
         return pairs
