@@ -28,14 +28,25 @@ static int check_size(const Py_buffer *view, Py_ssize_t items, Py_ssize_t itemsi
     return 0;
 }
 
-/* Adds value to an open-addressing set of `mask + 1` slots (empty slots hold -1); whether it was new. */
-static inline int add_once(int64_t *slots, Py_ssize_t mask, int64_t value) {
-    Py_ssize_t at = (Py_ssize_t)(((uint64_t)value * 0x9E3779B97F4A7C15ull) >> 32) & mask;
-    while (slots[at] != -1) {
-        if (slots[at] == value)
-            return 0;
+/* Where a probe of an open-addressing table of `mask + 1` slots starts for value (Fibonacci hashing). */
+static inline Py_ssize_t first_slot(uint64_t value, Py_ssize_t mask) {
+    return (Py_ssize_t)((value * 0x9E3779B97F4A7C15ull) >> 32) & mask;
+}
+
+/* The slot of a set of non-negative values (empty slots hold -1) that holds value, or the empty
+   slot where it would go. */
+static inline Py_ssize_t slot_of(const int64_t *slots, Py_ssize_t mask, int64_t value) {
+    Py_ssize_t at = first_slot((uint64_t)value, mask);
+    while (slots[at] != -1 && slots[at] != value)
         at = (at + 1) & mask;
-    }
+    return at;
+}
+
+/* Adds value to such a set; whether it was new. */
+static inline int add_once(int64_t *slots, Py_ssize_t mask, int64_t value) {
+    Py_ssize_t at = slot_of(slots, mask, value);
+    if (slots[at] == value)
+        return 0;
     slots[at] = value;
     return 1;
 }
@@ -632,7 +643,7 @@ static PyObject *g2p_decode(PyObject *self, PyObject *args) {
             cand_total[i] = hyp_score[i / width] + cand_total[i]; /* the hypothesis' score plus ln p */
             /* the best hypothesis per next state (the rest can never overtake it); on a tie the
                first, as the numpy path's stable sort leaves it */
-            Py_ssize_t probe = (Py_ssize_t)(((uint64_t)cand_next[i] * 0x9E3779B97F4A7C15ull) >> 32) & mask;
+            Py_ssize_t probe = first_slot((uint64_t)cand_next[i], mask);
             while (by_state[probe] != -1 && cand_next[by_state[probe]] != cand_next[i])
                 probe = (probe + 1) & mask;
             if (by_state[probe] == -1) {
@@ -1395,9 +1406,7 @@ static PyObject *pool_pairs(PyObject *self, PyObject *args) {
             Py_DECREF(entry);
             goto done;
         }
-        Py_ssize_t at = (Py_ssize_t)(((uint64_t)id * 0x9E3779B97F4A7C15ull) >> 32) & mask;
-        while (slots[at] != -1 && slots[at] != (int64_t)id)
-            at = (at + 1) & mask;
+        Py_ssize_t at = slot_of(slots, mask, (int64_t)id);
         if (slots[at] == -1) {
             slots[at] = (int64_t)id;
             slot_entry[at] = known;
@@ -1530,15 +1539,9 @@ done:
 
 /* ---- the two index searches' hits as one list of pairs ---- */
 
-/* Whether value is in an open-addressing set made by add_once. */
+/* Whether value is in a set made by add_once. */
 static inline int holds(const int64_t *slots, Py_ssize_t mask, int64_t value) {
-    Py_ssize_t at = (Py_ssize_t)(((uint64_t)value * 0x9E3779B97F4A7C15ull) >> 32) & mask;
-    while (slots[at] != -1) {
-        if (slots[at] == value)
-            return 1;
-        at = (at + 1) & mask;
-    }
-    return 0;
+    return slots[slot_of(slots, mask, value)] == value;
 }
 
 PyDoc_STRVAR(merge_doc,
