@@ -28,6 +28,20 @@ static int check_size(const Py_buffer *view, Py_ssize_t items, Py_ssize_t itemsi
     return 0;
 }
 
+/* Both arguments as fast sequences (new references), or -1 with an error set and neither held. */
+static int fast_sequences(PyObject *a, PyObject *b, const char *a_error, const char *b_error, PyObject **fast_a,
+                          PyObject **fast_b) {
+    *fast_a = PySequence_Fast(a, a_error);
+    if (*fast_a == NULL)
+        return -1;
+    *fast_b = PySequence_Fast(b, b_error);
+    if (*fast_b == NULL) {
+        Py_CLEAR(*fast_a);
+        return -1;
+    }
+    return 0;
+}
+
 /* Where a probe of an open-addressing table of `mask + 1` slots starts for value (Fibonacci hashing). */
 static inline Py_ssize_t first_slot(uint64_t value, Py_ssize_t mask) {
     return (Py_ssize_t)((value * 0x9E3779B97F4A7C15ull) >> 32) & mask;
@@ -757,14 +771,10 @@ static PyObject *word_spans(PyObject *self, PyObject *args) {
         PyErr_SetString(PyExc_ValueError, "longest must be at least 1");
         return NULL;
     }
-    PyObject *hyps = PySequence_Fast(token_lists, "token_lists must be a sequence");
-    if (hyps == NULL)
+    PyObject *hyps, *all_sounds;
+    if (fast_sequences(token_lists, sound_lists, "token_lists must be a sequence", "sound_lists must be a sequence",
+                       &hyps, &all_sounds) < 0)
         return NULL;
-    PyObject *all_sounds = PySequence_Fast(sound_lists, "sound_lists must be a sequence");
-    if (all_sounds == NULL) {
-        Py_DECREF(hyps);
-        return NULL;
-    }
     PyObject *index = PyDict_New(), *words = PyList_New(0), *phones = PyList_New(0), *texts = PyList_New(0);
     PyObject *occurrences = PyList_New(0), *space = PyUnicode_FromString(" "), *nothing = PyUnicode_FromString("");
     PyObject *result = NULL, *tokens = NULL, *sounds = NULL, *key = NULL, *occurrence = NULL;
@@ -1344,14 +1354,10 @@ static PyObject *pool_pairs(PyObject *self, PyObject *args) {
     if (!PyArg_ParseTuple(args, "O!OO!OdOO", &PyList_Type, &occurrences, &pair_list, &PyList_Type, &forms,
                           &posterior_list, &strong, &evidence_type, &sighting_type))
         return NULL;
-    PyObject *pairs = PySequence_Fast(pair_list, "pool_pairs: pairs must be a sequence");
-    if (pairs == NULL)
+    PyObject *pairs, *posteriors;
+    if (fast_sequences(pair_list, posterior_list, "pool_pairs: pairs must be a sequence",
+                       "pool_pairs: posteriors must be a sequence", &pairs, &posteriors) < 0)
         return NULL;
-    PyObject *posteriors = PySequence_Fast(posterior_list, "pool_pairs: posteriors must be a sequence");
-    if (posteriors == NULL) {
-        Py_DECREF(pairs);
-        return NULL;
-    }
     Py_ssize_t count = PySequence_Fast_GET_SIZE(pairs), hypotheses = PySequence_Fast_GET_SIZE(posteriors);
     Py_ssize_t spans = PyList_GET_SIZE(occurrences), form_count = PyList_GET_SIZE(forms);
     Py_ssize_t cells = count * hypotheses, known = 0; /* entries seen so far */
