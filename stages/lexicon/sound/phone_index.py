@@ -63,9 +63,6 @@ class _Alphabet:
         return self.base**3 + self.base**4
 
 
-_PHONES = _Alphabet(len(PHONES))
-
-
 def ngrams(phones: str, symbols: int = len(PHONES)) -> set[int]:
     """The n-gram numbers of one encoded string (the reference for ``gram_codes``)."""
     alphabet = _Alphabet(symbols)
