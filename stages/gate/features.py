@@ -132,15 +132,14 @@ def judged_text(model: Any, words: list[str]) -> dict[str, Any]:
 
 
 def backing(utterance: Utterance, words: int) -> dict[str, Any]:
-    """The entities' evidence as features: the weakest of each kind, corrections that invent."""
+    """The entities' evidence as features: the weakest of each kind, the strongest heard reading a
+    correction overrode, corrections that invent."""
     entities = utterance.entities
     out: dict[str, Any] = {}
-    for name, attribute in (("weakest_support", "support"), ("weakest_heard", "heard_exactly"),
-                            ("weakest_lead", "margin")):
+    for name, attribute, worst in (("weakest_support", "support", min), ("weakest_heard", "heard_exactly", min),
+                                   ("weakest_lead", "margin", min), ("most_overridden", "overridden", max)):
         known = [value for e in entities if (value := getattr(e, attribute)) is not None]
-        out[name] = min(known) if known else None
-    overridden = [e.overridden for e in entities if e.overridden is not None]
-    out["most_overridden"] = max(overridden) if overridden else None
+        out[name] = worst(known) if known else None
     corrected = {c.after for c in utterance.corrections}
     out["invented"] = sum(1 for e in entities if e.name in corrected and not e.heard_exactly)
     out["rewritten"] = sum(len(c.after.split()) for c in utterance.corrections) / max(1, words)
