@@ -167,8 +167,8 @@ class GeneralSearch:
                   and not (c.exact and self._supersedes(choice, c, tokens))]
         if rivals and choice.score - max(rivals) < g.margin:
             return "margin"
-        if (g.short_penalty and len(self.lexicon.forms[choice.form].phones) <= g.short_phones
-                and choice.score < g.min_score + g.short_penalty):
+        short = len(self.lexicon.forms[choice.form].phones) <= g.short_phones
+        if g.short_penalty and short and choice.score < g.min_score + g.short_penalty:
             return "short_form"  # a few phones match many everyday words by chance ("for" -> "bay four")
         if choice.hint_missing and choice.score < g.min_score + g.hint_penalty:
             return "type_hint"  # a hinted type without its hint word needs general.hint_penalty more
@@ -176,7 +176,10 @@ class GeneralSearch:
             return "weak_sound"  # priors alone must not carry a rewrite: some hypothesis must sound like it
         if g.kept_min_phone and self._kept_rest(words, choice) < g.kept_min_phone:
             return "kept_words"
-        if g.heard_weight and choice.score < g.min_score + g.heard_weight * heard_belief(
+        # Two reasons for doubt add: a short form matches everyday words by chance, and these
+        # words may have been said as heard ("we've run short" -> "we've wren short").
+        floor = g.min_score + (g.heard_short_penalty if short else 0.0)
+        if g.heard_weight and choice.score < floor + g.heard_weight * heard_belief(
                 words, nbest, self.zipf, holding=reading_otherwise(choice, nbest, words)):
             return "heard_right"
         return None

@@ -66,3 +66,20 @@ def test_a_name_the_n_best_disagrees_on_is_still_found(tmp_path: Path) -> None:
     chain = small_chain(tmp_path, NEAR_WORDS)
     utt = run(chain, "book the quill and router", "book the quillan router", "book the quill an router")
     assert [e.id for e in utt.entities] == ["machine.quillan_router"]
+
+
+# A short alias (3 phones) that an everyday word misses by one vowel, weighted so that its
+# score (0.92) clears both the short-form bar (0.8) and the heard-as-said bar (0.9) alone.
+SHORT_ALIAS = SMALL_LEXICON + "machine.wren_overlocker,machine,wren overlocker,wren,,3.0\n"
+
+
+def test_a_short_form_must_beat_the_heard_reading_by_more(tmp_path: Path) -> None:
+    # "we've run short": both reasons for doubt hold at once, a short form that matches everyday
+    # words by chance and an everyday word the whole N-best agrees on, and their bars add.
+    heard = ("we've run short of glue again",) * 2
+    kept = run(small_chain(tmp_path, SHORT_ALIAS), *heard)
+    assert kept.text == "we've run short of glue again" and not kept.entities
+    assert [(b["id"], b["guard"]) for b in blocked(kept)] == [("machine.wren_overlocker", "heard_right")]
+    # Without the added bar the same words are rewritten: the example is a near miss at all.
+    rewritten = run(small_chain(tmp_path, SHORT_ALIAS, general={"heard_short_penalty": 0.0}), *heard)
+    assert rewritten.text == "we've wren short of glue again"
