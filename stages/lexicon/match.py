@@ -27,7 +27,16 @@ from rapidfuzz.process import cpdist
 from relay.core.utterance import Hypothesis
 from stages.lexicon.compile import CompiledLexicon, Form, word_run_keys
 from stages.lexicon.sound.kernels import compiled
-from stages.lexicon.sound.phonetics import _CHAR_BASE, PHONES, CostModel, batch_similarity, broad, skeleton
+from stages.lexicon.sound.phonetics import (
+    _CHAR_BASE,
+    BROAD_CODES,
+    PHONES,
+    SKELETON_CODES,
+    CostModel,
+    batch_similarity,
+    broad,
+    skeleton,
+)
 from stages.lexicon.sound.pronounce import Pronouncer
 
 if TYPE_CHECKING:
@@ -129,8 +138,6 @@ def _word_spans_python(token_lists: Sequence[Sequence[str]], sound_lists: Sequen
 
 
 _span_keys = lru_cache(maxsize=32768)(word_run_keys)  # span words recur from message to message
-_broad_span = lru_cache(maxsize=32768)(broad)  # and so do their phones
-_skeleton_span = lru_cache(maxsize=32768)(skeleton)
 
 
 def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
@@ -149,11 +156,11 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     # Two more ways in: the same search over broad phone classes, for spans whose vowels or
     # voicing the recogniser changed, and over consonant skeletons, for spans that gained or lost
     # a vowel; a pair found several ways is kept once, where it came first.
-    more = [index.search([recast(p) for p in spans.phones], k=k, min_score=least)
-            for index, recast, k, least in ((lexicon.broad_index, _broad_span, weights.broad_candidates,
+    more = [index.search(spans.phones, k=k, min_score=least, recast=recast)
+            for index, recast, k, least in ((lexicon.broad_index, (broad, BROAD_CODES), weights.broad_candidates,
                                              weights.broad_min_retrieval),
-                                            (lexicon.skeleton_index, _skeleton_span, weights.skeleton_candidates,
-                                             weights.skeleton_min_retrieval)) if k]
+                                            (lexicon.skeleton_index, (skeleton, SKELETON_CODES),
+                                             weights.skeleton_candidates, weights.skeleton_min_retrieval)) if k]
     forms = lexicon.forms
     if compiled is not None:
         query, item = hits.query, hits.item

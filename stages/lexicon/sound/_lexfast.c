@@ -112,22 +112,44 @@ static inline int ranks_before(Candidate a, Candidate b) {
 
 PyDoc_STRVAR(search_doc,
 "search(queries, lookup, offsets, postings, sizes, counts, touched, least_size, k, min_score,\n"
-"       out_query, out_item, out_score, char_base, phones, base, offset4) -> int\n\n"
+"       out_query, out_item, out_score, char_base, phones, base, offset4, recast=None) -> int\n\n"
 "Up to k items per query by Dice score of shared phone 3- and 4-grams; writes the hits into\n"
 "the out buffers grouped by query, best first, and returns how many. counts and touched are\n"
-"int32 scratch arrays of one element per indexed string; counts must be zero and is left so.");
+"int32 scratch arrays of one element per indexed string; counts must be zero and is left so.\n"
+"With recast (int32, one element per phone of the queries' alphabet), each query phone is read\n"
+"as recast[phone], or left out where that is negative: the search of an index over a smaller\n"
+"alphabet (broad classes, consonant skeleton) without the recast strings being made first.");
 
 static PyObject *search(PyObject *self, PyObject *args) {
-    PyObject *queries;
-    Py_buffer lookup_b, offsets_b, postings_b, sizes_b, counts_b, touched_b, oq_b, oi_b, os_b;
+    PyObject *queries, *recast_o = Py_None;
+    Py_buffer lookup_b, offsets_b, postings_b, sizes_b, counts_b, touched_b, oq_b, oi_b, os_b, recast_b = {0};
     double least_size, min_score;
     Py_ssize_t k;
     int char_base, phones, base;
     long long offset4;
-    if (!PyArg_ParseTuple(args, "Oy*y*y*y*w*w*dndw*w*w*iiiL", &queries, &lookup_b, &offsets_b, &postings_b,
+    if (!PyArg_ParseTuple(args, "Oy*y*y*y*w*w*dndw*w*w*iiiL|O", &queries, &lookup_b, &offsets_b, &postings_b,
                           &sizes_b, &counts_b, &touched_b, &least_size, &k, &min_score, &oq_b, &oi_b, &os_b,
-                          &char_base, &phones, &base, &offset4))
+                          &char_base, &phones, &base, &offset4, &recast_o))
         return NULL;
+    const int32_t *recast = NULL;
+    Py_ssize_t recast_count = 0;
+    if (recast_o != Py_None) {
+        if (PyObject_GetBuffer(recast_o, &recast_b, PyBUF_SIMPLE) < 0) {
+            recast_b.obj = NULL;
+            PyBuffer_Release(&lookup_b);
+            PyBuffer_Release(&offsets_b);
+            PyBuffer_Release(&postings_b);
+            PyBuffer_Release(&sizes_b);
+            PyBuffer_Release(&counts_b);
+            PyBuffer_Release(&touched_b);
+            PyBuffer_Release(&oq_b);
+            PyBuffer_Release(&oi_b);
+            PyBuffer_Release(&os_b);
+            return NULL;
+        }
+        recast = recast_b.buf;
+        recast_count = recast_b.len / 4;
+    }
     PyObject *result = NULL, *fast = NULL;
     int64_t *grams = NULL, *slots = NULL;
     int32_t *codes = NULL, *columns = NULL;
@@ -170,8 +192,24 @@ static PyObject *search(PyObject *self, PyObject *args) {
     for (Py_ssize_t q = 0; q < count; q++) {
         Py_ssize_t length = PyUnicode_GET_LENGTH(items[q]);
         codes[0] = phones; /* start mark */
-        if (read_codes(items[q], codes + 1, length, char_base, phones) < 0)
+        if (recast != NULL) {
+            if (read_codes(items[q], codes + 1, length, char_base, (int32_t)recast_count) < 0)
+                goto done;
+            Py_ssize_t kept_codes = 0;
+            for (Py_ssize_t i = 1; i <= length; i++) {
+                int32_t mapped = recast[codes[i]];
+                if (mapped < 0)
+                    continue; /* a phone the smaller alphabet leaves out */
+                if (mapped >= phones) {
+                    PyErr_SetString(PyExc_ValueError, "search: recast points outside the alphabet");
+                    goto done;
+                }
+                codes[++kept_codes] = mapped;
+            }
+            length = kept_codes;
+        } else if (read_codes(items[q], codes + 1, length, char_base, phones) < 0) {
             goto done;
+        }
         codes[length + 1] = phones + 1; /* end mark */
         Py_ssize_t padded = length + 2, made = 0;
         for (int n = 3; n <= 4; n++) {
@@ -275,6 +313,8 @@ done:
     PyBuffer_Release(&oq_b);
     PyBuffer_Release(&oi_b);
     PyBuffer_Release(&os_b);
+    if (recast_b.obj != NULL)
+        PyBuffer_Release(&recast_b);
     return result;
 }
 
@@ -1630,7 +1670,7 @@ static struct PyModuleDef module = {
    built from an older _lexfast.c (and fall back to numpy) instead of calling it wrongly.
    2: alignment_costs takes separate insertion and deletion costs; 3: pair_screen and pair_finish;
    4: pool_pairs and merge_hits. */
-#define KERNELS_VERSION 4
+#define KERNELS_VERSION 5
 
 PyMODINIT_FUNC PyInit__lexfast(void) {
     attr_phones = PyUnicode_InternFromString("phones");

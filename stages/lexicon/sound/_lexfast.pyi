@@ -6,7 +6,7 @@ from typing_extensions import Buffer
 def search(
     queries: Sequence[str], lookup: Buffer, offsets: Buffer, postings: Buffer, sizes: Buffer, counts: Buffer,
     touched: Buffer, least_size: float, k: int, min_score: float, out_query: Buffer, out_item: Buffer,
-    out_score: Buffer, char_base: int, phones: int, base: int, offset4: int, /,
+    out_score: Buffer, char_base: int, phones: int, base: int, offset4: int, recast: Buffer | None = None, /,
 ) -> int: ...
 version: int
 

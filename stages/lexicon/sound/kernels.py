@@ -16,7 +16,8 @@ __all__ = ["compiled"]
 
 FUNCTIONS = ("search", "alignment_costs", "g2p_decode", "word_spans", "pair_screen", "pair_finish", "pool_pairs",
              "merge_hits")
-VERSION = 4  # KERNELS_VERSION in _lexfast.c: 3 since pair_screen and pair_finish, 4 since pool_pairs and merge_hits
+VERSION = 5  # KERNELS_VERSION in _lexfast.c: 3 since pair_screen and pair_finish, 4 since pool_pairs and merge_hits,
+# 5 since search reads queries through a recast table
 
 
 def _load() -> ModuleType | None:

@@ -17,7 +17,7 @@ not a share, so the work per query stays bounded as the lexicon grows.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -169,13 +169,20 @@ class PhoneIndex:
         self.__dict__.update(state)
         self._build_lookup()
 
-    def search(self, queries: Sequence[str], *, k: int = 8, min_score: float = 0.3) -> Hits:
-        """Up to ``k`` items per query with Dice score >= ``min_score``."""
+    def search(self, queries: Sequence[str], *, k: int = 8, min_score: float = 0.3,
+               recast: tuple[Callable[[str], str], npt.NDArray[np.int32]] | None = None) -> Hits:
+        """Up to ``k`` items per query with Dice score >= ``min_score``. With ``recast`` (a function
+        writing a phone string in the index's smaller alphabet, and the same as codes: see
+        stages.lexicon.sound.phonetics.BROAD_CODES), the queries are phone strings read through it."""
         if compiled is not None:
-            return self._search_compiled(queries, k=k, min_score=min_score)
+            return self._search_compiled(queries, k=k, min_score=min_score,
+                                         codes=None if recast is None else recast[1])
+        if recast is not None:
+            queries = [recast[0](q) for q in queries]
         return self._search_numpy(queries, k=k, min_score=min_score)
 
-    def _search_compiled(self, queries: Sequence[str], *, k: int, min_score: float) -> Hits:
+    def _search_compiled(self, queries: Sequence[str], *, k: int, min_score: float,
+                         codes: npt.NDArray[np.int32] | None = None) -> Hits:
         if compiled is None:
             raise RuntimeError("the compiled kernels are not built")
         query = np.empty(len(queries) * k, dtype=np.int32)
@@ -183,7 +190,7 @@ class PhoneIndex:
         score = np.empty(len(queries) * k, dtype=np.float32)
         found = compiled.search(queries, self.lookup, self.offsets, self.postings, self.sizes, self.counts,
                                 self.touched, self.least_size, k, min_score, query, item, score,
-                                _CHAR_BASE, self.alphabet.start, self.alphabet.base, self.alphabet.offsets[4])
+                                _CHAR_BASE, self.alphabet.start, self.alphabet.base, self.alphabet.offsets[4], codes)
         return Hits(query[:found], item[:found], score[:found])
 
     def _search_numpy(self, queries: Sequence[str], *, k: int, min_score: float) -> Hits:

@@ -19,9 +19,11 @@ from stages.lexicon.sound.kernels import compiled
 
 __all__ = [
     "BROAD_CLASSES",
+    "BROAD_CODES",
     "CONSONANTS",
     "PHONES",
     "SKELETON_CLASSES",
+    "SKELETON_CODES",
     "VOWELS",
     "CostModel",
     "alignment_cost",
@@ -104,7 +106,14 @@ def _classes(mapping: dict[str, str]) -> tuple[tuple[str, ...], dict[int, str | 
     return classes, table
 
 
+def _class_codes(table: dict[int, str | None]) -> npt.NDArray[np.int32]:
+    """``table`` as the compiled index search reads it: each phone's class number, -1 if dropped."""
+    return np.array([-1 if (to := table[_CHAR_BASE + i]) is None else ord(to) - _CHAR_BASE
+                     for i in range(len(PHONES))], dtype=np.int32)
+
+
 BROAD_CLASSES, _BROAD_CHARS = _classes(_BROAD)  # 17 symbols
+BROAD_CODES = _class_codes(_BROAD_CHARS)
 
 
 # The consonant skeleton: vowels and h left out (schwas come and go: "chandlery" heard as
@@ -112,6 +121,7 @@ BROAD_CLASSES, _BROAD_CHARS = _classes(_BROAD)  # 17 symbols
 _SKELETON = {**{v: "" for v in _VOWELS}, "ER": "R", "HH": "", "B": "P", "D": "T", "G": "K", "V": "F",
              "DH": "TH", "Z": "S", "JH": "SH", "CH": "SH", "ZH": "SH"}
 SKELETON_CLASSES, _SKELETON_CHARS = _classes(_SKELETON)  # 14 symbols
+SKELETON_CODES = _class_codes(_SKELETON_CHARS)
 
 
 def broad(text: str) -> str:

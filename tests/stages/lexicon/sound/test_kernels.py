@@ -10,9 +10,11 @@ from __future__ import annotations
 import os
 import pickle
 import random
+from collections.abc import Callable
 
 import jiwer
 import numpy as np
+import numpy.typing as npt
 import pytest
 from rapidfuzz.distance import Levenshtein
 from rapidfuzz.fuzz import ratio
@@ -38,11 +40,17 @@ from stages.lexicon.settings import MatchSettings
 from stages.lexicon.sound.kernels import compiled
 from stages.lexicon.sound.phone_index import Hits, PhoneIndex
 from stages.lexicon.sound.phonetics import (
+    BROAD_CLASSES,
+    BROAD_CODES,
     PHONES,
+    SKELETON_CLASSES,
+    SKELETON_CODES,
     CostModel,
     _batch_alignment_cost_compiled,
     _batch_alignment_cost_numpy,
+    broad,
     encode,
+    skeleton,
 )
 from stages.lexicon.sound.pronounce import Pronouncer
 
@@ -165,6 +173,31 @@ def test_search_survives_pickling_and_empty_batches(index_and_queries: tuple[Pho
     assert "counts" not in index.__getstate__()  # scratch is rebuilt on load, not stored
     assert same_hits(loaded._search_compiled(queries, k=3, min_score=0.2), index._search_numpy(queries, k=3, min_score=0.2))
     assert same_hits(index._search_compiled([], k=3, min_score=0.2), index._search_numpy([], k=3, min_score=0.2))
+
+
+@pytest.mark.parametrize("recast, codes, symbols", [(broad, BROAD_CODES, len(BROAD_CLASSES)),
+                                                    (skeleton, SKELETON_CODES, len(SKELETON_CLASSES))])
+def test_search_through_a_recast_table_is_the_search_of_the_recast_strings(
+        recast: Callable[[str], str], codes: npt.NDArray[np.int32], symbols: int) -> None:
+    # The broad-class and skeleton indexes are searched with the span's phones and a table; the
+    # same hits as searching the strings written in the smaller alphabet first, both paths.
+    rng = random.Random(4)
+    sources = [random_phones(rng, 1, 14) for _ in range(3000)]
+    index = PhoneIndex([recast(p) for p in sources], max_postings=60, symbols=symbols)
+    vowels_only = encode(["AA", "IY", "ER", "OW"])  # nothing left of it in the skeleton
+    queries = [random_phones(rng, 0, 30) for _ in range(300)] + sources[:50] + [vowels_only, ""]
+    for k, min_score in ((3, 0.2), (8, 0.45)):
+        got = index._search_compiled(queries, k=k, min_score=min_score, codes=codes)
+        assert same_hits(got, index._search_compiled([recast(q) for q in queries], k=k, min_score=min_score))
+        assert same_hits(got, index.search(queries, k=k, min_score=min_score, recast=(recast, codes)))
+        assert same_hits(got, index._search_numpy([recast(q) for q in queries], k=k, min_score=min_score))
+        # most indexed strings find themselves (a short one's n-grams may all be too common to index)
+        assert len(set(range(300, 350)) & set(got.query.tolist())) >= 40
+    with pytest.raises(ValueError, match="not an encoded phone"):
+        index._search_compiled([queries[0], "plain text"], k=3, min_score=0.2, codes=codes)
+    with pytest.raises(ValueError, match="outside the alphabet"):
+        index._search_compiled([queries[0]], k=3, min_score=0.2, codes=np.full(len(PHONES), symbols, np.int32))
+    assert not index.counts.any()
 
 
 def test_search_refuses_what_is_not_a_phone_string(index_and_queries: tuple[PhoneIndex, list[str]]) -> None:
