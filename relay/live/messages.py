@@ -6,6 +6,7 @@ detail naming the field; the writer renders plain dicts (orjson) because it runs
 
 from __future__ import annotations
 
+import re
 import time
 from typing import Any, Literal
 
@@ -31,7 +32,7 @@ MAX_HYPOTHESES = 50  # docs/formats.md section 1: 1..50 items
 # orjson reads JSON nested 1024 levels deep but writes at most 254 (its recursion limit), so a
 # deeper message would parse and then fail when its result is rendered. Refused at parse time.
 MAX_NESTING = 200
-_DIGITS = "0123456789"
+_DIGIT = re.compile("[0-9]")  # what str.count counted digit by digit: ASCII digits only
 
 
 class NbestEntry(BaseModel):
@@ -189,10 +190,12 @@ def word_load(texts: list[str], *, max_word_chars: int) -> tuple[int, int]:
     most = total = 0
     for text in texts:
         words = text.split()
-        count = len(words) + sum(map(text.count, _DIGITS))
+        # one scan for all ten digits; ten str.count calls per text cost about twice as much
+        count = len(words) + len(_DIGIT.findall(text))
         if words and len(text) > max_word_chars and max(map(len, words)) > max_word_chars:
             count += sum(len(word) // max_word_chars for word in words if len(word) > max_word_chars)
-        most = max(most, count)
+        if count > most:
+            most = count
         total += count
     return most, total
 

@@ -4,7 +4,7 @@ import pytest
 from relay.core.errors import InputError
 from relay.core.fieldmap import FieldMap
 from relay.core.utterance import Correction, Entity
-from relay.live.messages import CleanedMessage, RecogniserMessage, parse_message, render_cleaned
+from relay.live.messages import CleanedMessage, RecogniserMessage, parse_message, render_cleaned, word_load
 
 GOOD = {
     "id": "kiosk3-000187",
@@ -94,3 +94,14 @@ def test_cleaned_message_validates_against_format() -> None:
     assert "prompt" not in out and out["device_clock"] == 12
     assert out["nbest"][1]["words"] == [1, 2]
     RecogniserMessage.model_validate(out)  # a cleaned message is still a valid input message
+
+
+def test_word_load_counts_words_ascii_digits_and_long_words() -> None:
+    # each word once; each ASCII digit once more ("20000" is said "twenty thousand"); other
+    # scripts' digits (Arabic-Indic three, fullwidth seven) are letters here, as str.count saw them
+    assert word_load(["book the saw"], max_word_chars=40) == (3, 3)
+    assert word_load(["room 12 at 7.30"], max_word_chars=40) == (9, 9)
+    assert word_load(["\u0663 \uff17 x"], max_word_chars=40) == (3, 3)
+    assert word_load(["a" * 85 + " b"], max_word_chars=40) == (4, 4)
+    assert word_load(["one two", "1 2 3", ""], max_word_chars=40) == (6, 8)
+    assert word_load([], max_word_chars=40) == (0, 0)
