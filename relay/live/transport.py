@@ -20,6 +20,7 @@ from __future__ import annotations
 import asyncio
 import collections
 import logging
+import math
 import socket
 import ssl
 import time
@@ -82,6 +83,11 @@ class AckQueue:
 
     def clear(self) -> None:
         self.pending.clear()
+
+
+def _expire(future: asyncio.Future[Any]) -> None:
+    if not future.done():
+        future.set_exception(TimeoutError())
 
 
 def _connect_properties(settings: BrokerSettings, receive_maximum: int) -> Properties:
@@ -298,13 +304,20 @@ class Session:
             return
         verdict = self._early.pop(info.mid, None)
         if verdict is None:
-            future: asyncio.Future[tuple[int, str]] = asyncio.get_running_loop().create_future()
+            loop = asyncio.get_running_loop()
+            future: asyncio.Future[tuple[int, str]] = loop.create_future()
             self._waiting[info.mid] = future
+            # A timer on the future itself rather than asyncio.wait_for, which adds a second
+            # future, a callback and one more pass of the loop to every publish.
+            timeout = self.client.timeout
+            timer = loop.call_later(timeout, _expire, future) if timeout not in (None, math.inf) else None
             try:
-                verdict = await asyncio.wait_for(future, timeout=self.client.timeout)
+                verdict = await future
             except TimeoutError:
-                raise aiomqtt.MqttError(f"no PUBACK for {topic!r} within {self.client.timeout} s") from None
+                raise aiomqtt.MqttError(f"no PUBACK for {topic!r} within {timeout} s") from None
             finally:
+                if timer is not None:
+                    timer.cancel()
                 if self._waiting.get(info.mid) is future:
                     del self._waiting[info.mid]
         code, reason = verdict

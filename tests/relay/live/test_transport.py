@@ -1,10 +1,16 @@
 from __future__ import annotations
 
+import asyncio
+
+import aiomqtt
+import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
+from relay.core.errors import PublishRefused
+from relay.core.settings import BrokerSettings
 from relay.live.topics import render_topic, sanitize_level, source_from_topic
-from relay.live.transport import AckQueue, Delivery
+from relay.live.transport import AckQueue, Delivery, Session
 
 
 @given(st.one_of(st.none(), st.text(), st.integers()), st.one_of(st.none(), st.text()))
@@ -84,3 +90,72 @@ def test_the_source_comes_from_the_level_the_filter_leaves_open() -> None:
     assert source_from_topic("workshop/bench-1/asr", filters, "none") is None
     assert source_from_topic("other/bench-1/asr", filters, "auto") is None
     assert source_from_topic("fixed/asr", ["fixed/asr"], "auto") is None  # no wildcard: the payload says
+
+
+class _Sent:
+    """What paho's publish() returns: queued fine, with a packet id."""
+
+    def __init__(self, mid: int) -> None:
+        self.rc = 0
+        self.mid = mid
+
+
+def _session_publishing(verdicts: dict[int, int | None], *, early: bool = False, timeout: float = 10.0) -> Session:
+    """A Session, never connected, whose paho client answers publish number N with the PUBACK
+    reason code ``verdicts[N]`` on the next pass of the loop (``early``: from inside publish(),
+    before the relay waits), or never (None)."""
+    session = Session(BrokerSettings(), subscriptions=[], receive_maximum=8, generation=1)
+    session.client.timeout = timeout
+    on_publish = session._paho.on_publish
+    numbers = iter(range(1, 1000))
+
+    def publish(topic: str, payload: bytes, qos: int, retain: bool, properties: object) -> _Sent:
+        mid = next(numbers)
+        code = verdicts.get(mid)
+        if code is not None:
+            answer = (lambda: on_publish(session._paho, None, mid, code, None))  # noqa: E731
+            if early:
+                answer()
+            else:
+                asyncio.get_running_loop().call_soon(answer)
+        return _Sent(mid)
+
+    session._paho.publish = publish
+    return session
+
+
+def test_publish_waits_for_the_pubacks_verdict() -> None:
+    async def scenario(early: bool) -> None:
+        session = _session_publishing({1: 0, 2: 0x10, 3: 0x87}, early=early)
+        await session.publish("out/a", b"x", qos=1)
+        await session.publish("out/b", b"x", qos=1)  # 0x10, no matching subscribers: a success
+        with pytest.raises(PublishRefused) as refused:
+            await session.publish("out/c", b"x", qos=1)
+        assert refused.value.code == 0x87 and refused.value.topic == "out/c"
+        assert not session._waiting and not session._early
+
+    asyncio.run(scenario(early=False))
+    asyncio.run(scenario(early=True))
+
+
+def test_publish_without_a_puback_fails_after_the_client_timeout() -> None:
+    async def scenario() -> None:
+        session = _session_publishing({}, timeout=0.05)
+        with pytest.raises(aiomqtt.MqttError, match="no PUBACK for 'out/a' within 0.05 s"):
+            await session.publish("out/a", b"x", qos=1)
+        assert not session._waiting
+
+    asyncio.run(scenario())
+
+
+def test_a_disconnect_fails_the_publishes_waiting_for_a_puback() -> None:
+    async def scenario() -> None:
+        session = _session_publishing({})
+        waiting = asyncio.ensure_future(session.publish("out/a", b"x", qos=1))
+        await asyncio.sleep(0)
+        assert session._waiting
+        session._fail_waiting("disconnected (test)")
+        with pytest.raises(aiomqtt.MqttError, match="publish not confirmed: disconnected"):
+            await waiting
+
+    asyncio.run(scenario())
