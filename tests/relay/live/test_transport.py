@@ -92,6 +92,20 @@ def test_the_source_comes_from_the_level_the_filter_leaves_open() -> None:
     assert source_from_topic("fixed/asr", ["fixed/asr"], "auto") is None  # no wildcard: the payload says
 
 
+def test_the_source_of_a_topic_seen_before_still_follows_the_filters_and_the_setting() -> None:
+    # answers are remembered per topic: asked again with other filters or another setting, the
+    # answer must be theirs (a reload may change both)
+    for _ in range(2):
+        assert source_from_topic("site/hall/kiosk-2/asr", ["site/+/+/asr"], "auto") == "hall"
+        assert source_from_topic("site/hall/kiosk-2/asr", ["site/+/+/asr"], 2) == "kiosk-2"
+        assert source_from_topic("site/hall/kiosk-2/asr", ["site/hall/+/asr"], "auto") == "kiosk-2"
+        assert source_from_topic("site/hall/kiosk-2/asr", ["other/+/asr"], "auto") is None
+    long_source = "k" * 300  # past the topics remembered: the same answers, worked out each time
+    for _ in range(2):
+        assert source_from_topic(f"workshop/{long_source}/asr", ["workshop/+/asr"], "auto") == long_source
+        assert source_from_topic(f"workshop/{long_source}/asr", ["other/+/asr"], "auto") is None
+
+
 class _Sent:
     """What paho's publish() returns: queued fine, with a packet id."""
 
