@@ -131,30 +131,21 @@ static PyObject *search(PyObject *self, PyObject *args) {
                           &sizes_b, &counts_b, &touched_b, &least_size, &k, &min_score, &oq_b, &oi_b, &os_b,
                           &char_base, &phones, &base, &offset4, &recast_o))
         return NULL;
-    const int32_t *recast = NULL;
-    Py_ssize_t recast_count = 0;
-    if (recast_o != Py_None) {
-        if (PyObject_GetBuffer(recast_o, &recast_b, PyBUF_SIMPLE) < 0) {
-            recast_b.obj = NULL;
-            PyBuffer_Release(&lookup_b);
-            PyBuffer_Release(&offsets_b);
-            PyBuffer_Release(&postings_b);
-            PyBuffer_Release(&sizes_b);
-            PyBuffer_Release(&counts_b);
-            PyBuffer_Release(&touched_b);
-            PyBuffer_Release(&oq_b);
-            PyBuffer_Release(&oi_b);
-            PyBuffer_Release(&os_b);
-            return NULL;
-        }
-        recast = recast_b.buf;
-        recast_count = recast_b.len / 4;
-    }
     PyObject *result = NULL, *fast = NULL;
     int64_t *grams = NULL, *slots = NULL;
     int32_t *codes = NULL, *columns = NULL;
     Candidate *best = NULL;
     Py_ssize_t count, longest;
+    const int32_t *recast = NULL;
+    Py_ssize_t recast_count = 0;
+    if (recast_o != Py_None) {
+        if (PyObject_GetBuffer(recast_o, &recast_b, PyBUF_SIMPLE) < 0) {
+            recast_b.obj = NULL;
+            goto done;
+        }
+        recast = recast_b.buf;
+        recast_count = recast_b.len / 4;
+    }
     if (fetch_strings(queries, &fast, &count, &longest) < 0)
         goto done;
     Py_ssize_t table = lookup_b.len / 4, strings = sizes_b.len / 4, columns_count = offsets_b.len / 8 - 1;

@@ -190,7 +190,8 @@ class PhoneIndex:
         score = np.empty(len(queries) * k, dtype=np.float32)
         found = compiled.search(queries, self.lookup, self.offsets, self.postings, self.sizes, self.counts,
                                 self.touched, self.least_size, k, min_score, query, item, score,
-                                _CHAR_BASE, self.alphabet.start, self.alphabet.base, self.alphabet.offsets[4], codes)
+                                _CHAR_BASE, self.alphabet.start, self.alphabet.base, self.alphabet.offsets[4],
+                                None if codes is None else np.ascontiguousarray(codes, dtype=np.int32))
         return Hits(query[:found], item[:found], score[:found])
 
     def _search_numpy(self, queries: Sequence[str], *, k: int, min_score: float) -> Hits:
