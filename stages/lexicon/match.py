@@ -34,8 +34,6 @@ from stages.lexicon.sound.phonetics import (
     SKELETON_CODES,
     CostModel,
     batch_similarity,
-    broad,
-    skeleton,
 )
 from stages.lexicon.sound.pronounce import Pronouncer
 
@@ -156,11 +154,11 @@ def score_spans(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     # Two more ways in: the same search over broad phone classes, for spans whose vowels or
     # voicing the recogniser changed, and over consonant skeletons, for spans that gained or lost
     # a vowel; a pair found several ways is kept once, where it came first.
-    more = [index.search(spans.phones, k=k, min_score=least, recast=recast)
-            for index, recast, k, least in ((lexicon.broad_index, (broad, BROAD_CODES), weights.broad_candidates,
-                                             weights.broad_min_retrieval),
-                                            (lexicon.skeleton_index, (skeleton, SKELETON_CODES),
-                                             weights.skeleton_candidates, weights.skeleton_min_retrieval)) if k]
+    more = [index.search(spans.phones, k=k, min_score=least, recast=codes)
+            for index, codes, k, least in ((lexicon.broad_index, BROAD_CODES, weights.broad_candidates,
+                                            weights.broad_min_retrieval),
+                                           (lexicon.skeleton_index, SKELETON_CODES, weights.skeleton_candidates,
+                                            weights.skeleton_min_retrieval)) if k]
     forms = lexicon.forms
     if compiled is not None:
         query, item = hits.query, hits.item

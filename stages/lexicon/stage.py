@@ -10,7 +10,6 @@ corrections in the text of the top hypothesis; every guard that stops a change i
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from typing import Any, ClassVar
 
 from pydantic import BaseModel
@@ -77,6 +76,7 @@ class LexiconStage:
         self.loaded_from_cache = False
         self.lm: Any = None  # the in-domain language model (kenlm), shared with lm_rescore
         self.general: GeneralSearch | None = None
+        self.zipf: dict[str, float] = {}  # the common-word list's Zipf frequencies, once loaded
         self.anchored: AnchoredSearch | None = None
         self.carrier: CarrierSearch | None = None
 
@@ -110,7 +110,7 @@ class LexiconStage:
             anchors = {t: sorted(set(anchors.get(t, ())) | set(written.get(t, ()))) for t in types}
         self.learned = {"hints": written, "anchors": anchors, "types": types}
         self.lm = shared_model(self.lm_path) if self.lm_path is not None else None
-        zipf = common_words()
+        zipf = self.zipf = common_words()
         common = {w for w, z in zipf.items() if z >= s.general.common_zipf}
         self.general = GeneralSearch(s, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
                                      common=common, zipf=zipf, hints=hints, affinity=affinity)
@@ -145,15 +145,14 @@ class LexiconStage:
         if self.carrier is not None:
             found, carrier = self.carrier.recall(utterance, top, placed, context)
             placed += found
-        self._finish(utterance, top, placed, blocked, choices, zipf=general.zipf)
+        self._finish(utterance, top, placed, blocked, choices)
         if carrier:
             utterance.note(carrier=carrier)
         return utterance
 
     def _finish(self, utterance: Utterance, top: int, placed: list[Choice],
-                blocked: list[dict[str, Any]], choices: list[Choice], *, zipf: Mapping[str, float]) -> None:
-        """Entities, corrections and the rewritten text from what was placed; the trace. ``zipf``:
-        the common-word list the heard-as-said belief reads."""
+                blocked: list[dict[str, Any]], choices: list[Choice]) -> None:
+        """Entities, corrections and the rewritten text from what was placed; the trace."""
         lexicon = self._lexicon
         tokens = utterance.nbest[top].tokens
         replacements = [(c.start, c.end, lexicon.forms[c.form].text if not c.exact
@@ -168,7 +167,7 @@ class LexiconStage:
             replaced = not choice.exact and heard != after
             # How sure the N-best was of the words the correction overwrote (the reading every
             # correction had to beat): the gate weighs a correction that beat a strong one.
-            overridden = heard_belief(tokens[start:end], utterance.nbest, zipf, holding=reading_otherwise(
+            overridden = heard_belief(tokens[start:end], utterance.nbest, self.zipf, holding=reading_otherwise(
                 choice, utterance.nbest, tokens[start:end])) if replaced else 0.0
             utterance.entities.append(Entity(entry.id, entry.type, entry.name, span, heard, score,
                                              **_backing(choice, choices, utterance, overridden)))

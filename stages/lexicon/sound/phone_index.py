@@ -17,7 +17,7 @@ not a share, so the work per query stays bounded as the lexicon grows.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -170,15 +170,16 @@ class PhoneIndex:
         self._build_lookup()
 
     def search(self, queries: Sequence[str], *, k: int = 8, min_score: float = 0.3,
-               recast: tuple[Callable[[str], str], npt.NDArray[np.int32]] | None = None) -> Hits:
-        """Up to ``k`` items per query with Dice score >= ``min_score``. With ``recast`` (a function
-        writing a phone string in the index's smaller alphabet, and the same as codes: see
+               recast: npt.NDArray[np.int32] | None = None) -> Hits:
+        """Up to ``k`` items per query with Dice score >= ``min_score``. With ``recast`` (each phone's
+        symbol in the index's smaller alphabet, -1 where it is left out: see
         stages.lexicon.sound.phonetics.BROAD_CODES), the queries are phone strings read through it."""
         if compiled is not None:
-            return self._search_compiled(queries, k=k, min_score=min_score,
-                                         codes=None if recast is None else recast[1])
+            return self._search_compiled(queries, k=k, min_score=min_score, codes=recast)
         if recast is not None:
-            queries = [recast[0](q) for q in queries]
+            table = {_CHAR_BASE + phone: None if to < 0 else chr(_CHAR_BASE + to)
+                     for phone, to in enumerate(recast.tolist())}
+            queries = [q.translate(table) for q in queries]
         return self._search_numpy(queries, k=k, min_score=min_score)
 
     def _search_compiled(self, queries: Sequence[str], *, k: int, min_score: float,
