@@ -13,7 +13,7 @@ from collections import Counter, defaultdict
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
-__all__ = ["SlotNeighbours", "hint_cover", "slot_neighbours"]
+__all__ = ["SlotNeighbours", "slot_neighbours"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -67,21 +67,3 @@ def slot_neighbours(lines: Iterable[Sequence[str]]) -> SlotNeighbours:
             elif not tokens[i - 1].startswith("{"):
                 before[tokens[i - 1]][entity_type] += 1
     return SlotNeighbours(dict(before), slots, starts)
-
-
-def hint_cover(lines: Iterable[Sequence[str]], hints: dict[str, list[str]], *, window: int) -> dict[str, float]:
-    """type -> the share of its slots, over the distinct marked lines, with one of its hint words
-    among the ``window`` words before: how often the type is announced at all, so how much the
-    absence of a hint says against it (a type announced before a twelfth of its slots is mostly
-    said without one)."""
-    slots: Counter[str] = Counter()
-    announced: Counter[str] = Counter()
-    for tokens in {tuple(line) for line in lines}:
-        for i, token in enumerate(tokens):
-            if not (token.startswith("{") and token.endswith("}")):
-                continue
-            entity_type = token[1:-1]
-            slots[entity_type] += 1
-            if set(hints.get(entity_type, ())).intersection(tokens[max(0, i - window):i]):
-                announced[entity_type] += 1
-    return {t: announced[t] / slots[t] for t in sorted(slots)}

@@ -32,7 +32,7 @@ class GeneralSearch:
 
     def __init__(self, settings: LexiconSettings, lexicon: CompiledLexicon, *, pronouncer: Pronouncer,
                  costs: CostModel, common: set[str], zipf: dict[str, float], hints: dict[str, set[str]],
-                 hint_cover: dict[str, float], affinity: dict[str, dict[str, float]]) -> None:
+                 affinity: dict[str, dict[str, float]]) -> None:
         self.settings = settings
         self.lexicon = lexicon
         self.pronouncer = pronouncer
@@ -40,7 +40,6 @@ class GeneralSearch:
         self.common = common  # words at or above general.common_zipf
         self.zipf = zipf  # every word of the common-word list with its Zipf frequency
         self.hints = hints
-        self.hint_cover = hint_cover  # type -> share of its in-domain slots its hints announce; absent: 1
         self.affinity = affinity
         self.weights = Weights.of(settings.match)
 
@@ -171,11 +170,8 @@ class GeneralSearch:
         short = len(self.lexicon.forms[choice.form].phones) <= g.short_phones
         if g.short_penalty and short and choice.score < g.min_score + g.short_penalty:
             return "short_form"  # a few phones match many everyday words by chance ("for" -> "bay four")
-        if choice.hint_missing and choice.score < g.min_score + g.hint_penalty * self.hint_cover.get(
-                self.lexicon.entries[choice.evidence.entry].type, 1.0):
-            # A hinted type without its hint word needs general.hint_penalty more, in proportion
-            # to how often the in-domain lines announce the type at all.
-            return "type_hint"
+        if choice.hint_missing and choice.score < g.min_score + g.hint_penalty:
+            return "type_hint"  # a hinted type without its hint word needs general.hint_penalty more
         if g.min_support and support(choice, nbest) < g.min_support:
             return "weak_sound"  # priors alone must not carry a rewrite: some hypothesis must sound like it
         if g.kept_min_phone and self._kept_rest(words, choice) < g.kept_min_phone:

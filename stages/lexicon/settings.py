@@ -69,8 +69,7 @@ class GeneralSettings(_Group):
     short_phones: int = Field(6, ge=0, le=20, description="forms of at most this many phones are short")
     short_penalty: float = Field(0.2, ge=0, le=1, description="more score needed to correct into a short form")
     hint_window: int = Field(3, ge=1, le=10, description="words before a span searched for a type hint")
-    hint_penalty: float = Field(0.15, ge=0, le=1, description="more score needed when a hinted type lacks its "
-                                "hint, times the share of the type's in-domain slots its hints announce")
+    hint_penalty: float = Field(0.15, ge=0, le=1, description="more score needed when a hinted type lacks its hint")
     hint_bonus: float = Field(0.1, ge=0, le=1, description="score added when a hinted type has its hint")
     # 0.3: on Whisper output of both example scenarios it halved the right words that corrections
     # broke and raised precision by 2-4 points, for about one point of recall (stages/lexicon/README.md).

@@ -18,7 +18,7 @@ from relay.core.errors import StageError
 from relay.core.stage import StageContext
 from relay.core.utterance import Correction, Entity, Utterance
 from stages.indomain.carriers import CarrierPhrases
-from stages.indomain.hints import hint_cover, slot_neighbours
+from stages.indomain.hints import slot_neighbours
 from stages.lexicon.anchored import AnchoredSearch
 from stages.lexicon.carrier import CarrierSearch
 from stages.lexicon.choice import Choice, describe, reading_otherwise, support
@@ -103,9 +103,6 @@ class LexiconStage:
         written = s.hints if s.hints is not None else learned.hints(
             min_count=s.derive.hint_count, min_share=s.derive.hint_share) if learned else {}
         hints = {entity_type: set(words) for entity_type, words in written.items()}
-        # With the in-domain lines at hand, a missing hint counts as much as the type is announced.
-        cover = hint_cover((line for _, line in phrases.lines), written, window=s.general.hint_window) \
-            if phrases is not None else {}
         anchors = s.anchored.hints if s.anchored.hints is not None else learned.anchors(
             min_count=s.derive.anchor_count, min_share=s.derive.anchor_share) if learned else {}
         types = s.anchored.types
@@ -116,8 +113,7 @@ class LexiconStage:
         zipf = self.zipf = common_words()
         common = {w for w, z in zipf.items() if z >= s.general.common_zipf}
         self.general = GeneralSearch(s, self.compiled, pronouncer=self.pronouncer, costs=self.costs,
-                                     common=common, zipf=zipf, hints=hints, hint_cover=cover,
-                                     affinity=affinity)
+                                     common=common, zipf=zipf, hints=hints, affinity=affinity)
         self.anchored = None
         if types:
             self.anchored = AnchoredSearch(s.anchored, self.compiled, types=types, anchors=anchors, pronouncer=self.pronouncer, costs=self.costs,

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from stages.indomain.hints import hint_cover, slot_neighbours
+from stages.indomain.hints import slot_neighbours
 
 LINES = [
     "call {person} now".split(), "please call {person}".split(), "page {person}".split(),
@@ -25,13 +25,3 @@ def test_anchors_are_where_a_type_usually_begins() -> None:
     assert neighbours.anchors(min_count=1, min_share=0.5) == {"machine": ["the"], "person": ["call"], "place": ["the"]}
     assert neighbours.start_share("machine") == 0.25
     assert neighbours.start_share("vessel") == 0.0
-
-
-def test_cover_is_the_share_of_a_types_slots_its_hints_announce() -> None:
-    # Person slots (distinct lines): "call {person} now", "please call {person}", "page {person}",
-    # "book the {machine} for {person}"; machine slots: after "the" three times, once at the start.
-    assert hint_cover(LINES, {"person": ["call"], "machine": ["the"]}, window=1) == {
-        "machine": 0.75, "person": 0.5, "place": 0.0}
-    # The window reaches back: "book" is four words before the last person slot.
-    assert hint_cover(LINES, {"person": ["book"]}, window=3)["person"] == 0.0
-    assert hint_cover(LINES, {"person": ["book"]}, window=4)["person"] == 0.25

@@ -98,23 +98,6 @@ def test_type_hint_demands_more_evidence_without_its_word(tmp_path: Path) -> Non
     assert top(hinted) - top(unhinted) == pytest.approx(0.1, abs=1e-3)
 
 
-@pytest.mark.parametrize(("train", "stopped"), [
-    # Every person slot of the in-domain lines has its hint: a person said without one is unusual.
-    ("call {person} now\nask {person} to come\ncall {person}\nplease ask {person}\n", True),
-    # One of four has it: people are mostly named without a hint, so its absence says little.
-    ("call {person} now\n{person} is here\nwhere is {person}\nthe {person} shift\n", False),
-])
-def test_a_missing_hint_counts_as_much_as_the_lines_announce_the_type(tmp_path: Path, train: str,
-                                                                       stopped: bool) -> None:
-    (tmp_path / "train.txt").write_text(train)
-    chain = small_chain(tmp_path, hints={"person": ["call", "ask"]}, general={"hint_penalty": 0.5},
-                        carrier={"text": "train.txt"})
-    unhinted = run(chain, "the tamzin okoroh")
-    # Its score, 0.94 (as run), lies between min_score + 0.5 x 1/4 = 0.725 and min_score + 0.5 = 1.1.
-    assert ("person.tamsin_okoro" in {e.id for e in unhinted.entities}) is not stopped
-    assert any(b["guard"] == "type_hint" for b in blocked(unhinted)) is stopped
-
-
 
 
 KEPT_LEXICON = """id,type,name,aliases,say,weight
