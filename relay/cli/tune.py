@@ -64,6 +64,10 @@ def _configure(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
                         help="also write the held-out numbers (pooled and per fold) as JSON")
     parser.add_argument("--folds", type=int, default=5, help="cross-validation folds (default %(default)s)")
     parser.add_argument("--seed", type=int, default=20261202, help="seed for folds and sampling (default %(default)s)")
+    parser.add_argument("--repeats", type=int, default=1,
+                        help="run the cross-validation this many times on different random splits and pool "
+                        "the held-out numbers: steadier numbers for a small corpus, each repeat costing the "
+                        "fits again but not the stage runs (default %(default)s)")
     parser.add_argument("--space", type=Path, metavar="SPACE.yaml",
                         help="stage -> parameter -> list of values to try (default: a built-in space)")
     parser.add_argument("--max-settings", type=int, default=24,
@@ -93,18 +97,21 @@ def run(args: argparse.Namespace) -> int:
     written = yaml.safe_load(text) if text is not None else dict(loaded.source.value)
     try:
         result = tune(loaded, items, written=written, space=space, max_clarify=args.max_clarify, folds=args.folds,
-                      seed=args.seed, max_settings=args.max_settings, progress=show_progress(args))
+                      seed=args.seed, max_settings=args.max_settings, repeats=args.repeats,
+                      progress=show_progress(args))
     except ValueError as exc:
         raise ConfigError(str(exc)) from None
     space_text = ", ".join(f"{s}.{p}" for s in result.space for p in result.space[s]) or "none"
     print(f"{len(result.settings)} stage setting(s) tried over {space_text}")
     for fold in result.folds:
         s = fold.score
-        print(f"fold {fold.fold + 1}/{len(result.folds)} (held out {len(fold.test)}): WER {s.wer_relay:.1%} "
+        split = f"split {fold.fold // args.folds + 1}/{args.repeats}, " if args.repeats > 1 else ""
+        print(f"{split}fold {fold.fold % args.folds + 1}/{args.folds} (held out {len(fold.test)}): WER {s.wer_relay:.1%} "
               f"(first {s.wer_first:.1%}), wrong accepts {s.wrong_accept_rate:.1%}, asked back {s.clarify_rate:.1%}")
     held_out = result.held_out
-    print(format_table(held_out, title=f"held-out folds pooled, {args.corpus} ({described}):"))
-    header = (f"# rehear tune on {args.corpus} ({described}), {args.folds}-fold held-out: "
+    splits = f" x {args.repeats} splits" if args.repeats > 1 else ""
+    print(format_table(held_out, title=f"held-out folds pooled{splits}, {args.corpus} ({described}):"))
+    header = (f"# rehear tune on {args.corpus} ({described}), {args.folds}-fold{splits} held-out: "
               f"WER {held_out.wer_relay:.1%}, wrong accepts {held_out.wrong_accept_rate:.1%}, "
               f"asked back {held_out.clarify_rate:.1%}, {held_out.asked_doubt:.1%} from doubt "
               f"(budget {args.max_clarify:.0%})\n")
@@ -116,7 +123,7 @@ def run(args: argparse.Namespace) -> int:
     write_atomically(args.output, dump_yaml(document, header=header).encode("utf-8"))
     if args.json is not None:
         numbers = {"held_out": held_out.to_json(), "folds": [fold.score.to_json() for fold in result.folds],
-                   "max_clarify": args.max_clarify, "settings_tried": len(result.settings)}
+                   "max_clarify": args.max_clarify, "settings_tried": len(result.settings), "repeats": args.repeats}
         write_atomically(args.json, orjson.dumps(numbers, option=orjson.OPT_INDENT_2) + b"\n")
     print(f"wrote {args.output}")
     return 0

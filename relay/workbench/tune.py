@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import sys
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -91,17 +91,22 @@ class TuneResult:
 
     settings: list[Overrides]  # the stage settings tried
     space: Space
-    folds: list[FoldResult[Summary]]
-    held_out: Summary
+    folds: list[FoldResult[Summary]]  # every repeat's folds, in turn
+    held_out: Summary  # every repeat's held-out folds pooled: each utterance counts once a repeat
     config: dict[str, Any]  # the written form, with the final choice (fitted on every utterance)
     stages: list[Any]  # the written stages: list with the tuned parameters (and the gate, when it was added)
 
 
 def tune(loaded: LoadedConfig, items: Sequence[CorpusItem], *, written: dict[str, Any],
          space: Space | None = None, max_clarify: float = 0.25, folds: int = 5, seed: int = 20261202,
-         max_settings: int = 24, progress: bool = False) -> TuneResult:
+         max_settings: int = 24, repeats: int = 1, progress: bool = False) -> TuneResult:
     """Choose stage settings and gate thresholds on ``items``; ``written`` is the configuration
-    as the user wrote it (${VARIABLES} unexpanded), into which the choice is written."""
+    as the user wrote it (${VARIABLES} unexpanded), into which the choice is written.
+
+    With ``repeats`` above 1 the cross-validation runs again on other random splits (seeds
+    ``seed + 1``, ...; the settings tried stay the same) and the held-out numbers pool them all:
+    one split's wrong-accept rate moves by a point or more with the split alone.
+    """
     loaded = with_gate(loaded)
     position = deciding_spec(loaded)
     if position is None:  # with_gate adds one; only a registry without "gate" gets here
@@ -112,7 +117,8 @@ def tune(loaded: LoadedConfig, items: Sequence[CorpusItem], *, written: dict[str
     builder = VariantBuilder(loaded, progress=progress)
     usable = usable_space(DEFAULT_SPACE if space is None else space, builder, gate=gate_spec.name)
     settings = expand_space(usable, max_settings=max_settings, seed=seed)
-    splits = make_folds(len(items), folds, seed)
+    if repeats < 1:
+        raise ValueError(f"repeats must be at least 1, got {repeats}")
     runs = [run_corpus(builder.chain(overrides), items, progress=False)
             for overrides in tqdm(settings, desc="settings", unit="run", disable=not progress)]
     recorded = [RecordedFeatures(outcomes) for outcomes in runs]
@@ -122,7 +128,11 @@ def tune(loaded: LoadedConfig, items: Sequence[CorpusItem], *, written: dict[str
         chosen = [runs[choice.setting][i] for i in test]
         return summarize(chosen, decisions=decisions_for(chosen, gate_settings(base_gate, choice.gate)))
 
-    results = cross_validate(splits, lambda train: fit(recorded, train, max_clarify=max_clarify), score)
+    results = []
+    for repeat in range(repeats):
+        splits = make_folds(len(items), folds, seed + repeat)
+        for result in cross_validate(splits, lambda train: fit(recorded, train, max_clarify=max_clarify), score):
+            results.append(replace(result, fold=repeat * folds + result.fold))
     held_out = held_out_summary(runs, results, base_gate)
     final = fit(recorded, np.arange(len(items)), max_clarify=max_clarify)
     dumped = gate_settings(base_gate, final.gate).model_dump(mode="json")

@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 import dataclasses
+import json
 import os
 import pathlib
 import random
@@ -339,6 +340,43 @@ def test_tune_prints_only_numbers_from_utterances_the_choice_was_not_fitted_on(
         assert not train & set(test)
         assert len(train) + len(test) == 80
     assert sorted(scored[4]) == list(range(80))
+
+
+def test_repeats_run_the_cross_validation_on_other_splits_and_pool_them(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:
+    scored: list[list[int]] = []
+    real_summarize = tune_workflow.summarize
+
+    def spy_summarize(outcomes: Any, **options: Any) -> Any:
+        scored.append([int(o.id.removeprefix("t-")) for o in outcomes])
+        return real_summarize(outcomes, **options)
+
+    monkeypatch.setattr(tune_workflow, "summarize", spy_summarize)
+    monkeypatch.setattr(relay.workbench.tuning, "summarize", spy_summarize)
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 60)
+    numbers = tmp_path / "numbers.json"
+    assert tune_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")),
+                              "-o", str(tmp_path / "t.yaml"), "--folds", "3", "--repeats", "2",
+                              "--json", str(numbers), "--no-progress"]) == 0
+    folds, pool = scored[:6], scored[6]
+    # Each split's three folds cover every utterance once; the two splits differ.
+    first, second = folds[:3], folds[3:]
+    assert sorted(sum(first, [])) == sorted(sum(second, [])) == list(range(60))
+    assert sorted(map(sorted, first)) != sorted(map(sorted, second))
+    # The pool holds every utterance once a split.
+    assert sorted(pool) == sorted(list(range(60)) * 2)
+    written = json.loads(numbers.read_text())
+    assert written["repeats"] == 2 and len(written["folds"]) == 6
+    assert written["held_out"]["utterances"] == 120
+    assert "split 2/2, fold 3/3" in capsys.readouterr().out
+
+
+def test_tune_refuses_fewer_than_one_repeat(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 30)
+    assert tune_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")),
+                              "-o", str(tmp_path / "t.yaml"), "--repeats", "0", "--no-progress"]) == 2
+    assert "repeats must be at least 1" in capsys.readouterr().err
+    assert not (tmp_path / "t.yaml").exists()
 
 
 def test_tune_keeps_environment_references_unexpanded(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
