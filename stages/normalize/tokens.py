@@ -100,6 +100,10 @@ def _clock(match: re.Match[str]) -> str | None:
     hours, minutes = (match.group(1), match.group(2)) if match.group(1) else (match.group(3), match.group(4))
     if int(hours) > 23 or int(minutes) > 59 or (match.group(3) and int(hours) == 0):
         return None
+    if match.group(3) and minutes == "00":
+        # Run together, a full hour is said "eleven hundred" ("1100"); a bare hour would have
+        # been written as one ("2", not "200", which is two hundred).
+        return f"{int(hours)} hundred"
     return f"{int(hours)}:{minutes}"
 
 

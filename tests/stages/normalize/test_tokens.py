@@ -72,6 +72,10 @@ def test_number_words_agree_with_num2words() -> None:
     ("12.75 tonnes at 2.5%", ["twelve point seven five tonnes at two point five percent"]),  # no such clock
     ("on the 23rd, 1,200 kilos", ["on the twenty third one thousand two hundred kilos"]),
     ("version 1.2.3", ["version one point two three"]),
+    # Run-together hundreds: a full hour is "eleven hundred", and "200" is only two hundred.
+    ("at 1100 sharp", ["at one thousand one hundred sharp", "at eleven hundred sharp"]),
+    ("200 litres of diesel", ["two hundred litres of diesel"]),
+    ("back by 7.00", ["back by seven point zero zero", "back by seven"]),
 ])
 def test_numbers_that_may_be_clock_times_have_a_second_reading(text: str, expected: list[str]) -> None:
     assert [" ".join(r) for r in readings(text)] == expected
