@@ -15,7 +15,17 @@ from relay.live.active import Active
 from relay.live.messages import parse_message, word_load
 from relay.live.metrics import Metrics
 from relay.live.processes import ProcessRunner
-from relay.live.routing import Outgoing, cleaned, dead_letter, is_final, partial, passthrough
+from relay.live.routing import (
+    Outgoing,
+    Rendered,
+    RenderError,
+    dead_letter,
+    is_final,
+    outgoing,
+    partial,
+    passthrough,
+    render,
+)
 from relay.live.topics import source_from_topic
 from relay.live.transport import Delivery
 from relay.live.worker import ChainWorker
@@ -95,29 +105,30 @@ class MessageHandler:
         deadline = delivery.received + limits.deadline_ms / 1000
         timing = _Timing()
         try:
-            utterance = await self._run_chain(active, utterance, deadline, limits, timing)
+            # The chain runs and the result is rendered where the runner puts them (a worker
+            # process or thread): the relay gets back bytes and the few values it counts.
+            rendered = await self._run_chain(active, utterance, deadline, limits, timing, relay)
             if time.monotonic() > deadline:  # the last stage overran: the result is too late
-                raise DeadlineExceeded(utterance.last_stage, (time.monotonic() - delivery.received) * 1000)
+                raise DeadlineExceeded(rendered.last_stage, (time.monotonic() - delivery.received) * 1000)
         except (TimeoutError, DeadlineExceeded):
             _log.warning("deadline passed; forwarding the original",
                          extra={"fields": {"id": utterance.id, "deadline_ms": limits.deadline_ms}})
             return "deadline", [passthrough(utterance, topics, relay, "deadline")]
+        except RenderError as exc:  # e.g. a value no stage should have left in the result
+            _log.error("cannot render the cleaned message; forwarding the original",
+                       extra={"fields": {"id": utterance.id, "detail": str(exc)}})
+            return "internal_error", [passthrough(utterance, topics, relay, "internal_error")]
         except Exception as exc:  # noqa: BLE001 - a stage bug must not stop the relay
             return self._stage_failed(utterance, exc, topics, relay)
-        rendering = time.monotonic()
-        try:
-            out = cleaned(utterance, topics, relay)
-        except Exception as exc:  # noqa: BLE001 - e.g. a value no stage should have left in the result
-            _log.error("cannot render the cleaned message; forwarding the original", exc_info=exc,
-                       extra={"fields": {"id": utterance.id}})
-            return "internal_error", [passthrough(utterance, topics, relay, "internal_error")]
-        self._observe(utterance)
+        publishing = time.monotonic()
+        out = outgoing(rendered, topics)
+        self._observe(rendered)
         if timing.started:
             self.metrics.queue_wait.observe(max(0.0, timing.started - parsed))
-            chain_s = timing.ended - timing.started
+            chain_s = timing.ended - timing.started  # the chain and the rendering
         else:
-            chain_s = rendering - parsed
-        self.metrics.processing.observe((parsed - began) + chain_s + (time.monotonic() - rendering))
+            chain_s = publishing - parsed
+        self.metrics.processing.observe((parsed - began) + chain_s + (time.monotonic() - publishing))
         return "cleaned", out
 
     def _bind_source(self, utterance: Utterance, topic: str, topics: TopicSettings, relay: dict[str, Any]) -> None:
@@ -147,25 +158,27 @@ class MessageHandler:
         self._processes.shutdown()
 
     async def _run_chain(
-        self, active: Active, utterance: Utterance, deadline: float, limits: LimitSettings, timing: _Timing
-    ) -> Utterance:
+        self, active: Active, utterance: Utterance, deadline: float, limits: LimitSettings, timing: _Timing,
+        relay: dict[str, Any],
+    ) -> Rendered:
         chain = active.chain
         runner = limits.chain_runner
+        forward_unsure = active.loaded.config.topics.forward_unsure
         if runner == "process":
             done, timing.started, timing.ended = await self._processes.run(
-                chain, utterance, deadline, processes=limits.chain_processes)
+                chain, utterance, deadline, relay, forward_unsure=forward_unsure, processes=limits.chain_processes)
             return done
 
-        def job() -> Utterance:
+        def job() -> Rendered:
             timing.started = time.monotonic()
             try:
-                return chain.process(utterance, deadline=deadline)
+                return render(chain.process(utterance, deadline=deadline), relay, forward_unsure=forward_unsure)
             finally:
                 timing.ended = time.monotonic()
 
         if runner == "loop":
             return job()
-        result: Utterance = await self._worker.run(job, deadline)
+        result: Rendered = await self._worker.run(job, deadline)
         return result
 
     def _stage_failed(
@@ -177,13 +190,13 @@ class MessageHandler:
                    extra={"fields": {"stage": stage, "id": utterance.id}})
         return "stage_error", [passthrough(utterance, topics, relay, "stage_error")]
 
-    def _observe(self, utterance: Utterance) -> None:
+    def _observe(self, rendered: Rendered) -> None:
         metrics = self.metrics
-        for entry in utterance.trace:
-            _child(self._stage_latency, metrics.stage_latency, entry.stage).observe(entry.elapsed_us / 1e6)
-        for correction in utterance.corrections:
-            _child(self._corrections, metrics.corrections, correction.stage).inc()
-        _child(self._decisions, metrics.decisions, utterance.decision or "none").inc()
+        for stage, elapsed_us in rendered.stage_us:
+            _child(self._stage_latency, metrics.stage_latency, stage).observe(elapsed_us / 1e6)
+        for stage in rendered.corrections:
+            _child(self._corrections, metrics.corrections, stage).inc()
+        _child(self._decisions, metrics.decisions, rendered.decision or "none").inc()
 
 
 def _child(children: dict[str, Any], metric: Any, value: str) -> Any:

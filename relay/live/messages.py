@@ -198,8 +198,9 @@ def word_load(texts: list[str], *, max_word_chars: int) -> tuple[int, int]:
     return most, total
 
 
-def render_cleaned(utterance: Utterance, *, relay: dict[str, Any]) -> dict[str, Any]:
-    """The cleaned message (docs/formats.md section 2) as a plain dict."""
+def render_cleaned(utterance: Utterance, *, relay: dict[str, Any], published_at: Any = None) -> dict[str, Any]:
+    """The cleaned message (docs/formats.md section 2) as a plain dict; ``relay.published_at``
+    is now unless ``published_at`` stands in for it."""
     out = dict(utterance.payload)
     out["text"] = utterance.text
     nbest = []
@@ -224,7 +225,7 @@ def render_cleaned(utterance: Utterance, *, relay: dict[str, Any]) -> dict[str, 
         out["prompt"] = utterance.prompt
     out["trace"] = [{"stage": t.stage, "elapsed_us": t.elapsed_us, "scores": t.scores} for t in utterance.trace]
     out["relay"] = dict(relay)
-    out["relay"].setdefault("published_at", time.time())
+    out["relay"].setdefault("published_at", time.time() if published_at is None else published_at)
     return out
 
 

@@ -4,7 +4,8 @@ One relay process runs its chain on one core at a time (the interpreter lock). W
 ``limits.chain_runner: process`` the relay forks ``limits.chain_processes`` workers (default:
 one per core) from itself once the chain is loaded: each worker inherits the loaded chain
 copy-on-write (the lexicon and the language model are loaded once, by the relay, and their
-pages shared), reads pickled utterances from a pipe, runs the chain and sends the result back.
+pages shared), reads pickled utterances from a pipe, runs the chain, renders the result and
+sends the rendered bytes back (relay.live.routing.Rendered: the relay only stamps and publishes).
 
 - Order: the relay acknowledges in arrival order whatever order results come back in
   (relay.live.transport), so workers may finish in any order.
@@ -38,6 +39,7 @@ from typing import Any
 from relay.core.chain import Chain
 from relay.core.errors import DeadlineExceeded, StageError
 from relay.core.utterance import Utterance
+from relay.live.routing import Rendered, RenderError, render
 
 __all__ = ["ProcessRunner", "default_processes"]
 
@@ -83,7 +85,7 @@ class _Worker:
     def __init__(self, pid: int) -> None:
         self.pid = pid
         self.jobs: asyncio.WriteTransport | None = None
-        self.pending: dict[int, asyncio.Future[tuple[Utterance, float, float]]] = {}
+        self.pending: dict[int, asyncio.Future[tuple[Rendered, float, float]]] = {}
         # Jobs sent and not answered yet, late ones included: a worker stuck on a message keeps
         # its count, so new messages go to the others.
         self.held = 0
@@ -101,7 +103,8 @@ class _Pool:
         self._ready: asyncio.Task[None] | None = None
         self._spawning: set[asyncio.Task[None]] = set()
 
-    async def run(self, utterance: Utterance, deadline: float) -> tuple[Utterance, float, float]:
+    async def run(self, utterance: Utterance, deadline: float, relay: dict[str, Any],
+                  forward_unsure: bool) -> tuple[Rendered, float, float]:
         if self._ready is None:
             self._ready = asyncio.ensure_future(self._start())
         await asyncio.shield(self._ready)
@@ -112,10 +115,10 @@ class _Pool:
             if self._spawning:
                 await asyncio.wait(set(self._spawning))
         number = next(self._numbers)
-        data = pickle.dumps((number, deadline, utterance), protocol=pickle.HIGHEST_PROTOCOL)
+        data = pickle.dumps((number, deadline, utterance, relay, forward_unsure), protocol=pickle.HIGHEST_PROTOCOL)
         worker = min(self.workers, key=lambda w: w.held)
         loop = asyncio.get_running_loop()
-        future: asyncio.Future[tuple[Utterance, float, float]] = loop.create_future()
+        future: asyncio.Future[tuple[Rendered, float, float]] = loop.create_future()
         worker.pending[number] = future
         if worker.jobs is not None:
             worker.held += 1
@@ -176,6 +179,8 @@ class _Pool:
             future.set_exception(TimeoutError())
         elif status == "deadline":
             future.set_exception(DeadlineExceeded(value[0], value[1], inside=True))
+        elif status == "render":
+            future.set_exception(RenderError(value))
         else:
             future.set_exception(StageError(value[0], value[1]))
 
@@ -216,10 +221,11 @@ class ProcessRunner:
         self._current: _Pool | None = None
         self._retired: list[_Pool] = []
 
-    async def run(self, chain: Chain, utterance: Utterance, deadline: float, *,
-                  processes: int | None = None) -> tuple[Utterance, float, float]:
-        """The processed utterance, when the chain started and ended on it (time.monotonic());
-        TimeoutError once ``deadline`` passes, DeadlineExceeded or StageError as the chain raised."""
+    async def run(self, chain: Chain, utterance: Utterance, deadline: float, relay: dict[str, Any], *,
+                  forward_unsure: bool, processes: int | None = None) -> tuple[Rendered, float, float]:
+        """The processed utterance rendered (``relay`` as its relay block), when the chain started
+        on it and when the rendering ended (time.monotonic()); TimeoutError once ``deadline``
+        passes, DeadlineExceeded or StageError as the chain raised, RenderError as rendering did."""
         pool = self._current
         if pool is None or pool.chain is not chain:
             # No await between the relay reading its active chain and this call: a chain seen here
@@ -229,7 +235,7 @@ class ProcessRunner:
                 self._retired.append(pool)
             self._retired = [p for p in self._retired if not p.closed or p.workers]
             pool = self._current = _Pool(chain, processes or default_processes())
-        return await pool.run(utterance, deadline)
+        return await pool.run(utterance, deadline, relay, forward_unsure)
 
     def pids(self) -> list[int]:
         """The worker processes of the current chain."""
@@ -302,14 +308,16 @@ def _serve(chain: Chain, jobs: int, results: int) -> None:
         if len(header) < _HEADER.size:
             return  # the relay closed the pipe or is gone
         (size,) = _HEADER.unpack(header)
-        number, deadline, utterance = pickle.loads(reader.read(size))
+        number, deadline, utterance, relay, forward_unsure = pickle.loads(reader.read(size))
         started = time.monotonic()
         if started > deadline:
             reply: tuple[Any, ...] = (number, "late", None, started, started)
         else:
             try:
-                done = chain.process(utterance, deadline=deadline)
+                done = render(chain.process(utterance, deadline=deadline), relay, forward_unsure=forward_unsure)
                 reply = (number, "ok", done, started, time.monotonic())
+            except RenderError as exc:
+                reply = (number, "render", str(exc), started, time.monotonic())
             except DeadlineExceeded as exc:
                 reply = (number, "deadline", (exc.stage, exc.elapsed_ms), started, time.monotonic())
             except Exception as exc:  # noqa: BLE001 - handed to the relay, which forwards the original

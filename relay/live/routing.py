@@ -1,14 +1,19 @@
 """What the relay publishes for one input: pure functions from a result to outgoing messages.
 
-No network here; the service sends what these return, then acknowledges the input.
+No network here; the service sends what these return, then acknowledges the input. A finished
+result is rendered where its chain ran (``render``: a worker process or the chain's thread) and
+turned into messages on the event loop (``outgoing``), which writes ``published_at`` in.
 """
 
 from __future__ import annotations
 
 import base64
+import secrets
+import time
 from dataclasses import dataclass
 from typing import Any
 
+import orjson
 from pydantic import TypeAdapter
 
 from relay.core.errors import InputError
@@ -17,7 +22,8 @@ from relay.core.utterance import Utterance
 from relay.live.messages import dump, render_cleaned, render_passthrough
 from relay.live.topics import clean_text, render_topic
 
-__all__ = ["Outgoing", "cleaned", "dead_letter", "is_final", "partial", "passthrough"]
+__all__ = ["Outgoing", "RenderError", "Rendered", "cleaned", "dead_letter", "is_final", "outgoing", "partial",
+           "passthrough", "render"]
 
 _BOOL = TypeAdapter(bool)
 
@@ -32,6 +38,64 @@ class Outgoing:
     qos: int
     properties: dict[str, str] | None = None
     kind: str = "output"
+
+
+@dataclass(frozen=True, slots=True)
+class Rendered:
+    """A finished utterance rendered where its chain ran (a worker process, or the chain's thread):
+    what the relay still needs to publish it and to count it. Small, so it crosses a pipe cheaply."""
+
+    message: bytes | None  # the cleaned message, relay.published_at marked; None: not forwarded
+    prompt: bytes | None  # the prompt, when the gate asks back and has one
+    values: dict[str, object]  # source, speaker, decision: what the topic templates read
+    last_stage: str
+    stage_us: tuple[tuple[str, float], ...]  # each trace entry's stage and elapsed microseconds
+    corrections: tuple[str, ...]  # the stage of each correction
+    decision: str | None
+
+
+class RenderError(Exception):
+    """The finished utterance could not be rendered (a value no stage should have left in it)."""
+
+
+# Stands in for relay.published_at until the relay takes the result to publish it, so that the
+# time is the same moment as when the relay renders the message itself. A NUL and a nonce drawn
+# per run: no text a message carries can hold it.
+_PUBLISHED_MARK = "\x00published_at " + secrets.token_hex(8)
+_PUBLISHED_MARK_JSON = orjson.dumps(_PUBLISHED_MARK)
+
+
+def render(utterance: Utterance, relay: dict[str, Any], *, forward_unsure: bool) -> Rendered:
+    """The cleaned message and the prompt for ``utterance``, as bytes; RenderError if it cannot be."""
+    unsure = utterance.decision in ("confirm", "reprompt")
+    try:
+        message = dump(render_cleaned(utterance, relay=relay, published_at=_PUBLISHED_MARK)) \
+            if not unsure or forward_unsure else None
+        prompt = None
+        if unsure and utterance.prompt:
+            prompt = dump({
+                "id": utterance.id, "source": utterance.source, "speaker": utterance.speaker,
+                "decision": utterance.decision, "prompt": utterance.prompt, "text": utterance.text,
+                "relay": relay,
+            })
+    except Exception as exc:  # noqa: BLE001 - reported as one kind of failure, the original goes on
+        raise RenderError(f"{type(exc).__name__}: {exc}") from exc
+    return Rendered(message, prompt, _values(utterance), utterance.last_stage,
+                    tuple((t.stage, t.elapsed_us) for t in utterance.trace),
+                    tuple(c.stage for c in utterance.corrections), utterance.decision)
+
+
+def outgoing(rendered: Rendered, topics: TopicSettings) -> list[Outgoing]:
+    """The cleaned message to the output topic, published_at written in, and the prompt when the
+    gate asks back."""
+    out: list[Outgoing] = []
+    if rendered.message is not None:
+        message = rendered.message.replace(_PUBLISHED_MARK_JSON, orjson.dumps(time.time()), 1)
+        out.append(Outgoing(render_topic(topics.output, rendered.values), message, topics.output_qos))
+    if rendered.prompt is not None:
+        out.append(Outgoing(render_topic(topics.prompt, rendered.values), rendered.prompt, topics.prompt_qos,
+                            kind="prompt"))
+    return out
 
 
 def _values(utterance: Utterance) -> dict[str, object]:
@@ -70,20 +134,7 @@ def partial(utterance: Utterance, payload: bytes, topics: TopicSettings) -> Outg
 
 def cleaned(utterance: Utterance, topics: TopicSettings, relay: dict[str, Any]) -> list[Outgoing]:
     """The cleaned message to the output topic, and the prompt when the gate asks back."""
-    values = _values(utterance)
-    unsure = utterance.decision in ("confirm", "reprompt")
-    out: list[Outgoing] = []
-    if not unsure or topics.forward_unsure:
-        message = render_cleaned(utterance, relay=relay)
-        out.append(Outgoing(render_topic(topics.output, values), dump(message), topics.output_qos))
-    if unsure and utterance.prompt:
-        prompt = {
-            "id": utterance.id, "source": utterance.source, "speaker": utterance.speaker,
-            "decision": utterance.decision, "prompt": utterance.prompt, "text": utterance.text,
-            "relay": relay,
-        }
-        out.append(Outgoing(render_topic(topics.prompt, values), dump(prompt), topics.prompt_qos, kind="prompt"))
-    return out
+    return outgoing(render(utterance, relay, forward_unsure=topics.forward_unsure), topics)
 
 
 def passthrough(utterance: Utterance, topics: TopicSettings, relay: dict[str, Any], reason: str) -> Outgoing:

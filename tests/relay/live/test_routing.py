@@ -1,13 +1,25 @@
 from __future__ import annotations
 
 import base64
+import pickle
+import time
 
 import orjson
+import pytest
 
 from relay.core.errors import InputError
 from relay.core.settings import TopicSettings
-from relay.live.messages import parse_message
-from relay.live.routing import cleaned, dead_letter, is_final, partial, passthrough
+from relay.live.messages import parse_message, render_cleaned
+from relay.live.routing import (
+    RenderError,
+    cleaned,
+    dead_letter,
+    is_final,
+    outgoing,
+    partial,
+    passthrough,
+    render,
+)
 
 TOPICS = TopicSettings(output="nlu/{source}/in", prompt="say/{source}/{decision}", dead_letter="dead")
 
@@ -61,3 +73,27 @@ def test_partial_and_passthrough() -> None:
     assert partial(utterance, b"raw", TOPICS).payload == b"raw"
     flagged = orjson.loads(passthrough(_utterance(), TOPICS, {"received_at": 0.0}, "deadline").payload)
     assert flagged["relay"]["passthrough"] == "deadline" and flagged["text"] == "hello there"
+
+
+def test_a_result_rendered_where_the_chain_ran_is_the_message_the_relay_would_render() -> None:
+    # A worker renders the result and sends bytes back; the relay writes published_at in when it
+    # takes them. Text holding a NUL and the same words, as a recogniser could send, stays as sent.
+    utterance = _utterance(nbest=[{"text": "\x00published_at 0123456789abcdef hello"}])
+    relay = {"version": "x", "config_hash": "h", "received_at": 1.5}
+    rendered = pickle.loads(pickle.dumps(render(utterance, relay, forward_unsure=True)))
+    before = time.time()
+    [out] = outgoing(rendered, TOPICS)
+    after = time.time()
+    message = orjson.loads(out.payload)
+    assert before <= message["relay"]["published_at"] <= after
+    expected = render_cleaned(utterance, relay=relay, published_at=message["relay"]["published_at"])
+    assert message == orjson.loads(orjson.dumps(expected))
+    assert message["text"] == "\x00published_at 0123456789abcdef hello"
+    assert relay == {"version": "x", "config_hash": "h", "received_at": 1.5}  # the caller's block untouched
+
+
+def test_a_result_that_cannot_be_rendered_says_so() -> None:
+    utterance = _utterance()
+    utterance.payload = dict(utterance.payload, hook=object())  # no stage should leave such a value
+    with pytest.raises(RenderError, match="TypeError"):
+        render(utterance, {}, forward_unsure=True)
