@@ -112,6 +112,10 @@ class CarrierSearch:
                  "runner_up": round(match.runner_up, 4), "lm_gain": round(gain, 3)}
         if match.phone < s.min_phone:
             return None, note | {"guard": "carrier_phone"}
+        if sorted(slot_words) == sorted(form.text.split()) and slot_words != form.text.split():
+            # The form's own words heard in another order ("a pontoon" for "pontoon a"): they
+            # sound alike only because the same sounds are there; the order heard is the one said.
+            return None, note | {"guard": "carrier_order"}
         if match.phone - match.runner_up < s.margin:
             return None, note | {"guard": "carrier_margin"}
         if gain < s.min_gain:

@@ -164,3 +164,31 @@ def test_a_fill_the_in_domain_lm_finds_much_less_likely_is_refused(tmp_path: Pat
     [carrier] = utt.trace[-1].scores["carrier"]
     assert carrier["guard"] == "carrier_lm"
     assert carrier["lm_gain"] == pytest.approx(loss, abs=0.01)
+
+
+ORDER_LEXICON = """id,type,name,aliases,say,weight
+mooring.pontoon_a,mooring,pontoon a,,,1.0
+mooring.pontoon_b,mooring,pontoon b,,,1.0
+"""
+
+
+def _order_chain(tmp_path: Path, **settings: Any) -> Chain:
+    (tmp_path / "lexicon.csv").write_text(ORDER_LEXICON)
+    (tmp_path / "train.txt").write_text("moor her on {mooring} tonight\n")
+    context = StageContext(base_dir=tmp_path, cache_dir=tmp_path / "cache")
+    lexicon = LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv"), carrier=CARRIER, **settings), context=context)
+    chain = Chain([NormalizeStage(NormalizeSettings(), context=context), lexicon])
+    chain.load()
+    return chain
+
+
+def test_a_form_s_own_words_heard_in_another_order_are_left_as_heard(tmp_path: Path) -> None:
+    # "a pontoon" has the phones of "pontoon a" but one vowel moved (CMUdict: AH P AA N T UW N
+    # against P AA N T UW N EY): near by sound, yet the order heard is the order said.
+    # A wider margin keeps the general search from placing "pontoon" alone (pontoon a leads b
+    # by 0.06 there), so the slot is the carrier's to fill, as it was on the boatyard's corpus.
+    utt = run(_order_chain(tmp_path, general={"margin": 0.1}), "moor her on a pontoon tonight")
+    [slot] = utt.trace[-1].scores["carrier"]
+    assert (slot["heard"], slot["id"], slot["guard"]) == ("a pontoon", "mooring.pontoon_a", "carrier_order")
+    assert slot["phone"] >= 0.7  # it would clear the carrier's floor (carrier.min_phone) on sound alone
+    assert utt.entities == [] and utt.text == "moor her on a pontoon tonight"
