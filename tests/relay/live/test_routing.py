@@ -89,7 +89,12 @@ def test_a_result_rendered_where_the_chain_ran_is_the_message_the_relay_would_re
     expected = render_cleaned(utterance, relay=relay, published_at=message["relay"]["published_at"])
     assert message == orjson.loads(orjson.dumps(expected))
     assert message["text"] == "\x00published_at 0123456789abcdef hello"
-    assert relay == {"version": "x", "config_hash": "h", "received_at": 1.5}  # the caller's block untouched
+    # The relay block is shared with the prompt: the placeholder goes into the cleaned message's
+    # copy only, so a prompt rendered from the same block carries no published_at at all.
+    utterance.decision, utterance.prompt = "confirm", "did you mean hello?"
+    cleaned_out, prompt_out = outgoing(render(utterance, relay, forward_unsure=True), TOPICS)
+    assert "published_at" in orjson.loads(cleaned_out.payload)["relay"]
+    assert orjson.loads(prompt_out.payload)["relay"] == {"version": "x", "config_hash": "h", "received_at": 1.5}
 
 
 def test_a_result_that_cannot_be_rendered_says_so() -> None:
