@@ -18,13 +18,14 @@ import argparse
 import json
 import sys
 import tempfile
+from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
 
 from relay.workbench.evaluate import calibration_error
 from relay.workbench.gate_model import Row, fit_default, record, transfer
-from stages.gate.confidence import ConfidenceModel, confidence
+from stages.gate.confidence import confidence
 
 ROOT = Path(__file__).resolve().parents[1]
 CORPORA = ("corpus.jsonl", "corpus-whisper.jsonl", "corpus-10db-pocketsphinx.jsonl", "corpus-10db-whisper.jsonl")
@@ -37,25 +38,26 @@ def parts(rows: list[Row]) -> dict[str, list[Row]]:
     return {"whisper clean+20-25 dB": whisper_main, "10 dB + pocketsphinx 15 dB": unusable}
 
 
-def ece_interval(model: ConfidenceModel, rows: list[Row], *, draws: int = 1000, seed: int = 0) -> tuple[float, float]:
-    """The 2.5th and 97.5th percentiles of the calibration error over bootstrap resamples of ``rows``."""
-    p = [confidence(r.values, model) for r in rows]
-    y = [r.right for r in rows]
+def ece_interval(p: Sequence[float], right: Sequence[bool], *, draws: int = 1000,
+                 seed: int = 0) -> tuple[float, float]:
+    """The 2.5th and 97.5th percentiles of the calibration error over bootstrap resamples of the
+    confidences ``p`` and whether each result was ``right``."""
     rng = np.random.default_rng(seed)
     errors = []
     for _ in range(draws):
-        pick = rng.integers(0, len(rows), len(rows))
-        errors.append(calibration_error([p[i] for i in pick], [y[i] for i in pick]))
+        pick = rng.integers(0, len(p), len(p))
+        errors.append(calibration_error([p[i] for i in pick], [right[i] for i in pick]))
     low, high = np.percentile(errors, [2.5, 97.5])
     return float(low), float(high)
 
 
-def ece_floor(model: ConfidenceModel, rows: list[Row], *, draws: int = 1000, seed: int = 0) -> float:
-    """The mean calibration error of a perfectly calibrated model with these confidences: each
-    result drawn right with the probability the model gives it."""
-    p = np.array([confidence(r.values, model) for r in rows])
+def ece_floor(p: Sequence[float], *, draws: int = 1000, seed: int = 0) -> float:
+    """The mean calibration error of a perfectly calibrated model with the confidences ``p``:
+    each result drawn right with the probability it is given."""
+    chances = np.asarray(p)
     rng = np.random.default_rng(seed)
-    return float(np.mean([calibration_error(p.tolist(), (rng.random(len(p)) < p).tolist()) for _ in range(draws)]))
+    return float(np.mean([calibration_error(list(p), (rng.random(len(p)) < chances).tolist())
+                          for _ in range(draws)]))
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -72,10 +74,11 @@ def main(argv: list[str] | None = None) -> int:
             if judged == fitted:
                 continue
             for part, subset in parts(rows[judged]).items():
-                low, high = ece_interval(model, subset)
+                p = [confidence(r.values, model) for r in subset]
+                low, high = ece_interval(p, [r.right for r in subset])
                 table.append({"fitted_on": fitted, "judged_on": judged, "part": part}
                              | transfer(model, subset, accept=args.accept)
-                             | {"ece_low": low, "ece_high": high, "ece_if_calibrated": ece_floor(model, subset)})
+                             | {"ece_low": low, "ece_high": high, "ece_if_calibrated": ece_floor(p)})
     print(f"{'fitted on':9} {'judged on':9} {'part':27} {'n':>4} {'right':>6} {'AUC':>5} {'ECE':>5} {'ECE 95%':>11} {'ECE cal':>7} {'Brier':>5} "
           f"{'accept':>6} {'doubt':>6} {'policy':>6} {'wrongA':>6} {'wA/all':>6}")
     for r in table:

@@ -22,8 +22,8 @@ from relay.core.utterance import Utterance
 from relay.live.messages import dump, render_cleaned, render_passthrough
 from relay.live.topics import clean_text, render_topic
 
-__all__ = ["Outgoing", "RenderError", "Rendered", "cleaned", "dead_letter", "is_final", "outgoing", "partial",
-           "passthrough", "render"]
+__all__ = ["Outgoing", "RenderError", "Rendered", "dead_letter", "is_final", "outgoing", "partial", "passthrough",
+           "render"]
 
 _BOOL = TypeAdapter(bool)
 
@@ -130,11 +130,6 @@ def dead_letter(topic: str, payload: bytes, error: InputError, topics: TopicSett
 def partial(utterance: Utterance, payload: bytes, topics: TopicSettings) -> Outgoing:
     """A non-final result goes on untouched: the NLU side may show it, the chain adds nothing."""
     return Outgoing(render_topic(topics.output, _values(utterance)), payload, topics.output_qos)
-
-
-def cleaned(utterance: Utterance, topics: TopicSettings, relay: dict[str, Any]) -> list[Outgoing]:
-    """The cleaned message to the output topic, and the prompt when the gate asks back."""
-    return outgoing(render(utterance, relay, forward_unsure=topics.forward_unsure), topics)
 
 
 def passthrough(utterance: Utterance, topics: TopicSettings, relay: dict[str, Any], reason: str) -> Outgoing:

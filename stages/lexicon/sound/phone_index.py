@@ -17,6 +17,7 @@ not a share, so the work per query stays bounded as the lexicon grows.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -177,8 +178,7 @@ class PhoneIndex:
         if compiled is not None:
             return self._search_compiled(queries, k=k, min_score=min_score, codes=recast)
         if recast is not None:
-            table = {_CHAR_BASE + phone: None if to < 0 else chr(_CHAR_BASE + to)
-                     for phone, to in enumerate(recast.tolist())}
+            table = _translation(np.ascontiguousarray(recast, dtype=np.int32).tobytes())
             queries = [q.translate(table) for q in queries]
         return self._search_numpy(queries, k=k, min_score=min_score)
 
@@ -238,3 +238,11 @@ class PhoneIndex:
         group_start = np.repeat(group_starts, np.diff(np.r_[group_starts, len(query)]))
         keep = (np.arange(len(query)) - group_start) < k
         return Hits(query[keep], item[keep], score[keep])
+
+
+@functools.lru_cache(maxsize=8)
+def _translation(codes: bytes) -> dict[int, str | None]:
+    """A recast table (int32 class numbers, -1 for a phone left out) as ``str.translate`` reads
+    it; built once per table, not once per search."""
+    return {_CHAR_BASE + phone: None if to < 0 else chr(_CHAR_BASE + to)
+            for phone, to in enumerate(np.frombuffer(codes, dtype=np.int32).tolist())}

@@ -12,7 +12,6 @@ from relay.core.settings import TopicSettings
 from relay.live.messages import parse_message, render_cleaned
 from relay.live.routing import (
     RenderError,
-    cleaned,
     dead_letter,
     is_final,
     outgoing,
@@ -57,14 +56,17 @@ def test_dead_letters_are_capped_and_their_headers_cleaned() -> None:
 
 def test_cleaned_goes_to_output_and_prompt_only_when_unsure() -> None:
     utterance = _utterance()
-    [out] = cleaned(utterance, TOPICS, {"version": "x", "config_hash": "h", "received_at": 0.0})
+    [out] = outgoing(render(utterance, {"version": "x", "config_hash": "h", "received_at": 0.0},
+                            forward_unsure=True), TOPICS)
     assert out.topic == "nlu/kiosk_1/in"  # the '/' in the source cannot add a level
     utterance.decision, utterance.prompt = "confirm", "did you mean hello there?"
-    outs = cleaned(utterance, TOPICS, {"version": "x", "config_hash": "h", "received_at": 0.0})
+    outs = outgoing(render(utterance, {"version": "x", "config_hash": "h", "received_at": 0.0},
+                           forward_unsure=True), TOPICS)
     assert [o.topic for o in outs] == ["nlu/kiosk_1/in", "say/kiosk_1/confirm"]
     assert orjson.loads(outs[1].payload)["prompt"] == "did you mean hello there?"
     quiet = TopicSettings(forward_unsure=False)
-    assert [o.topic for o in cleaned(utterance, quiet, {})] == ["dialogue/kiosk_1/prompt"]
+    assert [o.topic for o in outgoing(render(utterance, {}, forward_unsure=False), quiet)] == [
+        "dialogue/kiosk_1/prompt"]
 
 
 def test_partial_and_passthrough() -> None:
