@@ -262,6 +262,12 @@ def _end_to_end(runs: dict[str, list[Any]], runners: Sequence[str], found: Any) 
         return float(statistics.median(getattr(run, key) for run in runs[name]))
 
     base = {key: median("passthrough", key) for key in ("msg_s", "cpu_us", "p50_ms", "p99_ms")}
+
+    def added(name: str) -> dict[str, float]:
+        """The latency the runner's chain adds to the pass-through's at the fixed rate (us)."""
+        return {"p50": round(1000 * (median(name, "p50_ms") - base["p50_ms"]), 1),
+                "p99": round(1000 * (median(name, "p99_ms") - base["p99_ms"]), 1)}
+
     table = {}
     for name in runs:
         table[name] = {"msgs_s": round(median(name, "msg_s"), 1),
@@ -270,12 +276,12 @@ def _end_to_end(runs: dict[str, list[Any]], runners: Sequence[str], found: Any) 
                        "cpu_us_per_msg": round(median(name, "cpu_us"), 1),
                        "p50_ms": round(median(name, "p50_ms"), 3), "p99_ms": round(median(name, "p99_ms"), 3),
                        "forwarded": int(median(name, "forwarded")), "pss_mb": round(median(name, "pss_mb"), 1)}
+        if name != "passthrough":
+            table[name]["added_us"] = added(name)
     first = runners[0]
     return {"passthrough_msgs_s": table["passthrough"]["msgs_s"], "chain_msgs_s": table[first]["msgs_s"],
             "throughput_ratio": round(median(first, "msg_s") / base["msg_s"], 3),
-            "added_us": {"p50": round(1000 * (median(first, "p50_ms") - base["p50_ms"]), 1),
-                         "p99": round(1000 * (median(first, "p99_ms") - base["p99_ms"]), 1)},
-            "runners": table, "broker": {"kind": found.kind, "protocol": found.protocol}}
+            "added_us": added(first), "runners": table, "broker": {"kind": found.kind, "protocol": found.protocol}}
 
 
 def format_table(result: dict[str, Any]) -> str:
@@ -297,8 +303,11 @@ def format_table(result: dict[str, Any]) -> str:
             lines.append(f"  {label:<36}{row['msgs_s']:>9,.0f} {low:>6,.0f}-{high:<6,.0f}{100 * row['msgs_s'] / base:>8.0f}%"
                          f"{row['cpu_us_per_msg']:>12,.0f}{row['p50_ms']:>9.2f}{row['p99_ms']:>9.2f}"
                          f"{row['pss_mb']:>9.0f}")
-        added = result["added_us"]
-        lines.append(f"  added latency at the fixed rate: p50 {added['p50']:+,.0f} us, p99 {added['p99']:+,.0f} us")
+        for name, row in result["runners"].items():
+            if name != "passthrough":
+                added = row.get("added_us", result["added_us"])
+                lines.append(f"  latency the chain adds at the fixed rate, runner {name}: p50 {added['p50']:+,.0f} us, "
+                             f"p99 {added['p99']:+,.0f} us")
     lines += ["", "lexicon stage alone, generated lexicon   p50 us    p99 us   cold build s   RSS MB"]
     for size, row in result["lexicon"].items():
         if row is None:
@@ -332,9 +341,11 @@ def format_markdown(result: dict[str, Any]) -> str:
                         f"({100 * row['msgs_s'] / base['msgs_s']:.0f}% of pass-through), "
                         f"{row['cpu_us_per_msg']:,.0f} us CPU per message, p50 / p99 {row['p50_ms']:.2f} / "
                         f"{row['p99_ms']:.2f} ms, PSS {row['pss_mb']:.0f} MB |")
-        added = result["added_us"]
-        rows.append(f"| latency the chain adds (first runner) | p50 {added['p50'] / 1000:+.2f} ms, "
-                    f"p99 {added['p99'] / 1000:+.2f} ms |")
+        for name, row in result["runners"].items():
+            if name != "passthrough":
+                added = row.get("added_us", result["added_us"])
+                rows.append(f"| latency the chain adds at {context.get('rate', 200):g} msg/s, `chain_runner: {name}` | "
+                            f"p50 {added['p50'] / 1000:+.2f} ms, p99 {added['p99'] / 1000:+.2f} ms |")
     for size, row in result["lexicon"].items():
         if row is not None:
             rows.append(f"| lexicon stage alone, {int(size):,} generated entries | p50 {row['p50_us'] / 1000:.2f} ms, "

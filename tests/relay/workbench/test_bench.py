@@ -86,3 +86,30 @@ def test_messages_come_from_a_file_or_from_the_configured_lexicon(tmp_path: Path
     with pytest.raises(ValueError, match="no recogniser message"):
         configured(WORKSHOP / "relay.yaml", tmp_path / "empty.jsonl" if (tmp_path / "empty.jsonl").write_text("{}")
                    else None)
+
+
+def test_each_chain_runner_reports_the_latency_it_adds() -> None:
+    from types import SimpleNamespace
+
+    from relay.workbench.bench import _end_to_end, format_markdown, format_table
+
+    def run(msg_s: float, p50_ms: float, p99_ms: float) -> SimpleNamespace:
+        return SimpleNamespace(msg_s=msg_s, cpu_us=100.0, p50_ms=p50_ms, p99_ms=p99_ms, forwarded=0, pss_mb=40.0)
+
+    runs = {"passthrough": [run(5000, 0.5, 1.0), run(5200, 0.7, 1.2)],
+            "process": [run(1400, 1.5, 2.5)], "thread": [run(900, 1.6, 3.0)]}
+    result = _end_to_end(runs, ["process", "thread"], SimpleNamespace(kind="mosquitto", protocol="5"))
+    # The pass-through's medians are 0.6 and 1.1 ms, so each runner adds its own difference.
+    assert result["runners"]["process"]["added_us"] == {"p50": 900.0, "p99": 1400.0}
+    assert result["runners"]["thread"]["added_us"] == {"p50": 1000.0, "p99": 1900.0}
+    assert result["added_us"] == result["runners"]["process"]["added_us"]  # the first runner named
+    assert "added_us" not in result["runners"]["passthrough"]
+    result |= {"context": {"date": "d", "cpus": 2, "load_before": [0.0], "load_after": [0.0], "workload": "w",
+                           "rate": 200.0},
+               "chain_us": {"p50": 1.0, "p99": 2.0}, "stage_us": {}, "lexicon": {},
+               "startup_s": {"cold": 1.0, "warm": 1.0}, "rss_mb": 1.0, "peak_rss_mb": 1.0}
+    printed = format_table(result)
+    assert "runner thread: p50 +1,000 us, p99 +1,900 us" in printed
+    assert "runner process: p50 +900 us, p99 +1,400 us" in printed
+    assert "| latency the chain adds at 200 msg/s, `chain_runner: thread` | p50 +1.00 ms, p99 +1.90 ms |" \
+        in format_markdown(result)
