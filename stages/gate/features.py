@@ -13,6 +13,7 @@ from relay.core.utterance import Utterance
 from stages.indomain.carriers import CarrierPhrases
 from stages.indomain.text import read_sentences, read_slot_values
 from stages.lm.model import score_tokens
+from stages.normalize.word_probs import first_word_probs
 
 __all__ = ["ASR_LOG_FLOOR", "GateFeatures", "backing", "judged_text", "line_scores", "marked_tokens",
            "recogniser_confidence", "recogniser_word_confidence"]
@@ -109,12 +110,8 @@ def recogniser_word_confidence(utterance: Utterance) -> float | None:
     (``word_probs``, an optional list of numbers in [0, 1] beside ``conf``, as the Whisper bridge
     writes it), each floored at ASR_LOG_FLOOR; None when it gave none or the list is not numbers
     in [0, 1]."""
-    entries = utterance.payload.get("nbest") or []
-    first = entries[0] if entries and isinstance(entries[0], dict) else {}
-    given = first.get("word_probs")
-    if not isinstance(given, list) or not given:
-        return None
-    if not all(isinstance(p, (int, float)) and not isinstance(p, bool) and 0.0 <= p <= 1.0 for p in given):
+    given = first_word_probs(utterance)
+    if given is None:
         return None
     return sum(max(math.log(p), ASR_LOG_FLOOR) if p > 0 else ASR_LOG_FLOOR for p in given) / len(given)
 

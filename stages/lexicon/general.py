@@ -17,7 +17,7 @@ from relay.core.utterance import Hypothesis, Utterance
 from stages.lexicon.choice import Choice, describe, reading_otherwise, support
 from stages.lexicon.compile import CompiledLexicon
 from stages.lexicon.context import ContextScorer
-from stages.lexicon.heard import heard_belief
+from stages.lexicon.heard import heard_belief, recogniser_sureness
 from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon.rewrite import map_span
 from stages.lexicon.settings import LexiconSettings
@@ -97,10 +97,11 @@ class GeneralSearch:
             score += (s.context.gain_weight if lm_gain > 0 else s.context.loss_weight) * lm_gain
         return Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain)
 
-    def place(self, choices: list[Choice], tokens: list[str],
-              nbest: Sequence[Hypothesis]) -> tuple[list[Choice], list[dict[str, Any]]]:
+    def place(self, choices: list[Choice], tokens: list[str], nbest: Sequence[Hypothesis],
+              probs: Sequence[float | None] | None = None) -> tuple[list[Choice], list[dict[str, Any]]]:
         """The choices that stand, and a trace record for each one a guard stopped; ``tokens``
-        are the top hypothesis's, ``nbest`` the whole list."""
+        are the top hypothesis's, ``nbest`` the whole list, ``probs`` the recogniser's
+        probability of each token where it gave them (stages.normalize.word_probs)."""
         exacts = sorted((c for c in choices if c.exact), key=lambda c: (c.start - c.end, -c.score))
         fuzzy = sorted((c for c in choices if not c.exact), key=lambda c: (-c.score, c.start - c.end))
         placed: list[Choice] = []
@@ -109,7 +110,7 @@ class GeneralSearch:
         # ("tamsin okorra" -> "tamsin okara") can supersede it; any other overlap with exact text
         # is blocked. Then the exact matches that remain free.
         for choice in fuzzy:
-            reason = self._guard(choice, placed, choices, exacts, tokens, nbest)
+            reason = self._guard(choice, placed, choices, exacts, tokens, nbest, probs)
             if reason is None:
                 placed.append(choice)
             elif choice.score >= self.settings.match.pair_floor:
@@ -146,8 +147,8 @@ class GeneralSearch:
         kept = " " + " ".join(tokens[exact.start:exact.end]) + " "
         return kept in " " + self.lexicon.forms[longer.form].text + " "
 
-    def _guard(self, choice: Choice, placed: list[Choice], choices: list[Choice],
-               exacts: list[Choice], tokens: list[str], nbest: Sequence[Hypothesis]) -> str | None:
+    def _guard(self, choice: Choice, placed: list[Choice], choices: list[Choice], exacts: list[Choice],
+               tokens: list[str], nbest: Sequence[Hypothesis], probs: Sequence[float | None] | None) -> str | None:
         """None when a correction may stand; else the name of the guard that stops it."""
         g = self.settings.general
         if choice.score < g.min_score:
@@ -179,7 +180,9 @@ class GeneralSearch:
         # Two reasons for doubt add: a short form matches everyday words by chance, and these
         # words may have been said as heard ("we've run short" -> "we've wren short").
         floor = g.min_score + (g.heard_short_penalty if short else 0.0)
-        if g.heard_weight and choice.score < floor + g.heard_weight * heard_belief(
+        sure = recogniser_sureness(probs[choice.start:choice.end] if probs else None, g.heard_sureness)
+        weight = g.heard_weight if sure is None else g.heard_weight_probs * sure
+        if weight and choice.score < floor + weight * heard_belief(
                 words, nbest, self.zipf, holding=reading_otherwise(choice, nbest, words)):
             return "heard_right"
         return None

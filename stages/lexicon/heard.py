@@ -5,8 +5,13 @@ N-best ("first thing tomorrow" in every hypothesis), that are everyday words of 
 are likely what was said, however near they sound to an entry ("dunmorrow"). How likely is
 the product of two shares: how much of the N-best's probability holds exactly those words,
 and how common they are (their Zipf frequency, from the shipped common-word list, scaled to
-0 below ``RARE`` and 1 from ``COMMON``). A correction must then beat its search's floor by
-``weight`` times that belief.
+0 below ``RARE`` and 1 from ``COMMON``). Where the recogniser says how sure it was of each word
+(`word_probs`, stages.normalize.word_probs), a third factor: the mean of those probabilities
+over the words, raised to an exponent (``recogniser_sureness``). Whisper agrees with itself across its
+N-best on a name it turned into everyday words ("taigh mara" as "time are on" in every
+hypothesis), but it is less sure of those words than of words said as heard. A correction must
+then beat its search's floor by a weight times that belief; the belief with the third factor has
+a scale of its own, so it has a weight of its own.
 """
 
 from __future__ import annotations
@@ -15,7 +20,7 @@ from collections.abc import Collection, Mapping, Sequence
 
 from relay.core.utterance import Hypothesis
 
-__all__ = ["COMMON", "RARE", "heard_belief"]
+__all__ = ["COMMON", "RARE", "heard_belief", "recogniser_sureness"]
 
 RARE = 2.0  # below any word of the shipped list (it starts at Zipf 2.97): as likely a name as a word
 COMMON = 4.5  # about three times per hundred thousand words: everyday speech
@@ -43,9 +48,18 @@ def _commonness(word: str, zipf: Mapping[str, float]) -> float:
     return min(1.0, max(0.0, (_frequency(word, zipf) - RARE) / (COMMON - RARE)))
 
 
+def recogniser_sureness(probs: Sequence[float | None] | None, exponent: float) -> float | None:
+    """The mean of the recogniser's probabilities of a run of words (None where not known),
+    raised to ``exponent``; None when none is known or ``exponent`` is 0."""
+    known = [p for p in probs if p is not None] if probs and exponent else []
+    return (sum(known) / len(known)) ** exponent if known else None
+
+
 def heard_belief(words: Sequence[str], nbest: Sequence[Hypothesis], zipf: Mapping[str, float], *,
                  holding: Collection[int] = ()) -> float:
-    """Belief in [0, 1] that ``words`` (a run of the top hypothesis) were said as heard.
+    """Belief in [0, 1] that ``words`` (a run of the top hypothesis) were said as heard, from
+    the N-best and the language alone (times ``recogniser_sureness`` where the recogniser gave
+    word probabilities).
 
     ``holding`` are the hypotheses that read the words as part of the name ("pellow table saw"
     around "table"), not as said; they do not count for the heard reading.

@@ -10,6 +10,7 @@ corrections in the text of the top hypothesis; every guard that stops a change i
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any, ClassVar
 
 from pydantic import BaseModel
@@ -26,13 +27,14 @@ from stages.lexicon.compile import CompiledLexicon, load_compiled
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.data import read_speakers
 from stages.lexicon.general import GeneralSearch
-from stages.lexicon.heard import heard_belief
+from stages.lexicon.heard import heard_belief, recogniser_sureness
 from stages.lexicon.rewrite import rewrite
 from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.costfile import read_costs
 from stages.lexicon.sound.phonetics import CostModel
 from stages.lexicon.sound.pronounce import Pronouncer, common_words
 from stages.lm.model import shared_model
+from stages.normalize.word_probs import token_probs
 
 __all__ = ["LexiconSettings", "LexiconStage"]
 
@@ -136,7 +138,9 @@ class LexiconStage:
         if self.lm is not None and (strong or self.anchored is not None or self.carrier is not None):
             context = ContextScorer(self.lm, tokens, cap=self.settings.context.cap)
         choices = [general.choose(e, utterance, top, context) for e in strong]
-        placed, blocked = general.place(choices, tokens, utterance.nbest)
+        g = self.settings.general
+        probs = token_probs(utterance, tokens) if g.heard_weight_probs and g.heard_sureness else None
+        placed, blocked = general.place(choices, tokens, utterance.nbest, probs)
         utterance.check_deadline()
         if self.anchored is not None:
             placed += self.anchored.recall(utterance, top, placed, blocked, context)
@@ -145,13 +149,13 @@ class LexiconStage:
         if self.carrier is not None:
             found, carrier = self.carrier.recall(utterance, top, placed, context)
             placed += found
-        self._finish(utterance, top, placed, blocked, choices)
+        self._finish(utterance, top, placed, blocked, choices, probs)
         if carrier:
             utterance.note(carrier=carrier)
         return utterance
 
-    def _finish(self, utterance: Utterance, top: int, placed: list[Choice],
-                blocked: list[dict[str, Any]], choices: list[Choice]) -> None:
+    def _finish(self, utterance: Utterance, top: int, placed: list[Choice], blocked: list[dict[str, Any]],
+                choices: list[Choice], probs: Sequence[float | None] | None) -> None:
         """Entities, corrections and the rewritten text from what was placed; the trace."""
         lexicon = self._lexicon
         tokens = utterance.nbest[top].tokens
@@ -169,6 +173,9 @@ class LexiconStage:
             # correction had to beat): the gate weighs a correction that beat a strong one.
             overridden = heard_belief(tokens[start:end], utterance.nbest, self.zipf, holding=reading_otherwise(
                 choice, utterance.nbest, tokens[start:end])) if replaced else 0.0
+            sure = recogniser_sureness(probs[start:end] if probs else None, self.settings.general.heard_sureness)
+            if sure is not None:
+                overridden *= sure
             utterance.entities.append(Entity(entry.id, entry.type, entry.name, span, heard, score,
                                              **_backing(choice, choices, utterance, overridden)))
             if replaced:

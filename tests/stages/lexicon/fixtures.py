@@ -35,11 +35,16 @@ def small_chain(folder: Path, lexicon: str = SMALL_LEXICON, speakers: str | None
     return lexicon_chain(folder, **params)
 
 
-def run(chain: Chain, *texts: str, speaker: str | None = None, conf: list[float] | None = None) -> Utterance:
-    """The chain over an N-best of ``texts``, equally likely unless ``conf`` says otherwise."""
+def run(chain: Chain, *texts: str, speaker: str | None = None, conf: list[float] | None = None,
+        word_probs: list[float] | None = None) -> Utterance:
+    """The chain over an N-best of ``texts``, equally likely unless ``conf`` says otherwise; with
+    ``word_probs``, the recogniser's probability of each word of the first text."""
     conf = conf or [1.0 / len(texts)] * len(texts)
-    nbest = [Hypothesis(t, r, {"conf": c}) for r, (t, c) in enumerate(zip(texts, conf))]
-    return chain.process(Utterance("u1", "test", speaker, {}, nbest))
+    fields: list[dict[str, Any]] = [{"text": t, "conf": c} for t, c in zip(texts, conf)]
+    if word_probs is not None:
+        fields[0]["word_probs"] = word_probs
+    nbest = [Hypothesis(t, r, f) for r, (t, f) in enumerate(zip(texts, fields))]
+    return chain.process(Utterance("u1", "test", speaker, {"nbest": fields}, nbest))
 
 
 def blocked(utt: Utterance) -> list[dict[str, Any]]:

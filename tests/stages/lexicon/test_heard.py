@@ -9,7 +9,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from relay.core.utterance import Hypothesis
-from stages.lexicon.heard import heard_belief
+from stages.lexicon.heard import heard_belief, recogniser_sureness
 from stages.lexicon.sound.pronounce import common_words
 from tests.stages.lexicon.fixtures import SMALL_LEXICON, blocked, run, small_chain
 
@@ -83,3 +83,26 @@ def test_a_short_form_must_beat_the_heard_reading_by_more(tmp_path: Path) -> Non
     # Without the added bar the same words are rewritten: the example is a near miss at all.
     rewritten = run(small_chain(tmp_path, SHORT_ALIAS, general={"heard_short_penalty": 0.0}), *heard)
     assert rewritten.text == "we've wren short of glue again"
+
+
+def test_sureness_is_the_mean_word_probability_raised_to_the_exponent() -> None:
+    assert recogniser_sureness([0.25, None, 0.81], 0.5) == (0.53) ** 0.5  # unknown words left out
+    assert recogniser_sureness([0.4, 0.6], 1.0) == 0.5
+    assert recogniser_sureness([None, None], 0.5) is None  # nothing known: the belief stands alone
+    assert recogniser_sureness(None, 0.5) is None
+    assert recogniser_sureness([0.5], 0.0) is None  # exponent 0: not used
+
+
+def test_words_the_recogniser_doubted_yield_to_a_near_entry(tmp_path: Path) -> None:
+    # "the loft got dusted overnight", the whole N-best agreeing: kept when the recogniser was
+    # sure of "dusted", corrected when it doubted that one word (as it does of a name it turned
+    # into everyday words). The default weights are used; only the word probabilities differ.
+    chain = small_chain(tmp_path, NEAR_WORDS)
+    said = "the loft got dusted overnight"
+    sure = run(chain, said, word_probs=[0.99, 0.98, 0.97, 0.95, 0.99])
+    assert sure.text == said
+    assert any(b["id"] == "machine.dust_fan" and b["guard"] == "heard_right" for b in blocked(sure))
+    doubted = run(chain, said, word_probs=[0.99, 0.98, 0.97, 0.02, 0.99])
+    assert "machine.dust_fan" in [e.id for e in doubted.entities]
+    # Without word probabilities (pocketsphinx gives none) the N-best and the language decide alone.
+    assert run(chain, said).text == said

@@ -1,0 +1,62 @@
+"""The recogniser's own word probabilities, laid onto the tokens the stages work on.
+
+A recogniser may say how sure it is of each word of its first hypothesis (FORMATS, `word_probs`
+beside `conf`: one number in [0, 1] per whitespace-separated word of `text`, as the Whisper
+bridge writes them). The stages work on normalised tokens instead ("7.30" is "seven thirty",
+"Halcyra's" is "halcyra's"), and on the hypothesis the chain chose, which need not be the
+first. ``token_probs`` gives each of those tokens the probability of the recogniser's word it
+came from: every word of the first hypothesis is normalised alone (a word that becomes two
+tokens gives both its probability), and the tokens are aligned with the chosen ones word for
+word (rapidfuzz opcodes); a token with no equal partner in the first hypothesis gets None.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+from rapidfuzz.distance import Levenshtein
+
+from relay.core.utterance import Utterance
+from stages.normalize.tokens import tokenize
+
+__all__ = ["first_word_probs", "token_probs"]
+
+
+def first_word_probs(utterance: Utterance) -> list[float] | None:
+    """The ``word_probs`` of the first hypothesis as received; None when it gave none or the list
+    is not numbers in [0, 1]."""
+    entries = utterance.payload.get("nbest") or []  # as received: merging duplicates drops entries
+    first: dict[str, Any] = entries[0] if entries and isinstance(entries[0], dict) else {}
+    given = first.get("word_probs")
+    if not isinstance(given, list) or not given:
+        return None
+    if not all(isinstance(p, (int, float)) and not isinstance(p, bool) and 0.0 <= p <= 1.0 for p in given):
+        return None
+    return [float(p) for p in given]
+
+
+def token_probs(utterance: Utterance, tokens: Sequence[str]) -> list[float | None] | None:
+    """For each of ``tokens`` (a hypothesis of ``utterance`` after normalisation), the
+    probability the recogniser gave the word it came from, None where it cannot be told; None
+    for all when the recogniser gave no word probabilities or they do not match its text's words."""
+    probs = first_word_probs(utterance)
+    if probs is None:
+        return None
+    first = (utterance.payload.get("nbest") or [{}])[0]
+    words = first.get("text", "").split() if isinstance(first.get("text"), str) else []
+    if len(words) != len(probs):
+        return None
+    heard: list[str] = []
+    per_token: list[float] = []
+    for word, p in zip(words, probs):
+        pieces = tokenize(word)
+        heard += pieces
+        per_token += [p] * len(pieces)
+    if heard == list(tokens):
+        return list(per_token)
+    out: list[float | None] = [None] * len(tokens)
+    for op in Levenshtein.opcodes(heard, list(tokens)):
+        if op.tag == "equal":
+            out[op.dest_start:op.dest_end] = per_token[op.src_start:op.src_end]
+    return out
