@@ -49,12 +49,14 @@ DEFAULT_SPACE: dict[str, dict[str, list[Any]]] = {
     "normalize": {"logprob_scale": [1.0, 0.3, 0.1, 0.03]},
     "lm_rescore": {"lm_weight": [0.3, 0.6, 1.0]},
     # The lexicon settings that moved entity accuracy on the example scenarios (stages/lexicon/README.md):
-    # the correction floor, the weight of the heard-as-said reading, the LM context's loss side and
-    # the short-form guard. With the two above, 972 combinations, sampled to --max-settings (24 run
-    # in about 30 s on 400 utterances).
+    # the correction floor, the weight of the heard-as-said reading (without and with the
+    # recogniser's word probabilities: only one of the two applies to a word), the LM context's
+    # loss side and the short-form guard. With the two above, 2,916 combinations, sampled to
+    # --max-settings (24 run in about 30 s on 400 utterances).
     "lexicon": {
         "general.min_score": [0.55, 0.6, 0.7],
         "general.heard_weight": [0.2, 0.3, 0.4],
+        "general.heard_weight_probs": [0.3, 0.4, 0.5],
         "context.loss_weight": [0.03, 0.06, 0.1],
         "general.short_penalty": [0.1, 0.2, 0.3],
     },
