@@ -3,8 +3,8 @@
 For every utterance the chain's chosen hypothesis before the lexicon rewrote it (``top``) and
 the finished text are each aligned with the reference (rapidfuzz word opcodes). A reference
 word matched before and not after was broken by a correction; one matched after and not
-before was fixed. Entity misses are split by cause: no hypothesis holds anything near the
-name (lost by the recogniser), or something near it was heard but not placed (the stage's).
+before was fixed. The entity mentions the stage misses, by cause (not retrieved at all, or the
+guard that stopped them), are counted by ``benchmarks/person_misses.py --type all``.
 
     python benchmarks/corrections.py                    # every corpus, default chain
     python benchmarks/corrections.py --set lexicon.general.min_score=0.7

@@ -52,10 +52,15 @@ def _lexicon_stage(chain: Any) -> LexiconStage:
     raise SystemExit("the chain has no lexicon stage")
 
 
+def _followed(entity_id: str, entity_type: str) -> bool:
+    """Whether a mention of ``entity_id`` is followed with ``--type entity_type`` ("all": every one)."""
+    return entity_type == "all" or entity_id.startswith(entity_type + ".")
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     add_corpus_arguments(parser)
-    parser.add_argument("--type", default="person", help="entity type to follow (default person)")
+    parser.add_argument("--type", default="person", help="entity type to follow (default person; all: every type)")
     parser.add_argument("--quiet", action="store_true", help="counts only, no line per mention")
     args = parser.parse_args(argv)
     items, chain = items_and_chain(args)
@@ -79,7 +84,7 @@ def main(argv: list[str] | None = None) -> int:
         reported = {e.id for e in utterance.entities}
         trace = next((t.scores for t in utterance.trace if t.stage == stage.name), {})
         for entity_id, text in item.entity_texts:
-            if not entity_id.startswith(args.type + "."):
+            if not _followed(entity_id, args.type):
                 continue
             mentions += 1
             if entity_id in reported:
@@ -158,7 +163,7 @@ def main(argv: list[str] | None = None) -> int:
             causes[cause] += 1
             band = "<0.60" if best_phone < 0.6 else "0.60-0.70" if best_phone < 0.7 else ">=0.70"
             reach[band] += 1
-            instead = sorted(i for i in reported - item.entity_ids if i.startswith(args.type + "."))
+            instead = sorted(i for i in reported - item.entity_ids if _followed(i, args.type))
             if not args.quiet:
                 print(f"{item.id} {said!r:24s} {cause:15s} {detail}")
                 print(f"    first {nbest[0].text!r}; reach {best_phone:.3f} on {spans.texts[best_span]!r}"
