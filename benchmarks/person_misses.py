@@ -94,9 +94,12 @@ def main(argv: list[str] | None = None) -> int:
             record = lexicon.entries[entry]
             said = " ".join(tokenize(text))
             said_forms = [f for f in forms_of[entry] if lexicon.forms[f].text == said] or forms_of[entry]
-            unused = bool(record.say) and any(
-                lexicon.forms[f].phones == stage.pronouncer.words(lexicon.forms[f].text.split())
-                for f in said_forms)
+            # The respelling matters only where it differs from what the spelling alone gives.
+            pronouncer = stage.pronouncer
+            name_words = tokenize(record.name)
+            unused = bool(record.say) and pronouncer.form(
+                " ".join(name_words), name=record.name, say=record.say) != pronouncer.words(name_words) and any(
+                lexicon.forms[f].phones == pronouncer.words(lexicon.forms[f].text.split()) for f in said_forms)
             say_unused += unused
 
             nbest = utterance.nbest
