@@ -29,6 +29,7 @@ import subprocess
 import sys
 import tempfile
 import time
+import timeit
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -207,10 +208,19 @@ def _texts(messages: Sequence[bytes], count: int) -> list[list[str]]:
 
 # ---- all of it -------------------------------------------------------------------------------
 
+def python_loop_us() -> float:
+    """Microseconds this machine takes for ``sum(range(100))`` (the best of five timings): a
+    yardstick of its speed at the moment, so runs on other machines, or on this one when its
+    neighbours are busy, can be set side by side."""
+    timings = timeit.repeat("sum(range(100))", number=20_000, repeat=5)
+    return round(min(timings) / 20_000 * 1e6, 3)
+
+
 def _context(workload: Workload, options: BenchOptions) -> dict[str, Any]:
     load = os.getloadavg()
     return {"date": datetime.datetime.now(datetime.UTC).strftime("%Y-%m-%d %H:%M UTC"), "rate": options.rate,
             "cpus": len(os.sched_getaffinity(0)), "load_before": [round(v, 2) for v in load],
+            "python_loop_us_before": python_loop_us(),
             "workload": workload.description, "quick": options.quick, "python": sys.version.split()[0]}
 
 
@@ -254,6 +264,7 @@ def run_bench(workload: Workload, options: BenchOptions, *, log: Any = None) -> 
         scaled = lexicon_scaling(sizes, messages_file, count=100 if quick else 600)
         result["lexicon"] = {str(size): scaled.get(str(size)) for size in options.sizes}
     result["context"]["load_after"] = [round(v, 2) for v in os.getloadavg()]
+    result["context"]["python_loop_us_after"] = python_loop_us()
     return result
 
 
@@ -286,9 +297,14 @@ def _end_to_end(runs: dict[str, list[Any]], runners: Sequence[str], found: Any) 
 
 def format_table(result: dict[str, Any]) -> str:
     """The result as a person reads it."""
-    lines = [f"rehear bench, {result['context']['date']}, {result['context']['cpus']} cores, load "
-             f"{result['context']['load_before'][0]:.2f} before / {result['context']['load_after'][0]:.2f} after; "
-             f"{result['context']['workload']}", ""]
+    context = result["context"]
+    lines = [f"rehear bench, {context['date']}, {context['cpus']} cores, load "
+             f"{context['load_before'][0]:.2f} before / {context['load_after'][0]:.2f} after; "
+             f"{context['workload']}"]
+    if "python_loop_us_before" in context:
+        lines.append(f"this machine's speed, sum(range(100)): {context['python_loop_us_before']:.2f} us before / "
+                     f"{context.get('python_loop_us_after', context['python_loop_us_before']):.2f} us after")
+    lines.append("")
     chain = result["chain_us"]
     lines.append(f"in process, per message (us)   p50 {chain['p50']:>9,.0f}   p99 {chain['p99']:>9,.0f}  whole chain")
     for name, q in result["stage_us"].items():

@@ -42,6 +42,8 @@ def test_quick_bench_reports_every_key(tmp_path: Path, capsys: pytest.CaptureFix
     _shape_checked(result)
     assert result["lexicon"]["10000"] is None and result["lexicon"]["100000"] is None  # --quick: 1k only
     assert result["runners"].keys() == {"passthrough", "thread"}
+    # The machine's speed at the start and the end, to set runs side by side.
+    assert result["context"]["python_loop_us_before"] > 0 and result["context"]["python_loop_us_after"] > 0
     printed = capsys.readouterr().out
     assert "end to end" in printed and "lexicon stage alone" in printed and "start-up" in printed
 
@@ -109,6 +111,10 @@ def test_each_chain_runner_reports_the_latency_it_adds() -> None:
                "chain_us": {"p50": 1.0, "p99": 2.0}, "stage_us": {}, "lexicon": {},
                "startup_s": {"cold": 1.0, "warm": 1.0}, "rss_mb": 1.0, "peak_rss_mb": 1.0}
     printed = format_table(result)
+    assert "sum(range(100))" not in printed  # a result from before the yardstick: no line for it
+    result["context"] |= {"python_loop_us_before": 0.48, "python_loop_us_after": 0.61}
+    printed = format_table(result)
+    assert "this machine's speed, sum(range(100)): 0.48 us before / 0.61 us after" in printed
     assert "runner thread: p50 +1,000 us, p99 +1,900 us" in printed
     assert "runner process: p50 +900 us, p99 +1,400 us" in printed
     assert "| latency the chain adds at 200 msg/s, `chain_runner: thread` | p50 +1.00 ms, p99 +1.90 ms |" \
