@@ -75,9 +75,9 @@ class GeneralSettings(_Group):
     # broke and raised precision by 2-4 points, for about one point of recall (stages/lexicon/README.md).
     heard_weight: float = Field(0.3, ge=0, le=2, description="more score needed per unit of belief that the "
                                 "words were said as heard (everyday words the whole N-best agrees on)")
-    # 0.5 and 0.4: chosen on the workshop's Whisper output as the most recall at no less precision
-    # than without the recogniser's word probabilities (0.899 / 0.967 -> 0.901 / 0.971); on the
-    # boatyard's, not looked at to choose them, 0.831 / 0.976 -> 0.833 / 0.981
+    # 0.5 and 0.4: chosen by a rule applied to the workshop's Whisper output (the most recall at
+    # no less precision than without the recogniser's word probabilities: 0.899 / 0.967 -> 0.901 /
+    # 0.971); the boatyard's, which the rule did not read, 0.831 / 0.976 -> 0.835 / 0.981
     # (stages/lexicon/README.md). Output without word_probs (pocketsphinx) is unchanged.
     heard_sureness: float = Field(0.5, ge=0, le=4, description="where the recogniser gives word probabilities "
                                   "(word_probs), the heard-as-said belief is scaled by their mean raised to this; "
