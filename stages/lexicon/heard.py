@@ -58,8 +58,8 @@ def recogniser_sureness(probs: Sequence[float | None] | None, exponent: float) -
 def heard_belief(words: Sequence[str], nbest: Sequence[Hypothesis], zipf: Mapping[str, float], *,
                  holding: Collection[int] = ()) -> float:
     """Belief in [0, 1] that ``words`` (a run of the top hypothesis) were said as heard, from
-    the N-best and the language alone (times ``recogniser_sureness`` where the recogniser gave
-    word probabilities).
+    the N-best and the language alone; where the recogniser gave word probabilities, callers
+    multiply it by ``recogniser_sureness``.
 
     ``holding`` are the hypotheses that read the words as part of the name ("pellow table saw"
     around "table"), not as said; they do not count for the heard reading.

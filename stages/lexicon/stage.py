@@ -139,7 +139,7 @@ class LexiconStage:
             context = ContextScorer(self.lm, tokens, cap=self.settings.context.cap)
         choices = [general.choose(e, utterance, top, context) for e in strong]
         g = self.settings.general
-        probs = token_probs(utterance, tokens) if g.heard_weight_probs and g.heard_sureness else None
+        probs = token_probs(utterance, tokens) if g.heard_sureness else None
         placed, blocked = general.place(choices, tokens, utterance.nbest, probs)
         utterance.check_deadline()
         if self.anchored is not None:

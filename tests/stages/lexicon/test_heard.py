@@ -106,3 +106,6 @@ def test_words_the_recogniser_doubted_yield_to_a_near_entry(tmp_path: Path) -> N
     assert "machine.dust_fan" in [e.id for e in doubted.entities]
     # Without word probabilities (pocketsphinx gives none) the N-best and the language decide alone.
     assert run(chain, said).text == said
+    # The weight for words with probabilities is their own: at 0 the guard does not hold them.
+    unweighted = small_chain(tmp_path, NEAR_WORDS, general={"heard_weight_probs": 0.0})
+    assert "machine.dust_fan" in [e.id for e in run(unweighted, said, word_probs=[0.99] * 5).entities]
