@@ -13,6 +13,7 @@ word (rapidfuzz opcodes); a token with no equal partner in the first hypothesis 
 from __future__ import annotations
 
 from collections.abc import Sequence
+from functools import lru_cache
 from typing import Any
 
 from rapidfuzz.distance import Levenshtein
@@ -21,6 +22,12 @@ from relay.core.utterance import Utterance
 from stages.normalize.tokens import tokenize
 
 __all__ = ["first_word_probs", "token_probs"]
+
+
+@lru_cache(maxsize=8192)
+def _word_tokens(word: str) -> tuple[str, ...]:
+    # A recogniser's words repeat from message to message: each is normalised once.
+    return tuple(tokenize(word))
 
 
 def first_word_probs(utterance: Utterance) -> list[float] | None:
@@ -50,7 +57,7 @@ def token_probs(utterance: Utterance, tokens: Sequence[str]) -> list[float | Non
     heard: list[str] = []
     per_token: list[float] = []
     for word, p in zip(words, probs):
-        pieces = tokenize(word)
+        pieces = _word_tokens(word)
         heard += pieces
         per_token += [p] * len(pieces)
     if heard == list(tokens):
