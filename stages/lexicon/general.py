@@ -17,7 +17,7 @@ from relay.core.utterance import Hypothesis, Utterance
 from stages.lexicon.choice import Choice, describe, reading_otherwise, support
 from stages.lexicon.compile import CompiledLexicon
 from stages.lexicon.context import ContextScorer
-from stages.lexicon.heard import heard_belief, recogniser_sureness
+from stages.lexicon.heard import heard_reading
 from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon.rewrite import map_span
 from stages.lexicon.settings import LexiconSettings
@@ -180,10 +180,11 @@ class GeneralSearch:
         # Two reasons for doubt add: a short form matches everyday words by chance, and these
         # words may have been said as heard ("we've run short" -> "we've wren short").
         floor = g.min_score + (g.heard_short_penalty if short else 0.0)
-        sure = recogniser_sureness(probs[choice.start:choice.end] if probs else None, g.heard_sureness)
-        weight = g.heard_weight if sure is None else g.heard_weight_probs * sure
-        if weight and choice.score < floor + weight * heard_belief(
-                words, nbest, self.zipf, holding=reading_otherwise(choice, nbest, words)):
+        belief, with_probs = heard_reading(words, nbest, self.zipf, holding=reading_otherwise(choice, nbest, words),
+                                           probs=probs[choice.start:choice.end] if probs else None,
+                                           sureness=g.heard_sureness)
+        weight = g.heard_weight_probs if with_probs else g.heard_weight
+        if weight and choice.score < floor + weight * belief:
             return "heard_right"
         return None
 

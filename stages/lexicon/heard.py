@@ -20,7 +20,7 @@ from collections.abc import Collection, Mapping, Sequence
 
 from relay.core.utterance import Hypothesis
 
-__all__ = ["COMMON", "RARE", "heard_belief", "recogniser_sureness"]
+__all__ = ["COMMON", "RARE", "heard_belief", "heard_reading", "recogniser_sureness"]
 
 RARE = 2.0  # below any word of the shipped list (it starts at Zipf 2.97): as likely a name as a word
 COMMON = 4.5  # about three times per hundred thousand words: everyday speech
@@ -58,8 +58,7 @@ def recogniser_sureness(probs: Sequence[float | None] | None, exponent: float) -
 def heard_belief(words: Sequence[str], nbest: Sequence[Hypothesis], zipf: Mapping[str, float], *,
                  holding: Collection[int] = ()) -> float:
     """Belief in [0, 1] that ``words`` (a run of the top hypothesis) were said as heard, from
-    the N-best and the language alone; where the recogniser gave word probabilities, callers
-    multiply it by ``recogniser_sureness``.
+    the N-best and the language alone (``heard_reading`` adds the recogniser's sureness).
 
     ``holding`` are the hypotheses that read the words as part of the name ("pellow table saw"
     around "table"), not as said; they do not count for the heard reading.
@@ -72,3 +71,13 @@ def heard_belief(words: Sequence[str], nbest: Sequence[Hypothesis], zipf: Mappin
     agreement = sum(h.posterior for number, h in enumerate(nbest) if number not in holding
                     and needle in " " + " ".join(h.tokens) + " ")
     return min(1.0, agreement) * sum(_commonness(w, zipf) for w in words) / len(words)
+
+
+def heard_reading(words: Sequence[str], nbest: Sequence[Hypothesis], zipf: Mapping[str, float], *,
+                  holding: Collection[int], probs: Sequence[float | None] | None,
+                  sureness: float) -> tuple[float, bool]:
+    """The heard-as-said belief of ``words``, times ``recogniser_sureness`` of their ``probs``
+    where any is known; and whether it was (that belief has a weight of its own)."""
+    belief = heard_belief(words, nbest, zipf, holding=holding)
+    sure = recogniser_sureness(probs, sureness)
+    return (belief, False) if sure is None else (belief * sure, True)

@@ -27,7 +27,7 @@ from stages.lexicon.compile import CompiledLexicon, load_compiled
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.data import read_speakers
 from stages.lexicon.general import GeneralSearch
-from stages.lexicon.heard import heard_belief, recogniser_sureness
+from stages.lexicon.heard import heard_reading
 from stages.lexicon.rewrite import rewrite
 from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.costfile import read_costs
@@ -171,11 +171,11 @@ class LexiconStage:
             replaced = not choice.exact and heard != after
             # How sure the N-best was of the words the correction overwrote (the reading every
             # correction had to beat): the gate weighs a correction that beat a strong one.
-            overridden = heard_belief(tokens[start:end], utterance.nbest, self.zipf, holding=reading_otherwise(
-                choice, utterance.nbest, tokens[start:end])) if replaced else 0.0
-            sure = recogniser_sureness(probs[start:end] if probs else None, self.settings.general.heard_sureness)
-            if sure is not None:
-                overridden *= sure
+            overridden = heard_reading(
+                tokens[start:end], utterance.nbest, self.zipf,
+                holding=reading_otherwise(choice, utterance.nbest, tokens[start:end]),
+                probs=probs[start:end] if probs else None, sureness=self.settings.general.heard_sureness,
+            )[0] if replaced else 0.0
             utterance.entities.append(Entity(entry.id, entry.type, entry.name, span, heard, score,
                                              **_backing(choice, choices, utterance, overridden)))
             if replaced:
