@@ -30,12 +30,16 @@ def _word_tokens(word: str) -> tuple[str, ...]:
     return tuple(tokenize(word))
 
 
+def _first(utterance: Utterance) -> dict[str, Any]:
+    """The first N-best entry as received (merging duplicates drops entries); {} when it is not an object."""
+    entries = utterance.payload.get("nbest") or []
+    return entries[0] if entries and isinstance(entries[0], dict) else {}
+
+
 def first_word_probs(utterance: Utterance) -> list[float] | None:
     """The ``word_probs`` of the first hypothesis as received; None when it gave none or the list
     is not numbers in [0, 1]."""
-    entries = utterance.payload.get("nbest") or []  # as received: merging duplicates drops entries
-    first: dict[str, Any] = entries[0] if entries and isinstance(entries[0], dict) else {}
-    given = first.get("word_probs")
+    given = _first(utterance).get("word_probs")
     if not isinstance(given, list) or not given:
         return None
     if not all(isinstance(p, (int, float)) and not isinstance(p, bool) and 0.0 <= p <= 1.0 for p in given):
@@ -50,8 +54,8 @@ def token_probs(utterance: Utterance, tokens: Sequence[str]) -> list[float | Non
     probs = first_word_probs(utterance)
     if probs is None:
         return None
-    first = (utterance.payload.get("nbest") or [{}])[0]
-    words = first.get("text", "").split() if isinstance(first.get("text"), str) else []
+    text = _first(utterance).get("text")
+    words = text.split() if isinstance(text, str) else []
     if len(words) != len(probs):
         return None
     heard: list[str] = []
