@@ -300,11 +300,9 @@ def format_table(result: dict[str, Any]) -> str:
     context = result["context"]
     lines = [f"rehear bench, {context['date']}, {context['cpus']} cores, load "
              f"{context['load_before'][0]:.2f} before / {context['load_after'][0]:.2f} after; "
-             f"{context['workload']}"]
-    if "python_loop_us_before" in context:
-        lines.append(f"this machine's speed, sum(range(100)): {context['python_loop_us_before']:.2f} us before / "
-                     f"{context.get('python_loop_us_after', context['python_loop_us_before']):.2f} us after")
-    lines.append("")
+             f"{context['workload']}",
+             f"this machine's speed, sum(range(100)): {context['python_loop_us_before']:.2f} us before / "
+             f"{context['python_loop_us_after']:.2f} us after", ""]
     chain = result["chain_us"]
     lines.append(f"in process, per message (us)   p50 {chain['p50']:>9,.0f}   p99 {chain['p99']:>9,.0f}  whole chain")
     for name, q in result["stage_us"].items():
@@ -321,7 +319,7 @@ def format_table(result: dict[str, Any]) -> str:
                          f"{row['pss_mb']:>9.0f}")
         for name, row in result["runners"].items():
             if name != "passthrough":
-                added = row.get("added_us", result["added_us"])
+                added = row["added_us"]
                 lines.append(f"  latency the chain adds at the fixed rate, runner {name}: p50 {added['p50']:+,.0f} us, "
                              f"p99 {added['p99']:+,.0f} us")
     lines += ["", "lexicon stage alone, generated lexicon   p50 us    p99 us   cold build s   RSS MB"]
@@ -359,7 +357,7 @@ def format_markdown(result: dict[str, Any]) -> str:
                         f"{row['p99_ms']:.2f} ms, PSS {row['pss_mb']:.0f} MB |")
         for name, row in result["runners"].items():
             if name != "passthrough":
-                added = row.get("added_us", result["added_us"])
+                added = row["added_us"]
                 rows.append(f"| latency the chain adds at {context.get('rate', 200):g} msg/s, `chain_runner: {name}` | "
                             f"p50 {added['p50'] / 1000:+.2f} ms, p99 {added['p99'] / 1000:+.2f} ms |")
     for size, row in result["lexicon"].items():
