@@ -77,6 +77,7 @@ def main(argv: list[str] | None = None) -> int:
     causes: Counter[str] = Counter()
     reach: Counter[str] = Counter()
     anchored_causes: Counter[str] = Counter()
+    pronouncer = stage.pronouncer
     say_unused = 0
     mentions = found_count = 0
     for item in items:
@@ -95,7 +96,6 @@ def main(argv: list[str] | None = None) -> int:
             said = " ".join(tokenize(text))
             said_forms = [f for f in forms_of[entry] if lexicon.forms[f].text == said] or forms_of[entry]
             # The respelling matters only where it differs from what the spelling alone gives.
-            pronouncer = stage.pronouncer
             name_words = tokenize(record.name)
             unused = bool(record.say) and pronouncer.form(
                 " ".join(name_words), name=record.name, say=record.say) != pronouncer.words(name_words) and any(
