@@ -9,7 +9,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from relay.core.utterance import Hypothesis
-from stages.lexicon.heard import heard_belief, recogniser_sureness
+from stages.lexicon.heard import heard_belief, heard_reading, recogniser_sureness
 from stages.lexicon.sound.pronounce import common_words
 from tests.stages.lexicon.fixtures import SMALL_LEXICON, blocked, run, small_chain
 
@@ -109,3 +109,13 @@ def test_words_the_recogniser_doubted_yield_to_a_near_entry(tmp_path: Path) -> N
     # The weight for words with probabilities is their own: at 0 the guard does not hold them.
     unweighted = small_chain(tmp_path, NEAR_WORDS, general={"heard_weight_probs": 0.0})
     assert "machine.dust_fan" in [e.id for e in run(unweighted, said, word_probs=[0.99] * 5).entities]
+
+
+def test_the_heard_reading_takes_the_recogniser_s_sureness_where_it_is_known() -> None:
+    zipf = common_words()
+    split = [_hyp("first thing tomorrow", 0.6), _hyp("first thing dunmorrow", 0.4)]
+    # The N-best and the language alone: 0.6 of the posterior holds "tomorrow", an everyday word.
+    assert heard_reading(["tomorrow"], split, zipf, holding=(), probs=None, sureness=0.5) == (0.6, False)
+    assert heard_reading(["tomorrow"], split, zipf, holding=(), probs=[None], sureness=0.5) == (0.6, False)
+    # With the recogniser's 0.25 for the word, times its square root.
+    assert heard_reading(["tomorrow"], split, zipf, holding=(), probs=[0.25], sureness=0.5) == (0.3, True)
