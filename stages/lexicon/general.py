@@ -42,6 +42,9 @@ class GeneralSearch:
         self.hints = hints
         self.affinity = affinity
         self.weights = Weights.of(settings.match)
+        self.entry_forms: dict[int, list[tuple[int, list[str]]]] = {}  # entry -> (form number, its words)
+        for number, form in enumerate(lexicon.forms):
+            self.entry_forms.setdefault(form.entry, []).append((number, form.text.split()))
 
     def entries(self, utterance: Utterance, top: int) -> list[Evidence]:
         """The entries the N-best supports enough to be corrected or traced, strongest first."""
@@ -95,7 +98,32 @@ class GeneralSearch:
             # word pulled into a name); a likelier one is weaker evidence for it, since
             # replacing any out-of-vocabulary word gains, so the two sides weigh differently.
             score += (s.context.gain_weight if lm_gain > 0 else s.context.loss_weight) * lm_gain
-        return Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain)
+        fallback = None if exact else self._written(evidence, utterance, top, score - evidence.pooled, start, end)
+        return Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain, fallback=fallback)
+
+    def _written(self, evidence: Evidence, utterance: Utterance, top: int, prior: float,
+                 start: int, end: int) -> Choice | None:
+        """The entry's form that the top hypothesis already holds word for word, nearest the
+        correction's range, as an exact choice; None when it holds none. Its score is pooled as
+        the search pools: each hypothesis's best sighting, 1 where that hypothesis has the form
+        written."""
+        lexicon = self.lexicon
+        tokens = utterance.nbest[top].tokens
+        found: list[tuple[int, int, int]] = []
+        for f, words in self.entry_forms[evidence.entry]:
+            size = len(words)
+            found += [(i, i + size, f) for i in range(len(tokens) - size + 1) if tokens[i:i + size] == words]
+        if not found:
+            return None
+        at, till, form = min(found, key=lambda s: (max(start - s[1], s[0] - end, 0), s[0] - s[1]))
+        text = lexicon.forms[form].text.split()
+        pooled = 0.0
+        for h, hypothesis in enumerate(utterance.nbest):
+            held = evidence.per_hypothesis.get(h)
+            written = any(hypothesis.tokens[i:i + len(text)] == text for i in range(len(hypothesis.tokens) - len(text) + 1))
+            pooled += hypothesis.posterior * (1.0 if written else held.score if held is not None else 0.0)
+        return Choice(Evidence(evidence.entry, pooled, evidence.per_hypothesis), pooled + prior, at, till, form,
+                      True, False)
 
     def place(self, choices: list[Choice], tokens: list[str], nbest: Sequence[Hypothesis],
               probs: Sequence[float | None] | None = None) -> tuple[list[Choice], list[dict[str, Any]]]:
@@ -123,6 +151,19 @@ class GeneralSearch:
                 blocked.append(describe(choice, self.lexicon, tokens) | {"guard": "superseded" if any(
                     self._supersedes(c, choice, tokens) for c in taken) else "overlap"})
         return placed, blocked
+
+    @staticmethod
+    def written_back(choices: list[Choice], placed: list[Choice]) -> list[Choice]:
+        """The exact forms to keep for entries whose correction no search placed: each blocked
+        choice's ``fallback``, where its words are still free, longest first. Run after every
+        search, so an exact alias does not take words a later search would correct."""
+        done = {c.evidence.entry for c in placed}
+        kept: list[Choice] = []
+        for fallback in sorted((c.fallback for c in choices if c.fallback is not None and c.evidence.entry not in done),
+                               key=lambda c: (c.start - c.end, -c.score)):
+            if not any(fallback.overlaps(c) for c in placed + kept):
+                kept.append(fallback)
+        return kept
 
     def _kept_rest(self, heard: list[str], choice: Choice) -> float:
         """Phone similarity of the words a correction replaces, when it keeps words at either end

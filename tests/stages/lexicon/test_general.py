@@ -12,7 +12,7 @@ import pytest
 from relay.core.utterance import Utterance
 from stages.lexicon.heard import heard_belief
 from stages.lexicon.sound.pronounce import common_words
-from tests.stages.lexicon.fixtures import blocked, run, small_chain
+from tests.stages.lexicon.fixtures import SMALL_LEXICON, blocked, run, small_chain
 
 
 def test_exact_text_is_kept_without_correction(tmp_path: Path) -> None:
@@ -110,7 +110,7 @@ def test_a_correction_that_keeps_heard_words_is_judged_on_the_words_it_replaces(
     # "the extractor" keeps "extractor" of "big huff extractor"; the words it would replace, "the"
     # for "big huff" (CMUdict: DH AH against B IH G HH AH F), sound nothing alike.
     heard = "switch on the extractor in bay two"
-    unguarded = run(small_chain(tmp_path, lexicon=KEPT_LEXICON, general={"kept_min_phone": 0.0}), heard, heard)
+    unguarded = run(small_chain(tmp_path, lexicon=KEPT_LEXICON, general={"kept_min_phone": 0.0, "common_min_score": 0.5}), heard, heard)
     assert unguarded.text == "switch on big huff extractor in bay two"
     utt = run(small_chain(tmp_path, lexicon=KEPT_LEXICON), heard, heard)
     assert utt.text == heard
@@ -134,3 +134,21 @@ def test_the_words_a_correction_replaces_sound_as_the_entry_s_say(tmp_path: Path
     utt = run(chain, heard, heard)
     assert utt.text == "start the aoife press"
     assert not any(b["guard"] == "kept_words" for b in blocked(utt))
+
+
+def test_an_exact_alias_stands_when_the_longer_correction_that_took_its_sighting_is_stopped(tmp_path: Path) -> None:
+    # "with diesel" is a near match of the full name "red diesel" and takes the entry's sighting
+    # from the exact alias "diesel" inside it (the rule that lets "tamsin okorra" beat "tamsin").
+    # When a guard stops that correction, the alias the recogniser wrote is still the entry.
+    lexicon = SMALL_LEXICON + "material.red_diesel,material,red diesel,diesel,,1.0\n"
+    chain = small_chain(tmp_path, lexicon, general={"min_score": 0.95})
+    utt = run(chain, "fill it up with diesel please")
+    assert any(b["id"] == "material.red_diesel" and b["heard"] == "with diesel" and b["guard"] == "min_score"
+               for b in blocked(utt))
+    assert [(e.id, e.heard) for e in utt.entities] == [("material.red_diesel", "diesel")]
+    assert utt.corrections == [] and utt.chosen_text is None
+    # A correction the guards let through still replaces the alias, as before.
+    through = run(small_chain(tmp_path, lexicon, general={"min_score": 0.5, "heard_weight": 0.0,
+                                                          "kept_min_phone": 0.0, "common_min_score": 0.5}),
+                  "fill it up with diesel please")
+    assert [c.after for c in through.corrections] == ["red diesel"]
