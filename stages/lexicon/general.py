@@ -84,11 +84,9 @@ class GeneralSearch:
             start, end = map_span(utterance.nbest[from_hypothesis].tokens, utterance.nbest[top].tokens,
                                   carried.start, carried.end)
             form, exact = carried.form, False
-        hints = self.hints.get(entry.type)
-        before = utterance.nbest[top].tokens[max(0, start - s.general.hint_window):start]
-        hint_missing = bool(hints) and not hints.intersection(before)  # type: ignore[union-attr]
-        if hints and not hint_missing:
-            score += s.general.hint_bonus  # the context announces this type: a prior like affinity
+        prior = score - evidence.pooled
+        hint_missing, bonus = self._hint(entry.type, utterance.nbest[top].tokens, start)
+        score += bonus
         lm_gain = 0.0
         if context is not None and not exact:
             # Noisy channel: the sound says how well the span matches, the in-domain LM how
@@ -98,15 +96,25 @@ class GeneralSearch:
             # word pulled into a name); a likelier one is weaker evidence for it, since
             # replacing any out-of-vocabulary word gains, so the two sides weigh differently.
             score += (s.context.gain_weight if lm_gain > 0 else s.context.loss_weight) * lm_gain
-        fallback = None if exact else self._written(evidence, utterance, top, score - evidence.pooled, start, end)
+        fallback = None if exact else self._written(evidence, utterance, top, prior, start, end)
         return Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain, fallback=fallback)
+
+    def _hint(self, entry_type: str, tokens: Sequence[str], start: int) -> tuple[bool, float]:
+        """Whether the type has hint words and none stands before ``start``; the score the
+        context adds when one does (it announces this type: a prior like affinity)."""
+        hints = self.hints.get(entry_type)
+        if not hints:
+            return False, 0.0
+        if hints.intersection(tokens[max(0, start - self.settings.general.hint_window):start]):
+            return False, self.settings.general.hint_bonus
+        return True, 0.0
 
     def _written(self, evidence: Evidence, utterance: Utterance, top: int, prior: float,
                  start: int, end: int) -> Choice | None:
         """The entry's form that the top hypothesis already holds word for word, nearest the
         correction's range, as an exact choice; None when it holds none. Its score is pooled as
-        the search pools: each hypothesis's best sighting, 1 where that hypothesis has the form
-        written."""
+        the search pools (each hypothesis's best sighting, 1 where that hypothesis has the form
+        written), with the entry's ``prior`` and any type hint before it."""
         lexicon = self.lexicon
         tokens = utterance.nbest[top].tokens
         found: list[tuple[int, int, int]] = []
@@ -122,8 +130,9 @@ class GeneralSearch:
             held = evidence.per_hypothesis.get(h)
             written = any(hypothesis.tokens[i:i + len(text)] == text for i in range(len(hypothesis.tokens) - len(text) + 1))
             pooled += hypothesis.posterior * (1.0 if written else held.score if held is not None else 0.0)
-        return Choice(Evidence(evidence.entry, pooled, evidence.per_hypothesis), pooled + prior, at, till, form,
-                      True, False)
+        hint_missing, bonus = self._hint(self.lexicon.entries[evidence.entry].type, tokens, at)
+        return Choice(Evidence(evidence.entry, pooled, evidence.per_hypothesis), pooled + prior + bonus, at, till,
+                      form, True, hint_missing)
 
     def place(self, choices: list[Choice], tokens: list[str], nbest: Sequence[Hypothesis],
               probs: Sequence[float | None] | None = None) -> tuple[list[Choice], list[dict[str, Any]]]:
