@@ -106,6 +106,14 @@ class CarrierSearch:
             return None, note | {"guard": "carrier_phone"}
         match = matches[0]
         form = lexicon.forms[match.form]
+        words = form.text.split()
+        inside = next((i for i in range(len(slot_words) - len(words) + 1)
+                       if slot_words[i:i + len(words)] == words), None) if len(slot_words) > len(words) else None
+        if inside is not None:
+            # The slot holds the form word for word and more ("{machine}" ending a line, against
+            # "resin printer around noon"): the entity is those words, and the rest were said too.
+            start, end = start + inside, start + inside + len(words)
+            slot_words = words
         start, end = map_span(heard, tokens, start, end)
         gain = context.gain(start, end, form.text.split()) if context is not None else 0.0
         note |= {"id": lexicon.entries[form.entry].id, "form": form.text, "phone": round(match.phone, 4),

@@ -184,8 +184,10 @@ class GeneralSearch:
         head = next((i for i in range(size) if heard[i] != form[i]), size)
         tail = next((i for i in range(size - head) if heard[-1 - i] != form[-1 - i]), size - head)
         rest_heard, rest_form = heard[head:len(heard) - tail], form[head:len(form) - tail]
-        if not (head or tail) or not rest_heard or not rest_form:
+        if not (head or tail) or not rest_heard:
             return 1.0
+        if not rest_form:
+            return 0.0  # it would drop heard words and keep the rest: nothing it writes sounds like them
         replacing = self.pronouncer.form(" ".join(rest_form), name=entry.name, say=entry.say)
         return similarity(self.pronouncer.words(rest_heard), replacing, self.costs)
 

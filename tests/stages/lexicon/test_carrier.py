@@ -192,3 +192,22 @@ def test_a_form_s_own_words_heard_in_another_order_are_left_as_heard(tmp_path: P
     assert (slot["heard"], slot["id"], slot["guard"]) == ("a pontoon", "mooring.pontoon_a", "carrier_order")
     assert slot["phone"] >= 0.7  # it would clear the carrier's floor (carrier.min_phone) on sound alone
     assert utt.entities == [] and utt.text == "moor her on a pontoon tonight"
+
+
+def test_a_slot_holding_a_form_word_for_word_and_more_keeps_the_rest(tmp_path: Path) -> None:
+    # A slot that ends its line takes every word to the end of the text: "{machine}" against
+    # "resin printer around noon". The entity is the form's own words; "around noon" was said too.
+    # (The general search leaves it to the carrier: its sighting is "the resin printer", which
+    # would drop "the".)
+    (tmp_path / "lexicon.csv").write_text(LEXICON + "machine.xiadani_printer,machine,xiadani resin printer,"
+                                                    "resin printer,shah-DAH-nee resin printer,1.0\n")
+    (tmp_path / "train.txt").write_text(TRAIN + "{place} is on the {machine}\n")
+    context = StageContext(base_dir=tmp_path, cache_dir=tmp_path / "cache")
+    chain = Chain([NormalizeStage(NormalizeSettings(), context=context),
+                   LexiconStage(LexiconSettings(lexicon=Path("lexicon.csv"), carrier=CARRIER), context=context)])
+    chain.load()
+    utt = run(chain, "i'd like the shot on the resin printer around noon")
+    [fill] = [c for c in utt.trace[-1].scores["carrier"] if c.get("form") == "resin printer"]
+    assert fill["heard"] == "resin printer around noon" and "guard" not in fill
+    assert [(e.id, e.heard) for e in utt.entities] == [("machine.xiadani_printer", "resin printer")]
+    assert utt.corrections == [] and utt.text == "i'd like the shot on the resin printer around noon"

@@ -152,3 +152,15 @@ def test_an_exact_alias_stands_when_the_longer_correction_that_took_its_sighting
                                                           "kept_min_phone": 0.0, "common_min_score": 0.5}),
                   "fill it up with diesel please")
     assert [c.after for c in through.corrections] == ["red diesel"]
+
+
+def test_a_correction_that_would_only_drop_heard_words_is_refused(tmp_path: Path) -> None:
+    # The alias "resin printer" and one word more, "around", sound close enough to be a sighting;
+    # rewriting them to the alias would drop "around", which sounds like nothing the alias writes.
+    # The alias stands as heard.
+    lexicon = SMALL_LEXICON + "machine.xiadani_printer,machine,xiadani resin printer,resin printer,,1.0\n"
+    utt = run(small_chain(tmp_path, lexicon), "book the resin printer around noon")
+    assert [(b["id"], b["heard"], b["guard"]) for b in blocked(utt)] == [
+        ("machine.xiadani_printer", "resin printer around", "kept_words")]
+    assert [(e.id, e.heard) for e in utt.entities] == [("machine.xiadani_printer", "resin printer")]
+    assert utt.corrections == [] and utt.text == "book the resin printer around noon"
