@@ -18,7 +18,7 @@ from stages.lexicon.choice import Choice, describe, reading_otherwise, support
 from stages.lexicon.compile import CompiledLexicon
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.heard import heard_reading
-from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
+from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, realign, score_spans
 from stages.lexicon.rewrite import map_span
 from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.phonetics import CostModel, similarity
@@ -57,11 +57,14 @@ class GeneralSearch:
         utterance.check_deadline()
         posteriors = [h.posterior for h in utterance.nbest]
         evidence = pool(spans, pairs, lexicon, posteriors)
+        count = max(12, s.trace_top)
+        if s.match.realign_slack is not None:
+            realign(evidence, best_entries(evidence, count), spans, lexicon, utterance.nbest, self.weights,
+                    self.costs, slack=s.match.realign_slack)
         # Entries too weak to be corrected or traced are not carried any further.
         floor = (min(s.general.min_score, s.match.pair_floor) * min(1.0, max(posteriors))
                  - s.priors.affinity_weight - s.priors.entry_weight)
-        return [e for e in best_entries(evidence, max(12, s.trace_top))
-                if e.pooled >= floor or top in e.per_hypothesis]
+        return [e for e in best_entries(evidence, count) if e.pooled >= floor or top in e.per_hypothesis]
 
     def choose(self, evidence: Evidence, utterance: Utterance, top: int,
                context: ContextScorer | None) -> Choice:

@@ -6,7 +6,9 @@ from collections.abc import Sequence
 from difflib import SequenceMatcher
 from functools import lru_cache
 
-__all__ = ["map_span", "rewrite"]
+from rapidfuzz.distance import Levenshtein
+
+__all__ = ["map_span", "mapped_span", "rewrite", "word_alignment"]
 
 
 def map_span(origin: Sequence[str], target: Sequence[str], start: int, end: int) -> tuple[int, int]:
@@ -17,10 +19,28 @@ def map_span(origin: Sequence[str], target: Sequence[str], start: int, end: int)
     """
     if list(origin) == list(target):
         return start, end
-    opcodes = _opcodes(tuple(origin), tuple(target))
-    mapped_start, mapped_end = len(target), len(target)
+    return _mapped(_opcodes(tuple(origin), tuple(target)), len(origin), len(target), start, end)
+
+
+def word_alignment(origin: Sequence[str], target: Sequence[str]) -> tuple[tuple[str, int, int, int, int], ...]:
+    """A minimum-edit alignment of two word sequences (rapidfuzz, in C) as opcodes, for
+    ``mapped_span``: a tenth of the cost of difflib's matcher, for callers that map many spans."""
+    return tuple((op.tag, op.src_start, op.src_end, op.dest_start, op.dest_end)
+                 for op in Levenshtein.opcodes(origin, target))
+
+
+def mapped_span(opcodes: Sequence[tuple[str, int, int, int, int]], origin: int, target: int,
+                start: int, end: int) -> tuple[int, int]:
+    """The word range of a ``target`` sequence of that many words that lines up with ``start:end``
+    of an ``origin`` sequence, by their ``opcodes``, with ``map_span``'s boundary rules."""
+    return _mapped(opcodes, origin, target, start, end)
+
+
+def _mapped(opcodes: Sequence[tuple[str, int, int, int, int]], origin: int, target: int,
+            start: int, end: int) -> tuple[int, int]:
+    mapped_start, mapped_end = target, target
     for tag, i1, i2, j1, _j2 in opcodes:
-        if i1 <= start < i2 or (start == i2 == len(origin)):
+        if i1 <= start < i2 or (start == i2 == origin):
             mapped_start = j1 + (start - i1) if tag == "equal" else j1
             break
     for tag, i1, i2, j1, j2 in opcodes:

@@ -19,7 +19,7 @@ ADDED = {"match.broad_candidates", "match.broad_min_retrieval", "match.costs", "
          "derive.hint_share", "derive.anchor_count", "derive.anchor_share", "general.heard_weight",
          "general.min_support", "general.kept_min_phone", "carrier.heard_weight", "carrier.min_gain",
          "match.skeleton_candidates", "match.skeleton_min_retrieval", "general.heard_short_penalty",
-         "general.heard_sureness", "general.heard_weight_probs"}
+         "general.heard_sureness", "general.heard_weight_probs", "match.realign_slack"}
 
 # The lexicon stage of examples/workshop/relay.yaml as it was written before the groups.
 WORKSHOP_FLAT = {
