@@ -118,20 +118,24 @@ class GeneralSearch:
         correction's range, as an exact choice; None when it holds none. Its score is pooled as
         the search pools (each hypothesis's best sighting, 1 where that hypothesis has the form
         written), with the entry's ``prior`` and any type hint before it."""
-        lexicon = self.lexicon
         tokens = utterance.nbest[top].tokens
+        # Tokens hold no spaces: a form stands in a hypothesis exactly when its text, space-delimited,
+        # is a substring of the hypothesis's (one C search before any slicing).
+        line = " " + " ".join(tokens) + " "
         found: list[tuple[int, int, int]] = []
         for f, words in self.entry_forms[evidence.entry]:
+            if " " + self.lexicon.forms[f].text + " " not in line:
+                continue
             size = len(words)
             found += [(i, i + size, f) for i in range(len(tokens) - size + 1) if tokens[i:i + size] == words]
         if not found:
             return None
         at, till, form = min(found, key=lambda s: (max(start - s[1], s[0] - end, 0), s[0] - s[1]))
-        text = lexicon.forms[form].text.split()
+        needle = " " + self.lexicon.forms[form].text + " "
         pooled = 0.0
         for h, hypothesis in enumerate(utterance.nbest):
             held = evidence.per_hypothesis.get(h)
-            written = any(hypothesis.tokens[i:i + len(text)] == text for i in range(len(hypothesis.tokens) - len(text) + 1))
+            written = needle in " " + " ".join(hypothesis.tokens) + " "
             pooled += hypothesis.posterior * (1.0 if written else held.score if held is not None else 0.0)
         hint_missing, bonus = self._hint(self.lexicon.entries[evidence.entry].type, tokens, at)
         return Choice(Evidence(evidence.entry, pooled, evidence.per_hypothesis), pooled + prior + bonus, at, till,
