@@ -18,7 +18,8 @@ from stages.lexicon.choice import Choice, describe, reading_otherwise, support
 from stages.lexicon.compile import CompiledLexicon
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.heard import heard_reading
-from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, realign, score_spans
+from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
+from stages.lexicon.realign import realign
 from stages.lexicon.rewrite import map_span
 from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.phonetics import CostModel, similarity

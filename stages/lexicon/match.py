@@ -26,7 +26,6 @@ from rapidfuzz.process import cpdist
 
 from relay.core.utterance import Hypothesis
 from stages.lexicon.compile import CompiledLexicon, Form, word_run_keys
-from stages.lexicon.rewrite import mapped_span, word_alignment
 from stages.lexicon.sound.kernels import compiled
 from stages.lexicon.sound.phonetics import (
     _CHAR_BASE,
@@ -41,7 +40,7 @@ from stages.lexicon.sound.pronounce import Pronouncer
 if TYPE_CHECKING:
     from stages.lexicon.settings import MatchSettings
 
-__all__ = ["Evidence", "Sighting", "Spans", "Weights", "best_entries", "find_spans", "pool", "realign", "score_pairs",
+__all__ = ["Evidence", "Sighting", "Spans", "Weights", "best_entries", "find_spans", "pool", "score_pairs",
            "score_spans"]
 
 
@@ -339,64 +338,6 @@ def _pool_python(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexico
     for found in evidence.values():
         found.pooled = float(sum([posteriors[h] * held.score for h, held in found.per_hypothesis.items()]))
     return evidence
-
-
-# A hypothesis this unlikely could add at most this much to a pooled score: not worth aligning.
-_LEAST_POSTERIOR = 0.01
-
-
-def realign(evidence: dict[int, Evidence], entries: Sequence[Evidence], spans: Spans, lexicon: CompiledLexicon,
-            nbest: Sequence[Hypothesis], weights: Weights, costs: CostModel, *, slack: int) -> None:
-    """Sightings for ``entries`` in the hypotheses that have none, and their pooled scores again.
-
-    The phone index hands back a few forms per span, so an entry near in one hypothesis can be
-    missing from another whose words there are only a little further off ("birthdays" beside
-    "birth six"). Counted as 0, such a hypothesis with real posterior mass drowns the entry's
-    exact match elsewhere. Here each hypothesis without a sighting has the words aligned with the
-    entry's best sighting (a minimum-edit word alignment), and runs up to ``slack`` words longer or
-    shorter at either end, scored against that sighting's form as ``score_spans`` scores pairs;
-    the best that passes the pair floors becomes the hypothesis's sighting. Hypotheses under
-    ``_LEAST_POSTERIOR`` are left as they are.
-    """
-    where = {(hypothesis, start, end): q for q, occurrences in enumerate(spans.occurrences)
-             for hypothesis, start, end in occurrences}
-    asks: list[tuple[Evidence, int, int, int, int, int]] = []  # (evidence, hypothesis, start, end, span, form)
-    alignments: dict[tuple[int, int], tuple[tuple[str, int, int, int, int], ...]] = {}
-    for found in entries:
-        held = found.per_hypothesis
-        if not held or len(held) == len(nbest):
-            continue
-        origin = max(held, key=lambda h: nbest[h].posterior * held[h].score)
-        seen = held[origin]
-        for hypothesis in range(len(nbest)):
-            if hypothesis in held or nbest[hypothesis].posterior < _LEAST_POSTERIOR:
-                continue
-            pair = (origin, hypothesis)
-            if pair not in alignments:
-                alignments[pair] = word_alignment(nbest[origin].tokens, nbest[hypothesis].tokens)
-            start, end = mapped_span(alignments[pair], len(nbest[origin].tokens), len(nbest[hypothesis].tokens),
-                                     seen.start, seen.end)
-            for first in range(start - slack, start + slack + 1):
-                for last in range(max(first + 1, end - slack), end + slack + 1):
-                    q = where.get((hypothesis, first, last))
-                    if q is not None:
-                        asks.append((found, hypothesis, first, last, q, seen.form))
-    if not asks:
-        return
-    # Hypotheses share most of their words: each distinct span/form pair is scored once.
-    unique = list(dict.fromkeys((q, f) for *_, q, f in asks))
-    scored = {(q, f): score for q, f, score, _ in score_pairs(spans, lexicon, [q for q, _ in unique],
-                                                                   [f for _, f in unique], weights, costs)}
-    changed: set[int] = set()
-    for found, hypothesis, start, end, q, f in asks:
-        score = scored.get((q, f))
-        earlier = found.per_hypothesis.get(hypothesis)  # a run tried before for this hypothesis
-        if score is not None and (earlier is None or score > earlier.score):
-            found.per_hypothesis[hypothesis] = Sighting(score, start, end, f, False)
-            changed.add(found.entry)
-    for entry in changed:
-        found = evidence[entry]
-        found.pooled = float(sum([nbest[h].posterior * seen.score for h, seen in found.per_hypothesis.items()]))
 
 
 def _better(new: Sighting, held: Sighting, strong: float, words: dict[int, int]) -> bool:

@@ -24,7 +24,6 @@ from stages.lexicon.match import (
     _key_agreements,
     find_spans,
     pool,
-    realign,
     score_spans,
 )
 from stages.lexicon.settings import MatchSettings
@@ -149,50 +148,3 @@ def test_spans_and_pooling_keep_every_occurrence(lexicon: CompiledLexicon, prono
     # Equal scores: the first span seen stays in hypothesis 0 (same length), hypothesis 1 has only "b a".
     assert found.per_hypothesis == {0: Sighting(0.5, 1, 3, form, False), 1: Sighting(0.5, 0, 2, form, False)}
     assert found.pooled == 0.75 * 0.5 + 0.25 * 0.5
-
-
-def test_realign_scores_the_aligned_words_of_a_hypothesis_that_lacks_the_entry(pronouncer: Pronouncer) -> None:
-    # Three moorings; the middle hypothesis heard "birthdays", which the index takes to berth two
-    # but not to berth six, so berth six's pooled score counted that hypothesis as 0.
-    entries = [LexiconEntry(f"m{i}", "mooring", name, (), None, 1.0, i + 2)
-               for i, name in enumerate(["berth six", "berth two", "berth one"])]
-    lexicon = compile_entries(entries, pronouncer, max_postings=60)
-    texts = ["rubbing on birth six", "rubbing on birthdays", "rubbing on birthsticks"]
-    nbest = [Hypothesis(t, r, {}, tokens=t.split(), posterior=p) for r, (t, p) in enumerate(zip(texts, (0.3, 0.5, 0.2)))]
-    spans = find_spans(nbest, lexicon.max_words + 1, pronouncer)
-    weights, costs = Weights.of(MatchSettings()), CostModel.features()
-    evidence = pool(spans, score_spans(spans, lexicon, weights, costs), lexicon, [h.posterior for h in nbest])
-    six = evidence[0]
-    dropped = six.per_hypothesis.pop(1, None)  # as when the index does not hand it back there
-    six.pooled = sum(nbest[h].posterior * s.score for h, s in six.per_hypothesis.items())
-    before = six.pooled
-    realign(evidence, [six], spans, lexicon, nbest, weights, costs, slack=1)
-    restored = six.per_hypothesis[1]
-    # "birthdays" (word 2 of hypothesis 1) is what lines up with "birth six" (words 2-3 of hypothesis 0).
-    assert (restored.start, restored.end, lexicon.forms[restored.form].text) == (2, 3, "berth six")
-    # Scored as score_spans' own definition scores that span against that form.
-    q = spans.texts.index("birthdays")
-    [(_, _, expected, _)] = [p for p in _pairwise_all(spans, lexicon, weights, costs, [(q, restored.form)])]
-    assert restored.score == pytest.approx(expected, abs=1e-12)
-    if dropped is not None:
-        assert restored.score == pytest.approx(dropped.score, abs=1e-12)
-    assert six.pooled == pytest.approx(before + 0.5 * restored.score, abs=1e-12)
-    # A hypothesis that already holds the entry keeps its own sighting.
-    assert six.per_hypothesis[0].start == 2 and six.per_hypothesis[0].end == 4
-
-
-def _pairwise_all(spans: Spans, lexicon: CompiledLexicon, weights: Weights, costs: CostModel,
-                  chosen: list[tuple[int, int]]) -> list[tuple[int, int, float, bool]]:
-    """The pairwise definition above for given pairs, retrieval left out."""
-    forms = lexicon.forms
-    total = weights.phone + weights.spelling + weights.keys
-    out = []
-    for q, f in chosen:
-        phone_score = batch_similarity([spans.phones[q]], [forms[f].phones], costs).tolist()[0]
-        score = weights.phone * phone_score
-        score += weights.spelling * ratio(spans.texts[q].replace(" ", ""), forms[f].text.replace(" ", "")) / 100.0
-        score += weights.keys * max(Levenshtein.normalized_similarity(x, y)
-                                    for x in phonetic_keys(spans.texts[q]) for y in forms[f].keys)
-        if phone_score >= weights.min_phone and score >= weights.pair_floor * total:
-            out.append((q, f, score / total, False))
-    return out
