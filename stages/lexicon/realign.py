@@ -30,35 +30,38 @@ def realign(evidence: dict[int, Evidence], entries: Sequence[Evidence], spans: S
     the best that passes the pair floors becomes the hypothesis's sighting. Hypotheses under
     ``_LEAST_POSTERIOR`` are left as they are.
     """
-    where = {(hypothesis, start, end): q for q, occurrences in enumerate(spans.occurrences)
-             for hypothesis, start, end in occurrences}
+    where: dict[tuple[int, int, int], int] = {}  # (hypothesis, start, end) -> span, built when first needed
     asks: list[tuple[Evidence, int, int, int, int, int]] = []  # (evidence, hypothesis, start, end, span, form)
+    pairs: dict[tuple[int, int], None] = {}  # each distinct span/form pair asked, in order
     alignments: dict[tuple[int, int], tuple[tuple[str, int, int, int, int], ...]] = {}
+    likely = [h for h, hypothesis in enumerate(nbest) if hypothesis.posterior >= _LEAST_POSTERIOR]
+    runs = [(first, last) for first in range(-slack, slack + 1) for last in range(-slack, slack + 1)]
     for found in entries:
         held = found.per_hypothesis
         if not held or len(held) == len(nbest):
             continue
         origin = max(held, key=lambda h: nbest[h].posterior * held[h].score)
         seen = held[origin]
-        for hypothesis in range(len(nbest)):
-            if hypothesis in held or nbest[hypothesis].posterior < _LEAST_POSTERIOR:
+        for hypothesis in likely:
+            if hypothesis in held:
                 continue
+            if not where:
+                where = {(h, a, b): q for q, occurrences in enumerate(spans.occurrences) for h, a, b in occurrences}
             pair = (origin, hypothesis)
             if pair not in alignments:
                 alignments[pair] = word_alignment(nbest[origin].tokens, nbest[hypothesis].tokens)
             start, end = mapped_span(alignments[pair], len(nbest[origin].tokens), len(nbest[hypothesis].tokens),
                                      seen.start, seen.end)
-            for first in range(start - slack, start + slack + 1):
-                for last in range(max(first + 1, end - slack), end + slack + 1):
-                    q = where.get((hypothesis, first, last))
-                    if q is not None:
-                        asks.append((found, hypothesis, first, last, q, seen.form))
+            for first, last in runs:
+                q = where.get((hypothesis, start + first, end + last))
+                if q is not None:
+                    asks.append((found, hypothesis, start + first, end + last, q, seen.form))
+                    pairs[(q, seen.form)] = None
     if not asks:
         return
     # Hypotheses share most of their words: each distinct span/form pair is scored once.
-    unique = list(dict.fromkeys((q, f) for *_, q, f in asks))
-    scored = {(q, f): score for q, f, score, _ in score_pairs(spans, lexicon, [q for q, _ in unique],
-                                                                   [f for _, f in unique], weights, costs)}
+    scored = {(q, f): score for q, f, score, _ in score_pairs(spans, lexicon, [q for q, _ in pairs],
+                                                                   [f for _, f in pairs], weights, costs)}
     changed: set[int] = set()
     for found, hypothesis, start, end, q, f in asks:
         score = scored.get((q, f))
