@@ -20,7 +20,7 @@ from stages.lexicon.compile import CompiledLexicon
 from stages.lexicon.context import ContextScorer
 from stages.lexicon.heard import heard_belief
 from stages.lexicon.match import Evidence, Sighting
-from stages.lexicon.rewrite import map_span
+from stages.lexicon.rewrite import map_span, runs_of
 from stages.lexicon.settings import CarrierSettings
 from stages.lexicon.sound.phonetics import CostModel
 from stages.lexicon.sound.pronounce import Pronouncer
@@ -107,12 +107,11 @@ class CarrierSearch:
         match = matches[0]
         form = lexicon.forms[match.form]
         words = form.text.split()
-        inside = next((i for i in range(len(slot_words) - len(words) + 1)
-                       if slot_words[i:i + len(words)] == words), None) if len(slot_words) > len(words) else None
-        if inside is not None:
+        inside = runs_of(words, slot_words) if len(slot_words) > len(words) else []
+        if inside:
             # The slot holds the form word for word and more ("{machine}" ending a line, against
             # "resin printer around noon"): the entity is those words, and the rest were said too.
-            start, end = start + inside, start + inside + len(words)
+            start, end = start + inside[0], start + inside[0] + len(words)
             slot_words = words
         start, end = map_span(heard, tokens, start, end)
         gain = context.gain(start, end, form.text.split()) if context is not None else 0.0

@@ -31,10 +31,6 @@ class Choice:
     lm_gain: float = 0.0
     origin: str = "general"  # the way of finding entries that placed it: general, anchored, carrier
     margin: float | None = None  # the lead over the runner-up entry that search measured, if it did
-    # The entry's own form written exactly in the top hypothesis, kept when a guard stops this
-    # correction: a near match of a longer form ("with diesel" -> "red diesel") wins the
-    # sighting over an exact alias inside it ("diesel"), and must not lose the alias with it.
-    fallback: Choice | None = None
 
     def overlaps(self, other: Choice) -> bool:
         return self.start < other.end and other.start < self.end

@@ -20,7 +20,7 @@ from stages.lexicon.context import ContextScorer
 from stages.lexicon.heard import heard_reading
 from stages.lexicon.match import Evidence, Weights, best_entries, find_spans, pool, score_spans
 from stages.lexicon.realign import realign
-from stages.lexicon.rewrite import map_span
+from stages.lexicon.rewrite import map_span, runs_of
 from stages.lexicon.settings import LexiconSettings
 from stages.lexicon.sound.phonetics import CostModel, similarity
 from stages.lexicon.sound.pronounce import Pronouncer
@@ -73,9 +73,9 @@ class GeneralSearch:
         s = self.settings
         lexicon = self.lexicon
         entry = lexicon.entries[evidence.entry]
-        score = evidence.pooled + s.priors.entry_weight * math.log(entry.weight)
-        if utterance.speaker is not None:
-            score += s.priors.affinity_weight * self.affinity.get(utterance.speaker, {}).get(entry.id, 0.0)
+        score = evidence.pooled
+        for term in self._priors(evidence.entry, utterance.speaker):
+            score += term
         support = evidence.per_hypothesis
         held = support.get(top)
         from_hypothesis = max(support, key=lambda h: utterance.nbest[h].posterior * support[h].score)
@@ -88,7 +88,6 @@ class GeneralSearch:
             start, end = map_span(utterance.nbest[from_hypothesis].tokens, utterance.nbest[top].tokens,
                                   carried.start, carried.end)
             form, exact = carried.form, False
-        prior = score - evidence.pooled
         hint_missing, bonus = self._hint(entry.type, utterance.nbest[top].tokens, start)
         score += bonus
         lm_gain = 0.0
@@ -100,8 +99,17 @@ class GeneralSearch:
             # word pulled into a name); a likelier one is weaker evidence for it, since
             # replacing any out-of-vocabulary word gains, so the two sides weigh differently.
             score += (s.context.gain_weight if lm_gain > 0 else s.context.loss_weight) * lm_gain
-        fallback = None if exact else self._written(evidence, utterance, top, prior, start, end)
-        return Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain, fallback=fallback)
+        return Choice(evidence, score, start, end, form, exact, hint_missing, lm_gain)
+
+    def _priors(self, entry: int, speaker: str | None) -> list[float]:
+        """What the entry's weight and the speaker's affinity add to its pooled evidence, term by
+        term (added in this order, so a score is the same float however it is reached)."""
+        s = self.settings.priors
+        found = self.lexicon.entries[entry]
+        terms = [s.entry_weight * math.log(found.weight)]
+        if speaker is not None:
+            terms.append(s.affinity_weight * self.affinity.get(speaker, {}).get(found.id, 0.0))
+        return terms
 
     def _hint(self, entry_type: str, tokens: Sequence[str], start: int) -> tuple[bool, float]:
         """Whether the type has hint words and none stands before ``start``; the score the
@@ -113,34 +121,31 @@ class GeneralSearch:
             return False, self.settings.general.hint_bonus
         return True, 0.0
 
-    def _written(self, evidence: Evidence, utterance: Utterance, top: int, prior: float,
-                 start: int, end: int) -> Choice | None:
-        """The entry's form that the top hypothesis already holds word for word, nearest the
-        correction's range, as an exact choice; None when it holds none. Its score is pooled as
-        the search pools (each hypothesis's best sighting, 1 where that hypothesis has the form
-        written), with the entry's ``prior`` and any type hint before it."""
+    def _written(self, choice: Choice, utterance: Utterance, top: int) -> Choice | None:
+        """The exact choice for ``choice``'s entry where the top hypothesis holds one of its forms
+        word for word, nearest the correction's range; None when it holds none. A near match of
+        a longer form ("with diesel" -> "red diesel") wins an entry's sighting over the exact alias
+        inside it ("diesel"), and a stopped correction must not lose the alias with it. Scored as
+        the search scores: pooled over the hypotheses (1 where one has the form written, else its
+        best sighting), with the entry's priors and any type hint before it."""
+        evidence = choice.evidence
         tokens = utterance.nbest[top].tokens
-        # Tokens hold no spaces: a form stands in a hypothesis exactly when its text, space-delimited,
-        # is a substring of the hypothesis's (one C search before any slicing).
-        line = " " + " ".join(tokens) + " "
-        found: list[tuple[int, int, int]] = []
-        for f, words in self.entry_forms[evidence.entry]:
-            if " " + self.lexicon.forms[f].text + " " not in line:
-                continue
-            size = len(words)
-            found += [(i, i + size, f) for i in range(len(tokens) - size + 1) if tokens[i:i + size] == words]
+        found = [(i, i + len(words), f) for f, words in self.entry_forms[evidence.entry] for i in runs_of(words, tokens)]
         if not found:
             return None
-        at, till, form = min(found, key=lambda s: (max(start - s[1], s[0] - end, 0), s[0] - s[1]))
-        needle = " " + self.lexicon.forms[form].text + " "
+        at, till, form = min(found, key=lambda s: (max(choice.start - s[1], s[0] - choice.end, 0), s[0] - s[1]))
+        words = self.lexicon.forms[form].text.split()
         pooled = 0.0
         for h, hypothesis in enumerate(utterance.nbest):
             held = evidence.per_hypothesis.get(h)
-            written = needle in " " + " ".join(hypothesis.tokens) + " "
+            written = bool(runs_of(words, hypothesis.tokens))
             pooled += hypothesis.posterior * (1.0 if written else held.score if held is not None else 0.0)
+        score = pooled
+        for term in self._priors(evidence.entry, utterance.speaker):
+            score += term
         hint_missing, bonus = self._hint(self.lexicon.entries[evidence.entry].type, tokens, at)
-        return Choice(Evidence(evidence.entry, pooled, evidence.per_hypothesis), pooled + prior + bonus, at, till,
-                      form, True, hint_missing)
+        return Choice(Evidence(evidence.entry, pooled, evidence.per_hypothesis), score + bonus, at, till, form,
+                      True, hint_missing)
 
     def place(self, choices: list[Choice], tokens: list[str], nbest: Sequence[Hypothesis],
               probs: Sequence[float | None] | None = None) -> tuple[list[Choice], list[dict[str, Any]]]:
@@ -169,17 +174,17 @@ class GeneralSearch:
                     self._supersedes(c, choice, tokens) for c in taken) else "overlap"})
         return placed, blocked
 
-    @staticmethod
-    def written_back(choices: list[Choice], placed: list[Choice]) -> list[Choice]:
-        """The exact forms to keep for entries whose correction no search placed: each blocked
-        choice's ``fallback``, where its words are still free, longest first. Run after every
-        search, so an exact alias does not take words a later search would correct."""
+    def written_back(self, choices: list[Choice], placed: list[Choice], utterance: Utterance,
+                     top: int) -> list[Choice]:
+        """The exact forms to keep for entries whose correction no search placed (``_written``),
+        where their words are still free, longest first. Run after every search, so an exact alias
+        does not take words a later search would correct."""
         done = {c.evidence.entry for c in placed}
+        written = [self._written(c, utterance, top) for c in choices if not c.exact and c.evidence.entry not in done]
         kept: list[Choice] = []
-        for fallback in sorted((c.fallback for c in choices if c.fallback is not None and c.evidence.entry not in done),
-                               key=lambda c: (c.start - c.end, -c.score)):
-            if not any(fallback.overlaps(c) for c in placed + kept):
-                kept.append(fallback)
+        for exact in sorted((c for c in written if c is not None), key=lambda c: (c.start - c.end, -c.score)):
+            if not any(exact.overlaps(c) for c in placed + kept):
+                kept.append(exact)
         return kept
 
     def _kept_rest(self, heard: list[str], choice: Choice) -> float:

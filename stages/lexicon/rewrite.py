@@ -8,7 +8,7 @@ from functools import lru_cache
 
 from rapidfuzz.distance import Levenshtein
 
-__all__ = ["map_span", "mapped_span", "rewrite", "word_alignment"]
+__all__ = ["map_span", "mapped_span", "rewrite", "runs_of", "word_alignment"]
 
 
 def map_span(origin: Sequence[str], target: Sequence[str], start: int, end: int) -> tuple[int, int]:
@@ -19,7 +19,7 @@ def map_span(origin: Sequence[str], target: Sequence[str], start: int, end: int)
     """
     if list(origin) == list(target):
         return start, end
-    return _mapped(_opcodes(tuple(origin), tuple(target)), len(origin), len(target), start, end)
+    return mapped_span(_opcodes(tuple(origin), tuple(target)), len(origin), len(target), start, end)
 
 
 def word_alignment(origin: Sequence[str], target: Sequence[str]) -> tuple[tuple[str, int, int, int, int], ...]:
@@ -32,12 +32,8 @@ def word_alignment(origin: Sequence[str], target: Sequence[str]) -> tuple[tuple[
 def mapped_span(opcodes: Sequence[tuple[str, int, int, int, int]], origin: int, target: int,
                 start: int, end: int) -> tuple[int, int]:
     """The word range of a ``target`` sequence of that many words that lines up with ``start:end``
-    of an ``origin`` sequence, by their ``opcodes``, with ``map_span``'s boundary rules."""
-    return _mapped(opcodes, origin, target, start, end)
-
-
-def _mapped(opcodes: Sequence[tuple[str, int, int, int, int]], origin: int, target: int,
-            start: int, end: int) -> tuple[int, int]:
+    of an ``origin`` sequence, by their ``opcodes``; a boundary inside a changed block goes to the
+    block's edge (``map_span``'s rules)."""
     mapped_start, mapped_end = target, target
     for tag, i1, i2, j1, _j2 in opcodes:
         if i1 <= start < i2 or (start == i2 == origin):
@@ -49,6 +45,16 @@ def _mapped(opcodes: Sequence[tuple[str, int, int, int, int]], origin: int, targ
             break
     mapped_end = max(mapped_end, mapped_start)
     return mapped_start, mapped_end
+
+
+def runs_of(words: Sequence[str], tokens: Sequence[str]) -> list[int]:
+    """Where ``tokens`` hold ``words`` one after another: the start of each such run."""
+    size = len(words)
+    # Tokens hold no spaces: the run stands in them exactly when its words, space-delimited, are
+    # a substring of theirs (one C search before any slicing).
+    if not size or " " + " ".join(words) + " " not in " " + " ".join(tokens) + " ":
+        return []
+    return [i for i in range(len(tokens) - size + 1) if list(tokens[i:i + size]) == list(words)]
 
 
 @lru_cache(maxsize=256)

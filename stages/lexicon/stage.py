@@ -149,7 +149,7 @@ class LexiconStage:
         if self.carrier is not None:
             found, carrier = self.carrier.recall(utterance, top, placed, context)
             placed += found
-        placed += general.written_back(choices, placed)
+        placed += general.written_back(choices, placed, utterance, top)
         self._finish(utterance, top, placed, blocked, choices, probs)
         if carrier:
             utterance.note(carrier=carrier)
