@@ -114,7 +114,7 @@ class CarrierSearch:
             start, end = start + inside[0], start + inside[0] + len(words)
             slot_words = words
         start, end = map_span(heard, tokens, start, end)
-        gain = context.gain(start, end, form.text.split()) if context is not None else 0.0
+        gain = context.gain(start, end, words) if context is not None else 0.0
         note |= {"id": lexicon.entries[form.entry].id, "form": form.text, "phone": round(match.phone, 4),
                  "runner_up": round(match.runner_up, 4), "lm_gain": round(gain, 3)}
         if match.phone < s.min_phone:

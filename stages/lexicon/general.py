@@ -130,11 +130,11 @@ class GeneralSearch:
         best sighting), with the entry's priors and any type hint before it."""
         evidence = choice.evidence
         tokens = utterance.nbest[top].tokens
-        found = [(i, i + len(words), f) for f, words in self.entry_forms[evidence.entry] for i in runs_of(words, tokens)]
+        found = [(i, i + len(words), f, words) for f, words in self.entry_forms[evidence.entry]
+                 for i in runs_of(words, tokens)]
         if not found:
             return None
-        at, till, form = min(found, key=lambda s: (max(choice.start - s[1], s[0] - choice.end, 0), s[0] - s[1]))
-        words = self.lexicon.forms[form].text.split()
+        at, till, form, words = min(found, key=lambda s: (max(choice.start - s[1], s[0] - choice.end, 0), s[0] - s[1]))
         pooled = 0.0
         for h, hypothesis in enumerate(utterance.nbest):
             held = evidence.per_hypothesis.get(h)
