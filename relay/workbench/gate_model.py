@@ -30,10 +30,12 @@ __all__ = ["TRANSFERABLE", "Row", "fit_default", "record", "transfer"]
 
 # Features whose scale means the same in any domain and for any recogniser. The in-domain LM's
 # absolute per-word scores are left out (their scale is the domain's: text_lm_relative carries
-# the same information relative to the domain's own lines).
+# the same information relative to the domain's own lines), and so is the edit share to the
+# nearest line: a domain whose lines vary more puts right results further from them
+# (line_edit_relative reads it against the lines' own share to one another).
 TRANSFERABLE: tuple[str, ...] = (
     "posterior", "margin", "weakest_entity", "entities", "corrections", "text_lm_relative", "text_lm_weakest",
-    "text_oov", "unfilled_slots", "line_edit_share", "asr_log_conf", "weakest_support", "weakest_heard",
+    "text_oov", "unfilled_slots", "line_edit_relative", "asr_log_conf", "weakest_support", "weakest_heard",
     "weakest_lead", "invented", "rewritten", "asr_word_mean", "missing_slots",
     "most_overridden", "foreign_slots",
 )

@@ -21,7 +21,7 @@ import numpy as np
 
 from relay.workbench.evaluate import Outcome, Summary, summarize
 from relay.workbench.variants import Overrides
-from stages.gate.confidence import SIGNS, confidence, fit_model
+from stages.gate.confidence import FEATURES, SIGNS, confidence, fit_model
 from stages.gate.rules import FeatureView, Thresholds, decide, threshold_rules
 from stages.gate.settings import GateSettings
 
@@ -70,6 +70,11 @@ DEFAULT_GATE_GRID: dict[str, list[float]] = {
 }
 _GATE_KEYS = tuple(DEFAULT_GATE_GRID)
 _TIE = 0.005  # wrong-accept rates this close count as equal; WER then decides
+
+# The confidence features a model fitted on one domain's corpus is given: there
+# line_edit_relative is line_edit_share less a constant (the domain's own lines' share), after
+# centering the very same column, so only line_edit_share is.
+_ONE_DOMAIN = tuple(name for name in FEATURES if name != "line_edit_relative")
 
 
 def expand_space(space: dict[str, dict[str, list[Any]]], *, max_settings: int, seed: int) -> list[Overrides]:
@@ -215,7 +220,7 @@ def fit(recorded: Sequence[RecordedFeatures], index: np.ndarray, *, max_clarify:
             consider((over, wrong, errors, clarify), setting, gate)
         if not learn:
             continue
-        model = fit_model([features.values[i] for i in index], ok.tolist(), signs=SIGNS)
+        model = fit_model([features.values[i] for i in index], ok.tolist(), signs=SIGNS, features=_ONE_DOMAIN)
         sure = np.array([confidence(features.values[i], model) for i in index])
         thresholds = np.unique(np.r_[np.percentile(sure, _CONFIDENCE_STEPS), 0.0])
         accept = confidence_accepts(features, sure, thresholds, index)

@@ -57,6 +57,7 @@ class GateFeatures:
     invented: int = 0  # corrections into an entity that no hypothesis holds word for word
     rewritten: float = 0.0  # share of the result's words that corrections put there
     text_lm_relative: float | None = None  # text_lm_per_word in standard deviations from the in-domain lines'
+    lines_own_share: float | None = None  # the in-domain lines' own edit share to one another (NearestLine.own_share)
 
     def values(self) -> dict[str, float | None]:
         """The numeric features by name, as ``stages.gate_confidence`` reads them."""
@@ -90,6 +91,8 @@ class GateFeatures:
             "rewritten": self.rewritten,
             "text_lm_relative": self.text_lm_relative,
             "line_edit_share": None if self.line_edits is None else self.line_edits / max(1, self.words),
+            "line_edit_relative": None if self.line_edits is None or self.lines_own_share is None
+            else self.line_edits / max(1, self.words) - self.lines_own_share,
         }
 
 

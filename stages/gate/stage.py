@@ -45,7 +45,8 @@ _FEATURE_NAMES = tuple(f.name for f in fields(GateFeatures))
 
 
 # The confidence features read from the in-domain lines (carrier phrases and the nearest line).
-_FROM_LINES = frozenset({"unfilled_slots", "line_edits", "line_edit_share", "missing_slots", "foreign_slots"})
+_FROM_LINES = frozenset({"unfilled_slots", "line_edits", "line_edit_share", "line_edit_relative", "missing_slots",
+                         "foreign_slots"})
 
 
 class GateStage:
@@ -78,6 +79,7 @@ class GateStage:
         self.lm: Any = None
         self.carriers: CarrierPhrases | None = None
         self.lines: NearestLine | None = None
+        self.lines_own_share: float | None = None  # how far the in-domain lines are from one another
         self.line_lm: tuple[float, float] | None = None  # mean and spread of the in-domain lines' LM per word
         self.safety = SafetyRule(settings.safety_words, settings.safety_types,
                                  min_posterior=settings.safety_min_posterior)
@@ -88,6 +90,7 @@ class GateStage:
         if self.text_path is not None:
             self.carriers = CarrierPhrases.from_files(self.text_path, self.lexicon_path)
             self.lines = NearestLine(tokens for _, tokens in self.carriers.lines)
+            self.lines_own_share = self.lines.own_share()
         if self.lm is not None and self.text_path is not None:
             self.line_lm = line_scores(self.lm, self.text_path, self.lexicon_path)
 
@@ -116,7 +119,8 @@ class GateStage:
         if self.lines is not None:
             nearest = self.lines.nearest(marked)
             if nearest is not None:
-                in_domain |= {"line_edits": nearest.edits, "missing_slots": nearest.missing,
+                in_domain |= {"line_edits": nearest.edits, "lines_own_share": self.lines_own_share,
+                              "missing_slots": nearest.missing,
                               "missing_type": nearest.missing_type, "foreign_slots": nearest.foreign}
             utterance.check_deadline()
         return GateFeatures(

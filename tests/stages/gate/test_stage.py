@@ -305,6 +305,18 @@ def test_line_edits_counts_words_away_from_the_nearest_in_domain_line(tmp_path: 
     assert far.line_edits == 4 and far.values()["line_edits"] == 4.0
 
 
+def test_line_edit_relative_reads_the_edit_share_against_the_lines_own(tmp_path: Path) -> None:
+    stage = _carrier_gate(tmp_path, "line_edit_relative")
+    # The two lines "meet me in {place}" and "book the {machine} for {person}" share no word: 5
+    # edits apart (4 substitutions and an insertion), 5 per 4 words and 5 per 5, so their own
+    # share is (1.25 + 1) / 2.
+    assert stage.lines_own_share == pytest.approx(1.125)
+    values = stage.features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).values()
+    assert values["line_edit_share"] == pytest.approx(2 / 5)
+    assert values["line_edit_relative"] == pytest.approx(2 / 5 - 1.125)
+    assert gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).values()["line_edit_relative"] is None
+
+
 def test_missing_slots_counts_slots_of_the_nearest_line_no_entity_fills(tmp_path: Path) -> None:
     stage = _carrier_gate(tmp_path)
     bay = Entity(id="place.bay_1", type="place", name="bay one", span=(11, 18), heard="they won", score=0.9)
@@ -347,7 +359,8 @@ def test_without_carrier_text_the_feature_is_unknown() -> None:
 
 
 def test_unfilled_slots_needs_carrier_text() -> None:
-    for feature in ("unfilled_slots", "line_edits", "line_edit_share", "missing_slots", "foreign_slots"):
+    for feature in ("unfilled_slots", "line_edits", "line_edit_share", "line_edit_relative", "missing_slots",
+                    "foreign_slots"):
         with pytest.raises(ConfigError, match=f"confidence uses {feature}") as caught:
             gate(confidence={"features": {feature: {"weight": -1.0}}})
         assert "which need domain.text (or carrier_text)" in str(caught.value)

@@ -63,6 +63,20 @@ def test_matches_jiwer_on_random_texts(seed: int) -> None:
         assert near.nearest(words)[:2] == (best, missing), words
 
 
+def test_own_share_is_each_lines_word_error_rate_to_its_nearest_other_line_per_jiwer() -> None:
+    # Reference library: jiwer's WER of a line (reference) against another (hypothesis) is its
+    # word edits per word of the line; the share is the mean, over the distinct lines, of the
+    # least such rate to any other line.
+    lines = [*LINES, "tell {person} the {machine} is broken", "meet me in {place}", "call {person} now please"]
+    distinct = list(dict.fromkeys(lines))
+    expected = sum(min(jiwer.wer(line, other) for other in distinct if other != line) for line in distinct) / len(distinct)
+    assert NearestLine(line.split() for line in lines).own_share() == pytest.approx(expected)
+    # Worked by hand on two lines: "call {person}" is one insertion from "call {person} now"
+    # (1 of 2 words) and that line one deletion from it (1 of 3): (1/2 + 1/3) / 2.
+    assert NearestLine([["call", "{person}"], ["call", "{person}", "now"]]).own_share() == pytest.approx(5 / 12)
+    assert NearestLine([["call", "{person}"]]).own_share() is None
+
+
 def test_missing_slots_are_the_nearest_lines_slots_beyond_the_texts_entities() -> None:
     near = NearestLine(line.split() for line in LINES)
     # Worked by hand: "tell the lathe is free" is two edits from "tell {person} the {machine} is
