@@ -23,6 +23,10 @@ from tests.paths import DATA
 
 TABLE = DATA / "miller_nicely_1955.csv"
 HAND = CostModel.features()
+# The sixteen consonants' manner as the paper classes them (its "affrication" feature: stops
+# against fricatives; nasals apart).
+MANNER = {**dict.fromkeys(("P", "T", "K", "B", "D", "G"), "stop"),
+          **dict.fromkeys(("F", "TH", "S", "SH", "V", "DH", "Z", "ZH"), "fricative"), "M": "nasal", "N": "nasal"}
 
 
 def confusions() -> dict[frozenset[str], float]:
@@ -74,8 +78,9 @@ def test_the_table_reads_as_the_paper_reports() -> None:
 
 def test_hand_costs_rank_consonant_pairs_as_the_table_does() -> None:
     # Spearman's rho between cost and confusion over all 120 pairs: negative means the pairs
-    # heard alike cost less. The hand costs reach -0.37 (measured 2026-12); -0.3 is the floor a
-    # change to them should not cross without a reason.
+    # heard alike cost less. The hand costs reach -0.47 (measured 2026-12-04; -0.37 before a stop
+    # for a weak fricative became a near change of manner and a hiss for no hiss a cost); -0.3
+    # is the floor a change to them should not cross without a reason.
     table = confusions()
     pairs = sorted(table, key=sorted)
     rho = np.corrcoef(ranks([symmetric(HAND, p) for p in pairs]), ranks([table[p] for p in pairs]))[0, 1]
@@ -94,8 +99,41 @@ def test_keeping_voicing_and_nasality_costs_least_as_in_the_table() -> None:
     assert heard["same voicing and nasality"] > heard["voicing"] > heard["nasality"]
 
 
+def _same_voicing(pair: frozenset[str]) -> bool:
+    return kind(pair) in ("place only", "place and manner")
+
+
+def test_a_stop_for_a_weak_fricative_is_a_near_change_as_in_the_table() -> None:
+    # The table: with voicing kept, a stop heard for a weak fricative (F, V, TH, DH) or the
+    # reverse (B/V 0.21, B/DH 0.15, P/F 0.10; 0.100 on average over the 12 pairs) is confused
+    # more often than a stop for a sibilant (S/T 0.05; 0.070 on average); the costs agree.
+    table = confusions()
+    weak = {"F", "V", "TH", "DH"}
+    stop_weak = [p for p in table if _same_voicing(p) and len(p & weak) == 1
+                 and {MANNER[x] for x in p} == {"stop", "fricative"}]
+    other = [p for p in table if _same_voicing(p) and kind(p) == "place and manner" and p not in stop_weak]
+    assert len(stop_weak) == 12 and len(other) == 12
+    assert np.mean([table[p] for p in stop_weak]) > np.mean([table[p] for p in other])
+    assert np.mean([symmetric(HAND, p) for p in stop_weak]) < np.mean([symmetric(HAND, p) for p in other])
+
+
+def test_a_hiss_for_no_hiss_costs_more_as_in_the_table() -> None:
+    # The table: among fricatives of the same voicing, two of the same kind (V/DH 0.34, F/TH
+    # 0.42) are confused more than three times as often as a sibilant and a weak fricative (F/S
+    # 0.07, V/Z 0.08). The costs charge the mixed pairs at least twice as much (by place alone,
+    # before 2026-12-04, 1.2 times).
+    table = confusions()
+    sibilants = {"S", "Z", "SH", "ZH"}
+    fricatives = [p for p in table if _same_voicing(p) and {MANNER[x] for x in p} == {"fricative"}]
+    mixed = [p for p in fricatives if len(p & sibilants) == 1]
+    alike = [p for p in fricatives if len(p & sibilants) != 1]
+    assert len(mixed) == 8 and len(alike) == 4
+    assert np.mean([table[p] for p in alike]) > 3 * np.mean([table[p] for p in mixed])
+    assert np.mean([symmetric(HAND, p) for p in mixed]) >= 2 * np.mean([symmetric(HAND, p) for p in alike])
+
+
 @pytest.mark.xfail(strict=True, reason="the hand costs price a voicing-only change (P/B, S/Z: 0.2) no higher than "
-                   "a place-only change (mean 0.21), where the table finds voicing-only pairs confused about a sixth "
+                   "a place-only change (mean 0.28), where the table finds voicing-only pairs confused about a sixth "
                    "as often; left so because both example recognisers confuse voicing-only pairs most "
                    "(stages/lexicon/README.md, 'Against a published consonant confusion table')")
 def test_a_voicing_only_change_costs_more_than_a_place_only_change() -> None:
