@@ -6,11 +6,17 @@ import warnings
 from pathlib import Path
 from typing import Any
 
+from rapidfuzz.distance import Levenshtein
+from rapidfuzz.fuzz import ratio
+
 from relay.core.chain import Chain
 from relay.core.stage import StageContext
 from relay.core.utterance import Hypothesis, Utterance
 from relay.workbench.build_lm import build_model
+from stages.lexicon.compile import CompiledLexicon, phonetic_keys
+from stages.lexicon.match import Spans, Weights
 from stages.lexicon.settings import LexiconSettings
+from stages.lexicon.sound.phonetics import CostModel, batch_similarity
 from stages.lexicon.stage import LexiconStage
 from stages.lm.kneser_ney import DiscountFallbackWarning
 from stages.normalize.stage import NormalizeSettings, NormalizeStage
@@ -69,3 +75,24 @@ def lexicon_chain(folder: Path, **params: Any) -> Chain:
                    LexiconStage(LexiconSettings(**params), context=context)])
     chain.load()
     return chain
+
+
+def pair_scores(spans: Spans, lexicon: CompiledLexicon, weights: Weights, costs: CostModel,
+                chosen: list[tuple[int, int]]) -> list[tuple[int, int, float, bool]]:
+    """The pair scorer's definition for the given (span, form) pairs: each scored on its own
+    (rapidfuzz scorers called one by one), kept when its phone similarity reaches ``min_phone``
+    and its score the pair floor."""
+    if not chosen:
+        return []
+    forms = lexicon.forms
+    phone = batch_similarity([spans.phones[q] for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
+    total = weights.phone + weights.spelling + weights.keys
+    pairs: list[tuple[int, int, float, bool]] = []
+    for (q, f), phone_score in zip(chosen, phone.tolist()):
+        score = weights.phone * phone_score
+        score += weights.spelling * ratio(spans.texts[q].replace(" ", ""), forms[f].text.replace(" ", "")) / 100.0
+        score += weights.keys * max(Levenshtein.normalized_similarity(x, y)
+                                    for x in phonetic_keys(spans.texts[q]) for y in forms[f].keys)
+        if phone_score >= weights.min_phone and score >= weights.pair_floor * total:
+            pairs.append((q, f, score / total, False))
+    return pairs

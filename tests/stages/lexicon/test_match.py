@@ -12,23 +12,15 @@ import random
 
 import pytest
 from rapidfuzz.distance import Levenshtein
-from rapidfuzz.fuzz import ratio
 
 from relay.core.utterance import Hypothesis
 from stages.lexicon.compile import CompiledLexicon, compile_entries, phonetic_keys
 from stages.lexicon.data import LexiconEntry
-from stages.lexicon.match import (
-    Sighting,
-    Spans,
-    Weights,
-    _key_agreements,
-    find_spans,
-    pool,
-    score_spans,
-)
+from stages.lexicon.match import Sighting, Spans, Weights, _key_agreements, find_spans, pool, score_spans
 from stages.lexicon.settings import MatchSettings
-from stages.lexicon.sound.phonetics import CostModel, batch_similarity
+from stages.lexicon.sound.phonetics import CostModel
 from stages.lexicon.sound.pronounce import Pronouncer
+from tests.stages.lexicon.fixtures import pair_scores
 
 _SYLLABLES = ["ka", "lo", "mir", "ta", "sen", "dru", "vo", "ne", "pal", "rik", "sho", "bel", "tam", "zin"]
 _WORDS = ["bay", "three", "check", "the", "pump", "at", "station", "oven", "band", "saw", "for", "near"]
@@ -74,7 +66,7 @@ def _nbest(lexicon: CompiledLexicon, rng: random.Random) -> list[Hypothesis]:
 
 def _pairwise(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
               costs: CostModel) -> list[tuple[int, int, float, bool]]:
-    """The definition: each candidate pair scored on its own (rapidfuzz scorers called one by one)."""
+    """The definition: exact pairs, then each retrieved pair past the screen scored on its own."""
     pairs: list[tuple[int, int, float, bool]] = []
     exact: set[tuple[int, int]] = set()
     for number, text in enumerate(spans.texts):
@@ -86,22 +78,7 @@ def _pairwise(spans: Spans, lexicon: CompiledLexicon, weights: Weights,
     chosen = [(q, f) for q, f in zip(hits.query.tolist(), hits.item.tolist())
               if Levenshtein.normalized_similarity(spans.phones[q], forms[f].phones) >= weights.align_floor
               and (q, f) not in exact]
-    if not chosen:
-        return pairs
-    phone = batch_similarity([spans.phones[q] for q, _ in chosen], [forms[f].phones for _, f in chosen], costs)
-    total = weights.phone + weights.spelling + weights.keys
-    floor = weights.pair_floor * total
-    for (q, f), phone_score in zip(chosen, phone.tolist()):
-        score = weights.phone * phone_score
-        if phone_score < weights.min_phone or score + weights.spelling + weights.keys < floor:
-            continue
-        score += weights.spelling * ratio(spans.texts[q].replace(" ", ""), forms[f].text.replace(" ", "")) / 100.0
-        if score + weights.keys >= floor:
-            score += weights.keys * max(Levenshtein.normalized_similarity(x, y)
-                                        for x in phonetic_keys(spans.texts[q]) for y in forms[f].keys)
-        if score >= floor:
-            pairs.append((q, f, score / total, False))
-    return pairs
+    return pairs + pair_scores(spans, lexicon, weights, costs, chosen)
 
 
 def test_key_agreements_are_the_best_levenshtein_similarity_of_any_key_pair(lexicon: CompiledLexicon) -> None:

@@ -4,17 +4,16 @@ own definition: a restored sighting scores what score_spans gives that span and 
 from __future__ import annotations
 
 import pytest
-from rapidfuzz.distance import Levenshtein
-from rapidfuzz.fuzz import ratio
 
 from relay.core.utterance import Hypothesis
-from stages.lexicon.compile import CompiledLexicon, compile_entries, phonetic_keys
+from stages.lexicon.compile import compile_entries
 from stages.lexicon.data import LexiconEntry
-from stages.lexicon.match import Spans, Weights, find_spans, pool, score_spans
+from stages.lexicon.match import Weights, find_spans, pool, score_spans
 from stages.lexicon.realign import realign
 from stages.lexicon.settings import MatchSettings
-from stages.lexicon.sound.phonetics import CostModel, batch_similarity
+from stages.lexicon.sound.phonetics import CostModel
 from stages.lexicon.sound.pronounce import Pronouncer
+from tests.stages.lexicon.fixtures import pair_scores
 
 
 def test_realign_scores_the_aligned_words_of_a_hypothesis_that_lacks_the_entry() -> None:
@@ -41,7 +40,7 @@ def test_realign_scores_the_aligned_words_of_a_hypothesis_that_lacks_the_entry()
     assert (restored.start, restored.end, lexicon.forms[restored.form].text) == (2, 3, "berth six")
     # Scored as score_spans' own definition scores that span against that form.
     q = spans.texts.index("birthdays")
-    [(_, _, expected, _)] = [p for p in _pairwise_all(spans, lexicon, weights, costs, [(q, restored.form)])]
+    [(_, _, expected, _)] = pair_scores(spans, lexicon, weights, costs, [(q, restored.form)])
     assert restored.score == pytest.approx(expected, abs=1e-12)
     # Here the index had handed it back: the same pair, so the same score as retrieval gave.
     assert restored.score == pytest.approx(dropped.score, abs=1e-12)
@@ -49,19 +48,3 @@ def test_realign_scores_the_aligned_words_of_a_hypothesis_that_lacks_the_entry()
     # A hypothesis that already holds the entry keeps its own sighting, untouched.
     assert six.per_hypothesis[0] is kept
 
-
-def _pairwise_all(spans: Spans, lexicon: CompiledLexicon, weights: Weights, costs: CostModel,
-                  chosen: list[tuple[int, int]]) -> list[tuple[int, int, float, bool]]:
-    """The pairwise definition above for given pairs, retrieval left out."""
-    forms = lexicon.forms
-    total = weights.phone + weights.spelling + weights.keys
-    out = []
-    for q, f in chosen:
-        phone_score = batch_similarity([spans.phones[q]], [forms[f].phones], costs).tolist()[0]
-        score = weights.phone * phone_score
-        score += weights.spelling * ratio(spans.texts[q].replace(" ", ""), forms[f].text.replace(" ", "")) / 100.0
-        score += weights.keys * max(Levenshtein.normalized_similarity(x, y)
-                                    for x in phonetic_keys(spans.texts[q]) for y in forms[f].keys)
-        if phone_score >= weights.min_phone and score >= weights.pair_floor * total:
-            out.append((q, f, score / total, False))
-    return out
