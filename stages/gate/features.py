@@ -15,7 +15,7 @@ from stages.indomain.text import read_sentences, read_slot_values
 from stages.lm.model import score_tokens
 from stages.normalize.word_probs import first_word_probs
 
-__all__ = ["ASR_LOG_FLOOR", "GateFeatures", "backing", "judged_text", "line_scores", "marked_tokens",
+__all__ = ["ASR_LOG_FLOOR", "GateFeatures", "backing", "edit_share", "judged_text", "line_scores", "marked_tokens",
            "recogniser_confidence", "recogniser_word_confidence"]
 
 # The recogniser's confidence enters as a natural log, floored here: a sentence posterior that
@@ -57,7 +57,7 @@ class GateFeatures:
     invented: int = 0  # corrections into an entity that no hypothesis holds word for word
     rewritten: float = 0.0  # share of the result's words that corrections put there
     text_lm_relative: float | None = None  # text_lm_per_word in standard deviations from the in-domain lines'
-    lines_own_share: float | None = None  # the in-domain lines' own edit share to one another (NearestLine.own_share)
+    line_edit_relative: float | None = None  # line edits per word less the in-domain lines' own (NearestLine.own_share)
 
     def values(self) -> dict[str, float | None]:
         """The numeric features by name, as ``stages.gate_confidence`` reads them."""
@@ -90,10 +90,14 @@ class GateFeatures:
             "invented": float(self.invented),
             "rewritten": self.rewritten,
             "text_lm_relative": self.text_lm_relative,
-            "line_edit_share": None if self.line_edits is None else self.line_edits / max(1, self.words),
-            "line_edit_relative": None if self.line_edits is None or self.lines_own_share is None
-            else self.line_edits / max(1, self.words) - self.lines_own_share,
+            "line_edit_share": None if self.line_edits is None else edit_share(self.line_edits, self.words),
+            "line_edit_relative": self.line_edit_relative,
         }
+
+
+def edit_share(edits: int, words: int) -> float:
+    """Word edits to the nearest in-domain line per word of the result."""
+    return edits / max(1, words)
 
 
 def recogniser_confidence(utterance: Utterance) -> float | None:

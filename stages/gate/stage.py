@@ -23,6 +23,7 @@ from stages.gate.confidence import confidence, contributions
 from stages.gate.features import (
     GateFeatures,
     backing,
+    edit_share,
     judged_text,
     line_scores,
     marked_tokens,
@@ -119,8 +120,9 @@ class GateStage:
         if self.lines is not None:
             nearest = self.lines.nearest(marked)
             if nearest is not None:
-                in_domain |= {"line_edits": nearest.edits, "lines_own_share": self.lines_own_share,
-                              "missing_slots": nearest.missing,
+                own = self.lines_own_share
+                in_domain |= {"line_edits": nearest.edits, "missing_slots": nearest.missing,
+                              "line_edit_relative": None if own is None else edit_share(nearest.edits, len(words)) - own,
                               "missing_type": nearest.missing_type, "foreign_slots": nearest.foreign}
             utterance.check_deadline()
         return GateFeatures(
