@@ -25,14 +25,14 @@ __all__ = ["add_parser", "run"]
 DESCRIPTION = """\
 Tune the chain on a labelled corpus: language-model weights, lexicon thresholds and the gate
 are chosen to make the fewest wrong accepts while asking back from doubt at most --max-clarify
-of the utterances (then the lowest WER); what the safety rule asks back is policy and comes on
-top. Expensive stages run once per parameter setting; the gate
-is fitted on the recorded scores two ways - its hand thresholds swept, and a learned
-confidence (logistic regression on all the gate's features, including how the in-domain LM
-judges the finished text) with its threshold swept - and the better one on the training
-utterances is kept. Numbers printed are held-out only: each fold is scored with the choice,
-model included, fitted on the other folds. The written configuration is fitted on the whole
-(filtered) corpus.
+of the utterances (then the fewest slot errors - entities missed, wrong or put in - then the
+lowest WER); what the safety rule asks back is policy and comes on top. Expensive stages run
+once per parameter setting; the gate is fitted on the recorded scores two ways - its hand
+thresholds swept, and a learned confidence (logistic regression on all the gate's features,
+including how the in-domain LM judges the finished text) with its threshold swept - and the
+better one on the training utterances is kept. Numbers printed are held-out only: each fold is
+scored with the choice, model included, fitted on the other folds. The written configuration is
+fitted on the whole (filtered) corpus.
 
 The search space names stage parameters through the configuration, a group's by dotted
 name, e.g. a YAML file

@@ -8,6 +8,7 @@ outcomes into the numbers. `tune` relies on that split to score held-out folds o
 from __future__ import annotations
 
 import math
+from collections import Counter
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -67,6 +68,15 @@ class Outcome:
     @property
     def entity_ok(self) -> bool:
         return frozenset(self.found) == self.reference_ids
+
+    @property
+    def slot_errors(self) -> int:
+        """Substitutions, deletions and insertions of entities, as the slot error rate counts them
+        (Makhoul, Kubala, Schwartz and Weischedel 1999): within a type, a wrong entity found where
+        one was missed is one substitution, a miss left over a deletion, a wrong one an insertion."""
+        missed = Counter(i.partition(".")[0] for i in self.reference_ids - self.found.keys())
+        wrong = Counter(t for i, t in self.found.items() if i not in self.reference_ids)
+        return sum(max(missed[t], wrong[t]) for t in missed.keys() | wrong.keys())
 
 
 def _gate_of(chain: Chain) -> Any:

@@ -1,7 +1,8 @@
 """`tune`: choose stage parameters and gate thresholds on labelled data, honestly.
 
 The objective is the fewest wrong accepts while asking back at most a given share of
-utterances, then the lowest WER. Expensive stages run once per parameter setting; the gate is
+utterances, then the fewest slot errors (entities missed, wrong or put in, per entity said),
+then the lowest WER. Expensive stages run once per parameter setting; the gate is
 fitted on the features recorded in that run, two ways: a sweep of its hand thresholds, and a
 learned confidence (logistic regression on all the features, ``stages.gate_confidence``) with
 its threshold swept; the better of the two on the training utterances wins. Every reported
@@ -127,6 +128,8 @@ class RecordedFeatures:
         self.ok = np.array([o.entity_ok for o in outcomes])
         self.errors = np.array([o.errors_relay for o in outcomes])
         self.words = np.array([o.ref_words for o in outcomes])
+        self.slot_errors = np.array([o.slot_errors for o in outcomes])
+        self.slots = np.array([len(o.reference_ids) for o in outcomes])
 
 
 def gate_accepts(features: RecordedFeatures, grid: np.ndarray, min_lm: float | None) -> np.ndarray:
@@ -210,6 +213,7 @@ def fit(recorded: Sequence[RecordedFeatures], index: np.ndarray, *, max_clarify:
 
     for setting, features in enumerate(recorded):
         errors = float(features.errors[index].sum() / max(1, features.words[index].sum()))
+        slot_errors = float(features.slot_errors[index].sum() / max(1, features.slots[index].sum()))
         ok = features.ok[index]
         # The budget bounds what the gate asks back from doubt; the safety rule's asks are policy,
         # the same for every candidate, and come on top.
@@ -217,7 +221,7 @@ def fit(recorded: Sequence[RecordedFeatures], index: np.ndarray, *, max_clarify:
         for min_lm in _lm_grid(features, index):
             row, (over, wrong, clarify) = _best_row(gate_accepts(features, grid, min_lm)[:, index], ok, budget)
             gate = _thresholds(grid[row]) | {"min_lm_per_word": min_lm, "confidence": None}
-            consider((over, wrong, errors, clarify), setting, gate)
+            consider((over, wrong, slot_errors, errors, clarify), setting, gate)
         if not learn:
             continue
         model = fit_model([features.values[i] for i in index], ok.tolist(), signs=SIGNS, features=_ONE_DOMAIN)
@@ -227,7 +231,7 @@ def fit(recorded: Sequence[RecordedFeatures], index: np.ndarray, *, max_clarify:
         row, (over, wrong, clarify) = _best_row(accept, ok, budget)
         gate = _thresholds(_OPEN_ROW) | {
             "min_lm_per_word": None, "confidence": model.model_dump(), "accept_confidence": float(thresholds[row])}
-        consider((over, wrong, errors, clarify), setting, gate)
+        consider((over, wrong, slot_errors, errors, clarify), setting, gate)
     if best is None:
         raise ValueError("nothing to choose from: no parameter setting was tried")
     return best[1]

@@ -1,5 +1,6 @@
 from __future__ import annotations
 
+import dataclasses
 import importlib.util
 import json
 import os
@@ -89,6 +90,24 @@ def test_summary_counts_entities_decisions_and_wrong_accepts() -> None:
     assert summary.wer_first == pytest.approx(0.5)
     assert summary.wer_relay == pytest.approx(1 / 16)
     assert summary.stage_latency_us["gate"]["p99"] == 5.0
+
+
+def _typed(ref_ids: set[str], found: set[str]) -> Outcome:
+    return dataclasses.replace(_outcome(ref_ids, set(), "accept"), found={i: i.partition(".")[0] for i in found})
+
+
+def test_slot_errors_count_as_the_slot_error_rate_does() -> None:
+    # Makhoul, Kubala, Schwartz and Weischedel (1999), "Performance measures for information
+    # extraction": SER = (substitutions + deletions + insertions) / reference slots; a wrong
+    # filler of a slot is one substitution, not a deletion and an insertion.
+    assert _typed({"person.ana", "place.loft"}, {"person.ana", "place.loft"}).slot_errors == 0
+    assert _typed({"person.ana"}, {"person.bo"}).slot_errors == 1  # S
+    assert _typed({"person.ana", "place.loft"}, set()).slot_errors == 2  # D + D
+    assert _typed(set(), {"machine.saw"}).slot_errors == 1  # I
+    # S (person) + D (place) + I (machine): 3 errors, not the 4 a set difference counts.
+    outcome = _typed({"person.ana", "place.loft"}, {"person.bo", "machine.saw"})
+    assert outcome.slot_errors == 3
+    assert len(outcome.reference_ids ^ outcome.found.keys()) == 4
 
 
 def test_eval_json_has_exactly_the_documented_keys(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:

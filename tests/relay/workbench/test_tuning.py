@@ -141,6 +141,29 @@ def test_fit_keeps_within_the_clarification_budget_and_cuts_wrong_accepts() -> N
     assert tuned.wrong_accept_rate < baseline.wrong_accept_rate - 0.05
 
 
+def test_fewer_slot_errors_come_before_fewer_word_errors() -> None:
+    # Two settings the gate makes equally safe: the second writes every word right but puts a
+    # wrong entity into five utterances (the gate asks those back), the first leaves two word
+    # errors in each utterance and every entity right. The job is the entities: the first wins.
+    def run(inserted: int, word_errors: int) -> list[Outcome]:
+        outcomes = []
+        for i in range(50):
+            wrong = i < inserted
+            features = GateFeatures(posterior=0.1 if wrong else 0.9, margin=0.5, weakest_entity=0.9, corrected=False,
+                                    correction_score=None, lm_per_word=None, safety_rule=None, empty=False)
+            outcomes.append(dataclasses.replace(
+                _outcome(i, features, True), errors_relay=word_errors,
+                found={"a": "machine", "b": "machine"} if wrong else {"a": "machine"}))
+        return outcomes
+
+    recorded = [RecordedFeatures(run(0, 2)), RecordedFeatures(run(5, 0))]
+    choice = fit(recorded, np.arange(50), max_clarify=0.3, learn=False)
+    assert choice.setting == 0
+    # Alone, the second setting is still chosen when it makes no slot error either.
+    assert fit([RecordedFeatures(run(0, 2)), RecordedFeatures(run(0, 0))], np.arange(50),
+               max_clarify=0.3, learn=False).setting == 1
+
+
 def _hidden_cue_outcomes(count: int, seed: int) -> list[Outcome]:
     """Right or wrong by a cue the hand thresholds cannot see (unknown words in the finished
     text), while the posterior says nothing: only the learned confidence can tell them apart."""
