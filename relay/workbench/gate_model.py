@@ -32,11 +32,15 @@ __all__ = ["TRANSFERABLE", "Row", "fit_default", "record", "transfer"]
 # absolute per-word scores are left out (their scale is the domain's: text_lm_relative carries
 # the same information relative to the domain's own lines), and so is the edit share to the
 # nearest line: a domain whose lines vary more puts right results further from them
-# (line_edit_relative reads it against the lines' own share to one another).
+# (line_edit_relative reads it against the lines' own share to one another). Likewise the raw
+# counts of unknown words and of unfilled slots: a right request in a trade whose text is more
+# varied holds more words the LM never saw (text_oov_relative), and an unfilled slot means a lost
+# name more often where the lines nearly always name something (missing_slot_odds;
+# stages.indomain.line_stats).
 TRANSFERABLE: tuple[str, ...] = (
     "posterior", "margin", "weakest_entity", "entities", "corrections", "text_lm_relative", "text_lm_weakest",
-    "text_oov", "unfilled_slots", "line_edit_relative", "asr_log_conf", "weakest_support", "weakest_heard",
-    "weakest_lead", "invented", "rewritten", "asr_word_mean", "missing_slots",
+    "text_oov_relative", "unfilled_slots", "line_edit_relative", "asr_log_conf", "weakest_support", "weakest_heard",
+    "weakest_lead", "invented", "rewritten", "asr_word_mean", "missing_slot_odds",
     "most_overridden", "foreign_slots",
 )
 

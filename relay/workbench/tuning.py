@@ -73,9 +73,11 @@ _GATE_KEYS = tuple(DEFAULT_GATE_GRID)
 _TIE = 0.005  # wrong-accept rates this close count as equal; WER then decides
 
 # The confidence features a model fitted on one domain's corpus is given: there
-# line_edit_relative is line_edit_share less a constant (the domain's own lines' share), after
-# centering the very same column, so only line_edit_share is.
-_ONE_DOMAIN = tuple(name for name in FEATURES if name != "line_edit_relative")
+# line_edit_relative is line_edit_share less a constant (the domain's own lines' share), and
+# missing_slot_odds is missing_slots times one, so after centering and scaling they are the very
+# same columns; text_oov_relative is text_oov less a constant times words, two columns it has.
+_ONE_DOMAIN = tuple(name for name in FEATURES
+                    if name not in ("line_edit_relative", "missing_slot_odds", "text_oov_relative"))
 
 
 def expand_space(space: dict[str, dict[str, list[Any]]], *, max_settings: int, seed: int) -> list[Overrides]:

@@ -57,6 +57,8 @@ FEATURES: tuple[str, ...] = (
     "most_overridden",    # most belief that words a correction replaced were said as heard (stages/lexicon/heard.py)
     "foreign_slots",      # entities whose type the nearest in-domain line has no slot for
     "line_edit_relative",  # line_edit_share beyond the in-domain lines' own to one another
+    "missing_slot_odds",  # missing_slots times the log-odds against an in-domain line without entities
+    "text_oov_relative",  # text_oov less the unseen words the in-domain lines lead one to expect
 )
 _LM_FLOOR = -30.0
 # Which way each feature may move the confidence, where the direction is known before any data:
@@ -73,6 +75,7 @@ SIGNS: dict[str, int] = {
     "asr_log_conf": 1, "weakest_support": 1, "weakest_heard": 1, "weakest_lead": 1, "invented": -1,
     "rewritten": -1, "text_lm_relative": 1, "line_edit_share": -1, "asr_word_mean": 1, "missing_slots": -1,
     "most_overridden": -1, "foreign_slots": -1, "entities": -1, "line_edit_relative": -1,
+    "missing_slot_odds": -1, "text_oov_relative": -1,
 }
 
 

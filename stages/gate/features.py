@@ -58,6 +58,13 @@ class GateFeatures:
     rewritten: float = 0.0  # share of the result's words that corrections put there
     text_lm_relative: float | None = None  # text_lm_per_word in standard deviations from the in-domain lines'
     line_edit_relative: float | None = None  # line edits per word less the in-domain lines' own (NearestLine.own_share)
+    # missing_slots times the log-odds against an in-domain line naming no entity
+    # (stages.indomain.line_stats.entity_free_share): a slot left unfilled weighs more in a trade
+    # whose requests nearly always name something.
+    missing_slot_odds: float | None = None
+    # text_oov less the unknown words expected in that many words of in-domain text
+    # (stages.indomain.line_stats.unseen_share times the result's words)
+    text_oov_relative: float | None = None
 
     def values(self) -> dict[str, float | None]:
         """The numeric features by name, as ``stages.gate_confidence`` reads them."""
@@ -92,6 +99,8 @@ class GateFeatures:
             "text_lm_relative": self.text_lm_relative,
             "line_edit_share": None if self.line_edits is None else edit_share(self.line_edits, self.words),
             "line_edit_relative": self.line_edit_relative,
+            "missing_slot_odds": self.missing_slot_odds,
+            "text_oov_relative": self.text_oov_relative,
         }
 
 

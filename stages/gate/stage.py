@@ -11,6 +11,7 @@ a valve or dose a chemical is never accepted on voice alone.
 
 from __future__ import annotations
 
+import math
 from dataclasses import fields
 from typing import Any, ClassVar
 
@@ -35,6 +36,7 @@ from stages.gate.rules import decide
 from stages.gate.safety import SafetyRule
 from stages.gate.settings import GateSettings
 from stages.indomain.carriers import CarrierPhrases
+from stages.indomain.line_stats import entity_free_share, unseen_share
 from stages.indomain.nearest_line import NearestLine
 from stages.lm.model import shared_model
 from stages.lm.rescore import lm_per_word
@@ -47,7 +49,7 @@ _FEATURE_NAMES = tuple(f.name for f in fields(GateFeatures))
 
 # The confidence features read from the in-domain lines (carrier phrases and the nearest line).
 _FROM_LINES = frozenset({"unfilled_slots", "line_edits", "line_edit_share", "line_edit_relative", "missing_slots",
-                         "foreign_slots"})
+                         "foreign_slots", "missing_slot_odds", "text_oov_relative"})
 
 
 class GateStage:
@@ -81,6 +83,8 @@ class GateStage:
         self.carriers: CarrierPhrases | None = None
         self.lines: NearestLine | None = None
         self.lines_own_share: float | None = None  # how far the in-domain lines are from one another
+        self.missing_odds: float | None = None  # log-odds against an in-domain line without entities
+        self.unseen: float | None = None  # Good-Turing share of new in-domain words the lines never hold
         self.line_lm: tuple[float, float] | None = None  # mean and spread of the in-domain lines' LM per word
         self.safety = SafetyRule(settings.safety_words, settings.safety_types,
                                  min_posterior=settings.safety_min_posterior)
@@ -92,6 +96,10 @@ class GateStage:
             self.carriers = CarrierPhrases.from_files(self.text_path, self.lexicon_path)
             self.lines = NearestLine(tokens for _, tokens in self.carriers.lines)
             self.lines_own_share = self.lines.own_share()
+            marked = [tokens for _, tokens in self.carriers.lines]
+            free = entity_free_share(marked)
+            self.missing_odds = None if free is None else math.log((1 - free) / free)
+            self.unseen = unseen_share(marked)
         if self.lm is not None and self.text_path is not None:
             self.line_lm = line_scores(self.lm, self.text_path, self.lexicon_path)
 
@@ -109,6 +117,11 @@ class GateStage:
             if self.line_lm is not None:
                 mean, spread = self.line_lm
                 text_lm["text_lm_relative"] = (text_lm["text_lm_per_word"] - mean) / spread
+            if self.unseen is not None:
+                # Per word of the result, entities included, as line_edit_relative is: counted over
+                # the words other than entities, a result that lost a name would expect more unknown
+                # words for it, and its garble would be excused (measured: relay/workbench/README.md).
+                text_lm["text_oov_relative"] = text_lm["text_oov"] - self.unseen * len(words)
         # Between the steps whose cost grows with the text: a late message stops here.
         utterance.check_deadline()
         marked = marked_tokens(utterance)
@@ -121,8 +134,10 @@ class GateStage:
             nearest = self.lines.nearest(marked)
             if nearest is not None:
                 own = self.lines_own_share
+                odds = self.missing_odds
                 in_domain |= {"line_edits": nearest.edits, "missing_slots": nearest.missing,
                               "line_edit_relative": None if own is None else edit_share(nearest.edits, len(words)) - own,
+                              "missing_slot_odds": None if odds is None else nearest.missing * odds,
                               "missing_type": nearest.missing_type, "foreign_slots": nearest.foreign}
             utterance.check_deadline()
         return GateFeatures(

@@ -317,6 +317,35 @@ def test_line_edit_relative_reads_the_edit_share_against_the_lines_own(tmp_path:
     assert gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).values()["line_edit_relative"] is None
 
 
+def test_missing_slot_odds_weighs_a_missing_slot_by_how_rarely_a_line_names_nothing(tmp_path: Path) -> None:
+    stage = _carrier_gate(tmp_path, "missing_slot_odds")
+    # Both lines name an entity: by the rule of succession an entity-free request has (0 + 1) / (2 + 2)
+    # = 1/4, so a missing slot counts the log-odds against one, ln 3.
+    assert stage.missing_odds == pytest.approx(math.log(3))
+    missed = stage.features(make_utterance([0.9, 0.1], ["meet me in they won", "x"]))
+    assert missed.missing_slots == 1 and missed.values()["missing_slot_odds"] == pytest.approx(math.log(3))
+    (tmp_path / "more.txt").write_text("meet me in {place}\nopen the door\nclose the door\nis it raining\n")
+    many = gate(carrier_text=str(tmp_path / "more.txt"), safety_words=[])
+    many.load()
+    # Three of four lines name nothing: (3 + 1) / (4 + 2) = 2/3, and a missing slot counts ln 1/2.
+    assert many.features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).missing_slot_odds == pytest.approx(
+        math.log(0.5))
+    assert gate().features(make_utterance([0.9, 0.1], ["meet me in they won", "x"])).missing_slot_odds is None
+
+
+def test_text_oov_relative_takes_off_the_unknown_words_the_lines_lead_one_to_expect(tmp_path: Path) -> None:
+    (tmp_path / "train.txt").write_text("open the door\nclose the gate\n")
+    stage = gate(carrier_text=str(tmp_path / "train.txt"), lm_model=str(DATA / "lm_domain.o3.arpa"), safety_words=[])
+    stage.load()
+    # Of the lines' 6 words, 4 occur once ("the" twice): Good-Turing's unseen share N1 / N is 2/3,
+    # so four words of in-domain text are expected to hold 8/3 the lines never saw.
+    assert stage.unseen == pytest.approx(2 / 3)
+    features = stage.features(make_utterance([0.9, 0.1], ["quux quuz the lathe", "x"]))
+    assert features.text_oov == 2 and features.text_oov_relative == pytest.approx(2 - 2 / 3 * 4)
+    assert gate(lm_model=str(DATA / "lm_domain.o3.arpa")).features(
+        make_utterance([0.9, 0.1], ["quux quuz lathe", "x"])).text_oov_relative is None
+
+
 def test_missing_slots_counts_slots_of_the_nearest_line_no_entity_fills(tmp_path: Path) -> None:
     stage = _carrier_gate(tmp_path)
     bay = Entity(id="place.bay_1", type="place", name="bay one", span=(11, 18), heard="they won", score=0.9)
@@ -360,7 +389,7 @@ def test_without_carrier_text_the_feature_is_unknown() -> None:
 
 def test_unfilled_slots_needs_carrier_text() -> None:
     for feature in ("unfilled_slots", "line_edits", "line_edit_share", "line_edit_relative", "missing_slots",
-                    "foreign_slots"):
+                    "foreign_slots", "missing_slot_odds"):
         with pytest.raises(ConfigError, match=f"confidence uses {feature}") as caught:
             gate(confidence={"features": {feature: {"weight": -1.0}}})
         assert "which need domain.text (or carrier_text)" in str(caught.value)
