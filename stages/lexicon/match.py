@@ -325,31 +325,30 @@ def _pool_python(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexico
             held = held_by.get(hypothesis)
             if held is None:
                 held_by[hypothesis] = Sighting(score, start, end, f, exact)
-            elif exact or held.exact:
-                for form in (f, held.form):
-                    if form not in words:
-                        words[form] = forms[form].words
-                seen = Sighting(score, start, end, f, exact)
-                if _better(seen, held, strong, words):
-                    held_by[hypothesis] = seen
-            # Neither exact: _better reduces to the higher score, then the longer span.
-            elif score > held.score or (score == held.score and end - start > held.end - held.start):
-                held_by[hypothesis] = Sighting(score, start, end, f, exact)
+                continue
+            for form in (f, held.form):
+                if form not in words:
+                    words[form] = forms[form].words
+            seen = Sighting(score, start, end, f, exact)
+            if _better(seen, held, strong, words):
+                held_by[hypothesis] = seen
     for found in evidence.values():
         found.pooled = float(sum([posteriors[h] * held.score for h, held in found.per_hypothesis.items()]))
     return evidence
 
 
 def _better(new: Sighting, held: Sighting, strong: float, words: dict[int, int]) -> bool:
-    # A near match of a longer form (the full name) beats an exact match of a shorter one (an
-    # alias) inside it; a longer span around the same form does not.
+    # A strong near match of a longer form (the full name) beats a match of a shorter one (an
+    # alias) inside it, exact ("tamsin") or near ("compressor" for "the compressor", inside "qr e
+    # compressor" for "quarrie compressor"): it explains more of the heard words. A longer span
+    # around the same form does not. Between two exact matches the rule is the higher score.
     contains = (new.start <= held.start and held.end <= new.end and new.end - new.start > held.end - held.start
                 and words[new.form] > words[held.form])
     inside = (held.start <= new.start and new.end <= held.end and held.end - held.start > new.end - new.start
               and words[held.form] > words[new.form])
-    if held.exact and not new.exact and new.score >= strong and contains:
+    if not new.exact and new.score >= strong and contains:
         return True
-    if new.exact and not held.exact and held.score >= strong and inside:
+    if not held.exact and held.score >= strong and inside:
         return False
     # Otherwise the higher score; at equal scores the longer span (it explains more words).
     return (new.score, new.end - new.start) > (held.score, held.end - held.start)

@@ -1355,8 +1355,8 @@ static Py_ssize_t form_int(PyObject *forms, Py_ssize_t at, PyObject *name) {
     return number;
 }
 
-/* match.py _better: whether a new sighting replaces the held one when either is exact; the words
-   are the word counts of their forms. */
+/* match.py _better: whether a new sighting replaces the held one; the words are the word counts
+   of their forms. */
 static int better_seen(const Seen *new, const Seen *held, double strong, Py_ssize_t new_words,
                        Py_ssize_t held_words) {
     Py_ssize_t new_length = new->end - new->start, held_length = held->end - held->start;
@@ -1364,9 +1364,9 @@ static int better_seen(const Seen *new, const Seen *held, double strong, Py_ssiz
                    new_words > held_words;
     int inside = held->start <= new->start && new->end <= held->end && held_length > new_length &&
                  held_words > new_words;
-    if (held->exact && !new->exact && new->score >= strong && contains)
+    if (!new->exact && new->score >= strong && contains)
         return 1;
-    if (new->exact && !held->exact && held->score >= strong && inside)
+    if (!held->exact && held->score >= strong && inside)
         return 0;
     return new->score > held->score || (new->score == held->score && new_length > held_length);
 }
@@ -1480,7 +1480,7 @@ static PyObject *pool_pairs(PyObject *self, PyObject *args) {
                 held[cell] = 1;
                 order[e * hypotheses + sighted[e]++] = (int32_t)h;
                 *old = new;
-            } else if (new.exact || old->exact) {
+            } else {
                 Py_ssize_t new_words = form_int(forms, new.form, attr_words);
                 if (new_words < 0)
                     goto done;
@@ -1489,9 +1489,6 @@ static PyObject *pool_pairs(PyObject *self, PyObject *args) {
                     goto done;
                 if (better_seen(&new, old, strong, new_words, old_words))
                     *old = new;
-            } else if (new.score > old->score ||
-                       (new.score == old->score && new.end - new.start > old->end - old->start)) {
-                *old = new; /* neither exact: the higher score, then the longer span */
             }
         }
     }

@@ -125,3 +125,30 @@ def test_spans_and_pooling_keep_every_occurrence(lexicon: CompiledLexicon, prono
     # Equal scores: the first span seen stays in hypothesis 0 (same length), hypothesis 1 has only "b a".
     assert found.per_hypothesis == {0: Sighting(0.5, 1, 3, form, False), 1: Sighting(0.5, 0, 2, form, False)}
     assert found.pooled == 0.75 * 0.5 + 0.25 * 0.5
+
+
+@pytest.mark.parametrize("compiled_pool", [True, False])
+def test_a_strong_near_match_of_the_full_name_beats_a_near_match_of_its_alias_inside_it(
+        lexicon: CompiledLexicon, pronouncer: Pronouncer, compiled_pool: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+    # "qr e compressor" is a near match of "quarrie compressor"; "compressor" inside it, a nearer
+    # one of the alias "the compressor". The full name explains more of the heard words.
+    if not compiled_pool:
+        monkeypatch.setattr("stages.lexicon.match.compiled", None)
+    number, entry = next((i, e) for i, e in enumerate(lexicon.entries) if " " in e.name)
+    first, second = entry.name.split()
+    name = next(i for i, f in enumerate(lexicon.forms) if f.entry == number and f.text == entry.name)
+    alias = next(i for i, f in enumerate(lexicon.forms) if f.entry == number and f.text == first)
+    nbest = [Hypothesis(f"at {first} {second} now", 0, {}, tokens=["at", first, second, "now"], posterior=1.0)]
+    spans = find_spans(nbest, 2, pronouncer)
+    whole, inner = spans.words.index((first, second)), spans.words.index((first,))
+
+    def sighting(name_score: float, alias_score: float, *, alias_first: bool) -> Sighting:
+        pairs = [(whole, name, name_score, False), (inner, alias, alias_score, False)]
+        evidence = pool(spans, pairs[::-1] if alias_first else pairs, lexicon, [1.0])
+        return evidence[number].per_hypothesis[0]
+
+    for alias_first in (False, True):
+        # Strong (0.75 and up): the full name wins though the alias scored higher.
+        assert sighting(0.8, 0.9, alias_first=alias_first) == Sighting(0.8, 1, 3, name, False)
+        # Not strong: the higher score, as between any two near matches.
+        assert sighting(0.7, 0.9, alias_first=alias_first) == Sighting(0.9, 1, 2, alias, False)
