@@ -313,7 +313,7 @@ def _pool_python(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexico
                  posteriors: Sequence[float], *, strong: float = 0.75) -> dict[int, Evidence]:
     evidence: dict[int, Evidence] = {}
     forms = lexicon.forms
-    words: dict[int, int] = {}  # form -> its word count, for the pairs _better weighs
+    phones: dict[int, int] = {}  # form -> how many phones it has, for the pairs _better weighs
     occurrences = spans.occurrences
     for q, f, score, exact in pairs:
         entry = forms[f].entry
@@ -327,25 +327,26 @@ def _pool_python(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexico
                 held_by[hypothesis] = Sighting(score, start, end, f, exact)
                 continue
             for form in (f, held.form):
-                if form not in words:
-                    words[form] = forms[form].words
+                if form not in phones:
+                    phones[form] = len(forms[form].phones)
             seen = Sighting(score, start, end, f, exact)
-            if _better(seen, held, strong, words):
+            if _better(seen, held, strong, phones):
                 held_by[hypothesis] = seen
     for found in evidence.values():
         found.pooled = float(sum([posteriors[h] * held.score for h, held in found.per_hypothesis.items()]))
     return evidence
 
 
-def _better(new: Sighting, held: Sighting, strong: float, words: dict[int, int]) -> bool:
-    # A strong near match of a longer form (the full name) beats a match of a shorter one (an
-    # alias) inside it, exact ("tamsin") or near ("compressor" for "the compressor", inside "qr e
-    # compressor" for "quarrie compressor"): it explains more of the heard words. A longer span
-    # around the same form does not. Between two exact matches the rule is the higher score.
+def _better(new: Sighting, held: Sighting, strong: float, phones: dict[int, int]) -> bool:
+    # A strong near match of a longer form (the full name, more phones) beats a match of a
+    # shorter one (an alias) inside it, exact ("tamsin") or near ("compressor" for "the
+    # compressor", inside "qr e compressor" for "quarrie compressor"): it explains more of the
+    # heard sounds. A longer span around the same form does not. Between two exact matches the
+    # rule is the higher score.
     contains = (new.start <= held.start and held.end <= new.end and new.end - new.start > held.end - held.start
-                and words[new.form] > words[held.form])
+                and phones[new.form] > phones[held.form])
     inside = (held.start <= new.start and new.end <= held.end and held.end - held.start > new.end - new.start
-              and words[held.form] > words[new.form])
+              and phones[held.form] > phones[new.form])
     if not new.exact and new.score >= strong and contains:
         return True
     if not held.exact and held.score >= strong and inside:

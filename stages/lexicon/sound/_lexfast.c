@@ -1332,11 +1332,12 @@ done:
 
 /* ---- pooling: each entry's best sighting per hypothesis and their posterior-weighted sum ---- */
 
-static PyObject *attr_entry, *attr_words; /* interned names of the Form fields pooling reads */
+static PyObject *attr_entry; /* interned name of the Form field pooling reads (and attr_phones) */
 
 typedef struct {
     double score;
     Py_ssize_t start, end, form;
+    Py_ssize_t phones; /* how many phones the form has */
     int exact;
     /* The objects the Sighting is made of: borrowed from the pairs and occurrences, which the
        caller holds for the whole call (the Python version passes these same objects). */
@@ -1344,26 +1345,28 @@ typedef struct {
 } Seen;
 
 /* A Py_ssize_t attribute of forms[at] (the caller checked at), or -1 with an error set. */
-static Py_ssize_t form_int(PyObject *forms, Py_ssize_t at, PyObject *name) {
-    PyObject *value = PyObject_GetAttr(PyList_GET_ITEM(forms, at), name);
+/* The number of phones of a form (its encoded phone string's length); -1 with an exception set. */
+static Py_ssize_t form_phones(PyObject *form) {
+    PyObject *value = PyObject_GetAttr(form, attr_phones);
     if (value == NULL)
         return -1;
-    Py_ssize_t number = PyLong_AsSsize_t(value);
+    if (!PyUnicode_Check(value)) {
+        Py_DECREF(value);
+        PyErr_SetString(PyExc_TypeError, "pool_pairs: a form's phones must be a str");
+        return -1;
+    }
+    Py_ssize_t number = PyUnicode_GET_LENGTH(value);
     Py_DECREF(value);
-    if (number < 0 && !PyErr_Occurred())
-        PyErr_SetString(PyExc_ValueError, "pool_pairs: a form's entry and word count must not be negative");
     return number;
 }
 
-/* match.py _better: whether a new sighting replaces the held one; the words are the word counts
-   of their forms. */
-static int better_seen(const Seen *new, const Seen *held, double strong, Py_ssize_t new_words,
-                       Py_ssize_t held_words) {
+/* match.py _better: whether a new sighting replaces the held one. */
+static int better_seen(const Seen *new, const Seen *held, double strong) {
     Py_ssize_t new_length = new->end - new->start, held_length = held->end - held->start;
     int contains = new->start <= held->start && held->end <= new->end && new_length > held_length &&
-                   new_words > held_words;
+                   new->phones > held->phones;
     int inside = held->start <= new->start && new->end <= held->end && held_length > new_length &&
-                 held_words > new_words;
+                 held->phones > new->phones;
     if (!new->exact && new->score >= strong && contains)
         return 1;
     if (!held->exact && held->score >= strong && inside)
@@ -1433,6 +1436,9 @@ static PyObject *pool_pairs(PyObject *self, PyObject *args) {
             PyErr_SetString(PyExc_IndexError, "pool_pairs: span or form number out of range");
             goto done;
         }
+        new.phones = form_phones(PyList_GET_ITEM(forms, new.form));
+        if (new.phones < 0)
+            goto done;
         PyObject *entry = PyObject_GetAttr(PyList_GET_ITEM(forms, new.form), attr_entry);
         if (entry == NULL)
             goto done;
@@ -1480,15 +1486,8 @@ static PyObject *pool_pairs(PyObject *self, PyObject *args) {
                 held[cell] = 1;
                 order[e * hypotheses + sighted[e]++] = (int32_t)h;
                 *old = new;
-            } else {
-                Py_ssize_t new_words = form_int(forms, new.form, attr_words);
-                if (new_words < 0)
-                    goto done;
-                Py_ssize_t old_words = form_int(forms, old->form, attr_words);
-                if (old_words < 0)
-                    goto done;
-                if (better_seen(&new, old, strong, new_words, old_words))
-                    *old = new;
+            } else if (better_seen(&new, old, strong)) {
+                *old = new;
             }
         }
     }
@@ -1665,8 +1664,7 @@ PyMODINIT_FUNC PyInit__lexfast(void) {
     attr_text = PyUnicode_InternFromString("text");
     attr_keys = PyUnicode_InternFromString("keys");
     attr_entry = PyUnicode_InternFromString("entry");
-    attr_words = PyUnicode_InternFromString("words");
-    if (!attr_phones || !attr_text || !attr_keys || !attr_entry || !attr_words)
+    if (!attr_phones || !attr_text || !attr_keys || !attr_entry)
         return NULL;
     PyObject *m = PyModule_Create(&module);
     if (m != NULL && PyModule_AddIntConstant(m, "version", KERNELS_VERSION) < 0) {

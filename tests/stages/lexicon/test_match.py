@@ -152,3 +152,19 @@ def test_a_strong_near_match_of_the_full_name_beats_a_near_match_of_its_alias_in
         assert sighting(0.8, 0.9, alias_first=alias_first) == Sighting(0.8, 1, 3, name, False)
         # Not strong: the higher score, as between any two near matches.
         assert sighting(0.7, 0.9, alias_first=alias_first) == Sighting(0.9, 1, 2, alias, False)
+
+
+def test_the_longer_form_is_the_one_with_more_phones_not_more_words(pronouncer: Pronouncer) -> None:
+    # "quarrie compressor" and its alias "the compressor" have two words each; heard "qr e
+    # compressor", the full name (more phones) explains more of the sounds than the alias inside it.
+    entries = [LexiconEntry("e0", "thing", "kalomir tasen", ("the tasen",), None, 1.0, 2)]
+    lexicon = compile_entries(entries, pronouncer, max_postings=60)
+    name = next(i for i, f in enumerate(lexicon.forms) if f.text == "kalomir tasen")
+    alias = next(i for i, f in enumerate(lexicon.forms) if f.text == "the tasen")
+    assert lexicon.forms[name].words == lexicon.forms[alias].words
+    assert len(lexicon.forms[name].phones) > len(lexicon.forms[alias].phones)
+    nbest = [Hypothesis("at kalo mir tasen now", 0, {}, tokens=["at", "kalo", "mir", "tasen", "now"], posterior=1.0)]
+    spans = find_spans(nbest, 3, pronouncer)
+    whole, inner = spans.words.index(("kalo", "mir", "tasen")), spans.words.index(("tasen",))
+    evidence = pool(spans, [(inner, alias, 0.9, False), (whole, name, 0.8, False)], lexicon, [1.0])
+    assert evidence[0].per_hypothesis[0] == Sighting(0.8, 1, 4, name, False)
