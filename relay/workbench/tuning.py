@@ -70,7 +70,7 @@ DEFAULT_GATE_GRID: dict[str, list[float]] = {
     "accept_without_entity": [1.0, 0.0],
 }
 _GATE_KEYS = tuple(DEFAULT_GATE_GRID)
-_TIE = 0.005  # wrong-accept rates this close count as equal; WER then decides
+_TIE = 0.005  # wrong-accept rates this close count as equal; slot errors, then WER, decide
 
 # The confidence features a model fitted on one domain's corpus is given: there
 # line_edit_relative is line_edit_share less a constant (the domain's own lines' share), and
