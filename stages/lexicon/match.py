@@ -313,7 +313,6 @@ def _pool_python(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexico
                  posteriors: Sequence[float], *, strong: float = 0.75) -> dict[int, Evidence]:
     evidence: dict[int, Evidence] = {}
     forms = lexicon.forms
-    phones: dict[int, int] = {}  # form -> how many phones it has, for the pairs _better weighs
     occurrences = spans.occurrences
     for q, f, score, exact in pairs:
         entry = forms[f].entry
@@ -326,27 +325,24 @@ def _pool_python(spans: Spans, pairs: list[tuple[int, int, float, bool]], lexico
             if held is None:
                 held_by[hypothesis] = Sighting(score, start, end, f, exact)
                 continue
-            for form in (f, held.form):
-                if form not in phones:
-                    phones[form] = len(forms[form].phones)
             seen = Sighting(score, start, end, f, exact)
-            if _better(seen, held, strong, phones):
+            if _better(seen, held, strong, forms):
                 held_by[hypothesis] = seen
     for found in evidence.values():
         found.pooled = float(sum([posteriors[h] * held.score for h, held in found.per_hypothesis.items()]))
     return evidence
 
 
-def _better(new: Sighting, held: Sighting, strong: float, phones: dict[int, int]) -> bool:
+def _better(new: Sighting, held: Sighting, strong: float, forms: Sequence[Form]) -> bool:
     # A strong near match of a longer form (the full name, more phones) beats a match of a
     # shorter one (an alias) inside it, exact ("tamsin") or near ("compressor" for "the
     # compressor", inside "qr e compressor" for "quarrie compressor"): it explains more of the
     # heard sounds. A longer span around the same form does not. Between two exact matches the
     # rule is the higher score.
     contains = (new.start <= held.start and held.end <= new.end and new.end - new.start > held.end - held.start
-                and phones[new.form] > phones[held.form])
+                and len(forms[new.form].phones) > len(forms[held.form].phones))
     inside = (held.start <= new.start and new.end <= held.end and held.end - held.start > new.end - new.start
-              and phones[held.form] > phones[new.form])
+              and len(forms[held.form].phones) > len(forms[new.form].phones))
     if not new.exact and new.score >= strong and contains:
         return True
     if not held.exact and held.score >= strong and inside:
