@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Sequence
 from typing import Any
 
 import orjson
@@ -13,7 +14,7 @@ from relay.cli.common import delegate, output_file, require_extra, show_progress
 from relay.cli.corpus_args import add_corpus_arguments, chosen_config, selected_items
 from relay.core.config import build_chain
 from relay.core.stage import deciding_stage
-from relay.workbench.evaluate import format_table, result_line, run_corpus, summarize
+from relay.workbench.evaluate import Outcome, format_table, result_line, run_corpus, summarize
 from relay.workbench.written import write_atomically
 from stages.gate.confidence import ConfidenceModel
 
@@ -54,6 +55,19 @@ def _model_of(gate: object) -> ConfidenceModel | None:
     return model() if callable(model) else None
 
 
+def conf_note(outcomes: Sequence[Outcome], model: ConfidenceModel | None, corpus: object) -> str | None:
+    """Advice when the gate reads a missing recogniser `conf` as doubt and no message gave one:
+    a recogniser that never gives one should say so, or every result pays for it."""
+    features = [o.gate for o in outcomes if o.gate is not None]
+    if model is None or "asr_no_conf" not in model.features or not features:
+        return None
+    if any(f.asr_no_conf != 1 for f in features):
+        return None
+    return (f"note: no message of {corpus} gives a `conf`, and the gate's confidence reads a missing one as "
+            "doubt (asr_no_conf). If your recogniser never gives one, set `asr_gives_conf: false` in the "
+            "gate's settings.")
+
+
 def run(args: argparse.Namespace) -> int:
     if args.report is not None:
         require_extra("matplotlib", extra="report", feature="--report")
@@ -65,6 +79,10 @@ def run(args: argparse.Namespace) -> int:
     outcomes = run_corpus(chain, items, progress=progress)
     summary = summarize(outcomes)
     print(format_table(summary, title=f"{args.corpus} ({described}), chain: {' -> '.join(chain.names)}"))
+    gate = deciding_stage(chain.stages)
+    note = conf_note(outcomes, _model_of(gate), args.corpus)
+    if note is not None:
+        print(note, file=sys.stderr)
     if args.json is not None:
         write_atomically(args.json, orjson.dumps(summary.to_json(), option=orjson.OPT_INDENT_2) + b"\n")
     if args.results is not None:
@@ -72,7 +90,6 @@ def run(args: argparse.Namespace) -> int:
     if args.report is not None:
         from relay.workbench.report import ReportHeader, write_report  # matplotlib loads only for a report
 
-        gate = deciding_stage(chain.stages)
         configuration = str(args.config) if args.config else f"the default chain from {args.lexicon}"
         about = ReportHeader(configuration=configuration, config_hash=loaded.hash, corpus=str(args.corpus),
                              selection=described, chain=tuple(chain.names))

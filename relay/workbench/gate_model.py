@@ -41,7 +41,7 @@ TRANSFERABLE: tuple[str, ...] = (
     "posterior", "margin", "weakest_entity", "entities", "corrections", "text_lm_relative", "text_lm_weakest",
     "text_oov_relative", "unfilled_slots", "line_edit_relative", "asr_log_conf", "weakest_support", "weakest_heard",
     "weakest_lead", "invented", "rewritten", "asr_word_mean", "missing_slot_odds",
-    "most_overridden", "foreign_slots",
+    "most_overridden", "foreign_slots", "asr_no_conf",
 )
 
 

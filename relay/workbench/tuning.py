@@ -4,7 +4,7 @@ The objective is the fewest wrong accepts while asking back at most a given shar
 utterances, then the fewest slot errors (entities missed, wrong or put in, per entity said),
 then the lowest WER. Expensive stages run once per parameter setting; the gate is
 fitted on the features recorded in that run, two ways: a sweep of its hand thresholds, and a
-learned confidence (logistic regression on all the features, ``stages.gate_confidence``) with
+learned confidence (logistic regression on all the features, ``stages.gate.confidence``) with
 its threshold swept; the better of the two on the training utterances wins. Every reported
 number comes from k-fold cross-validation: a fold's choice, the learned model included, is
 fitted on the other folds and scored on it alone.

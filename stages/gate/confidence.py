@@ -59,6 +59,7 @@ FEATURES: tuple[str, ...] = (
     "line_edit_relative",  # line_edit_share beyond the in-domain lines' own to one another
     "missing_slot_odds",  # missing_slots times the log-odds against an in-domain line without entities
     "text_oov_relative",  # text_oov less the unseen words the in-domain lines lead one to expect
+    "asr_no_conf",        # 1 when the recogniser gave no `conf` for any hypothesis of the message
 )
 _LM_FLOOR = -30.0
 # Which way each feature may move the confidence, where the direction is known before any data:
@@ -75,7 +76,7 @@ SIGNS: dict[str, int] = {
     "asr_log_conf": 1, "weakest_support": 1, "weakest_heard": 1, "weakest_lead": 1, "invented": -1,
     "rewritten": -1, "text_lm_relative": 1, "line_edit_share": -1, "asr_word_mean": 1, "missing_slots": -1,
     "most_overridden": -1, "foreign_slots": -1, "entities": -1, "line_edit_relative": -1,
-    "missing_slot_odds": -1, "text_oov_relative": -1,
+    "missing_slot_odds": -1, "text_oov_relative": -1, "asr_no_conf": -1,
 }
 
 

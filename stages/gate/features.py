@@ -49,6 +49,12 @@ class GateFeatures:
     foreign_slots: int | None = None  # entities whose type that nearest line has no slot for
     asr_log_conf: float | None = None  # ln of the highest `conf` the recogniser gave; None: it gave none
     asr_word_mean: float | None = None  # mean ln of the first hypothesis's `word_probs`; None: not given
+    # 1 when no hypothesis carries a `conf`; None when the recogniser is said never to give one
+    # (gate setting asr_gives_conf: false). Left to asr_log_conf alone, a missing confidence counted
+    # as the training mean: the pocketsphinx bridge gives one only when its best path is among the
+    # listed hypotheses, which on noisy audio it mostly is not, so its worst results were read as
+    # average ones (relay/workbench/README.md, 'No confidence given').
+    asr_no_conf: int | None = None
     # How the N-best backs the entities (the lexicon stage's evidence); None without entities.
     weakest_support: float | None = None  # least posterior share of hypotheses that hold an entity by sound
     weakest_heard: float | None = None  # least posterior share of hypotheses that hold an entity word for word
@@ -67,7 +73,7 @@ class GateFeatures:
     text_oov_relative: float | None = None
 
     def values(self) -> dict[str, float | None]:
-        """The numeric features by name, as ``stages.gate_confidence`` reads them."""
+        """The numeric features by name, as ``stages.gate.confidence`` reads them."""
         return {
             "posterior": self.posterior,
             "margin": self.margin,
@@ -84,6 +90,7 @@ class GateFeatures:
             "missing_slots": None if self.missing_slots is None else float(self.missing_slots),
             "foreign_slots": None if self.foreign_slots is None else float(self.foreign_slots),
             "asr_log_conf": self.asr_log_conf,
+            "asr_no_conf": None if self.asr_no_conf is None else float(self.asr_no_conf),
             "asr_word_mean": self.asr_word_mean,
             # Without entities there is no evidence to weigh: unknown (a model counts its training
             # mean). As 1, the values of a sure entity, a result that found no entity at all (most

@@ -91,6 +91,10 @@ class GateSettings(BaseModel):
         None, description="lexicon whose names and aliases in carrier_text's literal lines count as slots; "
         "default: domain.lexicon",
     )
+    asr_gives_conf: bool = Field(
+        True, description="the recogniser gives a `conf` (FORMATS 1) on some hypothesis of most messages, so a "
+        "message without one is read as doubt (feature asr_no_conf); set false for a recogniser that never does"
+    )
     confidence: ConfidenceModel | Literal["default"] | None = Field(
         "default", description="learned confidence that the entities are right: `default` (shipped with rehear, "
         "fitted on two invented trades and two recognisers), a model written by `rehear tune`, or null (off)"

@@ -140,6 +140,7 @@ class GateStage:
                               "missing_slot_odds": None if odds is None else nearest.missing * odds,
                               "missing_type": nearest.missing_type, "foreign_slots": nearest.foreign}
             utterance.check_deadline()
+        conf = recogniser_confidence(utterance)
         return GateFeatures(
             posterior=top,
             margin=top - runner_up,
@@ -152,7 +153,8 @@ class GateStage:
             entities=len(utterance.entities),
             corrections=len(utterance.corrections),
             words=len(words),
-            asr_log_conf=recogniser_confidence(utterance),
+            asr_log_conf=conf,
+            asr_no_conf=int(conf is None) if self.settings.asr_gives_conf else None,
             asr_word_mean=recogniser_word_confidence(utterance),
             **backing(utterance, len(words)),
             **text_lm,

@@ -15,7 +15,7 @@ from relay.core.utterance import Correction, Entity, Hypothesis, TraceEntry, Utt
 from relay.live.messages import parse_message
 from stages.gate.features import ASR_LOG_FLOOR, GateFeatures
 from stages.gate.rules import decide
-from stages.gate.settings import GateSettings
+from stages.gate.settings import GateSettings, default_confidence
 from stages.gate.stage import GateStage
 from tests.paths import DATA
 
@@ -429,6 +429,35 @@ def test_the_recognisers_own_confidence_is_a_feature_as_a_log() -> None:
     # A posterior that underflowed to 0 is floored, not -inf.
     utterance.payload = {"nbest": [{"text": "x", "conf": 0.0}]}
     assert gate().features(utterance).asr_log_conf == ASR_LOG_FLOOR
+
+
+def test_a_message_without_any_conf_is_marked_unless_the_recogniser_never_gives_one() -> None:
+    utterance = make_utterance([0.6, 0.4], ["tell the front desk", "tell the front desks"])
+    utterance.payload = {"nbest": [{"text": "tell the front desk"}, {"text": "tell the front desks"}]}
+    assert gate().features(utterance).values()["asr_no_conf"] == 1.0
+    # Told the recogniser never gives one, its absence says nothing: unknown.
+    assert gate(asr_gives_conf=False).features(utterance).values()["asr_no_conf"] is None
+    # A `conf` on any entry, even a later one, is a confidence given.
+    utterance.payload = {"nbest": [{"text": "tell the front desk"}, {"text": "tell the front desks", "conf": 0.3}]}
+    assert gate().features(utterance).values()["asr_no_conf"] == 0.0
+
+
+def test_the_shipped_model_reads_a_missing_conf_as_doubt_only_where_one_is_expected() -> None:
+    text = "book the corvin bandsaw"
+    entity = Entity(id="machine.x", type="machine", name="corvin bandsaw", span=(9, 23), heard="corvin bandsaw",
+                    score=0.97, support=1.0, heard_exactly=1.0, margin=0.6, origin="exact")
+    def sure(stage: GateStage, nbest: list[dict[str, object]]) -> float:
+        utterance = make_utterance([0.9, 0.1], [text, "look the corvin bandsaw"], entities=[entity])
+        utterance.payload = {"nbest": nbest}
+        return float(stage.process(utterance).trace[-1].scores["confidence"])
+    given = [{"text": text, "conf": math.exp(default_confidence().features["asr_log_conf"].center)}]
+    missing = [{"text": text}]
+    # A conf at the model's own centre adds nothing through asr_log_conf, so the two differ by the
+    # missing-conf term alone.
+    assert sure(_default_gate(), missing) < sure(_default_gate(), given)
+    never = GateStage(GateSettings(asr_gives_conf=False), context=CONTEXT)
+    never.load()
+    assert sure(never, missing) == pytest.approx(sure(never, given))
 
 
 def test_the_recognisers_word_probabilities_are_a_feature_as_a_mean_log() -> None:
