@@ -16,7 +16,7 @@ from relay.cli.common import delegate, output_file, show_progress
 from relay.cli.corpus_args import add_corpus_arguments, chosen_config, selected_items
 from relay.core.errors import ConfigError
 from relay.core.yamlsource import load_yaml
-from relay.workbench.evaluate import format_table
+from relay.workbench.evaluate import Summary, format_table
 from relay.workbench.tune import tune
 from relay.workbench.written import dump_yaml, load_commented, merge_in_place, rebase_paths, write_atomically
 
@@ -32,7 +32,8 @@ thresholds swept, and a learned confidence (logistic regression on all the gate'
 including how the in-domain LM judges the finished text) with its threshold swept - and the
 better one on the training utterances is kept. Numbers printed are held-out only: each fold is
 scored with the choice, model included, fitted on the other folds. The written configuration is
-fitted on the whole (filtered) corpus.
+fitted on the whole (filtered) corpus. When more than 5% of the accepted results are still wrong
+held out, it warns: the budget is too small for this recogniser's output.
 
 The search space names stage parameters through the configuration, a group's by dotted
 name, e.g. a YAML file
@@ -82,6 +83,21 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     return _configure(parser)
 
 
+# Held-out wrong accepts above this share of the accepted results draw a warning: the share
+# rehear's own defaults are held to on the example scenarios (README, 'Targets').
+WARN_WRONG_ACCEPTS = 0.05
+
+
+def wrong_accepts_warning(held_out: Summary, max_clarify: float) -> str | None:
+    """What to tell a user whose tuned gate still accepts wrong results too often held out."""
+    if held_out.accepted == 0 or held_out.wrong_accept_rate <= WARN_WRONG_ACCEPTS:
+        return None
+    return (f"rehear tune: warning: held out, {held_out.wrong_accept_rate:.1%} of the accepted results were wrong "
+            f"({held_out.wrong_accepts} of {held_out.accepted}), over {WARN_WRONG_ACCEPTS:.0%}. Asking back at most "
+            f"{max_clarify:.0%} from doubt (--max-clarify), no setting tried did better on this corpus. Raise "
+            "--max-clarify to ask back more, or give the relay better recogniser output, before acting on accepts.")
+
+
 def run(args: argparse.Namespace) -> int:
     loaded = chosen_config(args)
     items, described = selected_items(args, loaded)
@@ -111,6 +127,9 @@ def run(args: argparse.Namespace) -> int:
     held_out = result.held_out
     splits = f" x {args.repeats} splits" if args.repeats > 1 else ""
     print(format_table(held_out, title=f"held-out folds pooled{splits}, {args.corpus} ({described}):"))
+    warning = wrong_accepts_warning(held_out, args.max_clarify)
+    if warning is not None:
+        print(warning, file=sys.stderr)
     header = (f"# rehear tune on {args.corpus} ({described}), {args.folds}-fold{splits} held-out: "
               f"WER {held_out.wer_relay:.1%}, wrong accepts {held_out.wrong_accept_rate:.1%}, "
               f"asked back {held_out.clarify_rate:.1%}, {held_out.asked_doubt:.1%} from doubt "
