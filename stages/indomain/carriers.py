@@ -22,7 +22,7 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from stages.indomain.text import read_slot_values, read_templates
+from stages.indomain.text import read_slot_values, read_templates, slot_marker
 from stages.normalize.tokens import tokenize
 
 __all__ = ["CarrierPhrases", "Unfilled", "marked_lines", "replace_runs", "runs_by_first_word"]
@@ -50,10 +50,6 @@ class _Template:
     slot_types: dict[str, str]  # regex group of each slot -> its entity type
     pattern: re.Pattern[str]
     loose: int = 0  # carrier words that may be any word
-
-
-def _marker(entity_type: str) -> str:
-    return "{" + entity_type + "}"
 
 
 Runs = dict[str, list[tuple[tuple[str, ...], str]]]  # first word -> (words, replacement), longest first
@@ -91,7 +87,7 @@ def marked_lines(templates: Iterable[tuple[str, Sequence[str]]],
                  slot_values: dict[str, list[str]] | None = None) -> list[tuple[str, tuple[str, ...]]]:
     """Distinct in-domain lines as (location, tokens), the lexicon's names and aliases in a
     literal line replaced by their ``{type}`` marker, as a slot of that type would be."""
-    names = runs_by_first_word((tuple(tokenize(value)), _marker(entity_type))
+    names = runs_by_first_word((tuple(tokenize(value)), slot_marker(entity_type))
                                for entity_type, values in (slot_values or {}).items() for value in values)
     seen: set[tuple[str, ...]] = set()
     lines = []
@@ -209,7 +205,7 @@ class CarrierPhrases:
             if start < at:
                 continue  # overlapping spans: the first one stands
             tokens += tokenize(text[at:start])
-            tokens.append(_marker(entity_type))
+            tokens.append(slot_marker(entity_type))
             at = end
         tokens += tokenize(text[at:])
         return tokens

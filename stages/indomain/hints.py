@@ -13,6 +13,8 @@ from collections import Counter, defaultdict
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
+from stages.indomain.text import is_marker
+
 __all__ = ["SlotNeighbours", "slot_neighbours"]
 
 
@@ -58,12 +60,12 @@ def slot_neighbours(lines: Iterable[Sequence[str]]) -> SlotNeighbours:
     starts: Counter[str] = Counter()
     for tokens in {tuple(line) for line in lines}:
         for i, token in enumerate(tokens):
-            if not (token.startswith("{") and token.endswith("}")):
+            if not is_marker(token):
                 continue
             entity_type = token[1:-1]
             slots[entity_type] += 1
             if i == 0:
                 starts[entity_type] += 1
-            elif not tokens[i - 1].startswith("{"):
+            elif not is_marker(tokens[i - 1]):
                 before[tokens[i - 1]][entity_type] += 1
     return SlotNeighbours(dict(before), slots, starts)

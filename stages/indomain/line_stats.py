@@ -21,12 +21,9 @@ from __future__ import annotations
 from collections import Counter
 from collections.abc import Iterable, Sequence
 
-__all__ = ["entity_free_share", "is_marker", "unseen_share"]
+from stages.indomain.text import is_marker
 
-
-def is_marker(token: str) -> bool:
-    """Whether a token of a marked line is an entity's ``{type}`` marker."""
-    return token.startswith("{") and token.endswith("}")
+__all__ = ["entity_free_share", "unseen_share"]
 
 
 def entity_free_share(lines: Iterable[Sequence[str]]) -> float | None:

@@ -29,6 +29,8 @@ import numpy as np
 from rapidfuzz.distance import Levenshtein
 from rapidfuzz.process import cdist, extract, extractOne
 
+from stages.indomain.text import is_marker
+
 __all__ = ["Nearest", "NearestLine"]
 
 
@@ -58,7 +60,7 @@ class NearestLine:
         self._by_length: dict[int, list[str]] = {}
         for line in sorted(coded):
             self._by_length.setdefault(len(line), []).append(line)
-        markers = {code: token for token, code in self._codes.items() if token.startswith("{")}
+        markers = {code: token for token, code in self._codes.items() if is_marker(token)}
         self._slots = {line: [markers[ch] for ch in line if ch in markers] for line in coded}  # markers, in order
 
     def __len__(self) -> int:
@@ -120,7 +122,7 @@ class NearestLine:
                 best, line = int(found[1]), found[0]
         if best is None:
             return None
-        entities = Counter(token for token in tokens if token.startswith("{"))
+        entities = Counter(token for token in tokens if is_marker(token))
         count = sum(entities.values())
         if len(self._slots[line]) > count:
             # Another line as near may have fewer slots (the first such, in the lines' order).

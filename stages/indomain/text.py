@@ -23,7 +23,17 @@ from stages.lexicon.data import read_lexicon
 from stages.lm.kneser_ney import RESERVED
 from stages.normalize.tokens import tokenize
 
-__all__ = ["TextOptions", "TextFormat", "read_sentences", "read_slot_values", "read_templates"]
+__all__ = ["TextOptions", "TextFormat", "is_marker", "read_sentences", "read_slot_values", "read_templates", "slot_marker"]
+
+
+def slot_marker(entity_type: str) -> str:
+    """The token that stands for an entity of ``entity_type`` in marked text: ``{type}``."""
+    return "{" + entity_type + "}"
+
+
+def is_marker(token: str) -> bool:
+    """Whether a token of marked text is an entity's ``{type}`` marker."""
+    return token.startswith("{") and token.endswith("}")
 
 TextFormat = Literal["auto", "plain", "csv", "jsonl"]
 
@@ -225,7 +235,7 @@ def read_templates(path: Path, *, options: TextOptions = TextOptions()) -> Itera
             if i % 2:
                 if not piece:
                     raise InputError("unknown_slot", f"{where}: empty slot {{}}")
-                tokens.append("{" + piece + "}")
+                tokens.append(slot_marker(piece))
             else:
                 tokens += _tokens(piece, where, options)
         if tokens:

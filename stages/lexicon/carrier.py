@@ -14,6 +14,7 @@ from typing import Any
 
 from relay.core.utterance import Hypothesis, Utterance
 from stages.indomain.carriers import CarrierPhrases, Unfilled
+from stages.indomain.text import slot_marker
 from stages.lexicon.anchored import AnchoredHypothesis, anchored_forms, anchored_matches
 from stages.lexicon.choice import Choice, likeliest
 from stages.lexicon.compile import CompiledLexicon
@@ -65,7 +66,7 @@ class CarrierSearch:
             for (start, end), entity_type in spans:
                 if start < at or end <= start:
                     continue
-                marked += heard[at:start] + ["{" + entity_type + "}"]
+                marked += heard[at:start] + [slot_marker(entity_type)]
                 where += list(range(at, start + 1))
                 at = end
             marked += heard[at:]
