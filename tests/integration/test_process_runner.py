@@ -66,8 +66,10 @@ def _tag(result: dict[str, Any]) -> str:
 
 
 def test_results_stage_errors_and_deadlines_from_worker_processes(broker: Any, tmp_path: Path) -> None:
-    path, prefix = make_config(tmp_path, broker, stages=["normalize", {"marker": {"sleep_s": 0.3}}],
-                               limits={"deadline_ms": 100, "chain_runner": "process", "chain_processes": 2})
+    # A deadline a busy machine still meets for the quick messages (at 100 ms, with both cores
+    # taken by other work, the erring message itself ran out of time), and a sleep well past it.
+    path, prefix = make_config(tmp_path, broker, stages=["normalize", {"marker": {"sleep_s": 1.5}}],
+                               limits={"deadline_ms": 1000, "chain_runner": "process", "chain_processes": 2})
     inputs = [message("m-1", "please explode now"), message("m-2", "a slow one"), message("m-3", "Plain words")]
 
     async def scenario() -> None:
