@@ -1,0 +1,151 @@
+"""rehear on a scenario that no default was fitted or chosen on: what a new trade gets out of the box.
+
+The example scenarios the defaults were chosen on (the workshop and the boatyard) stay out of
+this measure; a held-out scenario (examples/glasshouse) is judged with
+
+- **defaults**: the default chain built from its own files, untuned, the gate's shipped
+  confidence (fitted on the other scenarios' corpora only) - what a new user runs first;
+- **tuned on S**: the settings `tune` chooses on scenario S's part (same recogniser), applied
+  with the held-out scenario's files;
+- **in-scenario**: `tune`'s own 5-fold cross-validation on the held-out part (`--repeats`
+  splits pooled): what the user gets after labelling a corpus of their own.
+
+For each: WER (first hypothesis, oracle, rehear), entity recall and precision, wrong accepts,
+asked back from doubt and by policy, the confidence's calibration error, and the right words a
+correction broke. Noise parts (10 dB) are reported apart, as speech nobody could act on.
+
+    python benchmarks/held_out.py [--scenario glasshouse] [--recogniser whisper] [--json out.json]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run as a script from anywhere
+
+from benchmarks.corrections import tally
+from benchmarks.gate_transfer import CORPORA as EVERY_CORPUS
+from benchmarks.gate_transfer import ece_floor, ece_interval, parts
+from benchmarks.results import CORPORA, SCENARIOS
+from relay.workbench.corpus import CorpusItem, read_corpus
+from relay.workbench.defaults import folder_config, load_chain
+from relay.workbench.evaluate import Summary, run_corpus, summarize
+from relay.workbench.gate_model import record, transfer
+from relay.workbench.tune import tune
+from relay.workbench.variants import config_from_dict
+from stages.gate.confidence import confidence
+from stages.gate.settings import default_confidence
+
+ROOT = Path(__file__).resolve().parents[1]
+HELD_OUT = ("glasshouse",)
+
+
+def _main_and_noise(folder: Path, recogniser: str) -> tuple[list[CorpusItem], list[CorpusItem]]:
+    main_name, noise_name = CORPORA[recogniser]
+    every = read_corpus(folder / main_name)
+    noise = [i for i in every if i.tags.get("snr_db") == 15]
+    if (folder / noise_name).exists():
+        noise += read_corpus(folder / noise_name)
+    return [i for i in every if i.tags.get("snr_db") in (None, 20, 25)], noise
+
+
+def _row(summary: Summary, broken: int | None) -> dict[str, Any]:
+    return {"n": summary.utterances, "wer_first": summary.wer_first, "wer_oracle": summary.wer_oracle,
+            "wer": summary.wer_relay, "recall": summary.entity_recall, "precision": summary.entity_precision,
+            "wrong_accepts": summary.wrong_accept_rate, "wrong_of_all": summary.wrong_accepts / max(1, summary.utterances),
+            "asked_doubt": summary.asked_doubt, "asked_policy": summary.asked_policy,
+            "ece": summary.quality.get("ece"), "broken": broken}
+
+
+def _judge(raw: dict[str, Any], folder: Path, items: list[CorpusItem]) -> dict[str, Any]:
+    outcomes = run_corpus(load_chain(raw, base_dir=folder), items)
+    return _row(summarize(outcomes), tally(outcomes)["broken"])
+
+
+def shipped_gate(folder: Path, cache: Path) -> list[dict[str, Any]]:
+    """The shipped confidence on the scenario's recorded results, as benchmarks/gate_transfer.py
+    judges the recipe: AUC, calibration error (with its 95% bootstrap interval and what a
+    calibrated model would show), wrong accepts and doubt at the default threshold."""
+    model = default_confidence()
+    out = []
+    for part, subset in parts(record([folder], EVERY_CORPUS, cache_dir=cache)).items():
+        if not subset:
+            continue
+        p = [confidence(r.values, model) for r in subset]
+        low, high = ece_interval(p, [r.right for r in subset])
+        out.append({"scenario": folder.name, "part": part} | transfer(model, subset, accept=0.8)
+                   | {"ece_low": low, "ece_high": high, "ece_if_calibrated": ece_floor(p)})
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--scenario", action="append", help=f"held-out scenario folder name (default {HELD_OUT[0]})")
+    parser.add_argument("--recogniser", choices=tuple(CORPORA), action="append")
+    parser.add_argument("--max-settings", type=int, default=24)
+    parser.add_argument("--max-clarify", type=float, default=0.3)
+    parser.add_argument("--repeats", type=int, default=5, help="cross-validation splits pooled in-scenario")
+    parser.add_argument("--json", type=Path)
+    args = parser.parse_args(argv)
+    rows: list[dict[str, Any]] = []
+    gate: list[dict[str, Any]] = []
+    with tempfile.TemporaryDirectory() as tmp:
+        cache = Path(tmp)
+        for scenario in args.scenario or HELD_OUT:
+            gate += shipped_gate(ROOT / "examples" / scenario, cache)
+        for recogniser in args.recogniser or tuple(CORPORA):
+            chosen = {}
+            for source in SCENARIOS:
+                folder = ROOT / "examples" / source
+                raw = folder_config(folder, cache_dir=cache)
+                main_part, _ = _main_and_noise(folder, recogniser)
+                chosen[source] = tune(config_from_dict(raw, base_dir=folder), main_part, written=raw,
+                                      max_clarify=args.max_clarify, max_settings=args.max_settings).config
+            for scenario in args.scenario or HELD_OUT:
+                folder = ROOT / "examples" / scenario
+                raw = folder_config(folder, cache_dir=cache)
+                main_part, noise = _main_and_noise(folder, recogniser)
+                parts = (("clean+20 dB", main_part), ("10 dB", noise))
+                for part, items in parts:
+                    if items:
+                        rows.append({"scenario": scenario, "recogniser": recogniser, "how": "untuned defaults",
+                                     "part": part} | _judge(raw, folder, items))
+                for source, config in chosen.items():
+                    for part, items in parts:
+                        if items:
+                            rows.append({"scenario": scenario, "recogniser": recogniser, "how": f"tuned on {source}",
+                                         "part": part} | _judge(raw | {"stages": config["stages"]}, folder, items))
+                result = tune(config_from_dict(raw, base_dir=folder), main_part, written=raw,
+                              max_clarify=args.max_clarify, max_settings=args.max_settings, repeats=args.repeats)
+                rows.append({"scenario": scenario, "recogniser": recogniser,
+                             "how": f"in-scenario (5-fold CV x {args.repeats})", "part": "clean+20 dB"}
+                            | _row(result.held_out, None))
+    print("| scenario | recogniser | settings | part | n | WER first / oracle / rehear | recall / precision "
+          "| wrong accepts (of all) | asked back: doubt + policy | ECE | words broken |")
+    print("|---|---|---|---|---|---|---|---|---|---|---|")
+    for r in rows:
+        ece = "-" if r["ece"] is None else f"{r['ece']:.3f}"
+        broken = "-" if r["broken"] is None else str(r["broken"])
+        print(f"| {r['scenario']} | {r['recogniser']} | {r['how']} | {r['part']} | {r['n']} | "
+              f"{r['wer_first']:.1%} / {r['wer_oracle']:.1%} / {r['wer']:.1%} | {r['recall']:.3f} / {r['precision']:.3f} "
+              f"| {r['wrong_accepts']:.1%} ({r['wrong_of_all']:.1%}) | {r['asked_doubt']:.1%} + {r['asked_policy']:.1%} "
+              f"| {ece} | {broken} |")
+    print("\nThe shipped confidence at accept 0.8 (`benchmarks/gate_transfer.py`'s parts):\n")
+    print("| scenario | part | n | right | AUC | ECE (95%; calibrated) | Brier | accepted | doubt | wrong accepts (of all) |")
+    print("|---|---|---|---|---|---|---|---|---|---|")
+    for g in gate:
+        print(f"| {g['scenario']} | {g['part']} | {g['utterances']:.0f} | {g['right']:.1%} | {g['auc']:.3f} | "
+              f"{g['ece']:.3f} ({g['ece_low']:.3f}-{g['ece_high']:.3f}; {g['ece_if_calibrated']:.3f}) | {g['brier']:.3f} | "
+              f"{g['accepted']:.1%} | {g['asked_doubt']:.1%} | {g['wrong_accepts']:.1%} ({g['wrong_accepts_of_all']:.1%}) |")
+    if args.json is not None:
+        args.json.write_text(json.dumps({"chain": rows, "gate": gate}, indent=1))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
