@@ -87,6 +87,8 @@ stages:
   - lm_rescore                  # the in-domain language model re-ranks the N-best list
   - lexicon                     # misheard domain terms corrected by how they sound
   - gate                        # accept, confirm or ask again: rehear's shipped confidence until tune fits yours
+  # - gate: {{asr_gives_conf: false}}   # in its place if your recogniser never sends a `conf`: then a message
+  #                                   # without one is not read as doubt (`rehear eval` tells you)
 """
 
 
