@@ -160,8 +160,11 @@ def backing(utterance: Utterance, words: int) -> dict[str, Any]:
                                    ("weakest_lead", "margin", min), ("most_overridden", "overridden", max)):
         known = [value for e in entities if (value := getattr(e, attribute)) is not None]
         out[name] = worst(known) if known else None
+    # An entity a correction wrote, read by its words in the text: a correction may write an alias
+    # ("quillan" for the quillan router), which the entry's name would not match.
     corrected = {c.after for c in utterance.corrections}
-    out["invented"] = sum(1 for e in entities if e.name in corrected and not e.heard_exactly)
+    out["invented"] = sum(1 for e in entities
+                          if utterance.text[e.span[0]:e.span[1]] in corrected and not e.heard_exactly)
     out["rewritten"] = sum(len(c.after.split()) for c in utterance.corrections) / max(1, words)
     return out
 

@@ -13,7 +13,7 @@ from relay.core.registry import Registry
 from relay.core.stage import StageContext
 from relay.core.utterance import Correction, Entity, Hypothesis, TraceEntry, Utterance
 from relay.live.messages import parse_message
-from stages.gate.features import ASR_LOG_FLOOR, GateFeatures
+from stages.gate.features import ASR_LOG_FLOOR, GateFeatures, backing
 from stages.gate.rules import decide
 from stages.gate.settings import GateSettings, default_confidence
 from stages.gate.stage import GateStage
@@ -523,3 +523,19 @@ def test_a_correction_no_hypothesis_heard_lowers_confidence() -> None:
     unsure = gate_.process(make_utterance([0.9, 0.1], [text, "x"], entities=[invented],
                                           corrections=[fix])).trace[-1].scores["confidence"]
     assert unsure < sure
+
+
+def test_an_entity_a_correction_wrote_as_an_alias_counts_as_invented() -> None:
+    # The chain wrote "quillan", an alias of the quillan router, over "kettle on" that no
+    # hypothesis held as the alias: invented, though the entry's name is not the words written.
+    # ("quillan" sits at characters 7-14 of the text.)
+    text = "is the quillan"
+    fix = Correction(stage="lexicon", before="kettle on", after="quillan", score=0.94, reason="phonetic")
+    alias = Entity(id="machine.quillan_router", type="machine", name="quillan router", span=(7, 14), heard="kettle on",
+                   score=0.94, support=0.0, heard_exactly=0.0, margin=0.09, origin="general")
+    utterance = make_utterance([0.6, 0.4], [text, "is the cattle on"], entities=[alias], corrections=[fix])
+    assert backing(utterance, 3)["invented"] == 1
+    # Heard word for word by some hypothesis, the same correction invents nothing.
+    heard = Entity(id="machine.quillan_router", type="machine", name="quillan router", span=(7, 14), heard="quillan",
+                   score=0.94, support=0.5, heard_exactly=0.5, margin=0.09, origin="exact")
+    assert backing(make_utterance([0.6, 0.4], [text, "x"], entities=[heard], corrections=[fix]), 3)["invented"] == 0
