@@ -11,6 +11,7 @@ a valve or dose a chemical is never accepted on voice alone.
 
 from __future__ import annotations
 
+import logging
 import math
 from dataclasses import fields
 from typing import Any, ClassVar
@@ -20,7 +21,7 @@ from pydantic import BaseModel
 from relay.core.errors import ConfigError
 from relay.core.stage import StageContext
 from relay.core.utterance import Utterance
-from stages.gate.confidence import confidence, contributions
+from stages.gate.confidence import ConfidenceModel, confidence, contributions
 from stages.gate.features import (
     GateFeatures,
     backing,
@@ -45,6 +46,10 @@ from stages.normalize.tokens import tokenize
 __all__ = ["GateStage"]
 
 _FEATURE_NAMES = tuple(f.name for f in fields(GateFeatures))
+_log = logging.getLogger("rehear.gate")
+# After this many messages, none with a recogniser `conf`, a gate that reads a missing one as
+# doubt says once that the recogniser may never give one (setting asr_gives_conf).
+CONF_CHECK_MESSAGES = 100
 
 
 # The confidence features read from the in-domain lines (carrier phrases and the nearest line).
@@ -86,6 +91,8 @@ class GateStage:
         self.missing_odds: float | None = None  # log-odds against an in-domain line without entities
         self.unseen: float | None = None  # Good-Turing share of new in-domain words the lines never hold
         self.line_lm: tuple[float, float] | None = None  # mean and spread of the in-domain lines' LM per word
+        self._conf_checked = 0  # messages looked at for a recogniser `conf`, up to CONF_CHECK_MESSAGES
+        self._conf_seen = False
         self.safety = SafetyRule(settings.safety_words, settings.safety_types,
                                  min_posterior=settings.safety_min_posterior)
 
@@ -102,6 +109,18 @@ class GateStage:
             self.unseen = unseen_share(marked)
         if self.lm is not None and self.text_path is not None:
             self.line_lm = line_scores(self.lm, self.text_path, self.lexicon_path)
+
+    def _check_conf(self, given: bool, model: ConfidenceModel | None) -> None:
+        """Warn once when the first CONF_CHECK_MESSAGES messages all lack a `conf` and the
+        confidence reads that as doubt: every result would pay for it (the price is measured in
+        relay/workbench/README.md, 'No confidence given')."""
+        self._conf_seen = self._conf_seen or given
+        self._conf_checked += 1
+        if (self._conf_checked == CONF_CHECK_MESSAGES and not self._conf_seen and model is not None
+                and "asr_no_conf" in model.features):
+            _log.warning(f"none of the first {CONF_CHECK_MESSAGES} messages gave a recogniser `conf`, and the gate's "
+                         "confidence reads a missing one as doubt; if the recogniser never gives one, set "
+                         "asr_gives_conf: false in the gate's settings")
 
     def features(self, utterance: Utterance) -> GateFeatures:
         ranked = utterance.ranked()
@@ -164,6 +183,8 @@ class GateStage:
     def process(self, utterance: Utterance) -> Utterance:
         features = self.features(utterance)
         model = self.settings.model()
+        if self._conf_checked < CONF_CHECK_MESSAGES and features.asr_no_conf is not None:
+            self._check_conf(features.asr_no_conf == 0, model)
         why: dict[str, Any] = {}
         sure = None
         if model is not None and not features.empty:

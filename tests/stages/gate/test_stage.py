@@ -1,5 +1,6 @@
 from __future__ import annotations
 
+import logging
 import math
 from pathlib import Path
 
@@ -539,3 +540,27 @@ def test_an_entity_a_correction_wrote_as_an_alias_counts_as_invented() -> None:
     heard = Entity(id="machine.quillan_router", type="machine", name="quillan router", span=(7, 14), heard="quillan",
                    score=0.94, support=0.5, heard_exactly=0.5, margin=0.09, origin="exact")
     assert backing(make_utterance([0.6, 0.4], [text, "x"], entities=[heard], corrections=[fix]), 3)["invented"] == 0
+
+
+def test_the_gate_warns_once_when_the_first_messages_never_give_a_conf(caplog: pytest.LogCaptureFixture) -> None:
+    from stages.gate.stage import CONF_CHECK_MESSAGES
+
+    def run(stage: GateStage, messages: int, conf_at: int | None = None) -> list[str]:
+        caplog.clear()
+        with caplog.at_level(logging.WARNING, logger="rehear.gate"):
+            for number in range(messages):
+                utterance = make_utterance([0.9, 0.1], ["tell the front desk", "x"])
+                entry: dict[str, object] = {"text": "tell the front desk"}
+                if number == conf_at:
+                    entry["conf"] = 0.4
+                utterance.payload = {"nbest": [entry]}
+                stage.process(utterance)
+        return [r.getMessage() for r in caplog.records if r.name == "rehear.gate"]
+
+    warned = run(_default_gate(), CONF_CHECK_MESSAGES + 20)
+    assert len(warned) == 1 and "asr_gives_conf: false" in warned[0]
+    assert run(_default_gate(), CONF_CHECK_MESSAGES - 1) == []  # too few to tell
+    assert run(_default_gate(), CONF_CHECK_MESSAGES, conf_at=CONF_CHECK_MESSAGES - 1) == []  # one gave it
+    told = GateStage(GateSettings(asr_gives_conf=False), context=CONTEXT)
+    told.load()
+    assert run(told, CONF_CHECK_MESSAGES) == []
