@@ -11,6 +11,7 @@ from typing import Any
 import orjson
 import yaml
 from ruamel.yaml.comments import CommentedMap
+from tqdm import tqdm
 
 from relay.cli.common import delegate, output_file, show_progress
 from relay.cli.corpus_args import add_corpus_arguments, chosen_config, selected_items
@@ -33,7 +34,8 @@ including how the in-domain LM judges the finished text) with its threshold swep
 better one on the training utterances is kept. Numbers printed are held-out only: each fold is
 scored with the choice, model included, fitted on the other folds. The written configuration is
 fitted on the whole (filtered) corpus. When more than 5% of the accepted results are still wrong
-held out, it warns: the budget is too small for this recogniser's output.
+held out, it warns (the budget is too small for this recogniser's output) and shows the held-out
+numbers at larger budgets, refitting only the gate.
 
 The search space names stage parameters through the configuration, a group's by dotted
 name, e.g. a YAML file
@@ -98,6 +100,21 @@ def wrong_accepts_warning(held_out: Summary, max_clarify: float) -> str | None:
             "--max-clarify to ask back more, or give the relay better recogniser output, before acting on accepts.")
 
 
+# Doubt budgets the warning looks at, above the one given: what asking back more would have bought.
+LARGER_BUDGETS = (0.4, 0.5, 0.6, 0.7, 0.8)
+
+
+def budget_lines(curve: list[tuple[float, Summary]]) -> str:
+    """The held-out wrong accepts at larger budgets, and the smallest that keeps them within
+    WARN_WRONG_ACCEPTS, for the warning."""
+    lines = [f"  --max-clarify {budget:.1f}: wrong accepts {s.wrong_accept_rate:.1%} ({s.wrong_accepts} of "
+             f"{s.accepted} accepted), asked back from doubt {s.asked_doubt:.1%}" for budget, s in curve]
+    enough = [budget for budget, s in curve if s.accepted and s.wrong_accept_rate <= WARN_WRONG_ACCEPTS]
+    lines.append(f"  the smallest of these within {WARN_WRONG_ACCEPTS:.0%}: --max-clarify {enough[0]:.1f}" if enough
+                 else f"  none of these keeps wrong accepts within {WARN_WRONG_ACCEPTS:.0%}")
+    return "held out (the first split), had tune asked back more:\n" + "\n".join(lines)
+
+
 def run(args: argparse.Namespace) -> int:
     loaded = chosen_config(args)
     items, described = selected_items(args, loaded)
@@ -130,6 +147,11 @@ def run(args: argparse.Namespace) -> int:
     warning = wrong_accepts_warning(held_out, args.max_clarify)
     if warning is not None:
         print(warning, file=sys.stderr)
+        budgets = [b for b in LARGER_BUDGETS if b > args.max_clarify + 1e-9]
+        if budgets:
+            curve = [(b, result.at_budget(b)) for b in tqdm(budgets, desc="larger budgets", unit="budget",
+                                                             disable=not show_progress(args))]
+            print(budget_lines(curve), file=sys.stderr)
     header = (f"# rehear tune on {args.corpus} ({described}), {args.folds}-fold{splits} held-out: "
               f"WER {held_out.wer_relay:.1%}, wrong accepts {held_out.wrong_accept_rate:.1%}, "
               f"asked back {held_out.clarify_rate:.1%}, {held_out.asked_doubt:.1%} from doubt "

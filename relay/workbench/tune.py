@@ -95,6 +95,9 @@ class TuneResult:
     held_out: Summary  # every repeat's held-out folds pooled: each utterance counts once a repeat
     config: dict[str, Any]  # the written form, with the final choice (fitted on every utterance)
     stages: list[Any]  # the written stages: list with the tuned parameters (and the gate, when it was added)
+    # The held-out numbers had the doubt budget been another (the first split's folds, refitted
+    # on the runs already made: only the gate fits cost again).
+    at_budget: Callable[[float], Summary]
 
 
 def tune(loaded: LoadedConfig, items: Sequence[CorpusItem], *, written: dict[str, Any],
@@ -134,6 +137,12 @@ def tune(loaded: LoadedConfig, items: Sequence[CorpusItem], *, written: dict[str
         for result in cross_validate(splits, lambda train: fit(recorded, train, max_clarify=max_clarify), score):
             results.append(replace(result, fold=repeat * folds + result.fold))
     held_out = held_out_summary(runs, results, base_gate)
+
+    def at_budget(budget: float) -> Summary:
+        splits = make_folds(len(items), folds, seed)
+        return held_out_summary(runs, list(cross_validate(
+            splits, lambda train: fit(recorded, train, max_clarify=budget), score)), base_gate)
+
     final = fit(recorded, np.arange(len(items)), max_clarify=max_clarify)
     dumped = gate_settings(base_gate, final.gate).model_dump(mode="json")
     extra = ("reprompt_confidence",) if "accept_confidence" in final.gate else ()
@@ -145,4 +154,4 @@ def tune(loaded: LoadedConfig, items: Sequence[CorpusItem], *, written: dict[str
     overrides = {**settings[final.setting], gate_spec.name: gate_params}
     config = with_overrides({**written, "stages": stages}, overrides)
     return TuneResult(settings=settings, space=usable, folds=results, held_out=held_out, config=config,
-                      stages=config["stages"])
+                      stages=config["stages"], at_budget=at_budget)

@@ -6,6 +6,7 @@ import os
 import pathlib
 import random
 from pathlib import Path
+from types import SimpleNamespace
 from typing import Any, ClassVar
 
 import numpy as np
@@ -20,6 +21,7 @@ from relay.core.registry import Registry
 from relay.core.setting_names import AcceptsOldNames, value_fields
 from relay.core.utterance import Utterance
 from relay.core.yamlsource import load_yaml
+from relay.workbench.corpus import read_corpus
 from relay.workbench.evaluate import Outcome
 from relay.workbench.tuning import (
     DEFAULT_GATE_GRID,
@@ -354,8 +356,11 @@ def test_tune_prints_only_numbers_from_utterances_the_choice_was_not_fitted_on(
     monkeypatch.setattr(tune_workflow, "summarize", spy_summarize)
     monkeypatch.setattr(relay.workbench.tuning, "summarize", spy_summarize)
     corpus = write_corpus(tmp_path / "corpus.jsonl", 80)
+    # A budget above every larger one the wrong-accepts warning would look at, so its refits do not
+    # add to the count (test_a_larger_budget_is_refitted_on_the_same_folds covers them).
     assert tune_command.main([str(corpus), "--config", str(write_config(tmp_path / "relay.yaml")),
-                              "-o", str(tmp_path / "t.yaml"), "--folds", "4", "--no-progress"]) == 0
+                              "-o", str(tmp_path / "t.yaml"), "--folds", "4", "--max-clarify", "0.9",
+                              "--no-progress"]) == 0
     # Four fold fits, then one on everything for the written file; five summaries: four folds and the pool.
     assert len(fitted) == 5 and fitted[4] == set(range(80))
     assert len(scored) == 5
@@ -492,3 +497,24 @@ def test_tune_keeps_comments_writes_paths_relative_to_its_output_and_obeys_the_u
     # Tuned again, the file keeps one header, not two.
     assert tune_command.main([str(corpus), "--config", str(out), "-o", str(out), "--no-progress"]) == 0
     assert out.read_text().count("# rehear tune on ") == 1
+
+
+def test_a_larger_budget_is_refitted_on_the_same_folds(tmp_path: Path) -> None:
+    corpus = write_corpus(tmp_path / "corpus.jsonl", 60)
+    loaded = load_config(write_config(tmp_path / "relay.yaml"))
+    items = read_corpus(corpus)
+    result = tune_workflow.tune(loaded, items, written=load_yaml(tmp_path / "relay.yaml").value, max_clarify=0.25,
+                                folds=3)
+    # The same budget on the same split gives back the numbers tune printed, fold fits and all.
+    assert dataclasses.asdict(result.at_budget(0.25)) == dataclasses.asdict(result.held_out)
+
+
+def test_the_warning_names_the_smallest_larger_budget_that_keeps_wrong_accepts_down() -> None:
+    def held(wrong: int, accepted: int, doubt: float) -> Any:
+        return SimpleNamespace(wrong_accepts=wrong, accepted=accepted, wrong_accept_rate=wrong / accepted,
+                               asked_doubt=doubt)
+
+    text = tune_command.budget_lines([(0.4, held(9, 90, 0.4)), (0.5, held(3, 80, 0.5)), (0.6, held(1, 70, 0.6))])
+    assert "--max-clarify 0.4: wrong accepts 10.0% (9 of 90 accepted), asked back from doubt 40.0%" in text
+    assert text.endswith("the smallest of these within 5%: --max-clarify 0.5")
+    assert tune_command.budget_lines([(0.4, held(9, 90, 0.4))]).endswith("none of these keeps wrong accepts within 5%")
