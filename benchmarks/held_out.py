@@ -31,10 +31,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run as a script 
 from benchmarks.corrections import tally
 from benchmarks.gate_transfer import CORPORA as EVERY_CORPUS
 from benchmarks.gate_transfer import ece_floor, ece_interval, parts
-from benchmarks.results import CORPORA, SCENARIOS
+from benchmarks.results import CORPORA, SCENARIOS, TABLE_HEAD, summary_row, table_row
 from relay.workbench.corpus import CorpusItem, read_corpus
 from relay.workbench.defaults import folder_config, load_chain
-from relay.workbench.evaluate import Summary, run_corpus, summarize
+from relay.workbench.evaluate import run_corpus, summarize
 from relay.workbench.gate_model import record, transfer
 from relay.workbench.tune import tune
 from relay.workbench.variants import config_from_dict
@@ -54,17 +54,9 @@ def _main_and_noise(folder: Path, recogniser: str) -> tuple[list[CorpusItem], li
     return [i for i in every if i.tags.get("snr_db") in (None, 20, 25)], noise
 
 
-def _row(summary: Summary, broken: int | None) -> dict[str, Any]:
-    return {"n": summary.utterances, "wer_first": summary.wer_first, "wer_oracle": summary.wer_oracle,
-            "wer": summary.wer_relay, "recall": summary.entity_recall, "precision": summary.entity_precision,
-            "wrong_accepts": summary.wrong_accept_rate, "wrong_of_all": summary.wrong_accepts / max(1, summary.utterances),
-            "asked_doubt": summary.asked_doubt, "asked_policy": summary.asked_policy,
-            "ece": summary.quality.get("ece"), "broken": broken}
-
-
 def _judge(raw: dict[str, Any], folder: Path, items: list[CorpusItem]) -> dict[str, Any]:
     outcomes = run_corpus(load_chain(raw, base_dir=folder), items)
-    return _row(summarize(outcomes), tally(outcomes)["broken"])
+    return summary_row(summarize(outcomes)) | {"broken": tally(outcomes)["broken"]}
 
 
 def shipped_gate(folder: Path, cache: Path) -> list[dict[str, Any]]:
@@ -124,17 +116,12 @@ def main(argv: list[str] | None = None) -> int:
                               max_clarify=args.max_clarify, max_settings=args.max_settings, repeats=args.repeats)
                 rows.append({"scenario": scenario, "recogniser": recogniser,
                              "how": f"in-scenario (5-fold CV x {args.repeats})", "part": "clean+20 dB"}
-                            | _row(result.held_out, None))
-    print("| scenario | recogniser | settings | part | n | WER first / oracle / rehear | recall / precision "
-          "| wrong accepts (of all) | asked back: doubt + policy | ECE | words broken |")
-    print("|---|---|---|---|---|---|---|---|---|---|---|")
+                            | summary_row(result.held_out) | {"broken": None})
+    print(TABLE_HEAD + " | ECE | words broken |\n" + "|---" * 11 + "|")
     for r in rows:
         ece = "-" if r["ece"] is None else f"{r['ece']:.3f}"
         broken = "-" if r["broken"] is None else str(r["broken"])
-        print(f"| {r['scenario']} | {r['recogniser']} | {r['how']} | {r['part']} | {r['n']} | "
-              f"{r['wer_first']:.1%} / {r['wer_oracle']:.1%} / {r['wer']:.1%} | {r['recall']:.3f} / {r['precision']:.3f} "
-              f"| {r['wrong_accepts']:.1%} ({r['wrong_of_all']:.1%}) | {r['asked_doubt']:.1%} + {r['asked_policy']:.1%} "
-              f"| {ece} | {broken} |")
+        print(f"{table_row(r)} | {ece} | {broken} |")
     print("\nThe shipped confidence at accept 0.8 (`benchmarks/gate_transfer.py`'s parts):\n")
     print("| scenario | part | n | right | AUC | ECE (95%; calibrated) | Brier | accepted | doubt | wrong accepts (of all) |")
     print("|---|---|---|---|---|---|---|---|---|---|")

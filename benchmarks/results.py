@@ -42,12 +42,23 @@ def _run(raw: dict[str, Any], folder: Path, items: list[CorpusItem]) -> Summary:
     return summarize(run_corpus(load_chain(raw, base_dir=folder), items))
 
 
-def _row(summary: Summary) -> dict[str, Any]:
+def summary_row(summary: Summary) -> dict[str, Any]:
     return {"n": summary.utterances, "wer_first": summary.wer_first, "wer_oracle": summary.wer_oracle,
             "wer": summary.wer_relay, "recall": summary.entity_recall, "precision": summary.entity_precision,
             "wrong_accepts": summary.wrong_accept_rate, "asked_doubt": summary.asked_doubt,
             "asked_policy": summary.asked_policy, "wrong_of_all": summary.wrong_accepts / max(1, summary.utterances),
             "ece": summary.quality.get("ece")}
+
+
+TABLE_HEAD = ("| scenario | recogniser | settings | part | n | WER first / oracle / rehear | recall / precision "
+              "| wrong accepts (of all) | asked back: doubt + policy")
+
+
+def table_row(r: dict[str, Any]) -> str:
+    """A row of the results table, without its closing bar (other tables add columns)."""
+    return (f"| {r['scenario']} | {r['recogniser']} | {r['how']} | {r['part']} | {r['n']} | "
+            f"{r['wer_first']:.1%} / {r['wer_oracle']:.1%} / {r['wer']:.1%} | {r['recall']:.3f} / {r['precision']:.3f} "
+            f"| {r['wrong_accepts']:.1%} ({r['wrong_of_all']:.1%}) | {r['asked_doubt']:.1%} + {r['asked_policy']:.1%}")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -83,25 +94,21 @@ def main(argv: list[str] | None = None) -> int:
                               max_settings=args.max_settings, repeats=args.repeats)
                 tuned[scenario] = result.config
                 rows.append({"scenario": scenario, "recogniser": recogniser, "how": f"in-scenario (5-fold CV x {args.repeats})",
-                             "part": "clean+20-25dB"} | _row(result.held_out))
+                             "part": "clean+20-25dB"} | summary_row(result.held_out))
                 defaults = with_overrides(raw, held_out_gate[scenario])
                 for part, items in (("clean+20-25dB", main_part), ("noise (10 dB; pocketsphinx 15 dB too)", noise)):
                     rows.append({"scenario": scenario, "recogniser": recogniser, "how": "untuned defaults",
-                                 "part": part} | _row(_run(defaults, folder, items)))
+                                 "part": part} | summary_row(_run(defaults, folder, items)))
             for scenario in SCENARIOS:
                 other = next(s for s in SCENARIOS if s != scenario)
                 folder = ROOT / "examples" / scenario
                 crossed = folder_config(folder, cache_dir=cache) | {"stages": tuned[other]["stages"]}
                 for part, items in zip(("clean+20-25dB", "noise (10 dB; pocketsphinx 15 dB too)"), data[scenario]):
                     rows.append({"scenario": scenario, "recogniser": recogniser, "how": f"tuned on {other}",
-                                 "part": part} | _row(_run(crossed, folder, items)))
-    print("| scenario | recogniser | settings | part | n | WER first / oracle / rehear | recall / precision "
-          "| wrong accepts (of all) | asked back: doubt + policy |")
-    print("|---|---|---|---|---|---|---|---|---|")
+                                 "part": part} | summary_row(_run(crossed, folder, items)))
+    print(TABLE_HEAD + " |\n" + "|---" * 9 + "|")
     for r in rows:
-        print(f"| {r['scenario']} | {r['recogniser']} | {r['how']} | {r['part']} | {r['n']} | "
-              f"{r['wer_first']:.1%} / {r['wer_oracle']:.1%} / {r['wer']:.1%} | {r['recall']:.3f} / {r['precision']:.3f} "
-              f"| {r['wrong_accepts']:.1%} ({r['wrong_of_all']:.1%}) | {r['asked_doubt']:.1%} + {r['asked_policy']:.1%} |")
+        print(table_row(r) + " |")
     if args.json is not None:
         args.json.write_text(json.dumps(rows, indent=1))
     return 0
