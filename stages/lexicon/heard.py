@@ -35,6 +35,12 @@ def _frequency(word: str, zipf: Mapping[str, float]) -> float:
     known = zipf.get(word)
     if known is not None:
         return known
+    # The possessive or the clitic "is"/"has" of an everyday word ("the power's gone", "the boat's
+    # keel") is an everyday word too: the list holds "it's" and "people's", not every noun's.
+    if word.endswith("'s") and len(word) > 4:
+        return max(0.0, _frequency(word[:-2], zipf) - 0.5)
+    if word.endswith("s'") and len(word) > 4:
+        return max(0.0, _frequency(word[:-1], zipf) - 0.5)
     for suffix in _SUFFIXES:
         if word.endswith(suffix) and len(word) - len(suffix) >= 3:
             stem = word[: -len(suffix)]
