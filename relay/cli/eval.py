@@ -17,6 +17,7 @@ from relay.core.stage import deciding_stage
 from relay.workbench.evaluate import Outcome, format_table, result_line, run_corpus, summarize
 from relay.workbench.written import write_atomically
 from stages.gate.confidence import ConfidenceModel
+from stages.gate.stage import missing_conf_advice
 
 __all__ = ["add_parser", "run"]
 
@@ -56,16 +57,13 @@ def _model_of(gate: object) -> ConfidenceModel | None:
 
 
 def conf_note(outcomes: Sequence[Outcome], model: ConfidenceModel | None, corpus: object) -> str | None:
-    """Advice when the gate reads a missing recogniser `conf` as doubt and no message gave one:
-    a recogniser that never gives one should say so, or every result pays for it."""
+    """The gate's advice when no message of the corpus gave a recogniser `conf` (missing_conf_advice);
+    None when one did, or when the gate was told the recogniser never gives one."""
     features = [o.gate for o in outcomes if o.gate is not None]
-    if model is None or "asr_no_conf" not in model.features or not features:
+    if not features or any(f.asr_no_conf != 1 for f in features):
         return None
-    if any(f.asr_no_conf != 1 for f in features):
-        return None
-    return (f"note: no message of {corpus} gives a `conf`, and the gate's confidence reads a missing one as "
-            "doubt (asr_no_conf). If your recogniser never gives one, set `asr_gives_conf: false` in the "
-            "gate's settings.")
+    advice = missing_conf_advice(model, f"the messages of {corpus}")
+    return None if advice is None else f"note: {advice}"
 
 
 def run(args: argparse.Namespace) -> int:

@@ -43,13 +43,23 @@ from stages.lm.model import shared_model
 from stages.lm.rescore import lm_per_word
 from stages.normalize.tokens import tokenize
 
-__all__ = ["GateStage"]
+__all__ = ["GateStage", "missing_conf_advice"]
 
 _FEATURE_NAMES = tuple(f.name for f in fields(GateFeatures))
 _log = logging.getLogger("rehear.gate")
 # After this many messages, none with a recogniser `conf`, a gate that reads a missing one as
 # doubt says once that the recogniser may never give one (setting asr_gives_conf).
 CONF_CHECK_MESSAGES = 100
+
+
+def missing_conf_advice(model: ConfidenceModel | None, where: str) -> str | None:
+    """What to tell a user when none of ``where`` gave a recogniser `conf`, if ``model`` reads its
+    absence as doubt (every result would pay for it; the price is measured in
+    relay/workbench/README.md, 'No confidence given'); None when it does not."""
+    if model is None or "asr_no_conf" not in model.features:
+        return None
+    return (f"none of {where} gave a recogniser `conf`, and the gate's confidence reads a missing one as doubt "
+            "(asr_no_conf); if the recogniser never gives one, set `asr_gives_conf: false` in the gate's settings")
 
 
 # The confidence features read from the in-domain lines (carrier phrases and the nearest line).
@@ -111,16 +121,13 @@ class GateStage:
             self.line_lm = line_scores(self.lm, self.text_path, self.lexicon_path)
 
     def _check_conf(self, given: bool, model: ConfidenceModel | None) -> None:
-        """Warn once when the first CONF_CHECK_MESSAGES messages all lack a `conf` and the
-        confidence reads that as doubt: every result would pay for it (the price is measured in
-        relay/workbench/README.md, 'No confidence given')."""
+        """Warn once when the first CONF_CHECK_MESSAGES messages all lack a `conf` (missing_conf_advice)."""
         self._conf_seen = self._conf_seen or given
         self._conf_checked += 1
-        if (self._conf_checked == CONF_CHECK_MESSAGES and not self._conf_seen and model is not None
-                and "asr_no_conf" in model.features):
-            _log.warning(f"none of the first {CONF_CHECK_MESSAGES} messages gave a recogniser `conf`, and the gate's "
-                         "confidence reads a missing one as doubt; if the recogniser never gives one, set "
-                         "asr_gives_conf: false in the gate's settings")
+        if self._conf_checked == CONF_CHECK_MESSAGES and not self._conf_seen:
+            advice = missing_conf_advice(model, f"the first {CONF_CHECK_MESSAGES} messages")
+            if advice is not None:
+                _log.warning(advice)
 
     def features(self, utterance: Utterance) -> GateFeatures:
         ranked = utterance.ranked()
