@@ -20,12 +20,13 @@ import sys
 import tempfile
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from relay.workbench.evaluate import calibration_error
 from relay.workbench.gate_model import Row, fit_default, record, transfer
-from stages.gate.confidence import confidence
+from stages.gate.confidence import ConfidenceModel, confidence
 
 ROOT = Path(__file__).resolve().parents[1]
 CORPORA = ("corpus.jsonl", "corpus-whisper.jsonl", "corpus-10db-pocketsphinx.jsonl", "corpus-10db-whisper.jsonl")
@@ -60,6 +61,24 @@ def ece_floor(p: Sequence[float], *, draws: int = 1000, seed: int = 0) -> float:
                           for _ in range(draws)]))
 
 
+def judged(model: ConfidenceModel, subset: Sequence[Row], *, accept: float) -> dict[str, float]:
+    """``transfer``'s numbers for the model on ``subset``, with the calibration error's bootstrap
+    interval and what a calibrated model would show on as many results."""
+    p = [confidence(r.values, model) for r in subset]
+    low, high = ece_interval(p, [r.right for r in subset])
+    return transfer(model, subset, accept=accept) | {"ece_low": low, "ece_high": high, "ece_if_calibrated": ece_floor(p)}
+
+
+def print_table(table: Sequence[dict[str, Any]]) -> None:
+    """The rows of ``judged`` with where each model was fitted and judged, as a fixed-width table."""
+    print(f"{'fitted on':9} {'judged on':9} {'part':27} {'n':>4} {'right':>6} {'AUC':>5} {'ECE':>5} {'ECE 95%':>11} {'ECE cal':>7} {'Brier':>5} "
+          f"{'accept':>6} {'doubt':>6} {'policy':>6} {'wrongA':>6} {'wA/all':>6}")
+    for r in table:
+        print(f"{r['fitted_on']:9} {r['judged_on']:9} {r['part']:27} {r['utterances']:4.0f} {r['right']:6.1%} "
+              f"{r['auc']:5.3f} {r['ece']:5.3f} {r['ece_low']:5.3f}-{r['ece_high']:5.3f} {r['ece_if_calibrated']:7.3f} {r['brier']:5.3f} {r['accepted']:6.1%} {r['asked_doubt']:6.1%} "
+              f"{r['asked_policy']:6.1%} {r['wrong_accepts']:6.1%} {r['wrong_accepts_of_all']:6.1%}")
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--accept", type=float, default=0.8, help="accept_confidence to judge at (default 0.8)")
@@ -70,21 +89,13 @@ def main(argv: list[str] | None = None) -> int:
     table = []
     for fitted in SCENARIOS:
         model = fit_default(rows[fitted])
-        for judged in SCENARIOS:
-            if judged == fitted:
+        for judged_on in SCENARIOS:
+            if judged_on == fitted:
                 continue
-            for part, subset in parts(rows[judged]).items():
-                p = [confidence(r.values, model) for r in subset]
-                low, high = ece_interval(p, [r.right for r in subset])
-                table.append({"fitted_on": fitted, "judged_on": judged, "part": part}
-                             | transfer(model, subset, accept=args.accept)
-                             | {"ece_low": low, "ece_high": high, "ece_if_calibrated": ece_floor(p)})
-    print(f"{'fitted on':9} {'judged on':9} {'part':27} {'n':>4} {'right':>6} {'AUC':>5} {'ECE':>5} {'ECE 95%':>11} {'ECE cal':>7} {'Brier':>5} "
-          f"{'accept':>6} {'doubt':>6} {'policy':>6} {'wrongA':>6} {'wA/all':>6}")
-    for r in table:
-        print(f"{r['fitted_on']:9} {r['judged_on']:9} {r['part']:27} {r['utterances']:4.0f} {r['right']:6.1%} "
-              f"{r['auc']:5.3f} {r['ece']:5.3f} {r['ece_low']:5.3f}-{r['ece_high']:5.3f} {r['ece_if_calibrated']:7.3f} {r['brier']:5.3f} {r['accepted']:6.1%} {r['asked_doubt']:6.1%} "
-              f"{r['asked_policy']:6.1%} {r['wrong_accepts']:6.1%} {r['wrong_accepts_of_all']:6.1%}")
+            for part, subset in parts(rows[judged_on]).items():
+                table.append({"fitted_on": fitted, "judged_on": judged_on, "part": part}
+                             | judged(model, subset, accept=args.accept))
+    print_table(table)
     if args.json is not None:
         args.json.write_text(json.dumps(table, indent=1))
     return 0

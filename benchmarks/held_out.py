@@ -30,15 +30,14 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run as a script 
 
 from benchmarks.corrections import tally
 from benchmarks.gate_transfer import CORPORA as EVERY_CORPUS
-from benchmarks.gate_transfer import ece_floor, ece_interval, parts
+from benchmarks.gate_transfer import judged, parts, print_table
 from benchmarks.results import CORPORA, SCENARIOS, TABLE_HEAD, summary_row, table_row
 from relay.workbench.corpus import CorpusItem, read_corpus
 from relay.workbench.defaults import folder_config, load_chain
 from relay.workbench.evaluate import run_corpus, summarize
-from relay.workbench.gate_model import record, transfer
+from relay.workbench.gate_model import record
 from relay.workbench.tune import tune
 from relay.workbench.variants import config_from_dict
-from stages.gate.confidence import confidence
 from stages.gate.settings import default_confidence
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -60,19 +59,11 @@ def _judge(raw: dict[str, Any], folder: Path, items: list[CorpusItem]) -> dict[s
 
 
 def shipped_gate(folder: Path, cache: Path) -> list[dict[str, Any]]:
-    """The shipped confidence on the scenario's recorded results, as benchmarks/gate_transfer.py
-    judges the recipe: AUC, calibration error (with its 95% bootstrap interval and what a
-    calibrated model would show), wrong accepts and doubt at the default threshold."""
+    """The shipped confidence on the scenario's recorded results, judged as
+    benchmarks/gate_transfer.py judges the recipe, at the default threshold."""
     model = default_confidence()
-    out = []
-    for part, subset in parts(record([folder], EVERY_CORPUS, cache_dir=cache)).items():
-        if not subset:
-            continue
-        p = [confidence(r.values, model) for r in subset]
-        low, high = ece_interval(p, [r.right for r in subset])
-        out.append({"scenario": folder.name, "part": part} | transfer(model, subset, accept=0.8)
-                   | {"ece_low": low, "ece_high": high, "ece_if_calibrated": ece_floor(p)})
-    return out
+    return [{"fitted_on": "shipped", "judged_on": folder.name, "part": part} | judged(model, subset, accept=0.8)
+            for part, subset in parts(record([folder], EVERY_CORPUS, cache_dir=cache)).items() if subset]
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -122,13 +113,8 @@ def main(argv: list[str] | None = None) -> int:
         ece = "-" if r["ece"] is None else f"{r['ece']:.3f}"
         broken = "-" if r["broken"] is None else str(r["broken"])
         print(f"{table_row(r)} | {ece} | {broken} |")
-    print("\nThe shipped confidence at accept 0.8 (`benchmarks/gate_transfer.py`'s parts):\n")
-    print("| scenario | part | n | right | AUC | ECE (95%; calibrated) | Brier | accepted | doubt | wrong accepts (of all) |")
-    print("|---|---|---|---|---|---|---|---|---|---|")
-    for g in gate:
-        print(f"| {g['scenario']} | {g['part']} | {g['utterances']:.0f} | {g['right']:.1%} | {g['auc']:.3f} | "
-              f"{g['ece']:.3f} ({g['ece_low']:.3f}-{g['ece_high']:.3f}; {g['ece_if_calibrated']:.3f}) | {g['brier']:.3f} | "
-              f"{g['accepted']:.1%} | {g['asked_doubt']:.1%} | {g['wrong_accepts']:.1%} ({g['wrong_accepts_of_all']:.1%}) |")
+    print("\nThe shipped confidence (fitted on the other scenarios) at accept 0.8:\n")
+    print_table(gate)
     if args.json is not None:
         args.json.write_text(json.dumps({"chain": rows, "gate": gate}, indent=1))
     return 0
