@@ -9,7 +9,7 @@ import pytest
 
 from examples.recording.scenario import load_scenario, load_settings
 from relay.workbench.corpus import read_corpus
-from stages.indomain.text import read_templates
+from stages.indomain.text import is_marker, read_templates
 from stages.lexicon.data import read_lexicon
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -23,7 +23,7 @@ def test_the_scenario_reads_and_its_corpora_name_only_its_entries(name: str) -> 
     load_scenario(folder)
     entries = {e.id: e for e in read_lexicon(folder / "lexicon.csv")}
     types = {e.type for e in entries.values()}
-    slots = {t[1:-1] for _, tokens in read_templates(folder / "train.txt") for t in tokens if t.startswith("{")}
+    slots = {t[1:-1] for _, tokens in read_templates(folder / "train.txt") for t in tokens if is_marker(t)}
     assert slots <= types, f"{name}: train.txt slots {sorted(slots - types)} are no lexicon type"
     for part in settings.parts.values():
         for output in part.outputs.values():
